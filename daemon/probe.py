@@ -1,0 +1,237 @@
+"""Probe profiles: the geometry and heat capacity a reduction needs, read from a small TOML file.
+
+A profile is the only place probe dimensions live, so every reduction (live, offline, calibration) sees
+the same numbers. Values in the file carry trade units (mm, MJ/(m³·K)); the SI accessors are what reduction
+code uses.
+
+Schema (``hardware/probes/*.toml``)::
+
+    [probe]
+    name = "LN-100 lab needle"
+    serial = "LN100-0007"
+    kind = "single"                    # "single" | "dual" | "rod"
+    heater_length_mm = 100.0
+    radius_mm = 0.635                  # outer radius of the heated needle
+    heat_capacity_MJ_per_m3K = 2.5     # volumetric heat capacity of the needle body
+    heater_resistance_ohm = 41.0       # optional, nominal at 20 °C
+    heater_tcr_per_K = 0.0             # optional
+    thermocouple = "T"                 # optional ITS-90 type letter
+    radius_u_mm = 0.01                 # optional standard uncertainty of the radius
+    [[sensor]]
+    name = "heater"                    # CSV column T_heater_C
+    radial_mm = 0.0                    # 0 = inside the heated needle; > 0 = distance from the heater axis
+    axial_mm = 50.0                    # optional, distance from the tip
+    radial_u_mm = 0.1                  # optional standard uncertainty of the spacing
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+KINDS = ("single", "dual", "rod")
+THERMOCOUPLE_TYPES = ("B", "E", "J", "K", "N", "R", "S", "T")
+
+
+class ProbeProfileError(ValueError):
+    """A probe profile is missing a key or holds a value the reduction cannot use."""
+
+
+@dataclass(frozen=True)
+class SensorPosition:
+    """Where one temperature sensor sits relative to the heater."""
+
+    name: str
+    radial_mm: float = 0.0
+    axial_mm: float | None = None
+    radial_u_mm: float | None = None
+
+    @property
+    def is_on_heater(self) -> bool:
+        return self.radial_mm == 0.0
+
+    @property
+    def radial_m(self) -> float:
+        return self.radial_mm * 1e-3
+
+
+@dataclass(frozen=True)
+class ProbeProfile:
+    """One probe: heated needle (or rod) geometry, its heat capacity and its sensors."""
+
+    name: str
+    radius_mm: float
+    heater_length_mm: float | None = None
+    heat_capacity_MJ_per_m3K: float | None = None
+    serial: str = ""
+    kind: str = "single"
+    heater_resistance_ohm: float | None = None
+    heater_tcr_per_K: float = 0.0
+    thermocouple: str | None = None
+    radius_u_mm: float | None = None
+    sensors: tuple[SensorPosition, ...] = field(default_factory=lambda: (SensorPosition("heater"),))
+
+    # --- SI accessors -------------------------------------------------------------------------------------
+    @property
+    def radius_m(self) -> float:
+        return self.radius_mm * 1e-3
+
+    @property
+    def radius_u_m(self) -> float:
+        """Standard uncertainty of the radius; 1 % of it when the profile does not say (no source)."""
+        return (self.radius_u_mm if self.radius_u_mm is not None else 0.01 * self.radius_mm) * 1e-3
+
+    @property
+    def length_m(self) -> float | None:
+        return None if self.heater_length_mm is None else self.heater_length_mm * 1e-3
+
+    @property
+    def heat_capacity_J_per_m3K(self) -> float | None:
+        return None if self.heat_capacity_MJ_per_m3K is None else self.heat_capacity_MJ_per_m3K * 1e6
+
+    @property
+    def heat_capacity_J_per_mK(self) -> float | None:
+        """Heat capacity per unit length of the heated needle, S = π a² ρc."""
+        c = self.heat_capacity_J_per_m3K
+        return None if c is None else math.pi * self.radius_m**2 * c
+
+    def sensor(self, name: str) -> SensorPosition:
+        for s in self.sensors:
+            if s.name == name:
+                return s
+        known = ", ".join(s.name for s in self.sensors)
+        raise ProbeProfileError(f"probe {self.name!r} has no sensor {name!r} (it has: {known})")
+
+    def has_sensor(self, name: str) -> bool:
+        return any(s.name == name for s in self.sensors)
+
+    def spacing_m(self, name: str) -> float:
+        """Radial distance of a sensor from the heater axis; 0 for a sensor inside the heated needle."""
+        return self.sensor(name).radial_m
+
+    def sensor_radius_m(self, name: str) -> float:
+        """Radius at which the sensor sees the medium: the needle radius for a sensor inside the heater."""
+        s = self.sensor(name)
+        return self.radius_m if s.is_on_heater else s.radial_m
+
+    def sensor_radius_u_m(self, name: str) -> float:
+        s = self.sensor(name)
+        if s.is_on_heater:
+            return self.radius_u_m
+        u = s.radial_u_mm if s.radial_u_mm is not None else 0.01 * s.radial_mm
+        return u * 1e-3
+
+    def with_sensor(self, name: str, radial_mm: float) -> ProbeProfile:
+        """A copy with one sensor's radial position set (added if missing), e.g. from ``--spacing``."""
+        if radial_mm < 0 or not math.isfinite(radial_mm):
+            raise ProbeProfileError(
+                f"sensor {name!r}: spacing must be a finite distance >= 0 mm, got {radial_mm}")
+        sensors = [s for s in self.sensors if s.name != name]
+        old = next((s for s in self.sensors if s.name == name), None)
+        axial = old.axial_mm if old else None
+        sensors.append(SensorPosition(name=name, radial_mm=radial_mm, axial_mm=axial))
+        return replace(self, sensors=tuple(sensors))
+
+
+def _fail(source: str, key: str, expected: str, got: Any = None) -> ProbeProfileError:
+    tail = "" if got is None else f", got {got!r}"
+    return ProbeProfileError(f"{source}: {key} must be {expected}{tail}")
+
+
+def _number(table: dict[str, Any], key: str, source: str, prefix: str, *, required: bool,
+            positive: bool = True, allow_zero: bool = False) -> float | None:
+    if key not in table:
+        if required:
+            raise _fail(source, f"{prefix}{key}", "given (a number)", None)
+        return None
+    v = table[key]
+    if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+        raise _fail(source, f"{prefix}{key}", "a finite number", v)
+    v = float(v)
+    if positive and (v < 0 or (v == 0 and not allow_zero)):
+        raise _fail(source, f"{prefix}{key}", ">= 0" if allow_zero else "> 0", v)
+    return v
+
+
+def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> ProbeProfile:
+    """Build and check a profile from parsed TOML; errors name the source, the key and what is expected."""
+    probe = doc.get("probe")
+    if not isinstance(probe, dict):
+        raise ProbeProfileError(f"{source}: missing [probe] table")
+    known = {"name", "serial", "kind", "heater_length_mm", "radius_mm", "heat_capacity_MJ_per_m3K",
+             "heater_resistance_ohm", "heater_tcr_per_K", "thermocouple", "radius_u_mm"}
+    unknown = sorted(set(probe) - known)
+    if unknown:
+        raise ProbeProfileError(
+            f"{source}: unknown key probe.{unknown[0]} (known keys: {', '.join(sorted(known))})")
+    name = probe.get("name")
+    if not isinstance(name, str) or not name.strip():
+        raise _fail(source, "probe.name", "a non-empty string", name)
+    serial = probe.get("serial", "")
+    if not isinstance(serial, str):
+        raise _fail(source, "probe.serial", "a string", serial)
+    kind = probe.get("kind", "single")
+    if kind not in KINDS:
+        raise _fail(source, "probe.kind", f"one of {', '.join(KINDS)}", kind)
+    radius = _number(probe, "radius_mm", source, "probe.", required=True)
+    length = _number(probe, "heater_length_mm", source, "probe.", required=True)
+    cap = _number(probe, "heat_capacity_MJ_per_m3K", source, "probe.", required=False)
+    res = _number(probe, "heater_resistance_ohm", source, "probe.", required=False)
+    tcr = _number(probe, "heater_tcr_per_K", source, "probe.", required=False, positive=False)
+    radius_u = _number(probe, "radius_u_mm", source, "probe.", required=False, allow_zero=True)
+    tc = probe.get("thermocouple")
+    if tc is not None and (not isinstance(tc, str) or tc.upper() not in THERMOCOUPLE_TYPES):
+        raise _fail(source, "probe.thermocouple", f"one of {', '.join(THERMOCOUPLE_TYPES)}", tc)
+    assert radius is not None and length is not None
+    if length <= 2 * radius:
+        raise _fail(source, "probe.heater_length_mm", "longer than the needle diameter", length)
+
+    raw_sensors = doc.get("sensor", [])
+    if not isinstance(raw_sensors, list) or not raw_sensors:
+        raise ProbeProfileError(f"{source}: at least one [[sensor]] table is needed (name, radial_mm)")
+    sensors: list[SensorPosition] = []
+    for i, s in enumerate(raw_sensors):
+        where = f"sensor[{i}]."
+        if not isinstance(s, dict):
+            raise ProbeProfileError(f"{source}: sensor[{i}] must be a table")
+        extra = sorted(set(s) - {"name", "radial_mm", "axial_mm", "radial_u_mm"})
+        if extra:
+            raise ProbeProfileError(f"{source}: unknown key {where}{extra[0]} "
+                                    "(known: name, radial_mm, axial_mm, radial_u_mm)")
+        sname = s.get("name")
+        if not isinstance(sname, str) or not sname or not all(c.isalnum() or c == "_" for c in sname):
+            raise _fail(source, f"{where}name", "a name of letters, digits or _ (it names the CSV column "
+                        "T_<name>_C)", sname)
+        if any(x.name == sname for x in sensors):
+            raise _fail(source, f"{where}name", "unique among the sensors", sname)
+        radial = _number(s, "radial_mm", source, where, required=True, allow_zero=True)
+        axial = _number(s, "axial_mm", source, where, required=False, allow_zero=True)
+        radial_u = _number(s, "radial_u_mm", source, where, required=False, allow_zero=True)
+        assert radial is not None
+        if axial is not None and axial > length:
+            raise _fail(source, f"{where}axial_mm", f"within the heater length ({length} mm)", axial)
+        if 0.0 < radial <= radius:
+            raise _fail(source, f"{where}radial_mm",
+                        f"0 (inside the heater) or beyond the needle radius ({radius} mm)", radial)
+        sensors.append(SensorPosition(sname, radial, axial, radial_u))
+    return ProbeProfile(name=name, radius_mm=radius, heater_length_mm=length, heat_capacity_MJ_per_m3K=cap,
+                        serial=serial, kind=kind, heater_resistance_ohm=res, heater_tcr_per_K=tcr or 0.0,
+                        thermocouple=tc.upper() if isinstance(tc, str) else None, radius_u_mm=radius_u,
+                        sensors=tuple(sensors))
+
+
+def load_probe_profile(path: str | Path) -> ProbeProfile:
+    """Read a probe profile TOML file."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except OSError as e:
+        raise ProbeProfileError(f"{p}: cannot read probe profile ({e.strerror or e})") from e
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise ProbeProfileError(f"{p}: not valid TOML ({e})") from e
+    return profile_from_dict(doc, str(p))

@@ -1,0 +1,332 @@
+"""Incremental late-time line-source reduction: one estimate per sample, at constant cost.
+
+Each heating sample is turned into the superposition regressors (see ``superposition``): u = X/Q ("equivalent
+ln t", exactly ln t at constant power) and y = ΔT/Q, so y = u/(4πk) + c whatever the power did. Prefix sums of
+u, y, their products and lag-1 products let any window [start, now] be fitted in O(1): slope, intercept,
+residual RMS, lag-1 autocorrelation of the residuals and a quadratic-curvature test. The window is chosen by
+the same rule as offline (``window``); the verdict by ``stability``. Only the heating phase is handled here.
+
+Temperatures may be in K or °C: only differences are used.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from ..probe import ProbeProfile
+from . import window as win
+from .drift import Baseline, fit_baseline, no_baseline
+from .stability import StabilityTracker
+from .stats import ar1_inflation
+
+MIN_POINTS = 10
+MIN_SPAN_LN = 0.25          # window must cover at least this much ln t before an estimate is published
+SHORT_SPAN_LN = 1.0         # shorter than a factor e in time: window_short (common practice, no source)
+FLOOR_FRACTION = 0.1        # window never starts before 0.1·t_now (common practice, no source)
+START_TOL = 0.01            # slope error allowed at the window start (probe criterion, see window.py)
+NOISE_HIGH_FRACTION = 0.05  # residual RMS above 5 % of the slope (K per ln-unit): noise_high (no source)
+TREND_TOL = 0.02            # local slope drifts > 2 % over the window with z > 3: residual_trend (no source)
+DEFAULT_POWER_U_REL = 0.005  # power readback standard uncertainty (relative), common practice, no source
+
+# columns of the prefix-sum table
+_N_COLS = 14
+(_U, _Y, _UU, _UY, _YY, _U3, _U4, _U2Y, _PYY, _PYU, _PUY, _PUU, _PU, _PY) = range(_N_COLS)
+
+
+@dataclass(frozen=True)
+class LiveEstimate:
+    """The running estimate after one sample (SI values; ``to_dict`` for JSON)."""
+
+    t_s: float
+    k_W_per_mK: float
+    k_u_W_per_mK: float
+    k_u_stat_W_per_mK: float
+    slope_K: float
+    intercept_K: float
+    window_s: tuple[float, float]
+    stable: bool
+    stable_at_s: float | None
+    residual_rms_K: float
+    n_used: int
+    flags: tuple[str, ...]
+    alpha_m2_per_s: float | None
+    q_mean_W_per_m: float
+    rise_K: float
+    rho1: float
+
+    def to_dict(self) -> dict[str, object]:
+        d = asdict(self)
+        d["window_s"] = list(self.window_s)
+        d["flags"] = list(self.flags)
+        for key, v in d.items():
+            if isinstance(v, float) and not math.isfinite(v):
+                d[key] = None
+        return d
+
+
+class LiveReducer:
+    """Feed samples with ``add``; get a ``LiveEstimate`` once a window can be fitted."""
+
+    def __init__(self, probe: ProbeProfile | None = None, sensor: str = "heater", tolerance: float = 0.01,
+                 target_rel_u: float = 0.02, *, calibration_factor: float = 1.0,
+                 calibration_factor_u: float = 0.0, power_u_rel: float = DEFAULT_POWER_U_REL,
+                 max_rise_K: float | None = None) -> None:
+        self.probe = probe
+        self.sensor = sensor
+        self.r_m: float | None = None
+        self.alpha_J_factor: float | None = None  # α_J = factor·ρc_medium
+        self.length_m: float | None = None
+        self.axial_m: float | None = None
+        if probe is not None:
+            self.r_m = probe.sensor_radius_m(sensor) if probe.has_sensor(sensor) else probe.radius_m
+            on_heater = not probe.has_sensor(sensor) or probe.sensor(sensor).is_on_heater
+            cap = probe.heat_capacity_J_per_m3K
+            if on_heater and cap:
+                self.alpha_J_factor = 2.0 / cap
+            self.length_m = probe.length_m
+            if probe.has_sensor(sensor) and probe.sensor(sensor).axial_mm is not None:
+                self.axial_m = probe.sensor(sensor).axial_mm * 1e-3  # type: ignore[operator]
+        self.calibration_factor = calibration_factor
+        self.calibration_factor_u = calibration_factor_u
+        self.power_u_rel = power_u_rel
+        self.max_rise_K = max_rise_K
+        self.tracker = StabilityTracker(tolerance=tolerance, target_rel_u=target_rel_u)
+        self._base_t: list[float] = []
+        self._base_T: list[float] = []
+        self.baseline: Baseline | None = None
+        self._last_q = 0.0
+        self._heating_seen = False
+        self._k_raw: float | None = None
+        self._step_t = np.zeros(64)
+        self._step_dq = np.zeros(64)
+        self._n_steps = 0
+        self._cap = 1024
+        self._t = np.zeros(self._cap)
+        self._u = np.zeros(self._cap)
+        self._y = np.zeros(self._cap)
+        self._P = np.zeros((self._cap + 1, _N_COLS))
+        self._n = 0
+        self._alpha: float | None = None
+        self._rise = 0.0
+        self.last: LiveEstimate | None = None
+
+    # --- feeding ------------------------------------------------------------------------------------------
+    def add(self, t_s: float, temp_K: float, q_W_per_m: float) -> LiveEstimate | None:
+        """One sample: s from heater on (< 0 = baseline), temperature, power per metre held from now on."""
+        if t_s < 0:
+            self._base_t.append(t_s)
+            self._base_T.append(temp_K)
+            return None
+        if self.baseline is None:
+            self.baseline = (fit_baseline(np.asarray(self._base_t), np.asarray(self._base_T)) if self._base_t
+                             else no_baseline(temp_K))
+        if not self._heating_seen:  # first row at t >= 0: heater on is t = 0 by definition of the time axis
+            self._heating_seen = True
+            self._push_step(0.0, q_W_per_m)
+        else:
+            self._push_step(t_s, q_W_per_m - self._last_q)
+        self._last_q = q_W_per_m
+        if t_s <= 0:
+            return None
+        steps_t = self._step_t[:self._n_steps]
+        steps_dq = self._step_dq[:self._n_steps]
+        before = steps_t < t_s
+        Q = float(steps_dq[before].sum())
+        if Q <= 0:
+            return self.last
+        X = float(steps_dq[before] @ np.log(t_s - steps_t[before]))
+        dT = temp_K - float(self.baseline.at(t_s))
+        self._rise = max(self._rise, dT)
+        self._append(t_s, X / Q, dT / Q)
+        est = self._estimate(t_s)
+        if est is not None:
+            self.last = est
+        return est
+
+    def _push_step(self, t: float, dq: float) -> None:
+        if dq == 0.0:
+            return
+        if self._n_steps == self._step_t.size:
+            self._step_t = np.concatenate([self._step_t, np.zeros(self._step_t.size)])
+            self._step_dq = np.concatenate([self._step_dq, np.zeros(self._step_dq.size)])
+        self._step_t[self._n_steps] = t
+        self._step_dq[self._n_steps] = dq
+        self._n_steps += 1
+
+    def _append(self, t: float, u: float, y: float) -> None:
+        n = self._n
+        if n == self._cap:
+            self._cap *= 2
+            for name in ("_t", "_u", "_y"):
+                arr = getattr(self, name)
+                setattr(self, name, np.concatenate([arr, np.zeros(arr.size)]))
+            self._P = np.concatenate([self._P, np.zeros((self._cap + 1 - self._P.shape[0], _N_COLS))])
+        self._t[n], self._u[n], self._y[n] = t, u, y
+        row = self._P[n].copy()
+        uu = u * u
+        row[_U] += u
+        row[_Y] += y
+        row[_UU] += uu
+        row[_UY] += u * y
+        row[_YY] += y * y
+        row[_U3] += uu * u
+        row[_U4] += uu * uu
+        row[_U2Y] += uu * y
+        if n > 0:
+            up, yp = self._u[n - 1], self._y[n - 1]
+            row[_PYY] += yp * y
+            row[_PYU] += yp * u
+            row[_PUY] += up * y
+            row[_PUU] += up * u
+            row[_PU] += up + u
+            row[_PY] += yp + y
+        self._P[n + 1] = row
+        self._n = n + 1
+
+    # --- fitting ------------------------------------------------------------------------------------------
+    def _fit(self, i: int, j: int) -> tuple[float, float, float, float, float] | None:
+        """Slope a, intercept b, SSE, lag-1 autocorrelation, Sxx of y = a·u + b over samples [i, j)."""
+        n = j - i
+        if n < 3:
+            return None
+        S = self._P[j] - self._P[i]
+        Su, Sy = S[_U], S[_Y]
+        sxx = S[_UU] - Su * Su / n
+        if sxx <= 0:
+            return None
+        sxy = S[_UY] - Su * Sy / n
+        a = sxy / sxx
+        b = (Sy - a * Su) / n
+        sse = S[_YY] - 2 * a * S[_UY] - 2 * b * Sy + a * a * S[_UU] + 2 * a * b * Su + b * b * n
+        sse = max(sse, 0.0)
+        P2 = self._P[j] - self._P[i + 1]
+        lag = (P2[_PYY] - a * (P2[_PYU] + P2[_PUY]) - b * P2[_PY] + a * a * P2[_PUU] + a * b * P2[_PU]
+               + b * b * (n - 1))
+        rho = lag / sse if sse > 0 else 0.0
+        return a, b, sse, rho, sxx
+
+    def _curvature(self, i: int, j: int, a: float) -> tuple[float, float]:
+        """Relative change of the local slope across [i, j) and its z-score, from the prefix sums."""
+        n = j - i
+        if n < 8:
+            return 0.0, 0.0
+        S = self._P[j] - self._P[i]
+        M = np.array([[n, S[_U], S[_UU]], [S[_U], S[_UU], S[_U3]], [S[_UU], S[_U3], S[_U4]]])
+        v = np.array([S[_Y], S[_UY], S[_U2Y]])
+        try:
+            c = np.linalg.solve(M, v)
+            Minv = np.linalg.inv(M)
+        except np.linalg.LinAlgError:
+            return 0.0, 0.0
+        sse = S[_YY] - float(c @ v)
+        s2 = max(sse, 0.0) / max(n - 3, 1)
+        var_c2 = Minv[2, 2] * s2
+        span = self._u[j - 1] - self._u[i]
+        rel = 2 * c[2] * span / a if a else 0.0
+        z = abs(c[2]) / math.sqrt(var_c2) if var_c2 > 0 else 0.0
+        return float(rel), float(z)
+
+    def _window_start(self, t_now: float, alpha: float | None) -> float:
+        start = FLOOR_FRACTION * t_now
+        if alpha and self.r_m:
+            aj = None
+            if self.alpha_J_factor is not None:
+                aj = self.alpha_J_factor * self._k_raw / alpha if self._k_raw else None
+            start = max(start, win.start_s(self.r_m, alpha, aj, 0.0, START_TOL))
+        return start
+
+    def _estimate(self, t_now: float) -> LiveEstimate | None:
+        n_all = self._n
+        t_arr = self._t[:n_all]
+        alpha = self._alpha
+        t_end = t_now
+        if alpha and self.length_m:
+            t_end = min(t_now, win.axial_end_s(self.length_m, alpha, 0.01, self.axial_m))
+        j = int(np.searchsorted(t_arr, t_end, side="right"))
+        fit = None
+        i = 0
+        for _ in range(3):
+            i = int(np.searchsorted(t_arr, self._window_start(t_now, alpha), side="left"))
+            if j - i < MIN_POINTS:
+                i = max(0, j - MIN_POINTS)
+            fit = self._fit(i, j)
+            if fit is None or fit[0] <= 0:
+                return None
+            a, b = fit[0], fit[1]
+            if self.r_m:
+                new_alpha = win.alpha_from_intercept(self.r_m, -b / a)
+                if alpha and abs(new_alpha / alpha - 1) < 0.05:
+                    alpha = new_alpha
+                    break
+                alpha = new_alpha
+        assert fit is not None
+        a, b, sse, rho, sxx = fit
+        n = j - i
+        t0, t1 = float(self._t[i]), float(self._t[j - 1])
+        span_ln = math.log(t1 / t0) if t0 > 0 else math.inf
+        if n < MIN_POINTS or span_ln < MIN_SPAN_LN:
+            return None
+        self._alpha = alpha
+        q_mean = self._q_mean(t0, t1)
+        s2 = sse / max(n - 2, 1)
+        var_a = s2 / sxx * ar1_inflation(rho)
+        k_raw = 1.0 / (4.0 * math.pi * a)
+        self._k_raw = k_raw
+        k = k_raw * self.calibration_factor
+        rel_stat = math.sqrt(var_a) / a
+        rel_cal = self.calibration_factor_u / self.calibration_factor if self.calibration_factor else 0.0
+        rel_tot = math.sqrt(rel_stat**2 + self.power_u_rel**2 + rel_cal**2)
+        slope_K = a * q_mean
+        rms_K = math.sqrt(sse / n) * q_mean
+        flags: list[str] = []
+        assert self.baseline is not None
+        flags += self.baseline.flags(self._rise, t_now)
+        if span_ln < SHORT_SPAN_LN or n < 20:
+            flags.append("window_short")
+        rel_curv, z_curv = self._curvature(i, j, a)
+        if abs(rel_curv) > TREND_TOL and z_curv > 3.0:
+            flags.append("residual_trend")
+        if rms_K > NOISE_HIGH_FRACTION * slope_K:
+            flags.append("noise_high")
+        if self.max_rise_K is not None and self._rise > self.max_rise_K:
+            flags.append("rise_above_limit")
+        stable = self.tracker.update(t_now, k, rel_stat, flags)
+        return LiveEstimate(t_s=t_now, k_W_per_mK=k, k_u_W_per_mK=k * rel_tot, k_u_stat_W_per_mK=k * rel_stat,
+                            slope_K=slope_K, intercept_K=b * q_mean, window_s=(t0, t1), stable=stable,
+                            stable_at_s=self.tracker.stable_at_s, residual_rms_K=rms_K, n_used=n,
+                            flags=tuple(flags), alpha_m2_per_s=alpha if self.r_m else None,
+                            q_mean_W_per_m=q_mean, rise_K=self._rise, rho1=rho)
+
+    def _q_mean(self, t0: float, t1: float) -> float:
+        """Time-average power over [t0, t1] from the step record (used only to express the fit in kelvin)."""
+        ts = self._step_t[:self._n_steps]
+        levels = np.cumsum(self._step_dq[:self._n_steps])
+        edges = np.clip(np.append(ts, math.inf), t0, t1)
+        w = np.diff(edges)
+        tot = float(w.sum())
+        return float(w @ levels) / tot if tot > 0 else float(levels[-1])
+
+    @property
+    def stable_at_s(self) -> float | None:
+        return self.tracker.stable_at_s
+
+
+def replay(t_s: np.ndarray, temp: np.ndarray, q_W_per_m: np.ndarray, probe: ProbeProfile | None = None,
+           sensor: str = "heater", **kwargs: float) -> tuple[LiveReducer, list[LiveEstimate]]:
+    """Run the live reducer over a recorded heating phase (up to the first zero-power sample after it)."""
+    red = LiveReducer(probe, sensor, **kwargs)  # type: ignore[arg-type]
+    out: list[LiveEstimate] = []
+    heating = False
+    for t, T, q in zip(t_s, temp, q_W_per_m, strict=True):
+        if t >= 0 and q > 0:
+            heating = True
+        elif heating and t > 0 and q <= 0:
+            red.add(float(t), float(T), float(q))
+            break
+        e = red.add(float(t), float(T), float(q))
+        if e is not None and (not out or out[-1] is not e):
+            out.append(e)
+    return red, out
