@@ -1,0 +1,26 @@
+"""Where the socket and the database live unless told otherwise."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+
+def default_socket_path() -> Path:
+    if env := os.environ.get("LINERIG_SOCKET"):
+        return Path(env)
+    run = Path("/run/linerig")
+    if run.is_dir() and os.access(run, os.W_OK):
+        return run / "linerigd.sock"
+    base = os.environ.get("XDG_RUNTIME_DIR") or f"/tmp/linerig-{os.getuid()}"
+    return Path(base) / "linerigd.sock"
+
+
+def default_db_path() -> Path:
+    if env := os.environ.get("LINERIG_DB"):
+        return Path(env)
+    state = Path("/var/lib/linerig")
+    if state.is_dir() and os.access(state, os.W_OK):
+        return state / "linerig.db"
+    base = os.environ.get("XDG_DATA_HOME") or str(Path.home() / ".local" / "share")
+    return Path(base) / "linerig" / "linerig.db"

@@ -1,0 +1,139 @@
+"""The thermocouple front end as a device: commands with acknowledgements, and a stream of samples."""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from daemon.errors import DeviceRejected, DeviceTimeout, LinkError
+from daemon.rig import messages as m
+from daemon.rig.framing import FrameDecoder, encode_frame
+from daemon.rig.transport import SerialTransport
+
+ACK_TIMEOUT_S = 0.5
+RETRIES = 2
+
+
+@dataclass
+class FrontEndHandlers:
+    """Where the reader delivers what the device says; the daemon fills these in."""
+
+    on_sample: Callable[[m.Sample], None] = lambda s: None
+    on_boot: Callable[[m.Boot], None] = lambda b: None
+    on_fault: Callable[[m.Fault], None] = lambda f: None
+    on_link_lost: Callable[[str], None] = lambda why: None
+    on_bad_message: Callable[[str], None] = lambda why: None
+
+
+class FrontEnd:
+    def __init__(self, transport: SerialTransport, handlers: FrontEndHandlers | None = None) -> None:
+        self.transport = transport
+        self.handlers = handlers or FrontEndHandlers()
+        self.decoder = FrameDecoder()
+        self.identity: m.Identity | None = None
+        self.last_status: m.Status | None = None
+        self._seq = 0
+        self._acks: dict[int, asyncio.Future[m.Ack]] = {}
+        self._lock = asyncio.Lock()
+        self._identity_wait: asyncio.Future[m.Identity] | None = None
+        self._status_wait: asyncio.Future[m.Status] | None = None
+
+    async def read_forever(self) -> None:
+        """Run as one task per link. Returns when the link is lost."""
+        while True:
+            try:
+                data = await self.transport.read()
+            except LinkError as exc:
+                self._fail_waiters(exc)
+                self.handlers.on_link_lost(str(exc))
+                return
+            for frame in self.decoder.feed(data):
+                try:
+                    msg = m.parse_message(frame)
+                except m.MessageError as exc:
+                    self.decoder.counters.bad_frames += 1
+                    self.handlers.on_bad_message(str(exc))
+                    continue
+                self._dispatch(msg)
+
+    def _dispatch(self, msg: m.Message | None) -> None:
+        if isinstance(msg, m.Sample):
+            self.handlers.on_sample(msg)
+        elif isinstance(msg, m.Ack):
+            fut = self._acks.get(msg.cmd_seq)
+            if fut is not None and not fut.done():
+                fut.set_result(msg)
+        elif isinstance(msg, m.Identity):
+            self.identity = msg
+            if self._identity_wait and not self._identity_wait.done():
+                self._identity_wait.set_result(msg)
+        elif isinstance(msg, m.Status):
+            self.last_status = msg
+            if self._status_wait and not self._status_wait.done():
+                self._status_wait.set_result(msg)
+        elif isinstance(msg, m.Boot):
+            self.decoder.reset_sequence()
+            self.handlers.on_boot(msg)
+        elif isinstance(msg, m.Fault):
+            self.handlers.on_fault(msg)
+
+    def _fail_waiters(self, exc: Exception) -> None:
+        for fut in self._acks.values():
+            if not fut.done():
+                fut.set_exception(exc)
+
+    async def command(self, kind: str, fields: list[str] | tuple[str, ...] = (),
+                      timeout: float = ACK_TIMEOUT_S) -> m.Ack:
+        """Send a command and wait for its ack, retrying with the same sequence number."""
+        async with self._lock:
+            self._seq = (self._seq + 1) % 65536
+            seq = self._seq
+            fut: asyncio.Future[m.Ack] = asyncio.get_running_loop().create_future()
+            self._acks[seq] = fut
+            frame = encode_frame(kind, seq, list(fields))
+            try:
+                for _ in range(RETRIES + 1):
+                    await self.transport.write(frame)
+                    try:
+                        ack = await asyncio.wait_for(asyncio.shield(fut), timeout)
+                    except TimeoutError:
+                        continue
+                    if not ack.ok:
+                        raise DeviceRejected(kind, ack.detail)
+                    return ack
+                raise DeviceTimeout(f"front end did not acknowledge {kind} after {RETRIES + 1} tries")
+            finally:
+                self._acks.pop(seq, None)
+
+    async def identify(self) -> m.Identity:
+        self._identity_wait = asyncio.get_running_loop().create_future()
+        await self.command(m.CMD_IDENTIFY)
+        return await asyncio.wait_for(self._identity_wait, ACK_TIMEOUT_S)
+
+    async def status(self) -> m.Status:
+        self._status_wait = asyncio.get_running_loop().create_future()
+        await self.command(m.CMD_STATUS)
+        return await asyncio.wait_for(self._status_wait, ACK_TIMEOUT_S)
+
+    async def configure(self, rate_hz: float, tc_type: str, mode: str, heater_length_m: float) -> None:
+        await self.command(m.CMD_CONFIGURE, [f"{rate_hz:g}", tc_type, mode, f"{heater_length_m * 1000:.1f}"])
+
+    async def set_power(self, power_W_per_m: float, lease_s: float) -> None:
+        await self.command(m.CMD_POWER, [f"{power_W_per_m:.4f}", str(int(lease_s * 1000))])
+
+    async def renew_lease(self, lease_s: float) -> None:
+        await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))])
+
+    async def heater_off(self) -> None:
+        await self.command(m.CMD_OFF)
+
+    async def heater_off_best_effort(self) -> bool:
+        """Send OFF without letting a dead link raise; the device lease is the backstop."""
+        with contextlib.suppress(Exception):
+            if self.transport.is_open:
+                await self.transport.write(encode_frame(m.CMD_OFF, (self._seq + 1) % 65536))
+                self._seq = (self._seq + 1) % 65536
+                return True
+        return False

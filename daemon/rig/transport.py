@@ -1,0 +1,107 @@
+"""Bytes in and out of a pyserial URL, without threads.
+
+A real port, a pseudo-terminal and ``socket://`` all come through
+``serial.serial_for_url``. Reading waits on the file descriptor with the event
+loop when the port has one, and polls briefly when it does not.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+
+import serial
+
+from daemon.errors import DeviceTimeout, LinkError
+
+POLL_S = 0.005
+
+
+class SerialTransport:
+    def __init__(self, url: str, baudrate: int = 115200) -> None:
+        self.url = url
+        self.baudrate = baudrate
+        self._port: serial.SerialBase | None = None
+        self._fd: int | None = None
+        self._pending = bytearray()
+
+    @property
+    def is_open(self) -> bool:
+        return self._port is not None
+
+    def open(self) -> None:
+        try:
+            port = serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=0, write_timeout=1.0)
+        except (serial.SerialException, OSError, ValueError) as exc:
+            raise LinkError(f"cannot open {self.url}: {exc}") from exc
+        self._port = port
+        try:
+            self._fd = port.fileno()
+        except (AttributeError, NotImplementedError, serial.SerialException):
+            self._fd = None
+
+    def close(self) -> None:
+        port, self._port = self._port, None
+        if port is not None:
+            with contextlib.suppress(Exception):
+                port.close()
+
+    def _require(self) -> serial.SerialBase:
+        if self._port is None:
+            raise LinkError(f"{self.url} is not open")
+        return self._port
+
+    async def read(self) -> bytes:
+        """Wait for at least one byte and return what is there."""
+        port = self._require()
+        while True:
+            try:
+                data = port.read(max(1, port.in_waiting))
+            except (serial.SerialException, OSError, TypeError) as exc:
+                self.close()
+                raise LinkError(f"{self.url}: {exc}") from exc
+            if data:
+                return data
+            await self._wait_readable()
+
+    async def _wait_readable(self) -> None:
+        if self._fd is None:
+            await asyncio.sleep(POLL_S)
+            return
+        loop = asyncio.get_running_loop()
+        fut: asyncio.Future[None] = loop.create_future()
+        fd = self._fd
+        loop.add_reader(fd, lambda: fut.done() or fut.set_result(None))
+        try:
+            await fut
+        finally:
+            loop.remove_reader(fd)
+
+    async def write(self, data: bytes) -> None:
+        port = self._require()
+        try:
+            port.write(data)
+        except (serial.SerialException, OSError) as exc:
+            self.close()
+            raise LinkError(f"{self.url}: {exc}") from exc
+
+    async def readline(self, timeout: float) -> bytes:
+        """One LF-terminated line (for line protocols such as SCPI)."""
+        async def _line() -> bytes:
+            while b"\n" not in self._pending:
+                self._pending += await self.read()
+            i = self._pending.index(b"\n") + 1
+            line = bytes(self._pending[:i])
+            del self._pending[:i]
+            return line
+
+        try:
+            return await asyncio.wait_for(_line(), timeout)
+        except TimeoutError:
+            raise DeviceTimeout(f"{self.url}: no reply within {timeout:.2f} s") from None
+
+    def discard_input(self) -> None:
+        self._pending.clear()
+        port = self._require()
+        with contextlib.suppress(serial.SerialException, OSError):
+            port.reset_input_buffer()

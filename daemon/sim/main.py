@@ -1,0 +1,85 @@
+"""``linerig-sim``: a simulated rig as its own process, exactly like hardware.
+
+Prints one JSON line on stdout with the device paths and the control socket, then
+runs until SIGTERM/SIGINT. Killing the daemon leaves this process running, so the
+front end's heater lease expires here as it would on a real board.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import json
+import signal
+import sys
+import tempfile
+from pathlib import Path
+
+from daemon.sim.frontend_sim import FrontEndEmulator
+from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, get_material
+from daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from daemon.sim.server import SimServer
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="linerig-sim", description="Simulated line-source rig on pseudo-terminals.")
+    p.add_argument("material", nargs="?", default=DEFAULT_MATERIAL_KEY, help="demo material (see --list)")
+    p.add_argument("--list", action="store_true", help="list the demo materials and exit")
+    p.add_argument("--speed", type=float, default=1.0, help="time-scale factor (simulated seconds per second)")
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--probe", type=Path, help="probe profile TOML (default: a 100 mm lab needle)")
+    p.add_argument("--link-dir", type=Path, help="folder for the stable device names (symlinks)")
+    p.add_argument("--control", type=Path, help="control socket path (fault injection, heater state)")
+    p.add_argument("--heater-log", type=Path, help="append heater on/off events here as JSON lines")
+    p.add_argument("--drift-K-per-h", type=float, default=None, dest="drift", help="ground temperature drift")
+    return p
+
+
+def _probe(path: Path | None) -> ProbeSpec:
+    """The same profile the daemon assumes by default, so both sides agree on sensors and heater."""
+    from daemon.probe import load_probe_profile
+
+    path = path or Path(__file__).resolve().parent.parent / "profiles" / "default-needle.toml"
+    return ProbeSpec.from_profile(load_probe_profile(path))
+
+
+async def _run(args: argparse.Namespace) -> int:
+    material = get_material(args.material)
+    kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
+    rig = SimulatedRig(material, _probe(args.probe), seed=args.seed, **kwargs)
+    frontend = FrontEndEmulator(rig, speed=args.speed, seed=args.seed)
+    link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix="linerig-sim-"))
+    link_dir.mkdir(parents=True, exist_ok=True)
+    server = SimServer(frontend, link_dir, args.heater_log)
+    control = args.control or link_dir / "control.sock"
+    ctl = await server.serve_control(control)
+    loop = asyncio.get_running_loop()
+    for sig in (signal.SIGTERM, signal.SIGINT):
+        loop.add_signal_handler(sig, server.stop)
+    task = asyncio.create_task(server.run())
+    while server.port.master is None and not task.done():
+        await asyncio.sleep(0)
+    print(json.dumps({"frontend": str(link_dir / "frontend"), "control": str(control),
+                      "material": material.key, "speed": args.speed}), flush=True)
+    await task
+    ctl.close()
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    if args.list:
+        for key, mat in MATERIALS.items():
+            print(f"{key:22s} k = {mat.k_W_per_mK:5.2f} W/(m·K)  ρc = {mat.rho_c_J_per_m3K / 1e6:4.2f} MJ/(m³·K)  "
+                  f"{mat.name}")
+        return 0
+    try:
+        get_material(args.material)
+    except KeyError as exc:
+        print(f"linerig-sim: {exc.args[0]}", file=sys.stderr)
+        return 2
+    return asyncio.run(_run(args))
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,153 @@
+"""Pseudo-terminals and a control socket around the simulated devices.
+
+The daemon opens the pty path as it would open /dev/serial/by-id/...; the
+symlinks in ``link_dir`` play the part of those stable names, so an unplug and
+replug (a new pty) keeps the same name, as a USB device does.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import os
+import termios
+import time
+import tty
+from pathlib import Path
+from typing import Any
+
+from daemon.sim.frontend_sim import FrontEndEmulator
+
+TICK_S = 0.01
+
+
+class PtyPort:
+    """One simulated serial device: the master side of a pty, with a stable symlink."""
+
+    def __init__(self, link: Path) -> None:
+        self.link = link
+        self.master: int | None = None
+        self.slave: int | None = None
+        self.slave_path = ""
+
+    def plug(self) -> None:
+        master, slave = os.openpty()
+        tty.setraw(slave)
+        attrs = termios.tcgetattr(slave)
+        attrs[3] &= ~termios.ECHO
+        termios.tcsetattr(slave, termios.TCSANOW, attrs)
+        os.set_blocking(master, False)
+        self.master, self.slave = master, slave
+        self.slave_path = os.ttyname(slave)
+        tmp = self.link.with_suffix(".tmp")
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
+        tmp.symlink_to(self.slave_path)
+        tmp.replace(self.link)
+
+    def unplug(self) -> None:
+        for fd in (self.master, self.slave):
+            if fd is not None:
+                with contextlib.suppress(OSError):
+                    os.close(fd)
+        self.master = self.slave = None
+
+    def read(self) -> bytes:
+        if self.master is None:
+            return b""
+        try:
+            return os.read(self.master, 4096)
+        except (BlockingIOError, OSError):
+            return b""
+
+    def write(self, data: bytes) -> None:
+        if self.master is None or not data:
+            return
+        # A pty with nobody reading fills up; a real device would drop bytes too.
+        with contextlib.suppress(BlockingIOError, OSError):
+            os.write(self.master, data)
+
+
+class SimServer:
+    def __init__(self, frontend: FrontEndEmulator, link_dir: Path, heater_log: Path | None) -> None:
+        self.frontend = frontend
+        self.link_dir = link_dir
+        self.port = PtyPort(link_dir / "frontend")
+        self.heater_log = heater_log
+        self.heater_events: list[dict[str, Any]] = []
+        frontend.log_heater = self._log_heater
+        self._stop = asyncio.Event()
+
+    def _log_heater(self, event: dict[str, Any]) -> None:
+        event = {"wall": time.time(), **event}
+        self.heater_events.append(event)
+        if self.heater_log is not None:
+            with self.heater_log.open("a") as fh:
+                fh.write(json.dumps(event) + "\n")
+                fh.flush()
+                os.fsync(fh.fileno())
+
+    async def run(self) -> None:
+        self.port.plug()
+        while not self._stop.is_set():
+            wall = time.monotonic()
+            data = self.port.read()
+            if data:
+                self.frontend.receive(data, wall)
+            for chunk in self.frontend.tick(wall):
+                self.port.write(chunk)
+            with contextlib.suppress(TimeoutError):
+                await asyncio.wait_for(self._stop.wait(), TICK_S)
+        self.frontend.rig.set_heater(False, 0.0)
+        self.port.unplug()
+
+    def stop(self) -> None:
+        self._stop.set()
+
+    # -- control socket: JSON lines, one request per line ------------------
+    async def serve_control(self, path: Path) -> asyncio.AbstractServer:
+        with contextlib.suppress(FileNotFoundError):
+            path.unlink()
+        return await asyncio.start_unix_server(self._client, path=str(path))
+
+    async def _client(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        with contextlib.suppress(ConnectionError):
+            while line := await reader.readline():
+                try:
+                    reply = self.control(json.loads(line))
+                except (ValueError, KeyError, TypeError) as exc:
+                    reply = {"ok": False, "error": str(exc)}
+                writer.write((json.dumps(reply) + "\n").encode())
+                await writer.drain()
+        writer.close()
+
+    def control(self, req: dict[str, Any]) -> dict[str, Any]:
+        op = req["op"]
+        fe = self.frontend
+        if op == "state":
+            return {"ok": True, "heater_on": fe.heater_on, "power_W_per_m": fe.power_set,
+                    "device_t_s": fe.rig.t_s, "boot_id": fe.boot_id, "heater_events": self.heater_events[-50:],
+                    "plugged": self.port.master is not None}
+        if op == "inject":
+            fault, on = str(req["fault"]), bool(req.get("on", True))
+            wf = fe.faults
+            if fault == "silence":
+                wf.silent = on
+            elif fault == "garbage":
+                wf.garbage_bytes = int(req.get("bytes", 64))
+            elif fault in ("drop", "corrupt", "duplicate"):
+                setattr(wf, f"{fault}_fraction", float(req.get("fraction", 0.2)) if on else 0.0)
+            elif fault == "reset":
+                fe.reset()
+            elif fault == "unplug":
+                self.port.unplug()
+            elif fault == "replug":
+                self.port.plug()
+            else:
+                fe.rig.inject(fault, on)
+            return {"ok": True}
+        if op == "stop":
+            self.stop()
+            return {"ok": True}
+        raise KeyError(f"unknown op {op!r}")

@@ -1,0 +1,48 @@
+"""Reads for the API, exports and offline tools; never writes."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import numpy as np
+import sqlite_utils
+
+
+def list_runs(db: sqlite_utils.Database, limit: int = 100, site: str | None = None) -> list[dict[str, Any]]:
+    where, params = ("WHERE site = ?", [site]) if site else ("", [])
+    sql = (f"SELECT id, created_utc, ended_utc, state, end_reason, site, location, sample, material, probe_serial "
+           f"FROM runs {where} ORDER BY id DESC LIMIT ?")
+    return list(db.query(sql, [*params, limit]))
+
+
+def run_detail(db: sqlite_utils.Database, run_id: int) -> dict[str, Any] | None:
+    rows = list(db.query("SELECT * FROM runs WHERE id = ?", [run_id]))
+    if not rows:
+        return None
+    run = rows[0]
+    run["plan"] = json.loads(run.pop("plan_json") or "{}")
+    run["events"] = list(db.query(
+        "SELECT wall_utc, device_s, kind, state, reason, data FROM events WHERE run_id = ? ORDER BY id", [run_id]))
+    results = {}
+    for r in db.query("SELECT sensor, data, source FROM results WHERE run_id = ? ORDER BY id", [run_id]):
+        results[r["sensor"]] = {**json.loads(r["data"]), "source": r["source"]}
+    run["results"] = results
+    run["n_samples"] = db.execute("SELECT count(*) FROM samples WHERE run_id = ?", [run_id]).fetchone()[0]
+    return run
+
+
+def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
+    """Samples of a run as arrays, with time measured from heater on (baseline negative)."""
+    run = next(iter(db.query("SELECT heat_start_device_s, sensor_names FROM runs WHERE id = ?", [run_id])), None)
+    if run is None:
+        raise KeyError(f"no run {run_id}")
+    rows = list(db.execute(
+        "SELECT device_s, q_W_per_m, temps_C, phase FROM samples WHERE run_id = ? ORDER BY n", [run_id]))
+    names = json.loads(run["sensor_names"] or "[]")
+    t0 = run["heat_start_device_s"] or 0.0
+    t = np.array([r[0] for r in rows], dtype=float) - t0
+    q = np.array([r[1] or 0.0 for r in rows], dtype=float)
+    temps = np.array([json.loads(r[2]) for r in rows], dtype=float).reshape(len(rows), -1)
+    return {"time_s": t, "q_W_per_m": q, "temps_C": {n: temps[:, i] for i, n in enumerate(names)},
+            "phase": [r[3] for r in rows]}

@@ -1,0 +1,68 @@
+"""The database layout, as numbered migrations applied at start-up.
+
+``PRAGMA user_version`` holds the number of the last migration applied; each
+migration runs in one transaction with the version bump, so a crash leaves the
+file at a whole version.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from collections.abc import Callable
+
+import sqlite_utils
+
+
+def _v1(db: sqlite_utils.Database) -> None:
+    db["runs"].create({
+        "id": int, "created_utc": str, "ended_utc": str, "state": str, "end_reason": str,
+        "kind": str, "probe_serial": str, "sensor_names": str, "heater_length_m": float,
+        "site": str, "location": str, "depth_m": float, "sample": str, "material": str,
+        "moisture_pct": float, "dry_density_kg_per_m3": float, "notes": str, "operator": str,
+        "plan_json": str, "heat_start_device_s": float, "heat_end_device_s": float,
+        "frontend_boot_id": str,
+    }, pk="id")
+    db["samples"].create({
+        "run_id": int, "n": int, "seq": int, "device_ms": int, "device_s": float, "phase": str,
+        "heater_on": int, "heater_V": float, "heater_A": float, "supply_V": float, "q_W_per_m": float,
+        "cj_C": float, "temps_C": str, "faults": str,
+    }, pk=("run_id", "n"), foreign_keys=[("run_id", "runs", "id")])
+    db["events"].create({
+        "id": int, "run_id": int, "wall_utc": str, "device_s": float, "kind": str, "state": str,
+        "reason": str, "data": str,
+    }, pk="id")
+    db["events"].create_index(["run_id"])
+    db["results"].create({
+        "id": int, "run_id": int, "created_utc": str, "sensor": str, "method": str, "k_W_per_mK": float,
+        "k_u_W_per_mK": float, "flags": str, "data": str, "source": str,
+    }, pk="id")
+    db["results"].create_index(["run_id"])
+    db["probes"].create({
+        "serial": str, "name": str, "kind": str, "profile_toml": str, "added_utc": str,
+    }, pk="serial")
+    db["calibrations"].create({
+        "id": int, "probe_serial": str, "run_id": int, "created_utc": str, "reference": str,
+        "reference_k_W_per_mK": float, "measured_k_W_per_mK": float, "factor": float, "factor_u": float,
+        "accepted": int, "notes": str,
+    }, pk="id")
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1]
+SCHEMA_VERSION = len(MIGRATIONS)
+
+
+def current_version(conn: sqlite3.Connection) -> int:
+    return int(conn.execute("PRAGMA user_version").fetchone()[0])
+
+
+def migrate(db: sqlite_utils.Database) -> int:
+    """Bring the file up to SCHEMA_VERSION; refuse a file from a newer linerig."""
+    conn = db.conn
+    have = current_version(conn)
+    if have > SCHEMA_VERSION:
+        raise RuntimeError(f"database schema {have} is newer than this linerig ({SCHEMA_VERSION}); upgrade linerig")
+    for number in range(have, SCHEMA_VERSION):
+        with conn:
+            MIGRATIONS[number](db)
+            conn.execute(f"PRAGMA user_version = {number + 1}")
+    return SCHEMA_VERSION
