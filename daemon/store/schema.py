@@ -20,7 +20,10 @@ def _v1(db: sqlite_utils.Database) -> None:
         "site": str, "location": str, "depth_m": float, "sample": str, "material": str,
         "moisture_pct": float, "dry_density_kg_per_m3": float, "notes": str, "operator": str,
         "plan_json": str, "heat_start_device_s": float, "heat_end_device_s": float,
-        "frontend_boot_id": str,
+        "frontend_boot_id": str, "series_id": int, "cycle": int,
+    }, pk="id")
+    db["series"].create({
+        "id": int, "kind": str, "name": str, "site": str, "created_utc": str, "data": str,
     }, pk="id")
     db["samples"].create({
         "run_id": int, "n": int, "seq": int, "device_ms": int, "device_s": float, "phase": str,
@@ -43,7 +46,11 @@ def _v1(db: sqlite_utils.Database) -> None:
     db["calibrations"].create({
         "id": int, "probe_serial": str, "run_id": int, "created_utc": str, "reference": str,
         "reference_k_W_per_mK": float, "measured_k_W_per_mK": float, "factor": float, "factor_u": float,
-        "accepted": int, "notes": str,
+        "accepted": int, "notes": str, "expires_utc": str,
+    }, pk="id")
+    db["qualifications"].create({
+        "id": int, "probe_serial": str, "created_utc": str, "criteria_toml": str, "results": str,
+        "passed": int, "notes": str,
     }, pk="id")
 
 
