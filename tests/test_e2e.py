@@ -1,0 +1,68 @@
+"""The whole path as a user drives it: linerigd --simulate as a real process, a run started through the socket.
+
+The simulator is a separate process on a pseudo-terminal, the daemon reads it with pyserial and writes a real
+SQLite file; the `linerig start --wait --json` command is the one from the README.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sqlite3
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+
+pytestmark = pytest.mark.timeout(120)
+
+
+@pytest.fixture
+def daemon(tmp_path: Path):
+    sock, db, hlog, ctl = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl", tmp_path / "sim.sock"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "daemon.main", "--simulate", "--speed", "100", "--socket", str(sock), "--db", str(db),
+         "--sim-heater-log", str(hlog), "--sim-control", str(ctl)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert proc.stdout is not None
+    ready = json.loads(proc.stdout.readline() or "{}")
+    assert ready.get("ready"), proc.stderr.read() if proc.poll() is not None else "daemon did not report ready"
+    yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc}
+    proc.terminate()
+    try:
+        proc.wait(10)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+
+
+def test_simulated_run_end_to_end(daemon: dict) -> None:
+    cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
+           "--recover-s", "200", "--baseline-s", "30", "--wait", "--json"]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=100, env={**os.environ})
+    assert done.returncode == 0, done.stderr
+    out = json.loads(done.stdout)
+    assert out["state"] == "done"
+    run_id = out["run_id"]
+
+    con = sqlite3.connect(daemon["db"])
+    n_samples, n_heating = con.execute(
+        "SELECT count(*), sum(phase = 'heating') FROM samples WHERE run_id = ?", [run_id]).fetchone()
+    assert n_samples > 450 and n_heating >= 295  # 1 Hz device rate: baseline + 300 s heating + 200 s recovery
+    states = [r[0] for r in con.execute(
+        "SELECT state FROM events WHERE run_id = ? AND kind = 'state' ORDER BY id", [run_id])]
+    assert states == ["checking", "settling", "heating", "recovering", "done"]
+
+    # heater off at the end: the simulator's own log of its heater switch
+    events = [json.loads(line) for line in daemon["heater_log"].read_text().splitlines()]
+    assert [e["heater_on"] for e in events] == [True, False]
+    assert con.execute("SELECT max(heater_on) FROM samples WHERE run_id = ? AND phase = 'recovering' "
+                       "AND n > (SELECT min(n) + 3 FROM samples WHERE run_id = ? AND phase = 'recovering')",
+                       [run_id, run_id]).fetchone()[0] == 0
+
+    # k within 5 % of the simulated material's conductivity (the simulator's input, not a fitted number)
+    k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
+    k = out["results"]["heater"]["k_W_per_mK"]
+    assert abs(k - k_true) / k_true < 0.05, (k, k_true)
