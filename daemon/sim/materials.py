@@ -1,0 +1,102 @@
+"""Invented demo media for the simulator, with properties typical of what they stand for.
+
+Each `note` says where the numbers come from. The soils follow de Vries (1963) as tabulated by Moene & van Dam
+(2014, Table 2.2) and the Johansen (1975) Kersten-number model; volumetric heat capacity follows the de Vries
+linear mix C ≈ 1.92·x_mineral + 2.51·x_organic + 4.18·θ MJ/(m³·K). Water is IAPWS 2011 at 20 °C.
+These are demo media, not certified reference values.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+__all__ = ["DEFAULT_MATERIAL_KEY", "MATERIALS", "Material", "get_material"]
+
+
+@dataclass(frozen=True)
+class Material:
+    """A homogeneous medium. `bulk_density_kg_per_m3`: dry bulk density for soils, density for liquids."""
+
+    key: str
+    name: str
+    k_W_per_mK: float
+    rho_c_J_per_m3K: float
+    bulk_density_kg_per_m3: float | None
+    note: str
+
+    @property
+    def diffusivity_m2_per_s(self) -> float:
+        return self.k_W_per_mK / self.rho_c_J_per_m3K
+
+    @property
+    def resistivity_mK_per_W(self) -> float:
+        return 1.0 / self.k_W_per_mK
+
+
+_ALL = [
+    Material(
+        "dry-sand", "Dry quartz sand", 0.30, 1.30e6, 1600.0,
+        "Oven-dry sand, porosity about 0.4. de Vries (1963): dry sand 0.24-0.29 W/(m K), "
+        "C 1.28-1.42 MJ/(m3 K) for n = 0.4-0.33; a slightly denser packing than n = 0.4 gives 0.30.",
+    ),
+    Material(
+        "moist-sand", "Moist sand", 1.45, 1.57e6, 1590.0,
+        "Quartz-rich sand, n = 0.40, water content theta = 0.10 (Sr = 0.25). Johansen (1975) "
+        "coarse-soil model with quartz fraction 0.8 gives 1.32 at Sr 0.2 and 1.58 at Sr 0.3; "
+        "C = 1.92*0.60 + 4.18*0.10 = 1.57 "
+        "MJ/(m3 K) (de Vries 1963 mix).",
+    ),
+    Material(
+        "saturated-sand", "Water-saturated sand", 2.50, 2.96e6, 1590.0,
+        "Sand, n = 0.40, all pores water-filled: de Vries (1963) gives 2.5 W/(m K) and C 2.96 MJ/(m3 K).",
+    ),
+    Material(
+        "moist-clay", "Moist clay", 1.15, 2.69e6, 1500.0,
+        "Clay, n = 0.4, theta about 0.3: midway between de Vries (1963) clay at theta 0.2 (0.9 W/(m K), "
+        "C 2.27) and theta 0.4 (1.4, C 3.10).",
+    ),
+    Material(
+        "dry-clay", "Air-dry clay", 0.25, 1.50e6, 1450.0,
+        "Air-dry compacted clay holding a little water. de Vries (1963) gives 0.15 W/(m K), C 1.43 for "
+        "oven-dry clay at n = 0.4; a few per cent water lifts k to roughly 0.2-0.3 (from memory, typical "
+        "field values).",
+    ),
+    Material(
+        "thermal-backfill", "Fluidised thermal backfill (moist)", 1.80, 2.01e6, 1900.0,
+        "Dense sand-aggregate-cement backfill used around buried cables: typically 50-75 C cm/W when moist "
+        "(k 1.3-2.0; value from memory, unconfirmed); 1.8 W/(m K) = 56 C cm/W. C = 1.92*0.72 + 4.18*0.15 = "
+        "2.01 MJ/(m3 K) (de Vries 1963 mix at porosity 0.28, theta 0.15).",
+    ),
+    Material(
+        "agar-gel", "Agar-gelled water (0.5 % agar)", 0.598, 4.177e6, 1000.0,
+        "Water at 20 C (IAPWS 2011 conductivity, Huber et al. 2012: 0.598 W/(m K); IAPWS-95 rho c 4.177 "
+        "MJ/(m3 K)). A little agar stops free convection and changes k by about 1-2 % (unconfirmed).",
+    ),
+    Material(
+        "glycerol", "Glycerol (reference liquid)", 0.286, 3.06e6, 1261.0,
+        "Anhydrous glycerol near 20 C: k 0.285-0.292 W/(m K) in handbook tables (from memory, within 2 %); "
+        "density 1261 kg/m3, cp about 2.43 kJ/(kg K), so rho c about 3.06 MJ/(m3 K). Very viscous, so free "
+        "convection stays small.",
+    ),
+    Material(
+        "weathered-rock", "Weathered sandstone", 2.00, 2.20e6, 2300.0,
+        "Fractured, partly weathered sandstone near the water table: typical sedimentary rock "
+        "1.5-3.5 W/(m K), C 2.0-2.5 MJ/(m3 K) (from memory, typical handbook range).",
+    ),
+    Material(
+        "moist-peat", "Moist peat", 0.30, 2.10e6, 250.0,
+        "Peat, n = 0.9, half saturated: de Vries (1963) gives 0.27 W/(m K) at theta 0.45. C = 2.51*0.10 + "
+        "4.18*0.45 = 2.13 MJ/(m3 K) (de Vries mix).",
+    ),
+]
+
+MATERIALS: dict[str, Material] = {m.key: m for m in _ALL}
+DEFAULT_MATERIAL_KEY = "moist-sand"
+
+
+def get_material(key: str) -> Material:
+    """The demo material called `key`; KeyError naming the valid keys otherwise."""
+    try:
+        return MATERIALS[key]
+    except KeyError:
+        raise KeyError(f"unknown material {key!r}; choose one of: {', '.join(MATERIALS)}") from None

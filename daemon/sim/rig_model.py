@@ -1,0 +1,600 @@
+"""The simulated rig's physical world: probe, heater, battery, thermocouples and the ground around them.
+
+`SimulatedRig` is what the simulator's serial front end wraps. It knows nothing about frames or ports; it
+advances device time, heats the ground with whatever power the battery can actually deliver, and produces
+readings the way a thermocouple converter would (noise, quantisation, fault bits). Faults are switched on and
+off by name so that the server can map commands to them.
+
+Per-channel fault bits (the same values as the wire protocol's):
+
+* `FAULT_OPEN`  0x01  thermocouple open circuit (value is NaN)
+* `FAULT_RANGE` 0x02  reading outside the thermocouple type's range
+* `FAULT_CJ`    0x04  cold-junction sensor failed (value and cj_C are NaN)
+* `FAULT_STALE` 0x08  converter stopped updating (value frozen)
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from daemon.sim.materials import Material
+from daemon.sim.physics import AxialRadialModel, ModelConfigError, RadialModel
+
+__all__ = [
+    "FAULT_CJ",
+    "FAULT_NAMES",
+    "FAULT_OPEN",
+    "FAULT_RANGE",
+    "FAULT_STALE",
+    "BatterySpec",
+    "ChannelReading",
+    "ProbeSpec",
+    "RigSample",
+    "SensorSpec",
+    "SimulatedRig",
+    "UnknownFaultError",
+]
+
+FAULT_OPEN = 0x01
+FAULT_RANGE = 0x02
+FAULT_CJ = 0x04
+FAULT_STALE = 0x08
+
+FAULT_NAMES: dict[str, str] = {
+    "open_tc:<channel>": "thermocouple open circuit: FAULT_OPEN, value NaN",
+    "short_tc:<channel>": "thermocouple shorted at the connector: reads the cold junction, no fault bit",
+    "noisy_tc:<channel>": "channel noise ten times the normal level (bad shield, ground loop)",
+    "stale_tc:<channel>": "converter stuck: value frozen, FAULT_STALE",
+    "cj_fault": "cold-junction sensor failed: cj_C NaN, every channel FAULT_CJ and NaN",
+    "heater_open": "heater circuit open: no current, no heat",
+    "heater_short": "heater shorted in the cable (about 0.2 ohm): current limited, no heat in the ground",
+    "heater_drift": "heater resistance creeping up by 2 % per hour of device time (failing joint)",
+    "battery_low": "battery flat: open-circuit voltage at the cut-off (empty_V), power sags",
+    "poor_contact": "probe lost contact with the medium: contact conductance one tenth of normal",
+}
+"""Fault names accepted by `SimulatedRig.inject`; <channel> is a sensor name or a 0-based index."""
+
+_CHANNEL_FAULTS = ("open_tc", "short_tc", "noisy_tc", "stale_tc")
+_RIG_FAULTS = ("cj_fault", "heater_open", "heater_short", "heater_drift", "battery_low", "poor_contact")
+
+# usable range of each thermocouple type (°C), NIST ITS-90 reference-function limits
+_TC_RANGE_C: dict[str, tuple[float, float]] = {
+    "T": (-270.0, 400.0),
+    "K": (-270.0, 1372.0),
+    "J": (-210.0, 1200.0),
+    "E": (-270.0, 1000.0),
+    "N": (-270.0, 1300.0),
+    "R": (-50.0, 1768.0),
+    "S": (-50.0, 1768.0),
+    "B": (0.0, 1820.0),
+}
+
+EmfFunction = Callable[[str, float, float], float]
+"""(type letter, hot-junction °C, reference-junction °C) -> emf in µV, e.g. an ITS-90 implementation."""
+
+
+class UnknownFaultError(ValueError):
+    """`inject` was given a fault name or channel it does not know; the message lists the valid ones."""
+
+
+@dataclass(frozen=True)
+class SensorSpec:
+    """A thermocouple junction: radial distance from the heater axis (0 = on the heater) and position along
+    the probe, measured from the heater's top end (the end nearest the handle or the ground surface)."""
+
+    name: str
+    radial_m: float
+    axial_m: float
+
+
+def _attr(obj: Any, *names: str, scale: Sequence[float] = (), default: Any = None) -> Any:
+    """First attribute (or mapping key) present among `names`, times the matching scale factor."""
+    for i, n in enumerate(names):
+        v = obj.get(n) if isinstance(obj, dict) else getattr(obj, n, None)
+        if v is not None:
+            return v * scale[i] if i < len(scale) and scale[i] != 1.0 else v
+    return default
+
+
+@dataclass(frozen=True)
+class ProbeSpec:
+    """What the simulator needs to know about a probe (SI units)."""
+
+    heater_length_m: float
+    radius_m: float
+    probe_rho_c: float
+    heater_resistance_ohm: float
+    sensors: tuple[SensorSpec, ...]
+    contact_conductance: float | None = 3000.0
+    thermocouple: str = "T"
+    heater_tcr_per_K: float = 5e-5
+    name: str = "probe"
+
+    def __post_init__(self) -> None:
+        sensors = tuple(s if isinstance(s, SensorSpec) else SensorSpec(*s) for s in self.sensors)
+        object.__setattr__(self, "sensors", sensors)
+        object.__setattr__(self, "thermocouple", str(self.thermocouple).strip()[-1:].upper() or "T")
+        for n in ("heater_length_m", "radius_m", "heater_resistance_ohm"):
+            v = getattr(self, n)
+            if not (v > 0 and math.isfinite(v)):
+                raise ModelConfigError(f"probe {self.name!r}: {n} must be > 0, got {v!r}")
+        if self.probe_rho_c < 0:
+            raise ModelConfigError(f"probe {self.name!r}: probe_rho_c must be >= 0, got {self.probe_rho_c!r}")
+        if not sensors:
+            raise ModelConfigError(
+                f"probe {self.name!r} has no sensors; give at least one (name, radial, axial)"
+            )
+        names = [s.name for s in sensors]
+        if len(set(names)) != len(names):
+            raise ModelConfigError(f"probe {self.name!r}: sensor names must be unique, got {names}")
+        if self.thermocouple not in _TC_RANGE_C:
+            raise ModelConfigError(
+                f"probe {self.name!r}: thermocouple type {self.thermocouple!r} unknown; use one of "
+                f"{', '.join(_TC_RANGE_C)}"
+            )
+
+    @classmethod
+    def default_needle(cls) -> ProbeSpec:
+        """A 100 mm × 1.27 mm OD laboratory needle, 40 Ω heater, type T junction at mid-length.
+
+        ρc 3.2 MJ/(m³·K) is a stainless tube filled with epoxy (steel ≈ 4.0, epoxy ≈ 1.7; from memory);
+        H = 3000 W/(m²·K) is a snug fit in a moist granular medium (common practice, no source).
+        """
+        return cls(
+            heater_length_m=0.100,
+            radius_m=0.635e-3,
+            probe_rho_c=3.2e6,
+            heater_resistance_ohm=40.0,
+            sensors=(SensorSpec("probe", 0.0, 0.050),),
+            contact_conductance=3000.0,
+            thermocouple="T",
+            heater_tcr_per_K=5e-5,
+            name="lab-needle",
+        )
+
+    @classmethod
+    def from_profile(cls, profile: Any) -> ProbeSpec:
+        """Build from any profile-like object (attributes or mapping keys, SI or mm/MJ units).
+
+        Sensors may be objects or mappings with name and radial_m/axial_m (or radial_mm/axial_mm), or bare
+        (name, radial, axial) tuples, which are read in millimetres as profile files give them.
+        """
+        length = _attr(profile, "heater_length_m", "length_m", "heater_length_mm", "length_mm",
+                       scale=(1.0, 1.0, 1e-3, 1e-3))
+        radius = _attr(profile, "radius_m", "radius_mm", scale=(1.0, 1e-3))
+        if radius is None:
+            diameter = _attr(profile, "diameter_m", "diameter_mm", scale=(1.0, 1e-3))
+            radius = None if diameter is None else 0.5 * diameter
+        if length is None or radius is None:
+            raise ModelConfigError(
+                "probe profile needs a heater length and a radius "
+                "(length_m or heater_length_mm, radius_m or radius_mm)"
+            )
+        rho_c = _attr(profile, "heat_capacity_J_per_m3K", "probe_rho_c", "heat_capacity_MJ_per_m3K",
+                      scale=(1.0, 1.0, 1e6), default=3.2e6)
+        # if the profile gives no resistance, pick one that lets a 12 V battery deliver 40 W/m
+        resistance = _attr(profile, "heater_resistance_ohm", default=144.0 / (40.0 * float(length)))
+        sensors = []
+        for s in _attr(profile, "sensors", default=()) or ():
+            if isinstance(s, tuple | list):
+                name, radial, axial = s[0], float(s[1]) * 1e-3, float(s[2]) * 1e-3
+            else:
+                name = _attr(s, "name")
+                radial = _attr(s, "radial_m", "radial_mm", scale=(1.0, 1e-3), default=0.0)
+                axial = _attr(s, "axial_m", "axial_mm", scale=(1.0, 1e-3), default=0.5 * float(length))
+            sensors.append(SensorSpec(str(name), float(radial), float(axial)))
+        if not sensors:
+            sensors = [SensorSpec("probe", 0.0, 0.5 * float(length))]
+        return cls(
+            heater_length_m=float(length),
+            radius_m=float(radius),
+            probe_rho_c=float(rho_c),
+            heater_resistance_ohm=float(resistance),
+            sensors=tuple(sensors),
+            contact_conductance=_attr(profile, "contact_conductance", "contact_conductance_W_per_m2K",
+                                      default=3000.0),
+            thermocouple=str(_attr(profile, "thermocouple", "thermocouple_type", default="T")),
+            heater_tcr_per_K=float(_attr(profile, "heater_tcr_per_K", default=5e-5)),
+            name=str(_attr(profile, "name", default="probe")),
+        )
+
+
+@dataclass(frozen=True)
+class BatterySpec:
+    """A 12 V sealed lead-acid field battery with its fuse, wiring and switch lumped into one resistance.
+
+    Open-circuit voltage falls linearly from `full_V` to `empty_V` as energy is drawn (12.8 V rested full,
+    about 11.6 V at deep discharge: common practice for lead-acid, no source), then drops steeply.
+    """
+
+    full_V: float = 12.8
+    empty_V: float = 11.6
+    capacity_Wh: float = 84.0
+    internal_resistance_ohm: float = 0.15
+    quiescent_A: float = 0.05
+    current_limit_A: float = 2.5
+
+
+@dataclass(frozen=True)
+class ChannelReading:
+    name: str
+    temp_C: float
+    emf_uV: float | None
+    fault_bits: int
+
+
+@dataclass(frozen=True)
+class RigSample:
+    """What the front end reports at one instant. heater_V and heater_A are RMS values, so their product is
+    the heater's power and their ratio its resistance. `delivered_W_per_m` is the simulator's truth (the heat
+    released into the ground per metre), for tests; a real front end cannot send it."""
+
+    t_s: float
+    cj_C: float
+    channels: list[ChannelReading]
+    heater_V: float
+    heater_A: float
+    supply_V: float
+    heater_on: bool
+    delivered_W_per_m: float = 0.0
+
+
+@dataclass
+class _Electrical:
+    heater_V: float = 0.0
+    heater_A: float = 0.0
+    supply_V: float = 12.8
+    heat_W: float = 0.0
+    supply_A: float = 0.0
+
+
+@dataclass
+class _Channel:
+    spec: SensorSpec
+    model_key: int
+    depth_m: float
+    offset_K: float
+    last_reading: float = math.nan
+    faults: set[str] = field(default_factory=set)
+
+
+class SimulatedRig:
+    """A probe in a medium, driven by a battery-powered constant-power heater, read by thermocouples.
+
+    Device time starts at 0 with the ground at `initial_ground_C` (plus `ground_gradient_K_per_m` per metre
+    of depth below the probe's top, which sits at `install_depth_m`) drifting by `drift_K_per_h`. `layers` is
+    a list of (depth_top_m, Material) below which that material applies (above the first, `material`); each
+    sensor then sits in its own radial model of its layer. `axial_loss=True` solves the (r, z) problem
+    instead, so a short probe loses heat from its ends (homogeneous medium only).
+    `sample_radius_m`/`sample_height_m` bound a laboratory sample (the probe centred in it) with a
+    `sample_boundary` of "fixed" (a bath) or "adiabatic" (insulated).
+    """
+
+    BASE_DT_S = 0.05
+    """Physics steps are whole powers of two times this, so factorisations stay cached whatever dt arrives."""
+    MAX_STEP_DOUBLINGS = 5
+
+    def __init__(
+        self,
+        material: Material,
+        probe: ProbeSpec,
+        seed: int = 0,
+        faults: Iterable[str] = (),
+        *,
+        initial_ground_C: float = 12.0,
+        drift_K_per_h: float = 0.0,
+        ground_gradient_K_per_m: float = 0.0,
+        ambient_C: float = 18.0,
+        noise_K_rms: float = 0.010,
+        quantum_K: float = 0.0078125,
+        cj_quantum_K: float = 0.015625,
+        channel_offset_sd_K: float = 0.02,
+        battery: BatterySpec | None = None,
+        layers: Sequence[tuple[float, Material]] = (),
+        install_depth_m: float = 0.0,
+        axial_loss: bool = False,
+        sample_radius_m: float | None = None,
+        sample_height_m: float | None = None,
+        sample_boundary: str = "fixed",
+        emf_function: EmfFunction | None = None,
+    ) -> None:
+        if noise_K_rms < 0 or quantum_K < 0 or cj_quantum_K < 0:
+            raise ModelConfigError("noise_K_rms, quantum_K and cj_quantum_K must be >= 0")
+        self.material = material
+        self.probe = probe
+        self.seed = int(seed)
+        self.initial_ground_C = float(initial_ground_C)
+        self.drift_K_per_h = float(drift_K_per_h)
+        self.ground_gradient_K_per_m = float(ground_gradient_K_per_m)
+        self.ambient_C = float(ambient_C)
+        self.noise_K_rms = float(noise_K_rms)
+        self.quantum_K = float(quantum_K)
+        self.cj_quantum_K = float(cj_quantum_K)
+        self.battery = battery or BatterySpec()
+        self.install_depth_m = float(install_depth_m)
+        self.emf_function = emf_function
+        self._rng = np.random.default_rng(self.seed)
+        self._layers = sorted(((float(d), m) for d, m in layers), key=lambda x: x[0])
+        if axial_loss and self._layers:
+            raise ModelConfigError("axial_loss=True needs a homogeneous medium; drop `layers` or axial_loss")
+        if sample_height_m is not None and not axial_loss:
+            raise ModelConfigError("sample_height_m needs axial_loss=True (the radial model has no ends)")
+        self._axial = bool(axial_loss)
+
+        # one physics model per distinct material that holds a sensor
+        self._models: list[RadialModel | AxialRadialModel] = []
+        model_of: dict[str, int] = {}
+        self._channels: list[_Channel] = []
+        for s in probe.sensors:
+            depth = self.install_depth_m + s.axial_m
+            mat = self._material_at(depth)
+            if mat.key not in model_of:
+                model_of[mat.key] = len(self._models)
+                self._models.append(self._make_model(mat, sample_radius_m, sample_height_m, sample_boundary))
+            offset = float(self._rng.normal(0.0, channel_offset_sd_K)) if channel_offset_sd_K > 0 else 0.0
+            self._channels.append(_Channel(s, model_of[mat.key], depth, offset))
+        self._by_name = {c.spec.name: i for i, c in enumerate(self._channels)}
+
+        self._t = 0.0
+        self._physics_lag = 0.0  # device time not yet stepped into the physics (< BASE_DT_S)
+        self._heater_cmd = False
+        self._power_cmd_W_per_m = 0.0
+        self._energy_drawn_J = 0.0
+        self._drift_factor = 1.0
+        self._cj_wander = 0.0
+        self._rig_faults: set[str] = set()
+        self._elec = _Electrical(supply_V=self._terminal_V(0.0))
+        for f in faults:
+            self.inject(f, True)
+
+    # ---- construction helpers ----
+    def _material_at(self, depth_m: float) -> Material:
+        mat = self.material
+        for top, m in self._layers:
+            if depth_m >= top:
+                mat = m
+        return mat
+
+    def _make_model(
+        self, mat: Material, sample_radius_m: float | None, sample_height_m: float | None, boundary: str
+    ) -> RadialModel | AxialRadialModel:
+        p = self.probe
+        if self._axial:
+            return AxialRadialModel(
+                mat.k_W_per_mK, mat.rho_c_J_per_m3K, p.radius_m, p.probe_rho_c, p.heater_length_m,
+                contact_conductance=p.contact_conductance, outer_radius_m=sample_radius_m,
+                outer_half_height_m=None if sample_height_m is None else 0.5 * sample_height_m,
+                boundary=boundary,
+            )
+        return RadialModel(
+            mat.k_W_per_mK, mat.rho_c_J_per_m3K, p.radius_m, p.probe_rho_c,
+            contact_conductance=p.contact_conductance, outer_radius_m=sample_radius_m, boundary=boundary,
+        )
+
+    # ---- commands ----
+    def set_heater(self, on: bool, power_W_per_m: float = 0.0) -> None:
+        """Switch the constant-power heater; the power is what the regulator aims for, not what it gets."""
+        p = float(power_W_per_m)
+        if not (p >= 0.0 and math.isfinite(p)):
+            raise ModelConfigError(f"power_W_per_m must be >= 0, got {power_W_per_m!r}")
+        self._heater_cmd = bool(on)
+        self._power_cmd_W_per_m = p
+        self._elec = self._electrical()
+
+    def inject(self, fault: str, on: bool = True) -> None:
+        """Switch a fault on or off by name (see FAULT_NAMES)."""
+        kind, _, arg = fault.partition(":")
+        if kind in _CHANNEL_FAULTS:
+            ch = self._channel_for(arg, fault)
+            if on:
+                if kind == "stale_tc":
+                    ch.last_reading = self._read_channel(ch, self._cj_true(), commit=False)[0]
+                ch.faults.add(kind)
+            else:
+                ch.faults.discard(kind)
+        elif kind in _RIG_FAULTS and not arg:
+            if on:
+                self._rig_faults.add(kind)
+            else:
+                self._rig_faults.discard(kind)
+            if kind == "poor_contact":
+                h = self.probe.contact_conductance
+                base = 10.0 * 3000.0 if h is None else h  # perfect contact degrades to a poor real one
+                for m in self._models:
+                    m.set_contact_conductance((0.1 * base) if on else h)
+        else:
+            raise UnknownFaultError(f"unknown fault {fault!r}; valid: {', '.join(FAULT_NAMES)}")
+        self._elec = self._electrical()
+
+    def _channel_for(self, arg: str, fault: str) -> _Channel:
+        if arg in self._by_name:
+            return self._channels[self._by_name[arg]]
+        if arg.isdigit() and int(arg) < len(self._channels):
+            return self._channels[int(arg)]
+        raise UnknownFaultError(
+            f"fault {fault!r} names no channel; channels are {', '.join(self._by_name)} (or 0.."
+            f"{len(self._channels) - 1})"
+        )
+
+    @property
+    def active_faults(self) -> frozenset[str]:
+        out = set(self._rig_faults)
+        for c in self._channels:
+            out |= {f"{k}:{c.spec.name}" for k in c.faults}
+        return frozenset(out)
+
+    # ---- electrical world ----
+    def heater_resistance_ohm(self) -> float:
+        """Heater resistance now: nominal at 20 °C, TCR at the heater's mean temperature, drift if faulted."""
+        p = self.probe
+        t_heater = self._ground_C(self.install_depth_m + 0.5 * p.heater_length_m) + self._heater_rise_K()
+        return p.heater_resistance_ohm * (1.0 + p.heater_tcr_per_K * (t_heater - 20.0)) * self._drift_factor
+
+    def open_circuit_V(self) -> float:
+        b = self.battery
+        frac = self._energy_drawn_J / (b.capacity_Wh * 3600.0)
+        if "battery_low" in self._rig_faults:
+            frac = max(frac, 1.0)
+        v = b.full_V - (b.full_V - b.empty_V) * min(frac, 1.0)
+        if frac > 1.0:  # past the knee the voltage collapses
+            v -= 20.0 * (frac - 1.0)
+        return max(v, 0.0)
+
+    def _terminal_V(self, supply_A: float) -> float:
+        return max(self.open_circuit_V() - self.battery.internal_resistance_ohm * supply_A, 0.0)
+
+    def _electrical(self) -> _Electrical:
+        """Steady electrical state for the current command: PWM of the battery into the heater.
+
+        At full duty the heater sees V_oc·R/(R + R_int); constant power is held by shortening the duty cycle
+        until the request exceeds that, and then the power sags (and sags further as the battery drains).
+        """
+        b = self.battery
+        voc = self.open_circuit_V()
+        rint = b.internal_resistance_ohm
+        if not self._heater_cmd:
+            return _Electrical(0.0, 0.0, self._terminal_V(b.quiescent_A), 0.0, b.quiescent_A)
+        want_W = self._power_cmd_W_per_m * self.probe.heater_length_m
+        if "heater_open" in self._rig_faults:
+            # the regulator opens the duty cycle fully looking for current that never comes
+            v = self._terminal_V(b.quiescent_A)
+            return _Electrical(v, 0.0, v, 0.0, b.quiescent_A)
+        if "heater_short" in self._rig_faults:
+            r_load = 0.2
+            i_on = min(voc / (r_load + rint), b.current_limit_A)
+            i_rms = min(math.sqrt(want_W / r_load), i_on)  # regulator aims its power at the short
+            duty = (i_rms / i_on) ** 2 if i_on > 0 else 0.0
+            supply_A = duty * i_on + b.quiescent_A
+            return _Electrical(i_rms * r_load, i_rms, self._terminal_V(supply_A), 0.0, supply_A)
+        r = self.heater_resistance_ohm()
+        i_on = min(voc / (r + rint), b.current_limit_A)
+        p_max = i_on * i_on * r
+        p = min(want_W, p_max)
+        duty = p / p_max if p_max > 0 else 0.0
+        supply_A = duty * i_on + b.quiescent_A
+        return _Electrical(math.sqrt(p * r), math.sqrt(p / r), self._terminal_V(supply_A), p, supply_A)
+
+    # ---- time ----
+    @property
+    def t_s(self) -> float:
+        return self._t
+
+    def advance(self, dt_s: float) -> None:
+        """Move device time on by dt_s, heating with the power the circuit actually delivers."""
+        dt = float(dt_s)
+        if not (dt >= 0.0 and math.isfinite(dt)):
+            raise ModelConfigError(f"dt_s must be >= 0, got {dt_s!r}")
+        if dt == 0.0:
+            return
+        elec = self._electrical()
+        self._elec = elec
+        self._energy_drawn_J += self.open_circuit_V() * elec.supply_A * dt
+        if "heater_drift" in self._rig_faults:
+            self._drift_factor *= math.exp(0.02 * dt / 3600.0)
+        # cold junction wanders (Ornstein-Uhlenbeck, 0.15 K standard deviation, 15 min correlation time)
+        tau, sd = 900.0, 0.15
+        decay = math.exp(-dt / tau)
+        self._cj_wander = self._cj_wander * decay + sd * math.sqrt(1.0 - decay * decay) * float(
+            self._rng.standard_normal()
+        )
+        q = elec.heat_W / self.probe.heater_length_m
+        self._t += dt
+        self._physics_lag += dt
+        base = self.BASE_DT_S
+        n = math.floor(self._physics_lag / base + 1e-9)
+        if n > 0:
+            self._physics_lag -= n * base
+            while n > 0:
+                size = min(1 << (n.bit_length() - 1), 1 << self.MAX_STEP_DOUBLINGS)
+                for m in self._models:
+                    m.step(q, size * base)
+                n -= size
+        self._elec = self._electrical()
+
+    # ---- readings ----
+    def _ground_C(self, depth_m: float) -> float:
+        return (
+            self.initial_ground_C
+            + self.drift_K_per_h * self._t / 3600.0
+            + self.ground_gradient_K_per_m * (depth_m - self.install_depth_m)
+        )
+
+    def _heater_rise_K(self) -> float:
+        return float(np.mean([m.probe_rise_K() for m in self._models]))
+
+    def true_temp_C(self, channel: str | int) -> float:
+        """Noise-free temperature at a sensor (for tests and benches)."""
+        ch = self._channel_for(str(channel), f"true_temp_C({channel!r})")
+        return self._true_C(ch)
+
+    def _true_C(self, ch: _Channel) -> float:
+        m = self._models[ch.model_key]
+        s = ch.spec
+        if isinstance(m, AxialRadialModel):
+            rise = m.rise_at_K(s.radial_m, s.axial_m - 0.5 * self.probe.heater_length_m)
+        elif s.radial_m <= self.probe.radius_m:
+            rise = m.probe_rise_K()
+        else:
+            rise = m.rise_at_K(s.radial_m)
+        return self._ground_C(ch.depth_m) + rise
+
+    def _cj_true(self) -> float:
+        return self.ambient_C + self._cj_wander
+
+    def _quantise(self, v: float, quantum: float) -> float:
+        return round(v / quantum) * quantum if quantum > 0 else v
+
+    def _read_channel(self, ch: _Channel, cj_true: float, commit: bool = True) -> tuple[float, int]:
+        bits = 0
+        noise = self.noise_K_rms * (10.0 if "noisy_tc" in ch.faults else 1.0)
+        hot = cj_true if "short_tc" in ch.faults else self._true_C(ch) + ch.offset_K
+        value = self._quantise(hot + noise * float(self._rng.standard_normal()), self.quantum_K)
+        if "stale_tc" in ch.faults:
+            value, bits = ch.last_reading, bits | FAULT_STALE
+        lo, hi = _TC_RANGE_C[self.probe.thermocouple]
+        if not lo <= value <= hi:
+            bits |= FAULT_RANGE
+        if "open_tc" in ch.faults:
+            value, bits = math.nan, bits | FAULT_OPEN
+        if "cj_fault" in self._rig_faults:
+            value, bits = math.nan, bits | FAULT_CJ
+        if commit and "stale_tc" not in ch.faults:
+            ch.last_reading = value
+        return value, bits
+
+    def sample(self) -> RigSample:
+        """Readings now. Each call draws fresh noise: equal seeds and equal call sequences give equal data."""
+        cj_true = self._cj_true()
+        channels = []
+        for ch in self._channels:
+            value, bits = self._read_channel(ch, cj_true)
+            emf = None
+            if self.emf_function is not None and not math.isnan(value):
+                emf = round(float(self.emf_function(self.probe.thermocouple, value, cj_true)), 1)
+            channels.append(ChannelReading(ch.spec.name, value, emf, bits))
+        if "cj_fault" in self._rig_faults:
+            cj = math.nan
+        else:
+            cj = self._quantise(cj_true + 0.01 * float(self._rng.standard_normal()), self.cj_quantum_K)
+        e = self._elec
+        # monitor: 0.05 % gain noise, 1 mV / 0.1 mA / 1 mV resolution (a typical 12-bit shunt monitor)
+        g = [1.0 + 5e-4 * float(x) for x in self._rng.standard_normal(3)]
+        return RigSample(
+            t_s=self._t,
+            cj_C=cj,
+            channels=channels,
+            heater_V=round(e.heater_V * g[0], 3),
+            heater_A=round(e.heater_A * g[1], 4),
+            supply_V=round(e.supply_V * g[2], 3),
+            heater_on=self._heater_cmd,
+            delivered_W_per_m=e.heat_W / self.probe.heater_length_m,
+        )
+
+    @property
+    def channel_names(self) -> list[str]:
+        return [c.spec.name for c in self._channels]
