@@ -201,7 +201,8 @@ def test_sensor_beside_the_heater_sees_the_line_source() -> None:
 
 
 def test_rod_in_layered_ground_gives_each_layer_its_own_slope() -> None:
-    rod = ProbeSpec(1.0, 1.5e-3, 3.2e6, 4.0, (("upper", 0.0, 0.15), ("middle", 0.0, 0.5), ("lower", 0.0, 0.85)),
+    # axial positions from the tip: the rod's top end is at the surface, its tip 1 m down
+    rod = ProbeSpec(1.0, 1.5e-3, 3.2e6, 4.0, (("upper", 0.0, 0.85), ("middle", 0.0, 0.5), ("lower", 0.0, 0.15)),
                     contact_conductance=None, heater_tcr_per_K=0.0)
     layers = [(0.3, MATERIALS["moist-clay"]), (0.7, MATERIALS["saturated-sand"])]
     rig = SimulatedRig(MATERIALS["dry-sand"], rod, seed=0, layers=layers, noise_K_rms=0.0, quantum_K=0.0,
@@ -342,3 +343,31 @@ def test_from_profile_reads_millimetre_and_si_attributes() -> None:
     assert q.heater_resistance_ohm == pytest.approx(3.6)  # 12 V delivers 40 W/m when none is given
     with pytest.raises(ModelConfigError, match="radius"):
         ProbeSpec.from_profile({"length_m": 0.1})
+
+
+def test_from_profile_accepts_the_daemons_default_profile() -> None:
+    from pathlib import Path
+
+    from daemon.probe import load_probe_profile
+
+    path = Path(__file__).resolve().parent.parent / "daemon" / "profiles" / "default-needle.toml"
+    p = ProbeSpec.from_profile(load_probe_profile(path))
+    assert p.heater_length_m == pytest.approx(0.1) and p.radius_m == pytest.approx(0.635e-3)
+    assert p.probe_rho_c == pytest.approx(3.2e6) and p.heater_resistance_ohm == pytest.approx(40.0)
+    assert [(s.name, s.radial_m, s.axial_m) for s in p.sensors] == [("heater", 0.0, pytest.approx(0.05))]
+
+
+def test_insulated_lab_sample_keeps_the_heat_it_was_given() -> None:
+    # first law: with an adiabatic sample wall every joule delivered stays in probe + sample
+    kw = {"seed": 0, "noise_K_rms": 0.0, "quantum_K": 0.0, "channel_offset_sd_K": 0.0}
+    p = ProbeSpec.default_needle()
+    rig = SimulatedRig(MATERIALS["glycerol"], p, sample_radius_m=0.025, sample_boundary="adiabatic", **kw)
+    rig.set_heater(True, 4.0)
+    delivered = 0.0
+    for _ in range(600):
+        rig.advance(1.0)
+        delivered += rig.sample().delivered_W_per_m * 1.0
+    model = rig._models[0]
+    assert model.energy_J_per_m() == pytest.approx(delivered, rel=1e-9)
+    with pytest.raises(ModelConfigError, match="axial_loss"):
+        SimulatedRig(SAND, p, sample_height_m=0.1)

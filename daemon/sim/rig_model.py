@@ -85,7 +85,8 @@ class UnknownFaultError(ValueError):
 @dataclass(frozen=True)
 class SensorSpec:
     """A thermocouple junction: radial distance from the heater axis (0 = on the heater) and position along
-    the probe, measured from the heater's top end (the end nearest the handle or the ground surface)."""
+    the heater measured from its tip (the far end from the handle; the bottom of a rod pushed into the
+    ground), as probe profiles give it."""
 
     name: str
     radial_m: float
@@ -267,7 +268,8 @@ class SimulatedRig:
     """A probe in a medium, driven by a battery-powered constant-power heater, read by thermocouples.
 
     Device time starts at 0 with the ground at `initial_ground_C` (plus `ground_gradient_K_per_m` per metre
-    of depth below the probe's top, which sits at `install_depth_m`) drifting by `drift_K_per_h`. `layers` is
+    of depth below the heater's top end, which sits at `install_depth_m`; a vertical rod's tip is at
+    install_depth_m + heater length) drifting by `drift_K_per_h`. `layers` is
     a list of (depth_top_m, Material) below which that material applies (above the first, `material`); each
     sensor then sits in its own radial model of its layer. `axial_loss=True` solves the (r, z) problem
     instead, so a short probe loses heat from its ends (homogeneous medium only).
@@ -331,7 +333,7 @@ class SimulatedRig:
         model_of: dict[str, int] = {}
         self._channels: list[_Channel] = []
         for s in probe.sensors:
-            depth = self.install_depth_m + s.axial_m
+            depth = self.install_depth_m + probe.heater_length_m - s.axial_m
             mat = self._material_at(depth)
             if mat.key not in model_of:
                 model_of[mat.key] = len(self._models)
