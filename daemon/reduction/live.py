@@ -32,8 +32,8 @@ TREND_TOL = 0.02            # local slope drifts > 2 % over the window with z > 
 DEFAULT_POWER_U_REL = 0.005  # power readback standard uncertainty (relative), common practice, no source
 
 # columns of the prefix-sum table
-_N_COLS = 14
-(_U, _Y, _UU, _UY, _YY, _U3, _U4, _U2Y, _PYY, _PYU, _PUY, _PUU, _PU, _PY) = range(_N_COLS)
+_N_COLS = 16
+(_U, _Y, _UU, _UY, _YY, _U3, _U4, _U2Y, _PYY, _PYU, _PUY, _PUU, _PU, _PY, _W, _WU) = range(_N_COLS)
 
 
 @dataclass(frozen=True)
@@ -140,7 +140,7 @@ class LiveReducer:
         X = float(steps_dq[before] @ np.log(t_s - steps_t[before]))
         dT = temp_K - float(self.baseline.at(t_s))
         self._rise = max(self._rise, dT)
-        self._append(t_s, X / Q, dT / Q)
+        self._append(t_s, X / Q, dT / Q, t_s / Q)
         est = self._estimate(t_s)
         if est is not None:
             self.last = est
@@ -156,7 +156,7 @@ class LiveReducer:
         self._step_dq[self._n_steps] = dq
         self._n_steps += 1
 
-    def _append(self, t: float, u: float, y: float) -> None:
+    def _append(self, t: float, u: float, y: float, w: float) -> None:
         n = self._n
         if n == self._cap:
             self._cap *= 2
@@ -175,6 +175,8 @@ class LiveReducer:
         row[_U3] += uu * u
         row[_U4] += uu * uu
         row[_U2Y] += uu * y
+        row[_W] += w
+        row[_WU] += w * u
         if n > 0:
             up, yp = self._u[n - 1], self._y[n - 1]
             row[_PYY] += yp * y
@@ -278,11 +280,14 @@ class LiveReducer:
         k = k_raw * self.calibration_factor
         rel_stat = math.sqrt(var_a) / a
         rel_cal = self.calibration_factor_u / self.calibration_factor if self.calibration_factor else 0.0
-        rel_tot = math.sqrt(rel_stat**2 + self.power_u_rel**2 + rel_cal**2)
+        S = self._P[j] - self._P[i]
+        cov_wu = S[_WU] - S[_W] * S[_U] / n
+        assert self.baseline is not None
+        rel_drift = abs(self.baseline.rate_u_K_per_s * cov_wu / sxx) / a
+        rel_tot = math.sqrt(rel_stat**2 + rel_drift**2 + self.power_u_rel**2 + rel_cal**2)
         slope_K = a * q_mean
         rms_K = math.sqrt(sse / n) * q_mean
         flags: list[str] = []
-        assert self.baseline is not None
         flags += self.baseline.flags(self._rise, t_now)
         if span_ln < SHORT_SPAN_LN or n < 20:
             flags.append("window_short")

@@ -1,0 +1,175 @@
+"""Late-time line-source fit on an automatically chosen window, with single-probe diffusivity from the intercept.
+
+ΔT ≈ q/(4πk)·[ln t + ln(4α/r²) − γ + 2h] late in the heating (Carslaw & Jaeger 1959 §10.4, §13.7). With the
+superposition regressors of ``superposition`` this is y = u/(4πk) + c, y = ΔT/Q, u = X/Q (u = ln t at constant
+power), so the slope gives k and a sagging supply does not bias it.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import window as win
+from .stats import LineFit, fit_line, quadratic_curvature
+
+FLOOR_FRACTION = 0.1   # same as the live rule: the window never starts before 0.1·t_end (no source)
+START_TOL = 0.01       # slope error allowed at the window start
+END_TOL = 0.01         # axial-loss slope error allowed at the window end
+TREND_TOL = 0.02       # relative slope drift across the window that counts as a residual trend (no source)
+TREND_Z = 3.0
+SHORT_SPAN_LN = 1.0
+MIN_POINTS = 20
+
+
+@dataclass(frozen=True)
+class LateTimeFit:
+    """Result of the straight-line fit of y = ΔT/Q against u = X/Q on [t_start, t_end]."""
+
+    k_W_per_mK: float
+    k_u_stat_W_per_mK: float
+    slope_K: float
+    intercept_K: float
+    window_s: tuple[float, float]
+    n: int
+    resid_rms_K: float
+    rho1: float
+    q_mean_W_per_m: float
+    alpha_m2_per_s: float | None
+    alpha_u_rel: float | None
+    trend_rel: float
+    trend_z: float
+    line: LineFit
+    drift_u_rel: float = 0.0
+
+    @property
+    def span_ln(self) -> float:
+        return math.log(self.window_s[1] / self.window_s[0]) if self.window_s[0] > 0 else math.inf
+
+    @property
+    def short(self) -> bool:
+        return self.span_ln < SHORT_SPAN_LN or self.n < MIN_POINTS
+
+    @property
+    def trend(self) -> bool:
+        return abs(self.trend_rel) > TREND_TOL and self.trend_z > TREND_Z
+
+
+def fit_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, t_start: float, t_end: float,
+               r_m: float | None = None, r_u_m: float = 0.0, drift_rate_u_K_per_s: float = 0.0) -> LateTimeFit:
+    """Fit the late-time line on samples with t_start <= t <= t_end (heating samples only).
+
+    ``drift_rate_u_K_per_s`` (the standard uncertainty of the baseline slope that was subtracted) is carried into
+    k: an error δ in the rate adds −δ·t/Q to y, which tilts the fitted slope by −δ·cov(t/Q, u)/var(u).
+    """
+    sel = (t >= t_start) & (t <= t_end)
+    if np.count_nonzero(sel) < 3:
+        raise ValueError(f"fewer than 3 samples between {t_start:.3g} s and {t_end:.3g} s")
+    ts, us, ys, qs = t[sel], u[sel], y[sel], Q[sel]
+    lf = fit_line(us, ys)
+    a, b = lf.slope, lf.intercept
+    if a <= 0:
+        raise ValueError("temperature does not rise with ln t in the window (no heating signal)")
+    k = 1.0 / (4.0 * math.pi * a)
+    q_mean = float(np.mean(qs))
+    resid = ys - (a * us + b)
+    alpha = alpha_u = None
+    if r_m:
+        ln_t0 = -b / a
+        alpha = win.alpha_from_intercept(r_m, ln_t0)
+        var = (lf.intercept_u / a) ** 2 + (b * lf.slope_u / a**2) ** 2 - 2 * b * lf.cov_slope_intercept / a**3
+        alpha_u = math.sqrt(max(var, 0.0) + (2 * r_u_m / r_m) ** 2)
+    rel, z, _ = quadratic_curvature(us, ys)
+    du = us - us.mean()
+    drift_rel = abs(drift_rate_u_K_per_s * float(du @ (ts / qs)) / float(du @ du)) / a
+    return LateTimeFit(k, k * lf.slope_u / a, a * q_mean, b * q_mean, (float(ts[0]), float(ts[-1])), ts.size,
+                       float(np.sqrt(np.mean((resid * qs) ** 2))), lf.rho1, q_mean, alpha, alpha_u, rel, z, lf,
+                       drift_rel)
+
+
+def _thirds_slopes(t: np.ndarray, u: np.ndarray, y: np.ndarray, t0: float, t1: float) -> tuple[float, ...]:
+    edges = np.exp(np.linspace(math.log(t0), math.log(t1), 4))
+    out = []
+    for lo, hi in itertools.pairwise(edges):
+        sel = (t >= lo) & (t <= hi)
+        out.append(fit_line(u[sel], y[sel]).slope if np.count_nonzero(sel) >= 3 else math.nan)
+    return tuple(out)
+
+
+@dataclass(frozen=True)
+class WindowChoice:
+    t_start: float
+    t_end: float
+    reason: str
+
+
+def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *, r_m: float | None,
+                  probe_C_J_per_m3K: float | None, length_m: float | None, axial_m: float | None,
+                  alpha_hint: float | None = None, h_hint: float = 0.0, k_hint: float | None = None
+                  ) -> WindowChoice:
+    """The automatic window (see METHODS.md): physics start and end, then trimmed until no residual trend.
+
+    Start: the later of 0.1·t_end and the time the probe-model slope error falls below 1 % (α from the probe
+    model fit when given, else iterated from the intercept). End: the end of heating, or earlier where axial
+    loss bends the slope by 1 % (t < L²/(53.1·α)). Then, while a quadratic in u shows the local slope drifting
+    by more than 2 % across the window (z > 3), the end of the window whose third deviates most is trimmed by
+    a factor 1.25 in time, keeping at least a factor e.
+    """
+    t_max = float(t[-1])
+    t_first = float(t[0])
+    alpha = alpha_hint
+    k = k_hint
+    t_start, t_end = max(FLOOR_FRACTION * t_max, t_first), t_max
+    why = ["floor 0.1·t_end"]
+    for _ in range(4):
+        t_end = t_max
+        if alpha and length_m:
+            t_end = min(t_max, win.axial_end_s(length_m, alpha, END_TOL, axial_m))
+        start = max(FLOOR_FRACTION * t_end, t_first)
+        why = ["floor 0.1·t_end"]
+        if alpha and r_m:
+            aj = 2.0 * (k / alpha) / probe_C_J_per_m3K if (probe_C_J_per_m3K and k) else None
+            t_phys = win.start_s(r_m, alpha, aj, h_hint, START_TOL)
+            if t_phys > start:
+                start = t_phys
+                why = ["probe-model slope error < 1 %" if aj else "line-source slope error < 1 %"]
+        if t_end < t_max:
+            why.append("axial-loss limit L²/(53α)")
+        if math.log(t_end / start) < 0.5:  # heating too short for the criterion: keep the last half-decade
+            start = t_end / math.exp(0.5)
+            why.append("start moved to keep half a decade")
+        t_start = start
+        if alpha_hint is not None:
+            break
+        try:
+            f = fit_window(t, u, y, Q, t_start, t_end, r_m)
+        except ValueError:
+            break
+        k = f.k_W_per_mK
+        if r_m and f.alpha_m2_per_s:
+            if alpha and abs(f.alpha_m2_per_s / alpha - 1) < 0.02:
+                alpha = f.alpha_m2_per_s
+                break
+            alpha = f.alpha_m2_per_s
+    trimmed = 0
+    for _ in range(10):
+        if math.log(t_end / t_start) < SHORT_SPAN_LN + math.log(1.25):
+            break
+        sel = (t >= t_start) & (t <= t_end)
+        if np.count_nonzero(sel) < 2 * MIN_POINTS:
+            break
+        rel, z, _ = quadratic_curvature(u[sel], y[sel])
+        if not (abs(rel) > TREND_TOL and z > TREND_Z):
+            break
+        s1, s2, s3 = _thirds_slopes(t, u, y, t_start, t_end)
+        if abs(s1 - s2) >= abs(s3 - s2):
+            t_start *= 1.25
+        else:
+            t_end /= 1.25
+        trimmed += 1
+    if trimmed:
+        why.append(f"trimmed {trimmed}× for residual trend")
+    return WindowChoice(t_start, t_end, "; ".join(why))
