@@ -17,10 +17,11 @@ FW_DIR = Path(__file__).resolve().parents[1] / "hardware" / "firmware"
 if str(FW_DIR) not in sys.path:
     sys.path.insert(0, str(FW_DIR))
 
+from probefw.device import FrontEnd  # noqa: E402
+
 from daemon.rig import its90  # noqa: E402
 from daemon.rig.framing import FrameDecoder, encode_frame  # noqa: E402
 from daemon.rig.messages import Message, parse_message  # noqa: E402
-from probefw.device import FrontEnd  # noqa: E402
 
 
 @dataclass

@@ -6,10 +6,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from firmware_path import FakeRig, Harness
+from probefw import limits
 
 from daemon.rig import its90
 from daemon.rig.messages import Ack, Fault, Sample
-from probefw import limits
 
 
 def _faults(h: Harness) -> list[str]:

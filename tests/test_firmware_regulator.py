@@ -8,9 +8,9 @@ from __future__ import annotations
 
 import pytest
 from firmware_path import FakeRig, Harness
+from probefw.regulator import PowerRegulator
 
 from daemon.rig.messages import Fault, Sample
-from probefw.regulator import PowerRegulator
 
 
 def _true_power_trace(h: Harness, ms: int) -> list[float]:
