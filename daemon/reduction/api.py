@@ -344,16 +344,17 @@ def _reduce_sensor(name: str, data: RunData, probe: ProbeProfile | None, method:
         t_last = float(t[after[0] - 1]) if after.size else float(t[-1])
         cw = recovery_window(t_off, heat_start, t_last, t_ax)
         try:
-            res.recovery = fit_recovery(t, dT, X, Q, *cw)
+            res.recovery = fit_recovery(t, dT, X, Q, *cw, drift_rate_u_K_per_s=baseline.rate_u_K_per_s)
             hw = line.window_s if line is not None else res.window_s
-            res.joint = fit_joint(t, dT, X, Q, hw, cw)
+            res.joint = fit_joint(t, dT, X, Q, hw, cw, baseline.rate_u_K_per_s)
         except ValueError as e:
             if np.count_nonzero(t > t_off) > 0:
                 notes.append(f"recovery not analysed: {e}")
         if res.recovery is not None:
             kc, uc = res.recovery.k_W_per_mK, res.recovery.k_u_stat_W_per_mK
             diff = abs(kc - k_raw)
-            if diff > max(2.0 * math.hypot(uc, u_stat), HEAT_COOL_REL * k_raw):
+            u_heat = k_raw * math.hypot(budget["statistical"], budget["drift"])
+            if diff > max(2.0 * math.hypot(uc, u_heat), HEAT_COOL_REL * k_raw):
                 flags.append("heat_cool_disagree")
 
     # --- drift, rise -------------------------------------------------------------------------------------

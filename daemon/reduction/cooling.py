@@ -38,9 +38,12 @@ def recovery_window(t_off: float, heat_start_s: float, t_last: float, t_axial_s:
     return t_off + heat_start_s, min(t_last, 3.0 * t_off, max(t_axial_s, t_off + 2 * heat_start_s))
 
 
-def fit_recovery(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, t0: float, t1: float
-                 ) -> CoolingFit:
-    """ΔT = X/(4πk) + c over recovery samples (heater off, Q = 0) with t0 <= t <= t1."""
+def fit_recovery(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, t0: float, t1: float,
+                 drift_rate_u_K_per_s: float = 0.0) -> CoolingFit:
+    """ΔT = X/(4πk) + c over recovery samples (heater off, Q = 0) with t0 <= t <= t1.
+
+    The uncertainty includes the baseline-slope uncertainty carried through: δ·cov(t, X)/var(X) on the slope.
+    """
     sel = (t >= t0) & (t <= t1) & (Q == 0)
     if np.count_nonzero(sel) < 5:
         raise ValueError("fewer than 5 recovery samples in the window")
@@ -49,12 +52,14 @@ def fit_recovery(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, t0
         raise ValueError("the recovery does not decay as the line-source model says")
     k = 1.0 / (4.0 * math.pi * lf.slope)
     ts = t[sel]
-    return CoolingFit("recovery", k, k * lf.slope_u / lf.slope, (float(ts[0]), float(ts[-1])), int(ts.size),
-                      lf.resid_rms, lf.rho1)
+    dx = X[sel] - X[sel].mean()
+    drift_u = abs(drift_rate_u_K_per_s * float(dx @ ts) / float(dx @ dx))
+    return CoolingFit("recovery", k, k * math.hypot(lf.slope_u, drift_u) / lf.slope,
+                      (float(ts[0]), float(ts[-1])), int(ts.size), lf.resid_rms, lf.rho1)
 
 
 def fit_joint(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, heat_window: tuple[float, float],
-              cool_window: tuple[float, float]) -> CoolingFit:
+              cool_window: tuple[float, float], drift_rate_u_K_per_s: float = 0.0) -> CoolingFit:
     """ΔT = X/(4πk) + b·Q over the heating window and the recovery window together (one k)."""
     sel = (((t >= heat_window[0]) & (t <= heat_window[1]) & (Q > 0))
            | ((t >= cool_window[0]) & (t <= cool_window[1]) & (Q == 0)))
@@ -66,11 +71,13 @@ def fit_joint(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, heat_
     n = resid.size
     s2 = float(resid @ resid) / (n - 2)
     rho = lag1_autocorrelation(resid)
-    cov = np.linalg.inv(A.T @ A) * s2 * ar1_inflation(rho)
+    AtA_inv = np.linalg.inv(A.T @ A)
+    cov = AtA_inv * s2 * ar1_inflation(rho)
     a = float(coef[0])
+    drift_u = abs(drift_rate_u_K_per_s * float((AtA_inv @ A.T @ t[sel])[0]))
     if a <= 0:
         raise ValueError("joint fit found no heating signal")
     k = 1.0 / (4.0 * math.pi * a)
     ts = t[sel]
-    return CoolingFit("joint", k, k * math.sqrt(cov[0, 0]) / a, (float(ts[0]), float(ts[-1])), n,
+    return CoolingFit("joint", k, k * math.hypot(math.sqrt(cov[0, 0]), drift_u) / a, (float(ts[0]), float(ts[-1])), n,
                       math.sqrt(float(resid @ resid) / n), rho)

@@ -1,0 +1,201 @@
+"""``linerig reduce FILE.csv``: thermal properties from a recorded run, as a table, JSON or a plot.
+
+Exit codes: 0 result printed; 2 bad input (the message names the file, line/row and column, or the option).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from pathlib import Path
+
+from daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
+from daemon.reduction.api import METHODS, RunReduction, reduce_run
+from daemon.reduction.data import ReductionError, RunData
+from daemon.runcsv import RunCsvError, read_run_csv
+
+EXIT_BAD_INPUT = 2
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = subparsers.add_parser("reduce", help="thermal conductivity (and more) from a run CSV",
+                              description="Reduce a run CSV (time_s, q_W_per_m, T_<sensor>_C ...) to thermal "
+                                          "conductivity, resistivity, diffusivity and heat capacity per sensor.")
+    p.add_argument("file", metavar="FILE.csv", type=Path, help="run record")
+    p.add_argument("--json", action="store_true", help="print JSON for machines instead of a table")
+    p.add_argument("--probe", metavar="PROFILE.toml", type=Path, help="probe profile (geometry, heat capacity)")
+    p.add_argument("--radius-mm", type=float, help="heated needle radius (overrides the profile)")
+    p.add_argument("--length-mm", type=float, help="heater length (overrides the profile)")
+    p.add_argument("--probe-heat-capacity", metavar="MJ_PER_M3K", type=float,
+                   help="volumetric heat capacity of the needle (overrides the profile)")
+    p.add_argument("--spacing", metavar="SENSOR=MM", action="append", default=[],
+                   help="radial distance of a sensor from the heater axis (repeatable)")
+    p.add_argument("--calibration-factor", metavar="F", type=float, default=1.0, help="probe factor to apply")
+    p.add_argument("--calibration-factor-u", metavar="U", type=float, default=0.0,
+                   help="standard uncertainty of the probe factor")
+    p.add_argument("--method", choices=METHODS, default="auto", help="reduction method (default: auto)")
+    p.add_argument("--window", nargs=2, type=float, metavar=("START", "END"), help="fit window in s")
+    p.add_argument("--max-rise", metavar="K", type=float, help="flag a temperature rise above this")
+    p.add_argument("--bulk-density", metavar="KG_PER_M3", type=float, help="gives specific heat J/(kg·K)")
+    p.add_argument("--plot", metavar="FILE.png", type=Path, help="write ΔT vs ln t, residuals and estimate history")
+    p.set_defaults(func=run)
+
+
+def _fail(msg: str) -> int:
+    print(f"linerig reduce: error: {msg}", file=sys.stderr)
+    return EXIT_BAD_INPUT
+
+
+def build_probe(args: argparse.Namespace) -> ProbeProfile | None:
+    """The profile from --probe, with the dimension options applied on top (or a profile made from them)."""
+    probe = load_probe_profile(args.probe) if args.probe else None
+    if args.radius_mm is not None:
+        if not (args.radius_mm > 0 and math.isfinite(args.radius_mm)):
+            raise ProbeProfileError(f"--radius-mm must be > 0, got {args.radius_mm}")
+        probe = (ProbeProfile(name="command line", radius_mm=args.radius_mm) if probe is None
+                 else _replace(probe, radius_mm=args.radius_mm))
+    for opt, field in (("length_mm", "heater_length_mm"), ("probe_heat_capacity", "heat_capacity_MJ_per_m3K")):
+        v = getattr(args, opt)
+        if v is None:
+            continue
+        if not (v > 0 and math.isfinite(v)):
+            raise ProbeProfileError(f"--{opt.replace('_', '-')} must be > 0, got {v}")
+        if probe is None:
+            raise ProbeProfileError(f"--{opt.replace('_', '-')} needs --radius-mm or --probe")
+        probe = _replace(probe, **{field: v})
+    for item in args.spacing:
+        name, sep, mm = item.partition("=")
+        try:
+            dist = float(mm)
+        except ValueError:
+            dist = math.nan
+        if not sep or not name or not math.isfinite(dist):
+            raise ProbeProfileError(f"--spacing {item!r}: expected SENSOR=MM, e.g. --spacing far=6.0")
+        if probe is None:
+            raise ProbeProfileError("--spacing needs --radius-mm or --probe (the heater radius)")
+        probe = probe.with_sensor(name, dist)
+    return probe
+
+
+def _replace(probe: ProbeProfile, **kw: float) -> ProbeProfile:
+    from dataclasses import replace
+
+    return replace(probe, **kw)
+
+
+def run(args: argparse.Namespace) -> int:
+    try:
+        probe = build_probe(args)
+    except ProbeProfileError as e:
+        return _fail(str(e))
+    try:
+        data = read_run_csv(Path(args.file))
+    except RunCsvError as e:
+        return _fail(str(e))
+    if not (args.calibration_factor > 0 and math.isfinite(args.calibration_factor)):
+        return _fail(f"--calibration-factor must be > 0, got {args.calibration_factor}")
+    try:
+        red = reduce_run(data, probe, method=args.method, calibration_factor=args.calibration_factor,
+                         calibration_factor_u=args.calibration_factor_u,
+                         window_s=tuple(args.window) if args.window else None, max_rise_K=args.max_rise,
+                         bulk_density_kg_per_m3=args.bulk_density)
+    except (ReductionError, ProbeProfileError) as e:
+        return _fail(f"{args.file}: {e}")
+    if args.json:
+        print(json.dumps(red.to_json(), indent=2, allow_nan=False))
+    else:
+        print_table(red, str(args.file))
+    if args.plot:
+        try:
+            plot(red, data, probe, args.plot)
+        except OSError as e:
+            return _fail(f"cannot write plot {args.plot}: {e}")
+    return 0
+
+
+def _fmt(v: float | None, digits: int = 4) -> str:
+    return "—" if v is None or not math.isfinite(v) else f"{v:.{digits}g}"
+
+
+def print_table(red: RunReduction, title: str) -> None:
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title=f"Reduction of {title}")
+    table.add_column("sensor")
+    table.add_column("k W/(m·K)", justify="right")
+    table.add_column("U (k=2)", justify="right")
+    table.add_column("ρ °C·cm/W", justify="right")
+    table.add_column("α mm²/s", justify="right")
+    table.add_column("ρc MJ/(m³·K)", justify="right")
+    table.add_column("window s", justify="right")
+    table.add_column("stable at s", justify="right")
+    table.add_column("method")
+    table.add_column("flags")
+    for name, r in red.sensors.items():
+        j = r.to_json()
+        win = r.window_s
+        table.add_row(name, _fmt(r.k_W_per_mK), _fmt(r.k_U_W_per_mK, 2), _fmt(j["resistivity_Ccm_per_W"]),  # type: ignore[arg-type]
+                      _fmt(j["alpha_mm2_per_s"], 3), _fmt(j["rho_c_MJ_per_m3K"], 3),  # type: ignore[arg-type]
+                      f"{win[0]:.0f}–{win[1]:.0f}" if win else "—", _fmt(r.stable_at_s, 4), r.method,
+                      ", ".join(r.flags) or "ok")
+    console = Console()
+    console.print(table)
+    for name, r in red.sensors.items():
+        console.print(f"[b]{name}[/b]: {r.method_reason}")
+        for n in r.notes:
+            console.print(f"  note: {n}")
+
+
+def plot(red: RunReduction, data: RunData, probe: ProbeProfile | None, path: Path) -> None:
+    """ΔT against ln t with the fitted line and window, its residuals, and the live estimate's history."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import numpy as np
+
+    from daemon.reduction.live import replay
+
+    names = list(red.sensors)
+    fig, axes = plt.subplots(3, len(names), figsize=(5.5 * len(names), 9), squeeze=False)
+    t = data.time_s
+    for c, name in enumerate(names):
+        r = red.sensors[name]
+        T = data.temps_C[name]
+        dT = T - r.baseline.at(t) if r.baseline else T - T[0]
+        heat = (t > 0) & (t <= (r.heating_s or t[-1]))
+        ax, axr, axk = axes[0, c], axes[1, c], axes[2, c]
+        ax.plot(np.log(t[heat]), dT[heat], ".", ms=2, label="ΔT")
+        if r.line is not None:
+            lt = np.log(t[heat])
+            fit = r.line.slope_K * lt + r.line.intercept_K
+            ax.plot(lt, fit, "-", lw=1, label=f"line, k = {r.line.k_W_per_mK * r.calibration_factor:.4g}")
+            w = (t[heat] >= r.line.window_s[0]) & (t[heat] <= r.line.window_s[1])
+            axr.plot(lt[w], (dT[heat] - fit)[w] * 1e3, ".", ms=2)
+            for edge in r.line.window_s:
+                ax.axvline(math.log(edge), color="grey", ls="--", lw=0.8)
+        ax.set_title(f"{name}: {r.method}, k = {_fmt(r.k_W_per_mK)} W/(m·K)")
+        ax.set_xlabel("ln(t / s)")
+        ax.set_ylabel("ΔT (K)")
+        ax.legend(fontsize=8)
+        axr.axhline(0, color="grey", lw=0.8)
+        axr.set_xlabel("ln(t / s)")
+        axr.set_ylabel("residual (mK)")
+        _, ests = replay(t, T, data.q_W_per_m, probe, name, calibration_factor=r.calibration_factor)
+        if ests:
+            et = np.array([e.t_s for e in ests])
+            ek = np.array([e.k_W_per_mK for e in ests])
+            eu = np.array([e.k_u_W_per_mK for e in ests])
+            axk.plot(et, ek, "-", lw=1)
+            axk.fill_between(et, ek - 2 * eu, ek + 2 * eu, alpha=0.2)
+            if r.stable_at_s is not None:
+                axk.axvline(r.stable_at_s, color="green", ls=":", label=f"stable at {r.stable_at_s:.0f} s")
+                axk.legend(fontsize=8)
+        axk.set_xlabel("t (s)")
+        axk.set_ylabel("live k (W/(m·K))")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
