@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import itertools
 import re
 
 import iapws
 import pytest
 
-from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, Material, get_material
+from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, Material, get_material, soil_at_moisture
 
 
 def test_keys_are_kebab_case_and_match_their_entries() -> None:
@@ -78,3 +79,53 @@ def test_backfill_resistivity_in_trade_range() -> None:
     # engineered thermal backfills: about 50-75 C cm/W moist (from memory, unconfirmed); 1 K m/W = 100 C cm/W
     rho_th_Ccm_per_W = 100.0 * get_material("thermal-backfill").resistivity_mK_per_W
     assert 50.0 <= rho_th_Ccm_per_W <= 75.0
+
+
+# Kersten-number soil models: Johansen (1975) as summarised by Farouki (1981), CRREL Monograph 81-1, and Côté &
+# Konrad (2005), Can. Geotech. J. 42:443-458. Worked example for rho_s 2650 kg/m3, n = 0.40, quartz 0.8,
+# k_water 0.6 computed from those equations; the model constants are recalled, not checked against the
+# primary texts, so these are regression values for the formulas rather than physical truth.
+SR = (0.05, 0.10, 0.20, 0.30, 0.50, 0.80, 1.00)
+JOHANSEN_COARSE = (0.4237, 0.8717, 1.3197, 1.5818, 1.9119, 2.2157, 2.3599)
+COTE_KONRAD_46 = (0.6599, 0.9626, 1.3778, 1.6493, 1.9829, 2.2511, 2.3599)
+COTE_KONRAD_355 = (0.5808, 0.8456, 1.2412, 1.5225, 1.8958, 2.2210, 2.3599)
+
+
+@pytest.mark.parametrize(
+    ("model", "texture", "expected"),
+    [("johansen", "coarse", JOHANSEN_COARSE), ("cote-konrad", "coarse", COTE_KONRAD_46),
+     ("cote-konrad", "sand", COTE_KONRAD_355)],
+)
+def test_soil_at_moisture_reproduces_the_kersten_number_models(model: str, texture: str,
+                                                               expected: tuple[float, ...]) -> None:
+    for sr, k in zip(SR, expected, strict=True):
+        m = soil_at_moisture(0.40 * sr, porosity=0.40, quartz_fraction=0.8, texture=texture, model=model)
+        assert m.k_W_per_mK == pytest.approx(k, abs=1e-4), sr
+
+
+def test_dry_soil_conductivity_of_each_model() -> None:
+    # k_dry: Johansen 0.2339 at rho_d 1590 kg/m3; Côté-Konrad natural mineral soil 0.75*10^(-1.2 n) = 0.2483
+    assert soil_at_moisture(0.0, dry_density_kg_per_m3=1590.0, model="johansen").k_W_per_mK == pytest.approx(
+        0.2339, abs=1e-4)
+    assert soil_at_moisture(0.0, porosity=0.4).k_W_per_mK == pytest.approx(0.2483, abs=1e-4)
+
+
+def test_soil_heat_capacity_is_the_de_vries_mix() -> None:
+    # de Vries (1963): C = 1.92 x_mineral + 4.18 theta MJ/(m3 K)
+    m = soil_at_moisture(0.15, porosity=0.35)
+    assert m.rho_c_J_per_m3K == pytest.approx((1.92 * 0.65 + 4.18 * 0.15) * 1e6)
+    assert m.bulk_density_kg_per_m3 == pytest.approx(0.65 * 2650.0)
+
+
+def test_dry_out_curve_rises_monotonically_as_the_soil_dries() -> None:
+    ks = [soil_at_moisture(th, texture="fine").k_W_per_mK for th in (0.40, 0.3, 0.2, 0.1, 0.05, 0.0)]
+    assert all(a > b for a, b in itertools.pairwise(ks))
+
+
+def test_soil_at_moisture_refuses_impossible_soils() -> None:
+    with pytest.raises(ValueError, match="porosity"):
+        soil_at_moisture(0.5, porosity=0.4)
+    with pytest.raises(ValueError, match="texture"):
+        soil_at_moisture(0.1, texture="gravelly")
+    with pytest.raises(ValueError, match="dry density"):
+        soil_at_moisture(0.1, dry_density_kg_per_m3=2640.0)

@@ -282,3 +282,29 @@ def test_axial_model_conserves_energy_in_insulated_sample() -> None:
     for _ in range(40):
         m.step(4.0, 5.0)
     assert m.energy_J_per_m() == pytest.approx(4.0 * 200.0, rel=1e-9)
+
+
+@pytest.mark.parametrize("height_over_diameter", [2.0, 1.0])
+def test_finite_cylinder_centre_follows_the_product_solution(height_over_diameter: float) -> None:
+    # finite cylinder with its whole surface stepped: (1 − θ) = (1 − θ_cyl)(1 − θ_slab) (Newman product of the
+    # Carslaw & Jaeger §7.4 cylinder and §3.3 slab series); at H/D = 2 the centre is half-way at Fo = 0.199971
+    k, rho_c, R = 0.598, 4.177e6, 0.0254
+    kappa, half_h = k / rho_c, height_over_diameter * R
+    lam, n = jn_zeros(0, 200), np.arange(400)
+
+    def remaining(fo: float) -> float:
+        cyl = np.sum(2 / (lam * j1(lam)) * np.exp(-lam * lam * fo))
+        fo_slab = fo * R * R / half_h**2
+        slab = np.sum(4 * (-1) ** n / ((2 * n + 1) * np.pi) * np.exp(-(((2 * n + 1) * np.pi / 2) ** 2) * fo_slab))
+        return float(cyl * slab)
+
+    if height_over_diameter == 2.0:
+        assert remaining(0.199971) == pytest.approx(0.5, abs=1e-5)
+    # a tiny 'heater' of the sample's own properties stands in for the centre thermocouple
+    m = AxialRadialModel(k, rho_c, 0.02e-3, rho_c, heater_length_m=1e-3, outer_radius_m=R,
+                         outer_half_height_m=half_h, boundary="fixed", probe_axial_k=k, n_axial_heater=4,
+                         n_radial=120)
+    m.reset(1.0)
+    for fo in (0.1, 0.2, 0.3, 0.5):
+        run_to(m, 0.0, fo * R * R / kappa, dt=2.0)
+        assert m.rise_at_K(0.0, 0.0) == pytest.approx(remaining(fo), abs=2e-3), fo

@@ -371,3 +371,25 @@ def test_insulated_lab_sample_keeps_the_heat_it_was_given() -> None:
     assert model.energy_J_per_m() == pytest.approx(delivered, rel=1e-9)
     with pytest.raises(ModelConfigError, match="axial_loss"):
         SimulatedRig(SAND, p, sample_height_m=0.1)
+
+
+def test_sample_moved_into_a_bath_reaches_half_way_at_fourier_0_2005() -> None:
+    # surface-step cylinder test: an infinite cylinder's centre is half-way to the bath at Fo = κt/R² = 0.200524
+    # (series solution, Carslaw & Jaeger §7.4)
+    gel = MATERIALS["agar-gel"]
+    R = 0.0254
+    centre = ProbeSpec(0.01, 0.05e-3, gel.rho_c_J_per_m3K, 40.0, (("centre", 0.0, 0.005),), contact_conductance=None)
+    rig = SimulatedRig(gel, centre, seed=0, initial_ground_C=20.0, sample_radius_m=R, noise_K_rms=0.0,
+                       quantum_K=0.0, channel_offset_sd_K=0.0)
+    run(rig, 10)
+    rig.step_surroundings(40.0)
+    assert rig.true_temp_C("centre") == pytest.approx(20.0)
+    t50 = None
+    while t50 is None:
+        before = rig.true_temp_C("centre")
+        rig.advance(1.0)
+        if rig.true_temp_C("centre") >= 30.0:
+            t50 = rig.t_s - 10.0 - (rig.true_temp_C("centre") - 30.0) / (rig.true_temp_C("centre") - before)
+    assert t50 == pytest.approx(0.200524 * R * R / gel.diffusivity_m2_per_s, rel=5e-3)
+    run(rig, 6000, dt=5.0)
+    assert rig.true_temp_C("centre") == pytest.approx(40.0, abs=0.01)

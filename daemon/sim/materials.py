@@ -8,9 +8,10 @@ These are demo media, not certified reference values.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
-__all__ = ["DEFAULT_MATERIAL_KEY", "MATERIALS", "Material", "get_material"]
+__all__ = ["DEFAULT_MATERIAL_KEY", "MATERIALS", "SOIL_TEXTURES", "Material", "get_material", "soil_at_moisture"]
 
 
 @dataclass(frozen=True)
@@ -100,3 +101,78 @@ def get_material(key: str) -> Material:
         return MATERIALS[key]
     except KeyError:
         raise KeyError(f"unknown material {key!r}; choose one of: {', '.join(MATERIALS)}") from None
+
+
+# ---- soils at any moisture content, for simulated dry-out curves ----
+
+WATER_K_W_PER_MK = 0.60
+"""Johansen (1975) takes about 0.57-0.60 for pore water; 0.60 is water near 20 C (IAPWS 2011: 0.598)."""
+
+SOIL_TEXTURES: dict[str, tuple[float, str]] = {
+    # texture: (Côté & Konrad 2005 unfrozen kappa, Johansen 1975 Kersten-number branch)
+    "coarse": (4.60, "coarse"),  # gravel and coarse sand
+    "sand": (3.55, "coarse"),  # medium and fine sand
+    "fine": (1.90, "fine"),  # silty and clayey soils
+}
+
+
+def soil_at_moisture(
+    water_content: float,
+    *,
+    porosity: float = 0.40,
+    dry_density_kg_per_m3: float | None = None,
+    quartz_fraction: float = 0.8,
+    texture: str = "sand",
+    model: str = "cote-konrad",
+    particle_density_kg_per_m3: float = 2650.0,
+) -> Material:
+    """An unfrozen mineral soil at volumetric water content θ (m³/m³), for dry-out curves.
+
+    Conductivity follows the Kersten-number framework k = k_dry + Ke·(k_sat − k_dry) (Johansen 1975, as
+    summarised by Farouki 1981): k_sat = k_s^(1−n)·k_w^n with k_s = 7.7^q·k_o^(1−q) (k_o = 2.0 for q > 0.2,
+    else 3.0). `model` "johansen": k_dry = (0.135ρd + 64.7)/(2700 − 0.947ρd), Ke = 0.7·log10(Sr) + 1 (coarse)
+    or log10(Sr) + 1 (fine); "cote-konrad" (Côté & Konrad 2005): k_dry = 0.75·10^(−1.2n),
+    Ke = κ·Sr/(1 + (κ − 1)·Sr). Heat capacity is the de Vries (1963) mix 1.92·(1 − n) + 4.18·θ MJ/(m³·K).
+    The model constants are quoted from memory of those papers; good enough for demo soils.
+    """
+    if texture not in SOIL_TEXTURES:
+        raise ValueError(f"texture must be one of {', '.join(SOIL_TEXTURES)}, got {texture!r}")
+    if model not in ("johansen", "cote-konrad"):
+        raise ValueError(f"model must be 'johansen' or 'cote-konrad', got {model!r}")
+    rho_s = float(particle_density_kg_per_m3)
+    if dry_density_kg_per_m3 is not None:
+        porosity = 1.0 - float(dry_density_kg_per_m3) / rho_s
+    n = float(porosity)
+    if not 0.05 < n < 0.95:
+        raise ValueError(f"porosity must lie between 0.05 and 0.95, got {n:.3f} (check the dry density)")
+    theta = float(water_content)
+    if not 0.0 <= theta <= n + 1e-12:
+        raise ValueError(f"water_content must lie between 0 and the porosity {n:.3f}, got {theta}")
+    q = float(quartz_fraction)
+    if not 0.0 <= q <= 1.0:
+        raise ValueError(f"quartz_fraction must lie between 0 and 1, got {q}")
+    rho_d = (1.0 - n) * rho_s
+    sr = min(theta / n, 1.0)
+    k_solids = 7.7**q * (2.0 if q > 0.2 else 3.0) ** (1.0 - q)
+    k_sat = k_solids ** (1.0 - n) * WATER_K_W_PER_MK**n
+    kappa, branch = SOIL_TEXTURES[texture]
+    if model == "johansen":
+        k_dry = (0.135 * rho_d + 64.7) / (2700.0 - 0.947 * rho_d)
+        if branch == "coarse":
+            ke = 0.7 * math.log10(sr) + 1.0 if sr > 0.05 else 0.0
+        else:
+            ke = math.log10(sr) + 1.0 if sr > 0.1 else 0.0
+        ke = max(ke, 0.0)
+    else:
+        k_dry = 0.75 * 10.0 ** (-1.2 * n)
+        ke = kappa * sr / (1.0 + (kappa - 1.0) * sr)
+    k = k_dry + ke * (k_sat - k_dry)
+    rho_c = (1.92 * (1.0 - n) + 4.18 * theta) * 1e6
+    return Material(
+        key=f"{texture}-soil-theta-{round(theta * 1000):03d}",
+        name=f"{texture.capitalize()} soil, water content {theta:.3f} m3/m3",
+        k_W_per_mK=k,
+        rho_c_J_per_m3K=rho_c,
+        bulk_density_kg_per_m3=rho_d,
+        note=f"Generated: porosity {n:.3f}, quartz fraction {q:.2f}, Sr {sr:.3f}, {model} Kersten model.",
+    )

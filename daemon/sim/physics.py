@@ -260,6 +260,10 @@ class RadialModel:
         self._u[:] = float(rise_K)
         self._t = 0.0
 
+    def shift_rise(self, delta_K: float) -> None:
+        """Add delta_K everywhere: how the field looks from a new reference when the surroundings step."""
+        self._u += float(delta_K)
+
 
 def _solve_tri(fac: tuple, rhs: np.ndarray) -> np.ndarray:
     dl, d, du, du2, ipiv = fac
@@ -493,3 +497,7 @@ class AxialRadialModel:
         """Back to t = 0 with probe and medium at a uniform rise (0: the start of a heating run)."""
         self._u[:] = float(rise_K)
         self._t = 0.0
+
+    def shift_rise(self, delta_K: float) -> None:
+        """Add delta_K everywhere: how the field looks from a new reference when the surroundings step."""
+        self._u += float(delta_K)

@@ -430,6 +430,18 @@ class SimulatedRig:
             out |= {f"{k}:{c.spec.name}" for k in c.faults}
         return frozenset(out)
 
+    def step_surroundings(self, temp_C: float) -> None:
+        """The medium's outer boundary jumps to temp_C now: a sample mould moved into a bath or an oven.
+
+        Temperatures inside are unchanged at this instant and relax towards temp_C with the sample's own
+        time constant (drift and depth gradient carry on from the new level). With the default, effectively
+        infinite medium this is a change of the far-field ground temperature.
+        """
+        delta = float(temp_C) - self._ground_C(self.install_depth_m)
+        self.initial_ground_C += delta
+        for m in self._models:
+            m.shift_rise(-delta)
+
     # ---- electrical world ----
     def heater_resistance_ohm(self) -> float:
         """Heater resistance now: nominal at 20 °C, TCR at the heater's mean temperature, drift if faulted."""
