@@ -1,0 +1,110 @@
+"""Surface-step cylinder test against the classical series solutions (Carslaw & Jaeger 1959; Newman's product
+rule), evaluated independently with scipy (jn_zeros, brentq on 200/400-term series)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.special import j1, jn_zeros
+
+from daemon.workflows.cylinder import (
+    CylinderTestError,
+    SurfaceSteps,
+    centre_response,
+    fit_cylinder,
+    fourier_at_fraction,
+    j0_roots,
+    model_centre_C,
+    unaccomplished_cylinder,
+    unaccomplished_slab,
+)
+
+
+def test_j0_roots_match_scipy_jn_zeros() -> None:
+    # scipy.special.jn_zeros is the reference; the first four are the tabulated 2.404826, 5.520078, 8.653728, 11.791534.
+    ours = j0_roots(200)
+    assert np.allclose(ours, jn_zeros(0, 200), rtol=0, atol=1e-10)
+    assert np.allclose(ours[:4], [2.404826, 5.520078, 8.653728, 11.791534], atol=1e-6)
+
+
+def test_series_coefficients() -> None:
+    # 2/(λ_n J1(λ_n)) = 1.601975, −1.064799, 0.851399, −0.729645 (classical series, computed with scipy).
+    lam = jn_zeros(0, 4)
+    assert np.allclose(2 / (lam * j1(lam)), [1.601975, -1.064799, 0.851399, -0.729645], atol=1e-6)
+    # at Fo → 0 the centre has not moved: the coefficient sums are 1
+    assert float(unaccomplished_cylinder(0.0)[0]) == 1.0
+    assert float(unaccomplished_slab(0.0)[0]) == 1.0
+
+
+# Fo₅₀ = κt/R² at which the centre reaches 50 %; brentq on 200- and 400-term series with scipy.
+FO50 = [(None, 0.200524), (0.5, 0.084382), (1.0, 0.167630), (1.5, 0.194693), (2.0, 0.199971), (3.0, 0.200523)]
+
+
+@pytest.mark.parametrize(("h_over_d", "fo50"), FO50)
+def test_half_fourier_numbers(h_over_d: float | None, fo50: float) -> None:
+    assert fourier_at_fraction(0.5, h_over_d) == pytest.approx(fo50, abs=2e-6)
+
+
+def test_slab_centre_half_fourier() -> None:
+    # slab centre (Fo on half-thickness): 0.378748
+    from scipy.optimize import brentq
+    assert brentq(lambda f: 1 - float(unaccomplished_slab(f)[0]) - 0.5, 0.01, 5) == pytest.approx(0.378748, abs=2e-6)
+
+
+@pytest.mark.parametrize(("frac", "inf", "h2d"), [
+    (0.10, 0.08543, 0.08543), (0.25, 0.12605, 0.12602), (0.75, 0.32115, 0.31695),
+    (0.90, 0.47963, 0.46587), (0.95, 0.59949, 0.57640), (0.99, 0.87779, 0.83006)])
+def test_other_fractions(frac: float, inf: float, h2d: float) -> None:
+    assert fourier_at_fraction(frac) == pytest.approx(inf, abs=1e-5)
+    assert fourier_at_fraction(frac, 2.0) == pytest.approx(h2d, abs=1e-5)
+
+
+def test_centre_response_at_given_fourier_numbers() -> None:
+    fo = np.array([0.05, 0.10, 0.20, 0.30, 0.50, 1.00])
+    inf = [0.012901, 0.151645, 0.498513, 0.717513, 0.911110, 0.995068]
+    h2d = [0.012901, 0.151658, 0.500083, 0.723063, 0.919199, 0.996619]
+    assert np.allclose(centre_response(fo), inf, atol=1e-6)
+    assert np.allclose(centre_response(fo, 2.0), h2d, atol=1e-6)
+
+
+def test_half_time_of_a_two_inch_mould_of_water() -> None:
+    # R = 25.4 mm, water κ = 1.455e-7 m²/s: t₅₀ ≈ 889 s (infinite) and 887 s (H = 2D).
+    r = 0.0254
+    assert fourier_at_fraction(0.5) * r**2 / 1.455e-7 == pytest.approx(889, abs=0.5)
+    assert fourier_at_fraction(0.5, 2.0) * r**2 / 1.455e-7 == pytest.approx(887, abs=0.5)
+
+
+def _synthetic(alpha: float, h_m: float | None, noise_K: float = 0.01) -> tuple[np.ndarray, np.ndarray, SurfaceSteps]:
+    r = 0.0254
+    t = np.arange(-60.0, 3600.0, 5.0)
+    steps = SurfaceSteps(np.array([0.0, 1800.0]), np.array([60.0, 20.0]))  # heat in a bath, then cool in another
+    y = model_centre_C(t, alpha, r, None if h_m is None else h_m / (2 * r), steps, 20.0, lag_s=12.0)
+    rng = np.random.default_rng(7)
+    return t, y + rng.normal(0, noise_K, t.size), steps
+
+
+@pytest.mark.parametrize("height_m", [None, 0.1016])
+def test_fit_recovers_diffusivity_through_heating_and_cooling(height_m: float | None) -> None:
+    t, y, steps = _synthetic(3.2e-7, height_m)
+    fit = fit_cylinder(t, y, 0.0254, steps, height_m)
+    assert fit.alpha_m2_per_s == pytest.approx(3.2e-7, rel=0.005)
+    assert fit.lag_s == pytest.approx(12.0, abs=1.5)
+    assert fit.initial_C == pytest.approx(20.0, abs=0.02)
+    assert fit.alpha_u_m2_per_s < 0.01 * fit.alpha_m2_per_s
+    assert fit.resid_rms_K == pytest.approx(0.01, rel=0.2)
+    # the simple half-time estimate agrees roughly (it ignores the lag)
+    assert fit.alpha_fo50_m2_per_s == pytest.approx(3.2e-7, rel=0.05)
+
+
+def test_steps_from_a_measured_bath_record() -> None:
+    t = np.arange(0, 100.0)
+    bath = np.where(t < 10, 20.0, np.where(t < 60, 60.0, 20.0)) + 0.01 * np.sin(t)
+    st = SurfaceSteps.from_record(t, bath, start_C=20.0)
+    assert np.allclose(st.times_s, [10.0, 60.0])
+    assert np.allclose(st.levels_C, [60.0, 20.0], atol=0.01)
+
+
+def test_no_step_is_refused() -> None:
+    t = np.arange(0, 100.0)
+    with pytest.raises(CylinderTestError, match="no step"):
+        fit_cylinder(t, np.full(t.size, 20.0), 0.02, SurfaceSteps.single(20.0))
