@@ -274,6 +274,9 @@ def test_long_heater_agrees_with_radial_model() -> None:
     run_to(m1, q, 300.0, dt=1.0)
     assert m2.rise_at_K(0.0, 0.0) == pytest.approx(m1.probe_rise_K(), rel=3e-3)
     assert m2.rise_at_K(6e-3, 0.0) == pytest.approx(m1.rise_at_K(6e-3), rel=5e-3)
+    # just outside the contact layer the medium is cooler than the probe by the contact drop
+    assert m2.rise_at_K(1.001 * a, 0.0) == pytest.approx(m1.rise_at_K(1.001 * a), rel=3e-3)
+    assert m1.probe_rise_K() - m1.rise_at_K(1.001 * a) > 0.5
 
 
 def test_axial_model_conserves_energy_in_insulated_sample() -> None:
@@ -308,3 +311,18 @@ def test_finite_cylinder_centre_follows_the_product_solution(height_over_diamete
     for fo in (0.1, 0.2, 0.3, 0.5):
         run_to(m, 0.0, fo * R * R / kappa, dt=2.0)
         assert m.rise_at_K(0.0, 0.0) == pytest.approx(remaining(fo), abs=2e-3), fo
+
+
+def test_inner_zone_of_other_conductivity_conducts_in_series() -> None:
+    # steady conduction through two concentric shells: ΔT = q/(2π)[ln(r1/a)/k1 + ln(R/r1)/k2] (thermal
+    # resistances of cylindrical shells in series, Carslaw & Jaeger §7.2); r1 is set on a cell face
+    k, rho_c, a, R, q = 1.5, 2.0e6, 1e-3, 0.03, 4.0
+    m = RadialModel(k, rho_c, a, 3e6, None, outer_radius_m=R, boundary="fixed", n_cells=80)
+    r1 = float(m._faces[30])
+    m.set_conductivity_within(r1, 0.4)
+    run_to(m, q, 30 * R * R * rho_c / 0.4, dt=100.0)
+    expected = q / (2 * math.pi) * (math.log(r1 / a) / 0.4 + math.log(R / r1) / k)
+    assert m.probe_rise_K() == pytest.approx(expected, rel=1e-6)
+    m.set_conductivity_within(0.0, None)
+    run_to(m, q, m.t_s + 30 * R * R * rho_c / 0.4, dt=100.0)
+    assert m.probe_rise_K() == pytest.approx(q / (2 * math.pi * k) * math.log(R / a), rel=1e-6)

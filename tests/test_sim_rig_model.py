@@ -393,3 +393,22 @@ def test_sample_moved_into_a_bath_reaches_half_way_at_fourier_0_2005() -> None:
     assert t50 == pytest.approx(0.200524 * R * R / gel.diffusivity_m2_per_s, rel=5e-3)
     run(rig, 6000, dt=5.0)
     assert rig.true_temp_C("centre") == pytest.approx(40.0, abs=0.01)
+
+
+def test_dry_out_steepens_the_late_curve() -> None:
+    # drying next to the probe adds a growing resistance, so the late slope exceeds q/(4πk) of the moist
+    # medium (the moisture-migration error of ASTM D5334-14 §1.2); without the fault it does not
+    kw = {"seed": 0, "noise_K_rms": 0.0, "quantum_K": 0.0, "channel_offset_sd_K": 0.0}
+    ideal = 10.0 / (4 * math.pi * SAND.k_W_per_mK)
+    slopes = {}
+    for faults in ((), ("dry_out",)):
+        rig = SimulatedRig(SAND, ProbeSpec.default_needle(), faults=faults, **kw)
+        rig.set_heater(True, 10.0)
+        run(rig, 300)
+        t1 = rig.true_temp_C("probe")
+        run(rig, 300)
+        slopes[faults] = (rig.true_temp_C("probe") - t1) / math.log(2)
+    assert slopes[()] == pytest.approx(ideal, rel=0.02)
+    assert slopes[("dry_out",)] > 1.3 * ideal
+    with pytest.raises(ModelConfigError, match="dry_out"):
+        SimulatedRig(SAND, ProbeSpec.default_needle(), axial_loss=True).inject("dry_out")

@@ -136,18 +136,36 @@ class RadialModel:
         shells = math.pi * (f[1:] ** 2 - f[:-1] ** 2) * self.rho_c
         # a probe without heat capacity is an algebraic constraint; a vanishing one keeps the system an ODE
         self._cap = np.concatenate(([max(probe_S, 1e-9 * shells[0])], shells))
-        self._g_inner = 2.0 * math.pi * self.k / math.log(self._rc[0] / self.a)  # surface -> first node
-        self._g_links = 2.0 * math.pi * self.k / np.log(self._rc[1:] / self._rc[:-1])
-        self._g_outer = (
-            2.0 * math.pi * self.k / math.log(outer / self._rc[-1]) if self.boundary == "fixed" else 0.0
-        )
-        self._H: float | None = None
+        self._H: float | None = contact_conductance
         self._factors: dict[float, tuple] = {}
-        self.set_contact_conductance(contact_conductance)
+        self._set_cell_conductivity(np.full(self.n, self.k))
         self._u = np.zeros(self.n + 1)
         self._t = 0.0
 
-    # ---- configuration that may change during a run (a probe losing contact) ----
+    # ---- configuration that may change during a run (a probe losing contact, soil drying next to it) ----
+    def _set_cell_conductivity(self, k_cells: np.ndarray) -> None:
+        """Conductances from per-shell k: half-shell log resistances in series (exact for steady flow)."""
+        f, rc = self._faces, self._rc
+        two_pi = 2.0 * math.pi
+        self._g_inner = two_pi * k_cells[0] / math.log(rc[0] / self.a)  # surface -> first node
+        res = np.log(f[1:-1] / rc[:-1]) / (two_pi * k_cells[:-1]) + np.log(rc[1:] / f[1:-1]) / (two_pi * k_cells[1:])
+        self._g_links = 1.0 / res
+        self._g_outer = (
+            two_pi * k_cells[-1] / math.log(self.outer_radius_m / rc[-1]) if self.boundary == "fixed" else 0.0
+        )
+        self.set_contact_conductance(self._H)
+
+    def set_conductivity_within(self, r_m: float, k: float | None) -> None:
+        """Give the shells whose centres lie inside radius r_m conductivity k (None: back to uniform).
+
+        Models a zone next to the probe that changes during a run, e.g. soil drying as the heat drives its
+        water outward. Keeps the current temperatures.
+        """
+        k_cells = np.full(self.n, self.k)
+        if k is not None:
+            k_cells[self._rc < float(r_m)] = _positive("k", k)
+        self._set_cell_conductivity(k_cells)
+
     def set_contact_conductance(self, contact_conductance: float | None) -> None:
         """Change H (W/(m²·K)); None means perfect contact. Keeps the current temperatures."""
         if contact_conductance is not None:
@@ -421,7 +439,10 @@ class AxialRadialModel:
         contact_res = 0.0 if self._H is None else 1.0 / (2.0 * math.pi * self.a * self._H)
         # core -> first ring: contact (heated part) or the core's own mean-to-surface resistance 1/(8πk)
         # (medium beyond the tip), in series with the inner half of the first shell
-        g = self._dz / (self._half_shell + np.where(self._heated, contact_res, self._core_res_medium))
+        core_res = np.where(self._heated, contact_res, self._core_res_medium)
+        g = self._dz / (self._half_shell + core_res)
+        # conductance from the core node to the medium surface, for reading temperatures just outside r = a
+        self._g_core_surface = np.where(core_res > 0.0, self._dz / np.maximum(core_res, 1e-300), 1e300)
         i1, i2 = self._core_i, self._ring_i
         n = self._A_rest.shape[0]
         rows, cols = np.concatenate((i1, i2, i1, i2)), np.concatenate((i1, i2, i2, i1))
@@ -478,13 +499,17 @@ class AxialRadialModel:
         if r <= self.a:
             col = u[:, 0]
         else:
-            xs = np.concatenate(([math.log(self.a)], np.log(self._rc)))
+            # columns: medium surface at r = a+, the ring nodes, the outer boundary
+            g_in = self._dz / self._half_shell
+            g_core = self._g_core_surface
+            surface = (g_core * u[:, 0] + g_in * u[:, 1]) / (g_core + g_in)
+            edge = np.zeros(self._nz) if self.boundary == "fixed" else u[:, -1]
+            cols = np.column_stack((surface, u[:, 1:], edge))
+            xs = np.concatenate(([math.log(self.a)], np.log(self._rc), [math.log(self.outer_radius_m)]))
             lr = math.log(r)
             j = int(np.clip(np.searchsorted(xs, lr) - 1, 0, len(xs) - 2))
-            w = (lr - xs[j]) / (xs[j + 1] - xs[j])
-            w = min(max(w, 0.0), 1.0)
-            # at j == 0 the left point is the probe surface: use the core column as its value
-            col = (1.0 - w) * u[:, j] + w * u[:, j + 1]
+            w = min(max((lr - xs[j]) / (xs[j + 1] - xs[j]), 0.0), 1.0)
+            col = (1.0 - w) * cols[:, j] + w * cols[:, j + 1]
         zs = np.concatenate(([0.0], self._zc))
         vals = np.concatenate(([col[0]], col))
         return float(np.interp(z, zs, vals))

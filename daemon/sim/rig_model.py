@@ -56,11 +56,18 @@ FAULT_NAMES: dict[str, str] = {
     "heater_drift": "heater resistance creeping up by 2 % per hour of device time (failing joint)",
     "battery_low": "battery flat: open-circuit voltage at the cut-off (empty_V), power sags",
     "poor_contact": "probe lost contact with the medium: contact conductance one tenth of normal",
+    "dry_out": "heat drives water away from the probe: a zone at 35 % of the medium's k grows while heating "
+    "(radial model only)",
 }
 """Fault names accepted by `SimulatedRig.inject`; <channel> is a sensor name or a 0-based index."""
 
 _CHANNEL_FAULTS = ("open_tc", "short_tc", "noisy_tc", "stale_tc")
-_RIG_FAULTS = ("cj_fault", "heater_open", "heater_short", "heater_drift", "battery_low", "poor_contact")
+_RIG_FAULTS = ("cj_fault", "heater_open", "heater_short", "heater_drift", "battery_low", "poor_contact", "dry_out")
+DRY_OUT_K_FRACTION = 0.35
+"""Conductivity left in the dried zone: partly dried sand keeps roughly a third of its moist k (de Vries 1963
+gives 0.24-0.29 dry against 2.1 at theta 0.2; partial drying sits in between; no source for the exact value)."""
+DRY_OUT_TIME_S = 300.0
+"""The dried zone's radius grows as a·(1 + √(t_heating/DRY_OUT_TIME_S)): 3a after 20 minutes (no source)."""
 
 # usable range of each thermocouple type (°C), NIST ITS-90 reference-function limits
 _TC_RANGE_C: dict[str, tuple[float, float]] = {
@@ -330,6 +337,7 @@ class SimulatedRig:
 
         # one physics model per distinct material that holds a sensor
         self._models: list[RadialModel | AxialRadialModel] = []
+        self._model_materials: list[Material] = []
         model_of: dict[str, int] = {}
         self._channels: list[_Channel] = []
         for s in probe.sensors:
@@ -338,6 +346,7 @@ class SimulatedRig:
             if mat.key not in model_of:
                 model_of[mat.key] = len(self._models)
                 self._models.append(self._make_model(mat, sample_radius_m, sample_height_m, sample_boundary))
+                self._model_materials.append(mat)
             offset = float(self._rng.normal(0.0, channel_offset_sd_K)) if channel_offset_sd_K > 0 else 0.0
             self._channels.append(_Channel(s, model_of[mat.key], depth, offset))
         self._by_name = {c.spec.name: i for i, c in enumerate(self._channels)}
@@ -349,6 +358,7 @@ class SimulatedRig:
         self._energy_drawn_J = 0.0
         self._drift_factor = 1.0
         self._cj_wander = 0.0
+        self._dry_time_s = 0.0
         self._rig_faults: set[str] = set()
         self._elec = _Electrical(supply_V=self._terminal_V(0.0))
         for f in faults:
@@ -400,6 +410,8 @@ class SimulatedRig:
             else:
                 ch.faults.discard(kind)
         elif kind in _RIG_FAULTS and not arg:
+            if kind == "dry_out" and self._axial:
+                raise ModelConfigError("the dry_out fault needs the radial model; build the rig without axial_loss")
             if on:
                 self._rig_faults.add(kind)
             else:
@@ -409,6 +421,11 @@ class SimulatedRig:
                 base = 10.0 * 3000.0 if h is None else h  # perfect contact degrades to a poor real one
                 for m in self._models:
                     m.set_contact_conductance((0.1 * base) if on else h)
+            if kind == "dry_out" and not on:
+                self._dry_time_s = 0.0
+                for m in self._models:
+                    if isinstance(m, RadialModel):
+                        m.set_conductivity_within(0.0, None)
         else:
             raise UnknownFaultError(f"unknown fault {fault!r}; valid: {', '.join(FAULT_NAMES)}")
         self._elec = self._electrical()
@@ -517,6 +534,12 @@ class SimulatedRig:
             self._rng.standard_normal()
         )
         q = elec.heat_W / self.probe.heater_length_m
+        if "dry_out" in self._rig_faults and q > 0.0:
+            self._dry_time_s += dt
+            r_dry = self.probe.radius_m * (1.0 + math.sqrt(self._dry_time_s / DRY_OUT_TIME_S))
+            for m, mat in zip(self._models, self._model_materials, strict=True):
+                if isinstance(m, RadialModel):
+                    m.set_conductivity_within(r_dry, DRY_OUT_K_FRACTION * mat.k_W_per_mK)
         self._t += dt
         self._physics_lag += dt
         base = self.BASE_DT_S
