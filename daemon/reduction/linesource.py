@@ -21,8 +21,10 @@ START_TOL = 0.01       # slope error allowed at the window start
 END_TOL = 0.01         # axial-loss slope error allowed at the window end
 TREND_TOL = 0.02       # relative slope drift across the window that counts as a residual trend (no source)
 TREND_Z = 3.0
-SHORT_SPAN_LN = 1.0
+SHORT_SPAN_LN = math.log(2.0)  # window shorter than a factor 2 in time (common practice, no source)
 MIN_POINTS = 20
+END_FLOOR = 0.3        # the axial limit never cuts more than 70 % of the heating (then residual_trend tells)
+ALPHA_MIN, ALPHA_MAX = 1e-9, 1e-4   # plausible diffusivities for any ground or reference medium (m²/s)
 
 
 @dataclass(frozen=True)
@@ -126,8 +128,10 @@ def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *,
     why = ["floor 0.1·t_end"]
     for _ in range(4):
         t_end = t_max
+        if alpha is not None:
+            alpha = min(max(alpha, ALPHA_MIN), ALPHA_MAX)
         if alpha and length_m:
-            t_end = min(t_max, win.axial_end_s(length_m, alpha, END_TOL, axial_m))
+            t_end = min(t_max, max(win.axial_end_s(length_m, alpha, END_TOL, axial_m), END_FLOOR * t_max))
         start = max(FLOOR_FRACTION * t_end, t_first)
         why = ["floor 0.1·t_end"]
         if alpha and r_m:
@@ -137,7 +141,7 @@ def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *,
                 start = t_phys
                 why = ["probe-model slope error < 1 %" if aj else "line-source slope error < 1 %"]
         if t_end < t_max:
-            why.append("axial-loss limit L²/(53α)")
+            why.append("axial-loss limit L²/(53α)" if t_end > END_FLOOR * t_max else "axial limit capped at 0.3·t")
         if math.log(t_end / start) < 0.5:  # heating too short for the criterion: keep the last half-decade
             start = t_end / math.exp(0.5)
             why.append("start moved to keep half a decade")

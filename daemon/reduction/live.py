@@ -24,7 +24,7 @@ from .stats import ar1_inflation
 
 MIN_POINTS = 10
 MIN_SPAN_LN = 0.25          # window must cover at least this much ln t before an estimate is published
-SHORT_SPAN_LN = 1.0         # shorter than a factor e in time: window_short (common practice, no source)
+SHORT_SPAN_LN = math.log(2.0)  # shorter than a factor 2 in time: window_short (common practice, no source)
 FLOOR_FRACTION = 0.1        # window never starts before 0.1·t_now (common practice, no source)
 START_TOL = 0.01            # slope error allowed at the window start (probe criterion, see window.py)
 NOISE_HIGH_FRACTION = 0.05  # residual RMS above 5 % of the slope (K per ln-unit): noise_high (no source)
@@ -142,7 +142,9 @@ class LiveReducer:
         self._rise = max(self._rise, dT)
         self._append(t_s, X / Q, dT / Q, t_s / Q)
         est = self._estimate(t_s)
-        if est is not None:
+        if est is None:
+            self.tracker.reset()
+        else:
             self.last = est
         return est
 

@@ -49,6 +49,11 @@ _V = _stehfest_weights(_STEHFEST_N)
 _K = np.arange(1, _STEHFEST_N + 1, dtype=float)
 
 
+def _ie(v: int, z: np.ndarray) -> np.ndarray:
+    """I_v(z)·e^(−z) for complex z (scipy's ``ive`` scales by e^(−|Re z|) instead)."""
+    return ive(v, z) * np.exp(np.abs(z.real) - z)
+
+
 def laplace_response(p: np.ndarray, alpha_J: float | None, h: float, rho: float = 1.0,
                      outer_rho: float | None = None) -> np.ndarray:
     """F(p): Laplace transform (in τ) of 4πk·ΔT/q; real or complex p. ``alpha_J`` None means a massless probe.
@@ -63,16 +68,16 @@ def laplace_response(p: np.ndarray, alpha_J: float | None, h: float, rho: float 
     k1 = kve(1, z) if cplx else k1e(z)
     if outer_rho is not None:
         zR = outer_rho * z
-        c = (kve(0, zR) / ive(0, zR) if cplx else k0e(zR) / i0e(zR)) * np.exp(2.0 * z * (1.0 - outer_rho))
-        k0 = k0 - c * (ive(0, z) if cplx else i0e(z))
-        k1 = k1 + c * (ive(1, z) if cplx else i1e(z))
+        c = (kve(0, zR) / _ie(0, zR) if cplx else k0e(zR) / i0e(zR)) * np.exp(2.0 * z * (1.0 - outer_rho))
+        k0 = k0 - c * (_ie(0, z) if cplx else i0e(z))
+        k1 = k1 + c * (_ie(1, z) if cplx else i1e(z))
     probe_term = k0 + h * z * k1
     if rho == 1.0:
         num = probe_term
     else:
         num = kve(0, rho * z) * np.exp(-(rho - 1.0) * z)
         if outer_rho is not None:
-            num = num - c * ive(0, rho * z) * np.exp((rho - 1.0) * z)
+            num = num - c * (_ie(0, rho * z) if cplx else i0e(rho * z)) * np.exp((rho - 1.0) * z)
     cap = 0.0 if alpha_J is None or not math.isfinite(alpha_J) else p / alpha_J
     return (2.0 / p) * num / (cap * probe_term + z * k1)
 
@@ -86,7 +91,7 @@ def response_stehfest(tau: np.ndarray, alpha_J: float | None, h: float, rho: flo
 
 
 def response_talbot(tau: np.ndarray, alpha_J: float | None, h: float, rho: float = 1.0,
-                    m: int = 32) -> np.ndarray:
+                    m: int = 32, outer_rho: float | None = None) -> np.ndarray:
     """4πk·ΔT/q by the fixed Talbot contour (Abate & Valkó 2004, Int. J. Numer. Meth. Eng. 60:979)."""
     tau = np.atleast_1d(np.asarray(tau, dtype=float))
     theta = np.arange(1, m) * math.pi / m
@@ -94,8 +99,8 @@ def response_talbot(tau: np.ndarray, alpha_J: float | None, h: float, rho: float
     r = 2.0 * m / (5.0 * tau)
     s = np.multiply.outer(r, theta * (cot + 1j))                   # (n, m-1)
     sigma = theta + (theta * cot - 1.0) * cot
-    f0 = 0.5 * np.exp(r * tau) * laplace_response(r, alpha_J, h, rho).real
-    terms = np.exp(s * tau[:, None]) * laplace_response(s, alpha_J, h, rho) * (1.0 + 1j * sigma)
+    f0 = 0.5 * np.exp(r * tau) * laplace_response(r, alpha_J, h, rho, outer_rho).real
+    terms = np.exp(s * tau[:, None]) * laplace_response(s, alpha_J, h, rho, outer_rho) * (1.0 + 1j * sigma)
     return (r / m) * (f0 + terms.real.sum(axis=1))
 
 

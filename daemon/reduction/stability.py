@@ -2,7 +2,7 @@
 
 Rule: at time t the estimate is stable when (1) it has stayed within ``tolerance`` (relative, default 1 %) of
 its current value over the latest stretch of ln t (all estimates since t·e^−0.3, i.e. the last 26 % of the
-elapsed time), (2) the estimates reach back to the start of that stretch, (3) its statistical standard
+elapsed time), (2) valid estimates reach back, without a gap, to the start of that stretch, (3) its statistical standard
 uncertainty is under ``target_rel_u`` (the part heating longer can still improve; power and calibration terms
 cannot), and (4) the window is not flagged short and the residuals show no trend. Once stable, ``stable_at_s``
 stays latched.
@@ -29,6 +29,12 @@ class StabilityTracker:
     _first_t: float | None = None
     _max: deque[tuple[float, float]] = field(default_factory=deque)
     _min: deque[tuple[float, float]] = field(default_factory=deque)
+
+    def reset(self) -> None:
+        """Forget the history (no valid estimate at this sample); a latched ``stable_at_s`` stays."""
+        self._first_t = None
+        self._max.clear()
+        self._min.clear()
 
     def update(self, t_s: float, k: float, rel_u_stat: float,
                flags: tuple[str, ...] | list[str] = ()) -> bool:

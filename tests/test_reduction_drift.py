@@ -1,0 +1,40 @@
+"""Background drift: removed from the baseline trend, reported, and flagged when it cannot be trusted."""
+
+import numpy as np
+import pytest
+
+from daemon.probe import ProbeProfile
+from daemon.reduction.api import reduce_run
+from daemon.reduction.drift import fit_baseline
+from daemon.reduction.synthetic import Medium, make_run
+
+PROBE = ProbeProfile(name="lab needle", radius_mm=0.635, heater_length_mm=1e4, heat_capacity_MJ_per_m3K=2.5)
+
+
+def test_linear_drift_removed_and_reported() -> None:
+    data = make_run(Medium(1.5, 2.5e6), drift_K_per_h=0.6, baseline_s=600.0)
+    res = reduce_run(data, PROBE, method="line").sensors["heater"]
+    assert res.k_W_per_mK == pytest.approx(1.5, rel=0.006)
+    assert res.to_json()["drift_K_per_h"] == pytest.approx(0.6, rel=1e-6)
+    assert "drift" in res.flags and "not_settled" not in res.flags
+
+
+def test_curved_baseline_is_not_settled() -> None:
+    data = make_run(Medium(1.5, 2.5e6), baseline_s=600.0)
+    t = data.time_s
+    data.temps_C["heater"] = data.temps_C["heater"] + np.where(t < 0, 0.5 * np.exp(t / 150.0), 0.5)
+    res = reduce_run(data, PROBE, method="line").sensors["heater"]
+    assert "not_settled" in res.flags
+
+
+def test_drift_uncertainty_grows_with_a_short_noisy_baseline() -> None:
+    rng = np.random.default_rng(5)
+    short = fit_baseline(np.arange(-30.0, 0.0), 20 + 0.01 * rng.standard_normal(30))
+    long = fit_baseline(np.arange(-600.0, 0.0), 20 + 0.01 * rng.standard_normal(600))
+    assert short.rate_u_K_per_s > 20 * long.rate_u_K_per_s
+
+
+def test_missing_baseline_is_flagged() -> None:
+    data = make_run(Medium(1.5, 2.5e6), baseline_s=0.0)
+    res = reduce_run(data, PROBE, method="line").sensors["heater"]
+    assert "no_baseline" in res.flags

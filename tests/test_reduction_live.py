@@ -1,0 +1,69 @@
+"""The live reducer: incremental fit equals a direct fit, the verdict rule is shared with the offline result."""
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from daemon.probe import ProbeProfile
+from daemon.reduction.api import reduce_run
+from daemon.reduction.live import LiveReducer, replay
+from daemon.reduction.stats import fit_line
+from daemon.reduction.synthetic import Medium, make_run
+
+PROBE = ProbeProfile(name="lab needle", radius_mm=0.635, heater_length_mm=100.0, heat_capacity_MJ_per_m3K=2.5)
+
+
+SOIL = Medium(1.2, 2.4e6)
+
+
+def _run(seed: int = 0, medium: Medium = SOIL, **kw):
+    # probe model with heat capacity (Blackwell 1954), moist soil, q = 5 W/m, 0.004 K noise
+    return make_run(medium, noise_K=0.004, rng=np.random.default_rng(seed), heat_s=900.0, **kw)
+
+
+def test_none_until_enough_then_estimates() -> None:
+    red = LiveReducer(PROBE)
+    assert red.add(-5.0, 20.0, 0.0) is None
+    assert red.add(0.0, 20.0, 5.0) is None
+    assert red.add(1.0, 20.3, 5.0) is None
+    data = _run()
+    _, ests = replay(data.time_s, data.temps_C["heater"], data.q_W_per_m, PROBE)
+    assert ests and ests[0].n_used >= 10
+    json.dumps(ests[-1].to_dict(), allow_nan=False)
+    last = ests[-1]
+    assert last.k_W_per_mK == pytest.approx(1.2, rel=0.02)
+    assert last.window_s[0] < last.window_s[1] <= 900.0
+
+
+def test_incremental_fit_equals_direct_fit_on_its_window() -> None:
+    data = _run(1)
+    t, T = data.time_s, data.temps_C["heater"]
+    _, ests = replay(t, T, data.q_W_per_m, PROBE)
+    e = ests[-1]
+    base = t < 0
+    A = np.polyfit(t[base], T[base], 1)
+    sel = (t >= e.window_s[0]) & (t <= e.window_s[1])
+    lf = fit_line(np.log(t[sel]), T[sel] - np.polyval(A, t[sel]))
+    assert e.k_W_per_mK == pytest.approx(5.0 / (4 * math.pi * lf.slope), rel=1e-9)
+    assert e.k_u_stat_W_per_mK == pytest.approx(e.k_W_per_mK * lf.slope_u / lf.slope, rel=1e-6)
+    assert e.rho1 == pytest.approx(lf.rho1, abs=1e-6)
+
+
+def test_offline_stable_at_is_the_live_verdict_and_close_to_final() -> None:
+    data = _run(2)
+    res = reduce_run(data, PROBE).sensors["heater"]
+    red, ests = replay(data.time_s, data.temps_C["heater"], data.q_W_per_m, PROBE)
+    first_stable = next(e for e in ests if e.stable)
+    assert res.stable_at_s == first_stable.t_s == red.stable_at_s
+    # the aim: a value within 2 % of the full-duration one well before the end of heating
+    assert first_stable.t_s < 0.5 * 900.0
+    assert first_stable.k_W_per_mK == pytest.approx(ests[-1].k_W_per_mK, rel=0.02)
+
+
+def test_noisy_record_is_not_stable_early() -> None:
+    data = make_run(Medium(0.6065, 4.169e6), noise_K=0.08, rng=np.random.default_rng(3), heat_s=300.0)
+    _, ests = replay(data.time_s, data.temps_C["heater"], data.q_W_per_m, PROBE, target_rel_u=0.005)
+    assert all(not e.stable for e in ests)
+    assert "noise_high" in ests[-1].flags
