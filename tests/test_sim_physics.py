@@ -326,3 +326,17 @@ def test_inner_zone_of_other_conductivity_conducts_in_series() -> None:
     m.set_conductivity_within(0.0, None)
     run_to(m, q, m.t_s + 30 * R * R * rho_c / 0.4, dt=100.0)
     assert m.probe_rise_K() == pytest.approx(q / (2 * math.pi * k) * math.log(R / a), rel=1e-6)
+
+
+def test_axial_layers_beyond_the_tips() -> None:
+    # the same medium declared as a 'layer' changes nothing; a more conductive one beyond the tips draws more
+    # heat out of the ends, so the mid-length probe runs cooler (common sense of Fourier's law, no source)
+    args = (1.0, 2.0e6, 0.635e-3, 3.2e6, 0.04)
+    kw = {"outer_radius_m": 0.2, "outer_half_height_m": 0.2}
+    plain = AxialRadialModel(*args, **kw)
+    same = AxialRadialModel(*args, layers=[(0.03, 1.0, 2.0e6)], **kw)
+    wet = AxialRadialModel(*args, layers=[(0.02, 2.5, 2.96e6)], **kw)
+    for m in (plain, same, wet):
+        run_to(m, 5.0, 600.0, dt=2.0)
+    assert same.probe_rise_K() == pytest.approx(plain.probe_rise_K(), rel=1e-12)
+    assert wet.probe_rise_K() < plain.probe_rise_K() - 0.01
