@@ -1,0 +1,1 @@
+"""The UI's screens: live run, new run, history and run detail, probes and calibrations."""

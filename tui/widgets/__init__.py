@@ -1,0 +1,1 @@
+"""Widgets of the live screen and the helpers they share (plot specs, headroom, advice)."""

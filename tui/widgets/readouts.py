@@ -1,0 +1,251 @@
+"""The text readouts of the live screen: run bar, estimate, steadiness verdict, power, sensors, banners.
+
+Each widget has ``show(live, …)`` that rebuilds its text from ``LiveState``; none of them holds state of its
+own, so redrawing at any rate gives the same picture. Every colour is paired with a word or a symbol.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from rich.text import Text
+from textual.widgets import Static
+
+from daemon.reduction.stability import STRETCH_LN
+from tui.screens.live_state import STATE_SYMBOLS, STATE_WORDS, LiveState
+from tui.units import DisplayUnit, companion, duration, show
+from tui.widgets.advice import fault_advice, flag_words
+
+HEADING = "bold underline"
+STALE_FIT_S = 10.0  # heating seconds without a new estimate before the readout says so
+STATE_STYLE = {"checking": "cyan", "settling": "cyan", "heating": "bold yellow", "recovering": "bold blue",
+               "done": "bold green", "aborted": "bold magenta", "faulted": "bold red"}
+
+
+def _f(x: Any) -> float:
+    return float(x) if isinstance(x, int | float) else math.nan
+
+
+class RunBar(Static):
+    """One line: run, state, time in phase, time left, and the two links (daemon, front end)."""
+
+    DEFAULT_CSS = "RunBar { height: 1; background: $boost; }"
+
+    def show(self, live: LiveState) -> None:
+        t = Text(no_wrap=True, overflow="ellipsis")
+        if not live.connected:
+            t.append(" ✗ NO DAEMON ", style="bold reverse red")
+            t.append(f" {live.lost_reason or 'connecting…'}")
+            self.update(t)
+            return
+        if live.run_id is None:
+            t.append(" no run ", style="reverse")
+        else:
+            st = live.run_state or "?"
+            t.append(f" run {live.run_id} ", style="reverse")
+            t.append(f" {STATE_SYMBOLS.get(st, '?')} {STATE_WORDS.get(st, st.upper())} ", style=STATE_STYLE.get(st, ""))
+            cycles = int(live.plan.get("cycles", 1) or 1)
+            if cycles > 1:
+                t.append(f"cycle {live.cycle}/{cycles} ")
+            if st == "heating":
+                t.append(f"{duration(live.heating_elapsed_s)} of {duration(_f(live.plan.get('heat_s')))} ")
+            elif live.active:
+                t.append(f"{duration(live.phase_elapsed_s)} in phase ")
+            left, at_least = live.remaining_s()
+            if left is not None:
+                t.append(f"│ left {'≥' if at_least else '≈'}{duration(left)} ")
+        t.append("│ rig ")
+        t.append("✓ linked" if live.frontend_up else "✗ NOT LINKED", style="green" if live.frontend_up else "bold red")
+        self.update(t)
+
+
+class EstimateReadout(Static):
+    """The running estimate in the operator's unit, its companion, the window and the fit quality."""
+
+    DEFAULT_CSS = "EstimateReadout { height: auto; }"
+
+    def show(self, live: LiveState, unit: DisplayUnit, wide: bool = False) -> None:
+        est = live.estimate
+        finished = live.finished if live.finished and live.finished.get("run_id") == live.run_id else None
+        text = Text(f"{unit.quantity.upper()} ({unit.symbol})", style=HEADING)
+        if est is None and not finished:
+            text.append("\n  waiting for a fit", style="dim")
+            if live.run_state in ("checking", "settling"):
+                text.append("\n  (after heater on)", style="dim")
+            self.update(text)
+            return
+        src = est or {}
+        if finished and finished.get("results"):
+            name = _primary_name(live)
+            src = finished["results"].get(name) or next(iter(finished["results"].values()))
+            text.append("  final", style="bold green")
+        k, ku = _f(src.get("k_W_per_mK")), _f(src.get("k_u_W_per_mK"))
+        main = show(k, ku if math.isfinite(ku) else None, unit)
+        other = show(k, ku if math.isfinite(ku) else None, companion(unit))
+        if main.rel_u is not None:
+            text.append(f" ±{100 * main.rel_u:.1f} %")
+        text.append(f"\n {main.text()}", style="bold")
+        text.append(f"\n {other.text()}")
+        win = src.get("window_s") or [None, None]
+        if win[0] is not None and win[1] is not None:
+            text.append(f"\n window {win[0]:.0f}–{win[1]:.0f} s")
+            if src.get("n_used"):
+                text.append(f" · n {src['n_used']}")
+        t_fit, t_now = _f(src.get("t_s")), live.heating_elapsed_s
+        if est is src and live.run_state == "heating" and t_now is not None and t_now - t_fit > STALE_FIT_S:
+            text.append(f"\n ⚠ no new fit since {t_fit:.0f} s", style="yellow")
+        alpha = _f(src.get("alpha_m2_per_s"))
+        rms = _f(src.get("residual_rms_K"))
+        if wide and (math.isfinite(alpha) or math.isfinite(rms)):
+            text.append("\n")
+            if math.isfinite(alpha):
+                text.append(f" α {alpha * 1e6:.2f} mm²/s")
+            if math.isfinite(rms):
+                text.append(f" · fit rms {1000 * rms:.1f} mK")
+        self.update(text)
+
+
+def _primary_name(live: LiveState) -> str:
+    tr = live.trace
+    if tr is not None and tr.sensors:
+        return tr.sensors[min(tr.primary, len(tr.sensors) - 1)]
+    return str(live.plan.get("sensor") or "heater")
+
+
+def k_spread(estimates: list[tuple[float, float, float, bool]]) -> float | None:
+    """Largest relative move of k over the latest stretch of ln t (the span the steadiness rule looks at)."""
+    if not estimates:
+        return None
+    t_now, k_now = estimates[-1][0], estimates[-1][1]
+    t_from = t_now * math.exp(-STRETCH_LN)
+    if estimates[0][0] > t_from or not k_now:
+        return None
+    ks = [k for t, k, _, _ in estimates if t >= t_from]
+    return max(max(ks) - k_now, k_now - min(ks)) / abs(k_now)
+
+
+class VerdictReadout(Static):
+    """Whether heating can stop yet, and why not."""
+
+    DEFAULT_CSS = "VerdictReadout { height: auto; }"
+
+    def show(self, live: LiveState) -> None:
+        text = Text("STEADINESS", style=HEADING)
+        est = live.estimate
+        tr = live.trace
+        if est is None:
+            text.append("\n ○ no estimate yet", style="dim")
+            self.update(text)
+            return
+        stable_at = est.get("stable_at_s")
+        if est.get("stable"):
+            text.append(f"\n ● STEADY since {stable_at:.0f} s" if stable_at is not None else "\n ● STEADY",
+                        style="bold green")
+        elif stable_at is not None:
+            text.append(f"\n ◑ was steady at {stable_at:.0f} s, moving again", style="yellow")
+        else:
+            text.append("\n ◔ not yet steady", style="yellow")
+        spread = k_spread(tr.estimates) if tr is not None else None
+        text.append(f"\n k moved {100 * spread:.1f} %" if spread is not None else "\n k moved —")
+        ku_stat = _f(est.get("k_u_stat_W_per_mK"))
+        k = _f(est.get("k_W_per_mK"))
+        if math.isfinite(ku_stat) and k:
+            text.append(f" · scatter {100 * ku_stat / k:.1f} %")
+        words = flag_words(est.get("flags"))
+        if words:
+            text.append("\n ⚑ " + "; ".join(words), style="yellow")
+        self.update(text)
+
+
+class PowerReadout(Static):
+    """Power per metre asked for and measured, heater volts and amps."""
+
+    DEFAULT_CSS = "PowerReadout { height: auto; }"
+
+    def show(self, live: LiveState) -> None:
+        text = Text("POWER", style=HEADING)
+        s = live.last_sample or {}
+        set_q = _f(live.plan.get("power_W_per_m")) if live.plan else math.nan
+        on = bool(s.get("heater_on"))
+        q = _f(s.get("q_W_per_m"))
+        text.append(f"\n set {set_q:.2f}" if math.isfinite(set_q) else "\n set —")
+        text.append(f" meas {q:.2f} W/m" if math.isfinite(q) else " meas —")
+        if on and math.isfinite(set_q) and set_q and math.isfinite(q):
+            text.append(f" {100 * (q / set_q - 1):+.1f}%")
+        text.append("\n heater ")
+        text.append("ON" if on else "off", style="bold yellow" if on else "dim")
+        if on:
+            text.append(f" · {_f(s.get('heater_V')):.2f} V · {_f(s.get('heater_A')):.3f} A")
+        self.update(text)
+
+
+class SensorReadout(Static):
+    """Every sensor on the rod: temperature now, rise over its baseline, and any channel fault."""
+
+    DEFAULT_CSS = "SensorReadout { height: auto; }"
+
+    def show(self, live: LiveState) -> None:
+        text = Text("SENSORS", style=HEADING)
+        s = live.last_sample or {}
+        names = list(s.get("sensors") or (live.status.get("probe") or {}).get("sensors") or [])
+        temps = list(s.get("temps_C") or [])
+        faults = list(s.get("faults") or [])
+        tr = live.trace
+        base = tr.baseline_C() if tr is not None and tr.run_id == s.get("run_id") else None
+        primary = _primary_name(live)
+        for i, name in enumerate(names):
+            t = _f(temps[i]) if i < len(temps) else math.nan
+            mark = "*" if name == primary else " "
+            text.append(f"\n{mark}{name[:9]:<9}")
+            if (i < len(faults) and faults[i]) or not math.isfinite(t):
+                text.append(" ✗ FAULT (open?)", style="bold red")
+                continue
+            text.append(f" {t:7.3f} °C")
+            if base is not None and i < base.size and math.isfinite(base[i]):
+                text.append(f" Δ{t - base[i]:+6.3f} K")
+        self.update(text)
+
+
+class StopPrompt(Static):
+    """The 'heating can stop' prompt; shown only while it applies."""
+
+    DEFAULT_CSS = "StopPrompt { height: auto; display: none; }"
+
+    def show(self, live: LiveState, auto_stop: bool) -> None:
+        visible = live.can_stop_heating
+        self.display = visible
+        if not visible:
+            return
+        est = live.estimate or {}
+        at = est.get("stable_at_s")
+        text = Text(" ▶ HEATING CAN STOP ", style="bold reverse green")
+        text.append(f" the estimate has held steady since {at:.0f} s. " if at is not None
+                    else " the estimate is steady. ")
+        if auto_stop:
+            text.append("The run will stop heating by itself.")
+        else:
+            text.append("Press ")
+            text.append(" s ", style="bold reverse")
+            text.append(" to stop heating and log the cooling.")
+        self.update(text)
+
+
+class FaultBanner(Static):
+    """The last safety trip in plain words, with what to do next."""
+
+    DEFAULT_CSS = "FaultBanner { height: auto; display: none; }"
+
+    def show(self, live: LiveState) -> None:
+        reason = live.fault
+        if live.run_state == "faulted" and live.state_reason:
+            reason = live.state_reason
+        visible = bool(reason) and (live.run_state in (None, "faulted") or live.active)
+        self.display = visible
+        if not visible or reason is None:
+            return
+        text = Text(" ! HEATER OFF — SAFETY STOP ", style="bold reverse red")
+        text.append(f" {reason}\n")
+        text.append(" What to do: ", style="bold")
+        text.append(fault_advice(reason))
+        self.update(text)
