@@ -96,12 +96,12 @@ def read_run_csv(src: str | Path | TextIO, *, require_baseline: bool = True) -> 
 
 def _check_header(header: list[str], name: str, line_no: int) -> None:
     where = f"{name}: line {line_no} (header)"
-    if len(header) < 3:
-        raise RunCsvError(f"{where}: expected time_s,q_W_per_m,T_<sensor>_C,... got {','.join(header)!r}")
     if header[0] != "time_s":
         raise RunCsvError(f"{where}, column 1: expected 'time_s', got {header[0]!r}")
-    if header[1] != "q_W_per_m":
-        raise RunCsvError(f"{where}, column 2: expected 'q_W_per_m', got {header[1]!r}")
+    if len(header) < 2 or header[1] != "q_W_per_m":
+        raise RunCsvError(f"{where}, column 2: expected 'q_W_per_m', got {header[1] if len(header) > 1 else ''!r}")
+    if len(header) < 3:
+        raise RunCsvError(f"{where}: no sensor column; expected time_s,q_W_per_m,T_<sensor>_C,...")
     seen: set[str] = set()
     for i, col in enumerate(header[2:], start=3):
         if not _SENSOR_COL.match(col):

@@ -405,8 +405,11 @@ def _fit_radial(th: np.ndarray, dTh: np.ndarray, steps_t: np.ndarray, steps_dq: 
                 length_m: float | None) -> ModelFit | None:
     """k and α from a sensor at r: probe model evaluated in the medium (line source for a thin heater)."""
     st, sdq = compress_steps(steps_t[steps_t < th[-1]], steps_dq[steps_t < th[-1]])
-    a = a_m if a_m and a_m < r_m else r_m / 50.0
-    cap = probe_C if a_m and a_m < r_m else None
+    # With the heater's heat capacity known, the heater is the Blackwell cylinder; without it, an ideal line
+    # (a cylinder of r/100 whose size changes the response by ~1e-4).
+    with_cap = bool(a_m and a_m < r_m and probe_C)
+    a = a_m if with_cap and a_m else r_m / 100.0
+    cap = probe_C if with_cap else None
     if prelim is not None and prelim.alpha_m2_per_s:
         k0, alpha0 = prelim.k_W_per_mK, prelim.alpha_m2_per_s
     else:

@@ -13,6 +13,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.interpolate import CubicSpline
 from scipy.special import exp1
 
 
@@ -31,23 +32,25 @@ class PulseCheck:
 
 
 def peak(t: np.ndarray, dT: np.ndarray) -> tuple[float, float]:
-    """Time and height of the maximum, refined by a parabola through the points above 95 % of it."""
+    """Time and height of the maximum: a cubic spline through the points above 80 % of it, at its zero slope."""
     i = int(np.argmax(dT))
     m = float(dT[i])
+    if i in (0, dT.size - 1):
+        return float(t[i]), m
     lo, hi = i, i
-    while lo > 0 and dT[lo - 1] >= 0.95 * m:
+    while lo > 0 and dT[lo - 1] >= 0.8 * m and i - lo < 200:
         lo -= 1
-    while hi < dT.size - 1 and dT[hi + 1] >= 0.95 * m:
+    while hi < dT.size - 1 and dT[hi + 1] >= 0.8 * m and hi - i < 200:
         hi += 1
-    lo, hi = max(lo, i - 50), min(hi, i + 50)
-    if hi - lo < 2 or i in (0, dT.size - 1):
+    lo, hi = max(min(lo, i - 2), 0), min(max(hi, i + 2), dT.size - 1)
+    if hi - lo < 4:
         return float(t[i]), m
-    tc = t[lo:hi + 1] - t[i]
-    c2, c1, c0 = np.polyfit(tc, dT[lo:hi + 1], 2)
-    if c2 >= 0:
+    sp = CubicSpline(t[lo:hi + 1], dT[lo:hi + 1])
+    roots = [float(r) for r in sp.derivative().roots(extrapolate=False) if t[max(i - 1, lo)] <= r <= t[min(i + 1, hi)]]
+    if not roots:
         return float(t[i]), m
-    tp = -c1 / (2 * c2)
-    return float(t[i] + tp), float(c0 - c1 * c1 / (4 * c2))
+    best = max(roots, key=lambda r: float(sp(r)))
+    return best, float(sp(best))
 
 
 def pulse_inverse(r_m: float, q_W_per_m: float, t0_s: float, t_peak_s: float, rise_peak_K: float
