@@ -19,6 +19,7 @@ import numpy as np
 from ..probe import ProbeProfile
 from . import window as win
 from .drift import Baseline, fit_baseline, no_baseline
+from .linesource import ALPHA_MAX, ALPHA_MIN
 from .stability import StabilityTracker
 from .stats import ar1_inflation
 
@@ -261,7 +262,7 @@ class LiveReducer:
                 return None
             a, b = fit[0], fit[1]
             if self.r_m:
-                new_alpha = win.alpha_from_intercept(self.r_m, -b / a)
+                new_alpha = min(max(win.alpha_from_intercept(self.r_m, -b / a), ALPHA_MIN), ALPHA_MAX)
                 if alpha and abs(new_alpha / alpha - 1) < 0.05:
                     alpha = new_alpha
                     break

@@ -77,4 +77,4 @@ def axial_end_s(length_m: float, alpha_m2_per_s: float, tol: float = 0.01,
 
 def alpha_from_intercept(r_m: float, ln_t0: float) -> float:
     """Single-probe diffusivity from the time-axis intercept t0 of the fitted line: α = r²·e^γ/(4·t0)."""
-    return r_m**2 * EXP_GAMMA / 4.0 * math.exp(-ln_t0)
+    return r_m**2 * EXP_GAMMA / 4.0 * math.exp(min(max(-ln_t0, -700.0), 700.0))
