@@ -141,7 +141,8 @@ def print_table(red: RunReduction, title: str) -> None:
                       _fmt(j["alpha_mm2_per_s"], 3), _fmt(j["rho_c_MJ_per_m3K"], 3),  # type: ignore[arg-type]
                       f"{win[0]:.0f}–{win[1]:.0f}" if win else "—", _fmt(r.stable_at_s, 4), r.method,
                       ", ".join(r.flags) or "ok")
-    console = Console()
+    # a pipe or a file gets a fixed width so the numbers are never cut to "…"
+    console = Console() if sys.stdout.isatty() else Console(width=150)
     console.print(table)
     for name, r in red.sensors.items():
         console.print(f"[b]{name}[/b]: {r.method_reason}")
