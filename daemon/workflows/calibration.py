@@ -24,8 +24,10 @@ MAX_REPEAT_CV = 0.035               # repeat runs should agree within ±3.5 % (M
 MAX_CHANGE_FROM_LAST = 0.03         # a factor that moved > 3 % since the last accepted one is flagged (no source)
 VALID_DAYS = 365                    # recalibrate every 12 months (common practice, no source)
 REMIND_DAYS = 30                    # remind a month before expiry (common practice, no source)
-BLOCKING_RESULT_FLAGS = frozenset({"not_settled", "residual_trend", "window_short", "noise_high",
-                                   "heating_cooling_disagree"})
+BLOCKING_RESULT_FLAGS = frozenset({"not_settled", "residual_trend", "window_short", "noise_high"})
+# Heating and cooling disagreeing in a liquid can mean convection, but the recovery fit ignores the probe's heat
+# capacity, so it is reported as a warning, not a rejection (judgement, no source).
+WARNING_RESULT_FLAGS = frozenset({"heat_cool_disagree", "drift", "rise_above_limit", "contact_resistance_high"})
 
 
 class CalibrationError(ValueError):
@@ -190,6 +192,9 @@ def evaluate_calibration(probe_serial: str, reference: ReferenceValue, runs: Seq
         bad = sorted(set(r.flags) & BLOCKING_RESULT_FLAGS)
         if bad:
             reasons.append(f"run {r.run_id}: result flagged {', '.join(bad)}")
+        soft = sorted(set(r.flags) & WARNING_RESULT_FLAGS)
+        if soft:
+            warnings.append(f"run {r.run_id}: result flagged {', '.join(soft)} (check for convection or drift)")
     if n == 1:
         warnings.append("a single run: repeat it (three runs are usual) to see the probe's repeatability")
     if previous_factor and abs(f / previous_factor - 1) > MAX_CHANGE_FROM_LAST:
