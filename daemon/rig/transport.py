@@ -105,3 +105,7 @@ class SerialTransport:
         port = self._require()
         with contextlib.suppress(serial.SerialException, OSError):
             port.reset_input_buffer()
+
+    def reset_input_buffer(self) -> None:
+        """Drop stale bytes before a query (the SCPI driver's resynchronisation step)."""
+        self.discard_input()
