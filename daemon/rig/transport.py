@@ -12,7 +12,7 @@ import contextlib
 
 import serial
 
-from daemon.errors import DeviceTimeout, LinkError
+from daemon.errors import LinkError
 
 POLL_S = 0.005
 
@@ -86,19 +86,23 @@ class SerialTransport:
             raise LinkError(f"{self.url}: {exc}") from exc
 
     async def readline(self, timeout: float) -> bytes:
-        """One LF-terminated line (for line protocols such as SCPI)."""
-        async def _line() -> bytes:
-            while b"\n" not in self._pending:
-                self._pending += await self.read()
-            i = self._pending.index(b"\n") + 1
-            line = bytes(self._pending[:i])
-            del self._pending[:i]
-            return line
-
-        try:
-            return await asyncio.wait_for(_line(), timeout)
-        except TimeoutError:
-            raise DeviceTimeout(f"{self.url}: no reply within {timeout:.2f} s") from None
+        """Bytes up to and including LF; on timeout, whatever arrived so far (maybe empty, no LF)."""
+        loop = asyncio.get_running_loop()
+        deadline = loop.time() + timeout
+        while b"\n" not in self._pending:
+            left = deadline - loop.time()
+            if left <= 0:
+                partial = bytes(self._pending)
+                self._pending.clear()
+                return partial
+            try:
+                self._pending += await asyncio.wait_for(self.read(), left)
+            except TimeoutError:
+                continue
+        i = self._pending.index(b"\n") + 1
+        line = bytes(self._pending[:i])
+        del self._pending[:i]
+        return line
 
     def discard_input(self) -> None:
         self._pending.clear()
