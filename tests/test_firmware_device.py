@@ -4,9 +4,12 @@ sides of the wire are proven to agree."""
 from __future__ import annotations
 
 import itertools
+from pathlib import Path
 
-from firmware_path import FakeRig, Harness
+import pytest
+from firmware_path import FW_DIR, FakeRig, Harness
 
+from daemon.probe import load_probe_profile
 from daemon.rig.messages import Ack, Boot, Identity, Sample, Status
 
 
@@ -144,3 +147,19 @@ def test_every_frame_the_firmware_sends_decodes_on_the_host() -> None:
     assert all(m is not None for _, _, m in h.messages)
     c = h.decoder.counters
     assert c.frames == len(h.messages) and (c.bad_frames, c.seq_gaps, c.skipped_bytes) == (0, 0, 0)
+
+
+@pytest.mark.parametrize("profile", sorted((FW_DIR.parent / "probes").glob("*.toml")), ids=lambda p: p.stem)
+def test_example_probe_profiles_work_with_the_firmware(profile: Path) -> None:
+    # Each example probe, driven from a 12.6 V battery at 20 W/m: the firmware accepts its configuration and
+    # holds the power (true power from the simulated board's Ohm's law).
+    probe = load_probe_profile(profile)
+    assert probe.heater_length_mm is not None and probe.heater_resistance_ohm is not None
+    rig = FakeRig(n_channels=len(probe.sensors), r0_ohm=probe.heater_resistance_ohm, v_start=12.6, v_end=12.6)
+    h = Harness(rig=rig)
+    h.configure(rate_hz=1, tc_type=probe.thermocouple or "T", length_mm=probe.heater_length_mm)
+    ack = h.send("P", 20.0, 1000)[-1][2]
+    assert isinstance(ack, Ack) and ack.ok
+    h.run(2000, renew_every_ms=200)
+    assert rig.true_power_W() == pytest.approx(20.0 * probe.heater_length_mm / 1000.0, rel=0.01)
+    assert not h.of("F")
