@@ -1,0 +1,76 @@
+"""``linerig profile --site SITE [--borehole B]``: thermal resistivity against depth, per borehole.
+
+Depth of a reading = the run's probe-tip depth minus the sensor's height above the tip (probe profile), so a rod
+with sensors along it and repeated insertions in a deepened hole land on the same axis.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+from daemon.report import plots
+from daemon.report.build import f
+from daemon.report.cli import add_db_option, db_path, fail
+from daemon.report.sources import SourceError, list_sites, open_db, probe_profiles, site_runs
+from daemon.workflows.profiles import group_profiles, points_from_runs, summarise_depths
+
+CMD = "profile"
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = subparsers.add_parser(CMD, help="thermal resistivity against depth per site and borehole",
+                              description="Resistivity against depth from field runs (runs.location names the "
+                                          "borehole, runs.depth_m the probe-tip depth).")
+    p.add_argument("--site", help="site name as recorded with the runs (omit to list the sites)")
+    p.add_argument("--borehole", help="only this borehole (runs.location)")
+    add_db_option(p)
+    p.add_argument("--plot", type=Path, metavar="FILE.png", help="write the depth plot")
+    p.add_argument("--json", action="store_true", help="print the points as JSON")
+    p.add_argument("--tolerance-m", type=float, default=0.05, help="pool readings this close in depth (m)")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    try:
+        db = open_db(db_path(args))
+    except SourceError as e:
+        return fail(CMD, str(e))
+    if not args.site:
+        sites = list_sites(db)
+        if not sites:
+            return fail(CMD, "no run in the database has a site; record the site with each field run")
+        for s in sites:
+            print(f"{s['site']}: {s['runs']} runs, {s['boreholes']} borehole(s)")
+        return 0
+    runs = site_runs(db, args.site, args.borehole)
+    if not runs:
+        known = ", ".join(s["site"] for s in list_sites(db)) or "none"
+        return fail(CMD, f"no runs for site {args.site!r}" + (f" borehole {args.borehole!r}" if args.borehole else "")
+                    + f" (sites on record: {known})")
+    pts = points_from_runs(runs, probe_profiles(db))
+    if not pts:
+        return fail(CMD, f"site {args.site!r}: no run has both a depth and a result")
+    groups = group_profiles(pts)
+    if args.json:
+        print(json.dumps({"site": args.site, "boreholes": {bh: [p.to_dict() for p in v]
+                                                           for (_s, bh), v in groups.items()}}, indent=2))
+    else:
+        for (_s, bh), v in groups.items():
+            print(f"{args.site} — borehole {bh}")
+            print(f"{'depth m':>8}  {'run':>5}  {'sensor':<8}  {'k W/(m·K)':>10}  {'ρ °C·cm/W':>10}  "
+                  f"{'U(ρ)':>6}  flags")
+            for p in v:
+                u = p.resistivity_u_mK_per_W
+                print(f"{p.depth_m:>8.2f}  {p.run_id:>5}  {p.sensor:<8}  {p.k_W_per_mK:>10.4f}  "
+                      f"{100 * p.resistivity_mK_per_W:>10.1f}  {f(200 * u if u else None, 2):>6}  "
+                      f"{', '.join(p.flags) or '—'}")
+            summ = summarise_depths(v, args.tolerance_m)
+            if any(d.n > 1 for d in summ):
+                print("  pooled: " + "; ".join(f"{d.depth_m:.2f} m: {100 * d.resistivity_mK_per_W:.1f} "
+                                               f"(n={d.n}, highest {100 * d.worst_mK_per_W:.1f})" for d in summ))
+    if args.plot:
+        title = f"{args.site}" + (f", borehole {args.borehole}" if args.borehole else "")
+        args.plot.write_bytes(plots.depth_profile(groups, f"Thermal resistivity against depth — {title}"))
+    return 0
