@@ -87,6 +87,7 @@ class LinerigApp(App[int]):
         self.live = LiveState()
         self.client: Client | None = None
         self._autostarted = False
+        self.pending_preset: tuple[str, dict[str, Any]] | None = None
 
     def on_mount(self) -> None:
         self.run_worker(self._link(), name="daemon link", group="link", exclusive=True, exit_on_error=False)
@@ -184,6 +185,11 @@ class LinerigApp(App[int]):
         await self._refresh_status()
         self.switch_mode("live")
         return int(reply["run_id"])
+
+    def open_new_run(self, preset: str, metadata: dict[str, Any] | None = None) -> None:
+        """Show the new-run form filled from ``preset`` and ``metadata`` (picked up when the form shows)."""
+        self.pending_preset = (preset, dict(metadata or {}))
+        self.switch_mode("start")
 
     # -- reactions -------------------------------------------------------------------------------------------
     def on_daemon_connected(self, msg: DaemonConnected) -> None:
