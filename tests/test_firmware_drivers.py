@@ -60,8 +60,10 @@ def test_converter_configuration_bytes() -> None:
     assert chip.regs[tcconv.CR0] & 0x01  # 50 Hz notch
     thr = (chip.regs[tcconv.LTHFTH] << 8) | chip.regs[tcconv.LTHFTH + 1]
     assert thr / 16 == pytest.approx(95.0)  # the hardware over-temperature threshold
+    assert chip.regs[tcconv.MASK] == 0xF7  # only "TC high" drives the FAULT pin (bit 3 unmasked)
     tc.configure("T", "E")
     assert chip.regs[tcconv.CR1] & 0x0F == tcconv.VOLTAGE_GAIN32
+    assert chip.regs[tcconv.MASK] == 0xFF  # no linearised temperature, no hardware threshold
 
 
 def test_converter_reads_datasheet_format_examples() -> None:

@@ -74,7 +74,9 @@ class TcConverter:
         self._write(CR0, bytes([cr0 & ~0x80 & 0xFF]))  # stop, then set the rest, then start
         self._write(CR1, bytes([cr1]))
         self._write(LTHFTH, bytes([threshold >> 8, threshold & 0xFF]))
-        mask = 0xFF & ~(0x01 | 0x02 | (0x08 if mode == "T" else 0x00))  # FAULT pin: open, OV/UV, TC high
+        # FAULT pin: over-temperature only, and only when the chip linearises (mode T). An open or shorted
+        # thermocouple is the firmware's call: a broken spare channel must not stop a measurement.
+        mask = 0xF7 if mode == "T" else 0xFF
         self._write(MASK, bytes([mask]))
         self._write(CR0, bytes([cr0]))
         back = self._read(CR0, 2)
