@@ -18,6 +18,7 @@ import pytest
 import serial
 
 from daemon.rig.scpi import (
+    ESR_PON,
     ConstantPowerLoop,
     PowerLimitExceeded,
     ScpiDeviceError,
@@ -316,6 +317,20 @@ async def test_over_current_reading_turns_output_off(rig: tuple[ScpiSupply, Scpi
     with pytest.raises(ScpiRangeError, match="MEAS:CURR"):
         await loop.step()
     assert sim.output is False
+
+
+async def test_reset_and_power_on_detection(rig: tuple[ScpiSupply, ScpiSupplySim, PtySupply]) -> None:
+    supply, sim, _ = rig
+    await supply.open()
+    assert await supply.event_status() & ESR_PON == 0
+    await supply.set_voltage(5.0)
+    await supply.output(True)
+    sim.power_cycle()  # the supply browned out: output off, setpoints lost (IEEE 488.2 PON bit set)
+    assert await supply.event_status() & ESR_PON
+    assert await supply.output_state() is False
+    await supply.output(True)
+    await supply.reset()
+    assert sim.output is False and sim.v_set == 0.0
 
 
 def test_voltage_setpoint_clamps() -> None:

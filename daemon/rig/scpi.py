@@ -24,6 +24,7 @@ log = logging.getLogger(__name__)
 T = TypeVar("T")
 
 OVERFLOW_MIN = 9.9e37  # SCPI's "+Inf" (9.9E37) and "NaN" (9.91E37) markers
+ESR_PON = 0x80  # IEEE 488.2 event status register: power on (the supply lost mains since the last *ESR?)
 _ERROR_RE = re.compile(r'^([+-]?\d+)\s*,\s*"(.*)"$')
 
 
@@ -232,8 +233,19 @@ class ScpiSupply:
         if not await self.off():
             raise ScpiError("could not confirm the output is off at startup; check the supply before use")
         await self.errors()
-        await self._with_retry("*ESR?", lambda: self.query_float("*ESR?", 0, 255))
+        await self.event_status()  # clears the power-on flag so a later one means a new dropout
         return ident
+
+    async def reset(self) -> None:
+        """*RST (defined state, output off on supplies), then confirm: *RST does not clear the error queue."""
+        await self.write("*RST")
+        await self._with_retry("*OPC?", lambda: self.query_float("*OPC?", 1, 1))
+        if await self.output_state():
+            raise ScpiError("output still on after *RST; switch the supply off by hand and check it")
+
+    async def event_status(self) -> int:
+        """Read (and so clear) the event status register; test ``& ESR_PON`` to spot a mains dropout."""
+        return int(await self._with_retry("*ESR?", lambda: self.query_float("*ESR?", 0, 255)))
 
     @contextlib.asynccontextmanager
     async def session(self) -> AsyncIterator[ScpiSupply]:
