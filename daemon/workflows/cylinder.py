@@ -107,9 +107,9 @@ class SurfaceSteps:
         return SurfaceSteps(np.array([at_s]), np.array([bath_C]))
 
     @staticmethod
-    def from_record(time_s: np.ndarray, bath_C: np.ndarray, tol_K: float = 0.05,
+    def from_record(time_s: np.ndarray, bath_C: np.ndarray, tol_K: float = 0.1,
                     start_C: float | None = None) -> SurfaceSteps:
-        """Piecewise-constant levels from a measured bath temperature, a new step whenever it leaves ±tol_K."""
+        """Piecewise-constant levels from a measured bath temperature: a new step whenever it leaves ±tol_K."""
         t = np.asarray(time_s, dtype=float)
         b = np.asarray(bath_C, dtype=float)
         ok = np.isfinite(b)
@@ -119,13 +119,16 @@ class SurfaceSteps:
         times, levels = [], []
         base = start_C
         seg_t, seg = float(t[0]), [float(b[0])]
-        for ti, bi in zip(t[1:], b[1:], strict=True):
-            if abs(bi - np.mean(seg)) > tol_K:
+        for i in range(1, t.size):
+            mean = float(np.mean(seg))
+            nxt = b[i + 1] if i + 1 < t.size else b[i]
+            # a new level needs two samples in a row off the current one, so a single noisy reading is no step
+            if abs(b[i] - mean) > tol_K and abs(nxt - mean) > tol_K:
                 times.append(seg_t)
-                levels.append(float(np.mean(seg)))
-                seg_t, seg = float(ti), [float(bi)]
+                levels.append(mean)
+                seg_t, seg = float(t[i]), [float(b[i])]
             else:
-                seg.append(float(bi))
+                seg.append(float(b[i]))
         times.append(seg_t)
         levels.append(float(np.mean(seg)))
         if base is not None and abs(levels[0] - base) <= tol_K:
