@@ -65,7 +65,6 @@ def test_both_decoders_agree_on_frames_with_a_correct_crc(body: bytes) -> None:
     assert mine == theirs
 
 
-@pytest.mark.xfail(strict=True, reason="daemon decode_line accepts control bytes; PROTOCOL.md §3 says drop")
 def test_control_bytes_in_a_crc_correct_body_are_rejected_by_both() -> None:
     line = _with_crc(b"S,1,12\x01,00")
     with pytest.raises(ValueError):

@@ -33,7 +33,7 @@ def crc32(data: bytes) -> int:
 
 def encode_frame(kind: str, seq: int, fields: tuple[str, ...] | list[str] = ()) -> bytes:
     body = ",".join([kind, str(seq % SEQ_MODULUS), *fields])
-    if any(c in body for c in "$*\r\n") or not body.isascii():
+    if any(c in body for c in "$*") or not (body.isascii() and body.isprintable()):
         raise FrameError(f"frame {kind!r} holds a reserved or non-ASCII character: {body!r}")
     raw = body.encode("ascii")
     frame = b"$" + raw + b"*" + b"%08X" % crc32(raw) + b"\n"
@@ -56,6 +56,8 @@ def decode_line(line: bytes) -> Frame:
         text = body.decode("ascii")
     except UnicodeDecodeError:
         raise ValueError("non-ASCII body") from None
+    if not text.isprintable():
+        raise ValueError("control byte in body")
     parts = text.split(",")
     if len(parts) < 2 or not parts[0] or not parts[1].isdigit():
         raise ValueError("bad kind or sequence")
@@ -113,6 +115,10 @@ class FrameDecoder:
                 break
             line = bytes(self._buf[:end]).rstrip(b"\r")
             del self._buf[: end + 1]
+            if len(line) + 1 > MAX_FRAME_BYTES:
+                self.counters.bad_frames += 1
+                self.counters.skipped_bytes += len(line) + 1
+                continue
             try:
                 frame = decode_line(line)
             except ValueError:
