@@ -1,0 +1,176 @@
+"""The offline subcommands on a real database written by the daemon's own store (invented demo data): report,
+export, profile, cycles, calibrate and dryout from runs."""
+
+from __future__ import annotations
+
+import csv
+import importlib.util
+import io
+import json
+import sqlite3
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from daemon.runcsv import read_run_csv
+from tui.cli import main
+
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "harrowgate_fen.py"
+SITE = "Harrowgate Fen substation"
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
+    spec = importlib.util.spec_from_file_location("harrowgate_fen", EXAMPLES)
+    assert spec and spec.loader
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    path = tmp_path_factory.mktemp("db") / "demo.db"
+    ids = mod.build_demo_db(path)
+    return path, ids
+
+
+def _cli(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]:
+    rc = main(list(argv))
+    out = capsys.readouterr()
+    return rc, out.out, out.err
+
+
+def test_run_report_html_is_self_contained(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                           capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    out = tmp_path / "run.html"
+    rc, _, err = _cli(capsys, "report", str(ids["bh1"][2]), "--db", str(db), "-o", str(out))
+    assert rc == 0, err
+    html = out.read_text(encoding="utf-8")
+    assert html.count("data:image/png;base64,") >= 3          # fit, estimate history, cooling
+    assert "http://" not in html and "https://" not in html and "<script" not in html
+    for needle in ("Calibration traceability", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
+                   "Blackwell", "U (k=2)", SITE):
+        assert needle in html, needle
+
+
+def test_run_report_pdf(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                        capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    out = tmp_path / "run.pdf"
+    rc, _, err = _cli(capsys, "report", str(ids["bh1"][0]), "--db", str(db), "-o", str(out))
+    assert rc == 0, err
+    data = out.read_bytes()
+    assert data.startswith(b"%PDF") and data.count(b"/Type /Page") >= 3
+
+
+def test_site_report_and_profile(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                 capsys: pytest.CaptureFixture[str]) -> None:
+    db, _ = demo
+    out = tmp_path / "site.html"
+    rc, _, err = _cli(capsys, "report", "--site", SITE, "--db", str(db), "-o", str(out))
+    assert rc == 0, err
+    html = out.read_text(encoding="utf-8")
+    assert "Depth profiles" in html and "Borehole BH1" in html and "Borehole BH2" in html
+    rc, text, err = _cli(capsys, "profile", "--site", SITE, "--db", str(db), "--json", "--plot",
+                         str(tmp_path / "p.png"))
+    assert rc == 0, err
+    doc = json.loads(text)
+    bh1 = doc["boreholes"]["BH1"]
+    assert [round(p["depth_m"], 3) for p in bh1] == [0.5, 1.0, 1.5, 2.0, 2.5]   # tip depth − 75 mm mid-heater
+    # the invented ground gets more conductive with depth (peat over sand)
+    assert bh1[0]["resistivity_Ccm_per_W"] > bh1[-1]["resistivity_Ccm_per_W"]
+    rod = {p["sensor"]: p["depth_m"] for p in doc["boreholes"]["BH2"]}
+    assert rod == pytest.approx({"low": 1.4, "mid": 0.9, "high": 0.4})
+    assert (tmp_path / "p.png").read_bytes().startswith(b"\x89PNG")
+
+
+def test_export_results_csv_and_samples_roundtrip(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    rc, text, err = _cli(capsys, "export", "--site", SITE, "--db", str(db))
+    assert rc == 0, err
+    rows = list(csv.DictReader(io.StringIO(text)))
+    assert len(rows) == 5 + 3
+    assert all(float(r["resistivity_Ccm_per_W"]) == pytest.approx(100 / float(r["k_W_per_mK"])) for r in rows)
+    out = tmp_path / "s.csv"
+    rc, _, err = _cli(capsys, "export", str(ids["bh1"][1]), "--what", "samples", "--db", str(db), "-o", str(out))
+    assert rc == 0, err
+    data = read_run_csv(out)        # the run CSV reader takes it back
+    con = sqlite3.connect(db)
+    n = con.execute("SELECT count(*) FROM samples WHERE run_id = ?", [ids["bh1"][1]]).fetchone()[0]
+    assert data.time_s.size == n
+    rc, text, _ = _cli(capsys, "export", str(ids["bh1"][1]), "--what", "samples", "--format", "json", "--db", str(db))
+    doc = json.loads(text)
+    assert len(doc["samples"]["time_s"]) == n and doc["results"]["heater"]["k_W_per_mK"] > 0
+    rc, text, _ = _cli(capsys, "export", str(ids["bh1"][1]), "--what", "samples", "--raw", "--db", str(db))
+    assert text.splitlines()[0].startswith("n,seq,device_ms,device_s,time_s,phase")
+
+
+def test_cycles_of_a_three_cycle_run(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                     capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    rc, text, err = _cli(capsys, "cycles", str(ids["cycles_run"]), "--db", str(db), "--json",
+                         "--report", str(tmp_path / "c.html"))
+    assert rc == 0, err
+    s = json.loads(text)
+    assert s["n"] == 3
+    # invented truth 1.9/0.96 W/(m·K) read through the calibration factor: about 1.9 after calibration
+    assert s["mean"] == pytest.approx(1.9, rel=0.05)
+    assert s["repeatability_limit"] == pytest.approx(2.8 * s["sd"])
+    assert "r = 2.8·s_r" in (tmp_path / "c.html").read_text(encoding="utf-8")
+
+
+def test_cycles_refuses_a_single_cycle_run(demo: tuple[Path, dict[str, Any]],
+                                           capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    rc, _, err = _cli(capsys, "cycles", str(ids["bh1"][0]), "--db", str(db))
+    assert rc == 2 and "nothing to compare" in err
+
+
+def test_calibrate_from_runs_stores_history(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                            capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    copy = tmp_path / "cal.db"
+    copy.write_bytes(db.read_bytes())
+    args = ["calibrate", "--probe", "FN-0412", "--reference", "agar-water", "--db", str(copy), "--json"]
+    for rid in ids["calibration_runs"]:
+        args += ["--run", str(rid)]
+    rc, text, err = _cli(capsys, *args)
+    assert rc == 0, err
+    out = json.loads(text)
+    assert out["accepted"] and out["n_runs"] == 3
+    assert out["reference"]["temperature_C"] == pytest.approx(20.0, abs=0.01)   # bath from the baselines
+    # the invented probe reads 4 % high: factor ≈ 0.96
+    assert out["factor"] == pytest.approx(0.96, abs=0.03)
+    rc, text, _ = _cli(capsys, "calibrate", "--probe", "FN-0412", "--history", "--db", str(copy), "--json")
+    hist = json.loads(text)
+    assert len(hist) == 2 and hist[-1]["id"] == out["id"]
+    rc, _, err = _cli(capsys, "calibrate", "--probe", "NOPE", "--reference", "water", "--db", str(copy),
+                      "--run", str(ids["calibration_runs"][0]))
+    assert rc == 2 and "FN-0412" in err
+
+
+def test_dryout_from_database_runs(demo: tuple[Path, dict[str, Any]], capsys: pytest.CaptureFixture[str]) -> None:
+    db, _ = demo
+    rc, text, err = _cli(capsys, "dryout", "--material", "Fen sand backfill", "--db", str(db), "--model",
+                         "cote-konrad", "--quartz", "0.55", "--json")
+    assert rc == 0, err
+    doc = json.loads(text)
+    assert len(doc["points"]) == 12
+    # invented truth λ_s = 4.6, κ = 3.2, dry scale 1.1 (examples/harrowgate_fen.py)
+    fit = doc["fits"]["cote-konrad"]
+    assert fit["lambda_s_W_per_mK"] == pytest.approx(4.6, rel=0.1)
+    assert fit["rms_rel"] < 0.05
+
+
+def test_bad_inputs_get_exit_code_2(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                    capsys: pytest.CaptureFixture[str]) -> None:
+    db, _ = demo
+    rc, _, err = _cli(capsys, "report", "999", "--db", str(db), "-o", str(tmp_path / "x.html"))
+    assert rc == 2 and "no run 999" in err
+    rc, _, err = _cli(capsys, "report", "1", "--db", str(tmp_path / "missing.db"))
+    assert rc == 2 and "no database" in err
+    rc, _, err = _cli(capsys, "report", "1", "--db", str(db), "-o", str(tmp_path / "x.docx"))
+    assert rc == 2 and ".html or .pdf" in err
+    rc, _, err = _cli(capsys, "profile", "--site", "Nowhere", "--db", str(db))
+    assert rc == 2 and SITE in err
+    rc, _, err = _cli(capsys, "export", "--db", str(db))
+    assert rc == 2
