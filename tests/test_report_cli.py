@@ -174,3 +174,42 @@ def test_bad_inputs_get_exit_code_2(demo: tuple[Path, dict[str, Any]], tmp_path:
     assert rc == 2 and SITE in err
     rc, _, err = _cli(capsys, "export", "--db", str(db))
     assert rc == 2
+
+
+def test_cycles_of_a_series_of_runs(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                    capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    copy = tmp_path / "series.db"
+    copy.write_bytes(db.read_bytes())
+    con = sqlite3.connect(copy)
+    with con:   # make the three calibration runs one series, one run per cycle
+        for c, rid in enumerate(ids["calibration_runs"], start=1):
+            con.execute("UPDATE runs SET series_id = 7, cycle = ? WHERE id = ?", [c, rid])
+    con.close()
+    rc, text, err = _cli(capsys, "cycles", str(ids["calibration_runs"][1]), "--db", str(copy), "--json")
+    assert rc == 0, err
+    s = json.loads(text)
+    assert s["origin"].startswith("series 7") and s["n"] == 3
+    assert [v["run_id"] for v in s["values"]] == ids["calibration_runs"]
+
+
+def test_calibrate_from_a_csv_in_glycerol(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                          capsys: pytest.CaptureFixture[str]) -> None:
+    import numpy as np
+
+    from daemon.reduction.synthetic import Medium, make_run
+    from daemon.runcsv import write_run_csv
+
+    db, _ = demo
+    # glycerol ≈ 0.285 W/(m·K), ρc ≈ 3.05 MJ/(m³·K) (handbook values, from memory); a probe reading 5 % low
+    d = make_run(Medium(0.285 / 1.05, 3.05e6), q_W_per_m=2.0, radius_m=1.2e-3, probe_C=3.0e6, heat_s=600,
+                 recover_s=300, baseline_s=60, dt_s=2.0, noise_K=0.001, t0_C=22.0, rng=np.random.default_rng(5))
+    p = tmp_path / "gly.csv"
+    write_run_csv(d, p)
+    rc, text, _err = _cli(capsys, "calibrate", "--probe", "FN-0412", "--reference", "glycerol", "--csv", str(p),
+                         "--db", str(db), "--dry-run", "--json")
+    out = json.loads(text)
+    assert out["id"] is None                                   # --dry-run stores nothing
+    assert out["factor"] == pytest.approx(1.05, rel=0.02)
+    assert any("single run" in w for w in out["warnings"])
+    assert rc in (0, 1) and (rc == 0) == out["accepted"]
