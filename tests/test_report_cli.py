@@ -213,3 +213,12 @@ def test_calibrate_from_a_csv_in_glycerol(demo: tuple[Path, dict[str, Any]], tmp
     assert out["factor"] == pytest.approx(1.05, rel=0.02)
     assert any("single run" in w for w in out["warnings"])
     assert rc in (0, 1) and (rc == 0) == out["accepted"]
+
+
+def test_report_of_a_multi_cycle_run_shows_the_last_cycle(demo: tuple[Path, dict[str, Any]], tmp_path: Path,
+                                                          capsys: pytest.CaptureFixture[str]) -> None:
+    db, ids = demo
+    out = tmp_path / "cyc.html"
+    rc, _, err = _cli(capsys, "report", str(ids["cycles_run"]), "--db", str(db), "-o", str(out))
+    assert rc == 0, err
+    assert "This run holds 3 heating–recovery cycles" in out.read_text(encoding="utf-8")

@@ -15,9 +15,12 @@ from daemon.reduction.data import ReductionError
 from daemon.report import plots
 from daemon.report.build import run_report, site_report
 from daemon.report.cli import add_db_option, db_path, fail, write_report
+from daemon.report.model import Para
 from daemon.report.sources import (
+    RunRecord,
     SourceError,
     calibration_history,
+    cycle_data,
     list_sites,
     load_run,
     open_db,
@@ -96,6 +99,9 @@ def _run_report(args: argparse.Namespace) -> tuple[object, str]:
     db = open_db(db_path(args))
     rec = load_run(db, args.run_id)
     red = None
+    parts = cycle_data(rec)
+    if len(parts) > 1:   # several heating cycles in one run: report the last, point to `linerig cycles`
+        rec = RunRecord(rec.run_id, rec.detail, parts[-1][1], rec.probe, rec.calibrations, None)
     if rec.data is not None:
         try:
             red = reduce_record(rec)
@@ -105,6 +111,10 @@ def _run_report(args: argparse.Namespace) -> tuple[object, str]:
     row = next((c for c in rec.calibrations if c.get("id") == status.calibration_id), None)
     rep = run_report(rec.detail, rec.data, red, rec.probe, calibration=status, calibration_row=row,
                      stored=rec.stored_results, source=str(db_path(args)))
+    if len(parts) > 1:
+        rep.blocks.insert(2, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
+                                  f"below are for the last one. `linerig cycles {args.run_id}` summarises them all "
+                                  "(mean, repeatability, outliers).", "caution"))
     return rep, f"run-{args.run_id}.html"
 
 
