@@ -1,8 +1,10 @@
-"""JSON lines over a Unix socket: requests, replies and an event stream.
+"""JSON lines over a Unix socket: requests, replies and an event stream (see daemon/API.md).
 
-The socket file's group and mode decide who may control the heater. A client can
-only ever affect a run through the requests below; a slow, broken or hostile
-client is cut off without touching the run.
+The socket file's group and mode (0660) decide who may control the heater; each
+connection's peer credentials are read with SO_PEERCRED, logged, checked against
+the control group and passed to the handlers for the audit trail. A client can only
+ever affect a run through the requests; a slow, broken or hostile client gets an
+error reply or is cut off, and the run never notices.
 """
 
 from __future__ import annotations
@@ -12,61 +14,49 @@ import contextlib
 import grp
 import json
 import logging
+import math
 import os
+import pwd
 import socket
 import struct
 from collections.abc import Awaitable, Callable
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 log = logging.getLogger("linerigd.api")
 
-MAX_LINE = 64 * 1024
-QUEUE_DEPTH = 2000
-
-Handler = Callable[[dict[str, Any]], Awaitable[dict[str, Any]]]
+MAX_LINE = 64 * 1024  # longest request accepted, bytes
+QUEUE_DEPTH = 2000  # events held for a subscriber that reads slowly; the oldest go first
+MAX_CLIENTS = 64
+DRAIN_TIMEOUT_S = 10.0  # a client that takes no bytes for this long is disconnected
 
 
 class RequestError(ValueError):
     """A request the daemon understood but will not do; the message says why."""
 
 
-class Hub:
-    """Fan-out of events to subscribers; a slow subscriber loses its oldest events, never blocks a run."""
+@dataclass(frozen=True)
+class Peer:
+    pid: int | None = None
+    uid: int | None = None
+    gid: int | None = None
 
-    def __init__(self) -> None:
-        self._queues: set[asyncio.Queue[dict[str, Any]]] = set()
-
-    def publish(self, event: dict[str, Any]) -> None:
-        for q in self._queues:
-            if q.full():
-                with contextlib.suppress(asyncio.QueueEmpty):
-                    q.get_nowait()
-            q.put_nowait(event)
-
-    def subscribe(self) -> asyncio.Queue[dict[str, Any]]:
-        q: asyncio.Queue[dict[str, Any]] = asyncio.Queue(QUEUE_DEPTH)
-        self._queues.add(q)
-        return q
-
-    def unsubscribe(self, q: asyncio.Queue[dict[str, Any]]) -> None:
-        self._queues.discard(q)
-
-    @property
-    def subscribers(self) -> int:
-        return len(self._queues)
+    def to_dict(self) -> dict[str, int | None]:
+        return {"pid": self.pid, "uid": self.uid, "gid": self.gid}
 
 
-def peer_credentials(sock: socket.socket | None) -> tuple[int, int, int] | None:
-    if sock is None or not hasattr(socket, "SO_PEERCRED"):
+Handler = Callable[[dict[str, Any], Peer], Awaitable[dict[str, Any]]]
+
+
+def _finite(value: Any) -> Any:
+    if isinstance(value, float) and not math.isfinite(value):
         return None
-    raw = sock.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
-    pid, uid, gid = struct.unpack("3i", raw)
-    return pid, uid, gid
-
-
-def encode(obj: dict[str, Any]) -> bytes:
-    return (json.dumps(obj, separators=(",", ":"), allow_nan=False, default=_jsonable) + "\n").encode()
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite(v) for v in value]
+    return value
 
 
 def _jsonable(value: Any) -> Any:
@@ -77,27 +67,92 @@ def _jsonable(value: Any) -> Any:
     raise TypeError(f"cannot encode {type(value).__name__}")
 
 
+def encode(obj: dict[str, Any]) -> bytes:
+    """One line of strict JSON; a NaN or infinity anywhere becomes null."""
+    try:
+        text = json.dumps(obj, separators=(",", ":"), allow_nan=False, default=_jsonable)
+    except ValueError:
+        text = json.dumps(_finite(obj), separators=(",", ":"), allow_nan=False, default=_jsonable)
+    return (text + "\n").encode()
+
+
+class Hub:
+    """Fan-out of events to subscribers; a slow subscriber loses its oldest events, never blocks a run."""
+
+    def __init__(self) -> None:
+        self._queues: set[asyncio.Queue[bytes]] = set()
+        self.dropped = 0
+
+    def publish(self, event: dict[str, Any]) -> None:
+        if not self._queues:
+            return
+        data = encode(event)  # once, whatever the number of subscribers
+        for q in self._queues:
+            if q.full():
+                with contextlib.suppress(asyncio.QueueEmpty):
+                    q.get_nowait()
+                    self.dropped += 1
+            q.put_nowait(data)
+
+    def subscribe(self) -> asyncio.Queue[bytes]:
+        q: asyncio.Queue[bytes] = asyncio.Queue(QUEUE_DEPTH)
+        self._queues.add(q)
+        return q
+
+    def unsubscribe(self, q: asyncio.Queue[bytes]) -> None:
+        self._queues.discard(q)
+
+    @property
+    def subscribers(self) -> int:
+        return len(self._queues)
+
+
+def peer_credentials(sock: socket.socket | None) -> Peer:
+    if sock is None or not hasattr(socket, "SO_PEERCRED"):
+        return Peer()
+    raw = sock.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
+    pid, uid, gid = struct.unpack("3i", raw)
+    return Peer(pid, uid, gid)
+
+
+def peer_allowed(peer: Peer, group_gid: int | None) -> bool:
+    """Root, the daemon's own user and members of the control group; anyone who could open the file when
+    no group is set (the file mode already limits that to the daemon's user and group)."""
+    if group_gid is None or peer.uid is None:
+        return True
+    if peer.uid in (0, os.getuid()) or peer.gid == group_gid:
+        return True
+    try:
+        name = pwd.getpwuid(peer.uid).pw_name
+    except KeyError:
+        return False
+    return group_gid in os.getgrouplist(name, peer.gid if peer.gid is not None else -1)
+
+
 class ApiServer:
     def __init__(self, path: Path, handlers: dict[str, Handler], hub: Hub, group: str | None = None) -> None:
         self.path = path
         self.handlers = handlers
         self.hub = hub
         self.group = group
+        self.group_gid = grp.getgrnam(group).gr_gid if group else None
         self._server: asyncio.AbstractServer | None = None
         self.clients = 0
+        self.refused = 0
+        self.errors = 0
 
     async def start(self) -> None:
         self.path.parent.mkdir(parents=True, exist_ok=True)
         with contextlib.suppress(FileNotFoundError):
             self.path.unlink()
-        old = os.umask(0o117)
+        old = os.umask(0o117)  # the socket is never world-accessible, not even for an instant
         try:
             self._server = await asyncio.start_unix_server(self._client, path=str(self.path), limit=MAX_LINE)
         finally:
             os.umask(old)
+        if self.group_gid is not None:
+            os.chown(self.path, -1, self.group_gid)
         os.chmod(self.path, 0o660)
-        if self.group:
-            os.chown(self.path, -1, grp.getgrnam(self.group).gr_gid)
 
     async def close(self) -> None:
         if self._server is not None:
@@ -107,30 +162,63 @@ class ApiServer:
         with contextlib.suppress(FileNotFoundError):
             self.path.unlink()
 
+    async def _send(self, writer: asyncio.StreamWriter, data: bytes) -> None:
+        writer.write(data)
+        await asyncio.wait_for(writer.drain(), DRAIN_TIMEOUT_S)
+
     async def _client(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
-        creds = peer_credentials(writer.get_extra_info("socket"))
-        log.info("client connected: pid/uid/gid %s", creds)
-        self.clients += 1
+        peer = peer_credentials(writer.get_extra_info("socket"))
         sub_task: asyncio.Task[None] | None = None
+        counted = False
         try:
-            while True:
-                try:
-                    line = await reader.readline()
-                except (ValueError, asyncio.LimitOverrunError):
-                    writer.write(encode({"ok": False, "error": f"request longer than {MAX_LINE} bytes"}))
-                    await writer.drain()
-                    break
-                if not line:
-                    break
-                reply = await self._handle(line)
-                if reply.pop("_subscribe", False) and sub_task is None:
-                    sub_task = asyncio.create_task(self._stream(writer))
-                writer.write(encode(reply))
-                await writer.drain()
-        except (ConnectionError, OSError):
+            if not peer_allowed(peer, self.group_gid):
+                self.refused += 1
+                log.warning("refused client pid %s uid %s gid %s: not in group %s", peer.pid, peer.uid, peer.gid,
+                            self.group)
+                await self._send(writer, encode({"ok": False, "error": f"permission denied: uid {peer.uid} is "
+                                                 f"not in the control group {self.group}"}))
+                return
+            if self.clients >= MAX_CLIENTS:
+                self.refused += 1
+                await self._send(writer, encode({"ok": False, "error": f"too many clients ({MAX_CLIENTS}); "
+                                                 "close one and retry"}))
+                return
+            self.clients += 1
+            counted = True
+            log.info("client connected: pid %s uid %s gid %s", peer.pid, peer.uid, peer.gid)
+            buf = bytearray()
+            discarding = False
+            while chunk := await reader.read(MAX_LINE):
+                buf += chunk
+                while True:
+                    end = buf.find(b"\n")
+                    if end < 0:
+                        if len(buf) > MAX_LINE:
+                            if not discarding:
+                                self.errors += 1
+                                await self._send(writer, encode({"ok": False, "error": f"request longer than "
+                                                                 f"{MAX_LINE} bytes; ignored"}))
+                            discarding = True
+                            buf.clear()
+                        break
+                    line = bytes(buf[:end])
+                    del buf[: end + 1]
+                    if discarding:  # the tail of a request that was too long
+                        discarding = False
+                        continue
+                    if not line.strip():
+                        continue
+                    reply = await self._handle(line, peer)
+                    if reply.pop("_subscribe", False) and sub_task is None:
+                        sub_task = asyncio.create_task(self._stream(writer))
+                    await self._send(writer, encode(reply))
+                    await asyncio.sleep(0)  # a client sending a flood of requests must not starve the rig
+        except (ConnectionError, OSError, TimeoutError):
             pass
         finally:
-            self.clients -= 1
+            if counted:
+                self.clients -= 1
+                log.debug("client gone: pid %s uid %s", peer.pid, peer.uid)
             if sub_task is not None:
                 sub_task.cancel()
                 with contextlib.suppress(asyncio.CancelledError, Exception):
@@ -139,23 +227,30 @@ class ApiServer:
             with contextlib.suppress(Exception):
                 await writer.wait_closed()
 
-    async def _handle(self, line: bytes) -> dict[str, Any]:
+    async def _handle(self, line: bytes, peer: Peer) -> dict[str, Any]:
         try:
             req = json.loads(line)
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            return {"ok": False, "error": f"not JSON: {exc}"}
+        except (ValueError, RecursionError) as exc:  # bad JSON, bad UTF-8, absurd nesting
+            self.errors += 1
+            return {"ok": False, "error": f"not a JSON request: {str(exc)[:200]}"}
         if not isinstance(req, dict) or not isinstance(req.get("op"), str):
+            self.errors += 1
             return {"ok": False, "error": 'a request is a JSON object with a string "op"'}
         rid = req.get("id")
+        if not isinstance(rid, int | str | None) or isinstance(rid, bool):
+            rid = None
         op = req["op"]
         handler = self.handlers.get(op)
         if handler is None:
-            return {"id": rid, "ok": False, "error": f"unknown op {op!r}; known: {sorted(self.handlers)}"}
+            self.errors += 1
+            known = ", ".join(sorted(self.handlers))
+            return {"id": rid, "ok": False, "error": f"unknown op {op[:80]!r}; known: {known}"}
         try:
-            result = await handler(req)
+            result = await handler(req, peer)
         except RequestError as exc:
             return {"id": rid, "ok": False, "error": str(exc)}
         except Exception as exc:  # a bug in one request must not take the daemon down
+            self.errors += 1
             log.exception("request %s failed", op)
             return {"id": rid, "ok": False, "error": f"internal error: {type(exc).__name__}: {exc}"}
         return {"id": rid, "ok": True, **result}
@@ -164,10 +259,8 @@ class ApiServer:
         q = self.hub.subscribe()
         try:
             while True:
-                event = await q.get()
-                writer.write(encode(event))
-                await writer.drain()
-        except (ConnectionError, OSError):
-            pass
+                await self._send(writer, await q.get())
+        except (ConnectionError, OSError, TimeoutError):
+            writer.close()
         finally:
             self.hub.unsubscribe(q)

@@ -1,16 +1,20 @@
-"""One explicit state machine per run.
+"""One explicit state machine per run, and the schedule that strings runs into cycles.
 
 checking → settling → heating → recovering → done, and from any live state to
 aborted (operator) or faulted (safety). The controller does no I/O itself: it is
 fed samples in device time and asks its ``RunActions`` to switch the heater,
-record events and publish. Every change of state goes through ``_enter``.
+record events and publish. Every change of state goes through ``transition``.
+
+A run is one heating: repeat cycles are separate runs tied by a series, each
+reduced and stored on its own, and a series resumes only at a cycle boundary.
 """
 
 from __future__ import annotations
 
 import enum
 import math
-from dataclasses import asdict, dataclass, field
+from collections import deque
+from dataclasses import asdict, dataclass, field, fields
 from typing import Any, Protocol
 
 import numpy as np
@@ -18,7 +22,7 @@ import numpy as np
 
 class RunState(enum.StrEnum):
     CHECKING = "checking"
-    """Pre-checks on the first samples: sensors, supply, probe temperature."""
+    """Pre-checks on the first sample: sensors, supply, probe temperature, heater off."""
     SETTLING = "settling"
     """Baseline logging until the drift is small enough (or the wait times out)."""
     HEATING = "heating"
@@ -30,23 +34,51 @@ class RunState(enum.StrEnum):
     FAULTED = "faulted"
 
 
+INTERRUPTED = "interrupted"
+"""Not a controller state: the store gives it to a run found open when the daemon starts."""
+
 FINAL = frozenset({RunState.DONE, RunState.ABORTED, RunState.FAULTED})
 ALLOWED: dict[RunState, frozenset[RunState]] = {
     RunState.CHECKING: frozenset({RunState.SETTLING, RunState.ABORTED, RunState.FAULTED}),
     RunState.SETTLING: frozenset({RunState.HEATING, RunState.ABORTED, RunState.FAULTED}),
     RunState.HEATING: frozenset({RunState.RECOVERING, RunState.ABORTED, RunState.FAULTED}),
-    RunState.RECOVERING: frozenset({RunState.DONE, RunState.SETTLING, RunState.ABORTED, RunState.FAULTED}),
+    RunState.RECOVERING: frozenset({RunState.DONE, RunState.ABORTED, RunState.FAULTED}),
     RunState.DONE: frozenset(),
     RunState.ABORTED: frozenset(),
     RunState.FAULTED: frozenset(),
 }
+HEATER_OFF_STATES = frozenset({RunState.RECOVERING, *FINAL})
 
 
 class TransitionError(RuntimeError):
-    pass
+    """A state change the table does not allow: a bug, never an operator mistake."""
 
 
-@dataclass
+class PlanError(ValueError):
+    """A run plan value is out of range: ``key`` names it and ``problem`` says what it must be."""
+
+    def __init__(self, key: str, problem: str, value: object = None) -> None:
+        super().__init__(f"{key} must be {problem}, got {value!r}")
+        self.key = key
+        self.problem = problem
+        self.value = value
+
+
+PLAN_HELP: dict[str, str] = {
+    "heat_s": "maximum heating time, s (heating may stop earlier on a stable estimate)",
+    "recover_s": "recovery (cooling) logging time after the heater goes off, s",
+    "power_W_per_m": "heater power per metre, W/m",
+    "baseline_s": "baseline logged before heating, and the span the drift is measured over, s",
+    "settle_timeout_s": "longest wait for the drift to fall under max_drift_K_per_min before heating anyway, s",
+    "max_drift_K_per_min": "baseline drift that counts as settled, K/min",
+    "auto_stop": "stop heating by itself once the estimate is stable (otherwise the operator confirms)",
+    "cycles": "heating–recovery cycles in a series",
+    "reequilibrate_s": "extra wait before the baseline of a later cycle (or a resumed series), s",
+    "sensor": "sensor whose record drives the live fit and the stop verdict",
+}
+
+
+@dataclass(frozen=True)
 class RunPlan:
     heat_s: float = 600.0
     recover_s: float = 600.0
@@ -60,16 +92,37 @@ class RunPlan:
     sensor: str = "heater"
 
     def __post_init__(self) -> None:
-        for name in ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "settle_timeout_s",
-                     "max_drift_K_per_min"):
-            v = getattr(self, name)
-            if not (isinstance(v, int | float) and math.isfinite(v) and v > 0):
-                raise ValueError(f"{name} must be a positive number, got {v!r}")
-        if self.recover_s < 0 or not isinstance(self.cycles, int) or self.cycles < 1:
-            raise ValueError("cycles must be a whole number ≥ 1")
+        for f in fields(self):
+            problem = plan_problem(f.name, getattr(self, f.name))
+            if problem:
+                raise PlanError(f.name, problem, getattr(self, f.name))
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
+
+    def with_changes(self, changes: dict[str, Any]) -> RunPlan:
+        """A copy with ``changes``; unknown keys and bad values raise PlanError naming the key."""
+        known = {f.name for f in fields(self)}
+        for key in changes:
+            if key not in known:
+                raise PlanError(key, f"one of the plan settings ({', '.join(sorted(known))})", key)
+        return RunPlan(**{**self.to_dict(), **changes})
+
+
+def plan_problem(name: str, value: object) -> str | None:
+    """What a plan value must be, when it is not."""
+    if name == "auto_stop":
+        return None if isinstance(value, bool) else "true or false"
+    if name == "sensor":
+        return None if isinstance(value, str) and value else "a sensor name"
+    if name == "cycles":
+        ok = isinstance(value, int) and not isinstance(value, bool) and 1 <= value <= 1000
+        return None if ok else "a whole number from 1 to 1000"
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        return "a finite number"
+    if name == "reequilibrate_s":
+        return None if value >= 0 else "a number ≥ 0"
+    return None if value > 0 else "a number > 0"
 
 
 class RunActions(Protocol):
@@ -77,7 +130,9 @@ class RunActions(Protocol):
     def disarm(self, reason: str) -> None: ...
     def state_changed(self, state: RunState, reason: str, device_s: float) -> None: ...
     def heating_started(self, device_s: float) -> None: ...
+    def heating_ended(self, device_s: float) -> None: ...
     def estimate(self, est: dict[str, Any]) -> None: ...
+    def verdict(self, est: dict[str, Any]) -> None: ...
     def finished(self, state: RunState) -> None: ...
 
 
@@ -95,22 +150,32 @@ class RunController:
     actions: RunActions
     sensor_index: int = 0
     reducer_factory: Any = None  # callable -> LiveReducer
-    state: RunState = RunState.CHECKING
     cycle: int = 1
+    reequilibrate: bool = False  # a later cycle or a resumed series: wait plan.reequilibrate_s first
+    state: RunState = RunState.CHECKING
     started_device_s: float | None = None
     phase_start_s: float = 0.0
-    heat_start_s: float | None = None
-    baseline: list[tuple[float, float]] = field(default_factory=list)
+    arm_device_s: float | None = None  # when the controller asked for heat
+    heat_start_s: float | None = None  # the last sample before the front end first reported the heater on
+    heat_end_s: float | None = None
     baseline_mean_C: float | None = None
-    stop_requested: bool = False
+    stop_requested: str | None = None
     last_estimate: dict[str, Any] | None = None
+    stable_at_s: float | None = None
     not_settled: bool = False
+    reducer: Any = None
+    _recent: deque[tuple[float, float]] = field(default_factory=deque)
+    _prev_device_s: float | None = None
 
-    def _enter(self, new: RunState, reason: str, device_s: float) -> None:
+    # -- the one way to change state ---------------------------------------
+    def transition(self, new: RunState, reason: str, device_s: float) -> None:
         if new not in ALLOWED[self.state]:
             raise TransitionError(f"run {self.run_id}: {self.state} → {new} is not allowed")
-        if new in (RunState.ABORTED, RunState.FAULTED, RunState.RECOVERING, RunState.DONE):
+        if new in HEATER_OFF_STATES:
             self.actions.disarm(reason)  # heater off before anything else is recorded
+            if self.state == RunState.HEATING:
+                self.heat_end_s = device_s
+                self.actions.heating_ended(device_s)
         self.state = new
         self.phase_start_s = device_s
         self.actions.state_changed(new, reason, device_s)
@@ -128,49 +193,52 @@ class RunController:
     # -- operator and safety ----------------------------------------------
     def abort(self, reason: str, device_s: float) -> None:
         if self.active:
-            self._enter(RunState.ABORTED, reason, device_s)
+            self.transition(RunState.ABORTED, reason, device_s)
 
     def fault(self, reason: str, device_s: float) -> None:
         if self.active:
-            self._enter(RunState.FAULTED, reason, device_s)
+            self.transition(RunState.FAULTED, reason, device_s)
 
     def stop_heating(self) -> bool:
+        """The operator confirms heating can stop; acted on at the next sample."""
         if self.state != RunState.HEATING:
             return False
-        self.stop_requested = True
+        if self.stable_at_s is not None:
+            self.stop_requested = f"operator stopped heating: estimate stable since t = {self.stable_at_s:.0f} s"
+        else:
+            self.stop_requested = "operator stopped heating before the estimate was stable"
         return True
 
     def precheck_failed(self, problems: list[str], device_s: float) -> None:
-        self._enter(RunState.FAULTED, "pre-check failed: " + "; ".join(problems), device_s)
+        self.transition(RunState.FAULTED, "pre-check failed: " + "; ".join(problems), device_s)
 
     # -- samples -----------------------------------------------------------
-    def on_sample(self, device_s: float, temp_C: float, q_W_per_m: float) -> None:
+    def on_sample(self, device_s: float, temp_C: float, q_W_per_m: float, heater_on: bool = False) -> None:
         if self.started_device_s is None:
             self.started_device_s = device_s
             self.phase_start_s = device_s
         st = self.state
         if st == RunState.CHECKING:
-            self._enter(RunState.SETTLING, "pre-checks passed", device_s)
+            self.transition(RunState.SETTLING, "pre-checks passed", device_s)
+            self._settle(device_s, temp_C)
         elif st == RunState.SETTLING:
             self._settle(device_s, temp_C)
         elif st == RunState.HEATING:
-            self._heat(device_s, temp_C, q_W_per_m)
+            self._heat(device_s, temp_C, q_W_per_m, heater_on)
         elif st == RunState.RECOVERING and device_s - self.phase_start_s >= self.plan.recover_s:
-            if self.cycle < self.plan.cycles:
-                self.cycle += 1
-                self.baseline.clear()
-                self._enter(RunState.SETTLING, f"cycle {self.cycle} of {self.plan.cycles}: re-equilibrating", device_s)
-            else:
-                self._enter(RunState.DONE, "recovery logged", device_s)
+            self.transition(RunState.DONE, "recovery logged", device_s)
+        self._prev_device_s = device_s
 
     def _settle(self, device_s: float, temp_C: float) -> None:
         if math.isfinite(temp_C):
-            self.baseline.append((device_s, temp_C))
+            self._recent.append((device_s, temp_C))
+        while self._recent and self._recent[0][0] < device_s - self.plan.baseline_s:
+            self._recent.popleft()
         elapsed = device_s - self.phase_start_s
-        wait = self.plan.baseline_s + (self.plan.reequilibrate_s if self.cycle > 1 else 0.0)
+        wait = self.plan.baseline_s + (self.plan.reequilibrate_s if self.reequilibrate else 0.0)
         if elapsed < wait:
             return
-        recent = np.array([b for b in self.baseline if b[0] >= device_s - self.plan.baseline_s])
+        recent = np.array(self._recent)
         drift = drift_K_per_min(recent[:, 0], recent[:, 1]) if len(recent) else math.inf
         if drift <= self.plan.max_drift_K_per_min:
             reason = f"baseline settled: drift {drift:.4f} K/min"
@@ -179,21 +247,19 @@ class RunController:
             reason = f"settling timed out with drift {drift:.4f} K/min; heating anyway (flagged not settled)"
         else:
             return
-        self.baseline_mean_C = float(np.mean(recent[:, 1]))
-        self._begin_heating(device_s, reason, recent)
-
-    def _begin_heating(self, device_s: float, reason: str, recent: np.ndarray) -> None:
-        self.heat_start_s = device_s
-        self.stop_requested = False
-        self.reducer = self.reducer_factory() if self.reducer_factory else None
-        if self.reducer is not None:
-            for t, temp in recent:
-                self.reducer.add(float(t - device_s), float(temp) + 273.15, 0.0)
-        self.actions.heating_started(device_s)
+        self.baseline_mean_C = float(np.mean(recent[:, 1])) if len(recent) else None
+        self.arm_device_s = device_s
+        self.stop_requested = None
         self.actions.arm(self.plan.power_W_per_m)
-        self._enter(RunState.HEATING, reason, device_s)
+        self.transition(RunState.HEATING, reason, device_s)
 
-    def _heat(self, device_s: float, temp_C: float, q_W_per_m: float) -> None:
+    def _heat(self, device_s: float, temp_C: float, q_W_per_m: float, heater_on: bool) -> None:
+        if self.heat_start_s is None:
+            if not (heater_on and q_W_per_m > 0):
+                if math.isfinite(temp_C):
+                    self._recent.append((device_s, temp_C))  # still baseline: no heat has gone in yet
+                return
+            self._heater_came_on(device_s)
         assert self.heat_start_s is not None
         t = device_s - self.heat_start_s
         if self.reducer is not None and math.isfinite(temp_C) and t > 0:
@@ -201,14 +267,66 @@ class RunController:
             if est is not None:
                 self.last_estimate = est.to_dict()
                 self.actions.estimate(self.last_estimate)
-                if est.stable and self.plan.auto_stop:
-                    self.stop_requested = True
+                if est.stable and self.stable_at_s is None:
+                    self.stable_at_s = t
+                    self.actions.verdict(self.last_estimate)
+                    if self.plan.auto_stop:
+                        self.stop_requested = f"estimate stable at t = {t:.0f} s: automatic stop (auto_stop)"
         if self.stop_requested:
-            self._enter(RunState.RECOVERING, "heating stopped early: estimate stabilised", device_s)
+            self.transition(RunState.RECOVERING, self.stop_requested, device_s)
         elif t >= self.plan.heat_s:
-            self._enter(RunState.RECOVERING, f"planned heating time {self.plan.heat_s:.0f} s reached", device_s)
+            self.transition(RunState.RECOVERING, f"planned heating time {self.plan.heat_s:.0f} s reached", device_s)
+
+    def _heater_came_on(self, device_s: float) -> None:
+        """The heater went on between the previous sample and this one; time zero is the previous sample."""
+        prev = self._prev_device_s if self._prev_device_s is not None else device_s
+        self.heat_start_s = prev
+        self.reducer = self.reducer_factory() if self.reducer_factory else None
+        if self.reducer is not None:
+            lo = (self.arm_device_s or prev) - self.plan.baseline_s
+            for t, temp in self._recent:
+                if lo <= t <= prev:
+                    self.reducer.add(float(t - prev), float(temp) + 273.15, 0.0)
+        self._recent.clear()
+        self.actions.heating_started(prev)
 
     def rise_K(self, hottest_heater_C: float) -> float | None:
         if self.baseline_mean_C is None or not math.isfinite(hottest_heater_C):
             return None
         return hottest_heater_C - self.baseline_mean_C
+
+    def heating_elapsed_s(self, device_s: float) -> float:
+        """Heating time by the device clock, from the moment heat was asked for (the safe side)."""
+        if self.state != RunState.HEATING or self.arm_device_s is None:
+            return 0.0
+        return max(device_s - self.arm_device_s, 0.0)
+
+    def snapshot(self) -> dict[str, Any]:
+        return {"id": self.run_id, "state": str(self.state), "plan": self.plan.to_dict(), "cycle": self.cycle,
+                "heat_start_device_s": self.heat_start_s, "estimate": self.last_estimate,
+                "phase_start_device_s": self.phase_start_s, "stable_at_s": self.stable_at_s,
+                "not_settled": self.not_settled}
+
+
+@dataclass
+class CycleSchedule:
+    """Which cycle comes next in a series. A series advances only when a cycle ends ``done``."""
+
+    cycles: int
+    done: int = 0
+    cycle: int = 1  # number of the cycle now running
+
+    def after_run(self, state: RunState) -> int | None:
+        """The number of the next cycle to start now, or None when the series ends."""
+        if state != RunState.DONE:
+            return None
+        self.done += 1
+        if self.done >= self.cycles:
+            return None
+        self.cycle += 1
+        return self.cycle
+
+    def series_state(self, last: RunState) -> str:
+        if last == RunState.DONE and self.done >= self.cycles:
+            return "done"
+        return str(last) if last in FINAL else "running"

@@ -1,6 +1,8 @@
 """``linerigd``: the rig daemon.
 
-Exit codes: 0 after a clean stop, 1 on a fatal error at start-up, 2 on bad arguments or configuration.
+Exit codes: 0 after a clean stop (or a confirmed safe-off), 1 on a fatal error at start-up or a safe-off
+that was not confirmed, 2 on bad arguments or configuration, 70 when an internal error stopped it (the
+heater was turned off first; systemd restarts it in the safe state).
 """
 
 from __future__ import annotations
@@ -11,25 +13,33 @@ import contextlib
 import json
 import logging
 import os
+import random
 import signal
 import subprocess
 import sys
+import time
 from pathlib import Path
 from typing import Any
 
 from daemon import sdnotify
-from daemon.api import ApiServer, Hub, RequestError
+from daemon.api import ApiServer, Handler, Hub, Peer, RequestError
+from daemon.config import DEFAULT_CONFIG_PATH, RigConfig, load_config
 from daemon.controller import RunPlan
+from daemon.errors import ConfigError
 from daemon.paths import default_db_path, default_socket_path
-from daemon.service import DaemonSettings, RigService, load_default_probe
+from daemon.service import DaemonSettings, RigService
 from daemon.store import queries
 from daemon.store.writer import Store
 
 log = logging.getLogger("linerigd")
+EXIT_INTERNAL = 70
+PLAN_KEYS = tuple(RunPlan().to_dict())
 
 
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="linerigd", description="linerig daemon: runs line-source measurements.")
+    p.add_argument("--config", type=Path, default=None,
+                   help=f"rig configuration TOML (default {DEFAULT_CONFIG_PATH}; not read with --simulate)")
     p.add_argument("--simulate", nargs="?", const="", default=None, metavar="MATERIAL",
                    help="start a simulated rig (linerig-sim) and use it; MATERIAL from `linerig-sim --list`")
     p.add_argument("--speed", type=float, default=1.0, help="simulator time-scale factor (with --simulate)")
@@ -37,16 +47,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--db", type=Path, default=None, help="SQLite database file")
     p.add_argument("--frontend", default=None, help="front-end port: a device path or pyserial URL")
     p.add_argument("--probe", type=Path, default=None, help="probe profile TOML")
-    p.add_argument("--rate-hz", type=float, default=1.0, help="sample rate asked of the front end")
+    p.add_argument("--rate-hz", type=float, default=None, help="sample rate asked of the front end")
     p.add_argument("--group", default=None, help="group allowed to use the control socket")
+    p.add_argument("--safe-off", action="store_true",
+                   help="send heater-off to the front end (and output-off to a configured supply), then exit")
+    p.add_argument("--check-config", action="store_true", help="read the configuration, report, and exit")
     p.add_argument("--sim-heater-log", type=Path, default=None, help=argparse.SUPPRESS)
     p.add_argument("--sim-control", type=Path, default=None, help=argparse.SUPPRESS)
     p.add_argument("-v", "--verbose", action="store_true")
     return p
 
 
+# -- the simulator, when asked for ---------------------------------------------
 def start_simulator(args: argparse.Namespace, probe_path: Path | None) -> tuple[subprocess.Popen[str], dict[str, Any]]:
-    cmd = [sys.executable, "-m", "daemon.sim.main", "--speed", str(args.speed)]
+    cmd = [sys.executable, "-m", "daemon.sim.main", "--speed", str(args.speed), "--parent-pid", str(os.getpid())]
     if args.simulate:
         cmd.insert(3, args.simulate)
     if probe_path is not None:
@@ -63,133 +77,268 @@ def start_simulator(args: argparse.Namespace, probe_path: Path | None) -> tuple[
     return proc, json.loads(line)
 
 
-def handlers(svc: RigService, store: Store) -> dict[str, Any]:
-    async def status(req: dict[str, Any]) -> dict[str, Any]:
+# -- requests ------------------------------------------------------------------
+def _int_field(req: dict[str, Any], key: str, lo: int = 1, hi: int = 2**31) -> int:
+    v = req.get(key)
+    if isinstance(v, bool) or not isinstance(v, int) or not lo <= v <= hi:
+        raise RequestError(f"{key} must be a whole number from {lo} to {hi}")
+    return v
+
+
+def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
+    db = store.reader
+
+    async def status(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         return svc.status()
 
-    async def start(req: dict[str, Any]) -> dict[str, Any]:
-        plan_args = {k: req[k] for k in ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "settle_timeout_s",
-                                          "max_drift_K_per_min", "auto_stop", "cycles", "reequilibrate_s",
-                                          "sensor") if k in req}
-        try:
-            plan = RunPlan(**{**svc.s.default_plan.to_dict(), **plan_args})
-        except (TypeError, ValueError) as exc:
-            raise RequestError(f"bad run plan: {exc}") from exc
-        meta = req.get("metadata") or {}
-        if not isinstance(meta, dict):
-            raise RequestError("metadata must be an object")
-        return {"run_id": svc.start_run(plan, meta)}
+    async def ping(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        return {"pong": True, "pid": os.getpid()}
 
-    async def stop_heating(req: dict[str, Any]) -> dict[str, Any]:
-        svc.stop_heating()
+    async def start(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        unknown = sorted(set(req) - {"op", "id", "metadata", "preset", *PLAN_KEYS})
+        if unknown:
+            raise RequestError(f"unknown field {str(unknown[0])[:60]!r}; a start request takes metadata, preset "
+                               f"and plan settings ({', '.join(PLAN_KEYS)})")
+        preset = req.get("preset")
+        if preset is not None and not isinstance(preset, str):
+            raise RequestError("preset must be a name")
+        plan = svc.make_plan(preset, {k: req[k] for k in PLAN_KEYS if k in req})
+        return svc.start_run(plan, req.get("metadata") or {}, peer)
+
+    async def resume(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        return svc.resume_series(_int_field(req, "series_id"), peer)
+
+    async def stop_heating(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        svc.stop_heating(peer)
         return {}
 
-    async def abort(req: dict[str, Any]) -> dict[str, Any]:
-        svc.abort(str(req.get("reason") or "operator abort"))
+    async def abort(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        reason = req.get("reason") or "operator abort"
+        if not isinstance(reason, str):
+            raise RequestError("reason must be text")
+        svc.abort(reason[:500], peer)
         return {}
 
-    async def subscribe(req: dict[str, Any]) -> dict[str, Any]:
+    async def subscribe(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         return {"_subscribe": True, "subscribed": True}
 
-    async def runs(req: dict[str, Any]) -> dict[str, Any]:
-        limit = req.get("limit", 100)
-        if not isinstance(limit, int) or not 0 < limit <= 10000:
-            raise RequestError("limit must be a whole number from 1 to 10000")
-        return {"runs": queries.list_runs(store.db, limit, req.get("site"))}
+    async def runs(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        limit = _int_field({"limit": req.get("limit", 100)}, "limit", 1, 10000)
+        site = req.get("site")
+        if site is not None and not isinstance(site, str):
+            raise RequestError("site must be text")
+        return {"runs": queries.list_runs(db, limit, site)}
 
-    async def run(req: dict[str, Any]) -> dict[str, Any]:
-        rid = req.get("run_id")
-        if not isinstance(rid, int):
-            raise RequestError("run_id must be a whole number")
-        detail = queries.run_detail(store.db, rid)
+    async def run(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        rid = _int_field(req, "run_id")
+        detail = queries.run_detail(db, rid)
         if detail is None:
             raise RequestError(f"no run {rid}")
         return {"run": detail}
 
-    async def probes(req: dict[str, Any]) -> dict[str, Any]:
-        rows = list(store.db.query("SELECT serial, name, kind, added_utc FROM probes ORDER BY serial"))
+    async def series(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        sid = _int_field(req, "series_id")
+        detail = queries.series_detail(db, sid)
+        if detail is None:
+            raise RequestError(f"no series {sid}")
+        return {"series": detail}
+
+    async def probes(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        rows = list(db.query("SELECT serial, name, kind, added_utc FROM probes ORDER BY serial"))
         active = {"serial": svc.s.probe.serial, "name": svc.s.probe.name, "kind": svc.s.probe.kind}
         return {"probes": rows, "active": active}
 
-    async def calibrations(req: dict[str, Any]) -> dict[str, Any]:
+    async def calibrations(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         serial = req.get("probe_serial")
+        if serial is not None and not isinstance(serial, str):
+            raise RequestError("probe_serial must be text")
         sql = "SELECT * FROM calibrations" + (" WHERE probe_serial = ?" if serial else "") + " ORDER BY id DESC"
-        return {"calibrations": list(store.db.query(sql, [serial] if serial else []))}
+        return {"calibrations": list(db.query(sql, [serial] if serial else []))}
 
-    return {"status": status, "start": start, "stop_heating": stop_heating, "abort": abort,
-            "subscribe": subscribe, "runs": runs, "run": run, "probes": probes, "calibrations": calibrations}
+    async def presets(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        return {"default": svc.s.default_plan.to_dict(),
+                "presets": {k: v.to_dict() for k, v in sorted(svc.s.presets.items())}}
+
+    return {"status": status, "ping": ping, "start": start, "resume": resume, "stop_heating": stop_heating,
+            "abort": abort, "subscribe": subscribe, "runs": runs, "run": run, "series": series, "probes": probes,
+            "calibrations": calibrations, "presets": presets}
 
 
-async def serve(args: argparse.Namespace, frontend_url: str, material: str | None) -> int:
+# -- serving -------------------------------------------------------------------
+async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None) -> int:
     from daemon.probe import load_probe_profile
 
-    probe = load_probe_profile(args.probe) if args.probe else load_default_probe()
-    settings = DaemonSettings(frontend_url=frontend_url, probe=probe, rate_hz=args.rate_hz,
-                              simulated_material=material)
-    db_path = args.db or default_db_path()
-    store = Store(db_path)
+    probe = load_probe_profile(args.probe) if args.probe else cfg.probe
+    plan = cfg.plan
+    if plan.sensor not in [s.name for s in probe.sensors]:
+        plan = plan.with_changes({"sensor": probe.sensors[0].name})
+    settings = DaemonSettings(frontend_url=frontend_url, probe=probe, limits=cfg.limits,
+                              rate_hz=args.rate_hz or cfg.devices.rate_hz, default_plan=plan, presets=cfg.presets,
+                              simulated_material=material, probes=cfg.probes, config_source=cfg.source,
+                              frontend_baud=cfg.devices.frontend_baud)
+    db_path = args.db or cfg.daemon.database or default_db_path()
+    store = Store(db_path, cfg.daemon.max_database_MB)
     hub = Hub()
     svc = RigService(settings, store, hub)
-    api = ApiServer(args.socket or default_socket_path(), handlers(svc, store), hub, group=args.group)
-    stop = asyncio.Event()
+    api = ApiServer(args.socket or cfg.daemon.socket or default_socket_path(), handlers(svc, store), hub,
+                    group=args.group or cfg.daemon.group)
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
-        loop.add_signal_handler(sig, stop.set)
-    loop.set_exception_handler(lambda lp, ctx: _unhandled(svc, ctx))
+        loop.add_signal_handler(sig, svc.stop_requested.set)
+    loop.set_exception_handler(lambda lp, ctx: svc.internal_error(str(ctx.get("message")), ctx.get("exception")))
     await svc.start()
     await api.start()
     log.info("linerigd ready: socket %s, database %s, front end %s", api.path, db_path, frontend_url)
-    print(json.dumps({"ready": True, "socket": str(api.path), "db": str(db_path)}), flush=True)
-    sdnotify.notify("READY=1")
-    await stop.wait()
+    print(json.dumps({"ready": True, "socket": str(api.path), "db": str(db_path), "pid": os.getpid()}), flush=True)
+    sdnotify.notify("READY=1\nSTATUS=idle, heater off")
+    await svc.stop_requested.wait()
     sdnotify.notify("STOPPING=1")
-    await svc.stop("daemon stopping")
+    await svc.stop(svc.fatal or "daemon stopping")
     await api.close()
     store.close()
-    return 0
+    return EXIT_INTERNAL if svc.fatal else 0
 
 
-def _unhandled(svc: RigService, ctx: dict[str, Any]) -> None:
-    log.error("unhandled error: %s", ctx.get("message"), exc_info=ctx.get("exception"))
-    svc.trip(f"internal error: {ctx.get('message')}")
+# -- safe-off ------------------------------------------------------------------
+def safe_off(frontend: str | None, supply: str | None, frontend_baud: int = 115200, supply_baud: int = 9600,
+             timeout_s: float = 2.0) -> tuple[bool, list[str]]:
+    """Heater off without the daemon: OFF to the front end until acknowledged, OUTP OFF to a SCPI supply.
+
+    Plain blocking pyserial, no event loop: this runs from systemd's ExecStopPost after any exit, a
+    SIGKILL or a watchdog abort included, and from linerigd itself when it dies of an unexpected error.
+    """
+    import serial
+
+    from daemon.rig import messages as m
+    from daemon.rig.framing import FrameDecoder, encode_frame
+
+    ok = True
+    notes: list[str] = []
+    if frontend:
+        try:
+            port = serial.serial_for_url(frontend, baudrate=frontend_baud, timeout=0.05, write_timeout=1.0)
+        except (serial.SerialException, OSError, ValueError) as exc:
+            ok = False
+            notes.append(f"front end {frontend}: cannot open ({exc}); its lease turns the heater off")
+        else:
+            dec = FrameDecoder()
+            seq0 = random.randrange(1, 60000)  # not the daemon's last sequence number: never taken as a repeat
+            acked = False
+            deadline = time.monotonic() + timeout_s
+            k = 0
+            with contextlib.closing(port):
+                while not acked and time.monotonic() < deadline:
+                    seq = (seq0 + k) % 65536
+                    k += 1
+                    try:
+                        port.write(encode_frame(m.CMD_OFF, seq))
+                    except (serial.SerialException, OSError) as exc:
+                        notes.append(f"front end {frontend}: write failed ({exc})")
+                        break
+                    until = time.monotonic() + 0.25
+                    while not acked and time.monotonic() < until:
+                        with contextlib.suppress(serial.SerialException, OSError):
+                            for frame in dec.feed(port.read(512)):
+                                with contextlib.suppress(m.MessageError):
+                                    msg = m.parse_message(frame)
+                                    acked = isinstance(msg, m.Ack) and msg.cmd_seq == seq and msg.ok
+            if acked:
+                notes.append(f"front end {frontend}: heater off acknowledged")
+            else:
+                ok = False
+                notes.append(f"front end {frontend}: no acknowledgement within {timeout_s:g} s; "
+                             "its lease turns the heater off")
+    if supply:
+        try:
+            with serial.serial_for_url(supply, baudrate=supply_baud, timeout=0.5, write_timeout=1.0) as port:
+                port.reset_input_buffer()
+                port.write(b"OUTP OFF\n")
+                port.write(b"OUTP?\n")
+                answer = port.readline().decode("ascii", "replace").strip()
+            if answer in ("0", "OFF"):
+                notes.append(f"supply {supply}: output off confirmed")
+            else:
+                ok = False
+                notes.append(f"supply {supply}: output state not confirmed (answer {answer!r})")
+        except (serial.SerialException, OSError, ValueError) as exc:
+            ok = False
+            notes.append(f"supply {supply}: cannot reach it ({exc})")
+    if not frontend and not supply:
+        ok = False
+        notes.append("nothing to switch off: give --frontend or a configuration with [devices]")
+    return ok, notes
+
+
+# -- entry point ---------------------------------------------------------------
+def _load_config(args: argparse.Namespace) -> RigConfig:
+    if args.config is not None:
+        return load_config(args.config)
+    if args.simulate is None and DEFAULT_CONFIG_PATH.exists():
+        return load_config(DEFAULT_CONFIG_PATH)
+    return RigConfig()
+
+
+def _describe(cfg: RigConfig) -> str:
+    lines = [f"configuration {cfg.source}: OK",
+             f"  front end: {cfg.devices.frontend or '(none: give --frontend or use --simulate)'} "
+             f"at {cfg.devices.rate_hz:g} Hz",
+             f"  supply: {cfg.devices.supply or '(none)'}",
+             f"  probe: {cfg.probe.name} ({cfg.probe.serial or 'no serial'}); profiles loaded: {len(cfg.probes)}",
+             f"  limits: {json.dumps(cfg.limits.to_dict())}",
+             f"  default plan: {json.dumps(cfg.plan.to_dict())}",
+             f"  presets: {', '.join(sorted(cfg.presets)) or '(none)'}"]
+    return "\n".join(lines)
 
 
 def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     logging.basicConfig(level=logging.DEBUG if args.verbose else logging.INFO, stream=sys.stderr,
                         format="%(asctime)s %(name)s %(levelname)s %(message)s")
+    try:
+        cfg = _load_config(args)
+    except ConfigError as exc:
+        print(f"linerigd: ConfigError: {exc}", file=sys.stderr)
+        return 2
+    if args.check_config:
+        print(_describe(cfg))
+        return 0
+    if args.safe_off:
+        ok, notes = safe_off(args.frontend or cfg.devices.frontend, cfg.devices.supply,
+                             cfg.devices.frontend_baud, cfg.devices.supply_baud)
+        for note in notes:
+            print(f"linerigd --safe-off: {note}", file=sys.stderr)
+        return 0 if ok else 1
     sim: subprocess.Popen[str] | None = None
     material = None
     if args.simulate is not None:
-        from daemon.sim.materials import get_material
+        from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
         try:
-            material = get_material(args.simulate or None or _default_material()).key
+            material = get_material(args.simulate or DEFAULT_MATERIAL_KEY).key
         except KeyError as exc:
             print(f"linerigd: {exc.args[0]}", file=sys.stderr)
             return 2
         sim, info = start_simulator(args, args.probe)
         frontend_url = info["frontend"]
-    elif args.frontend:
-        frontend_url = args.frontend
+    elif args.frontend or cfg.devices.frontend:
+        frontend_url = args.frontend or cfg.devices.frontend
     else:
-        print("linerigd: give --frontend PORT (a device path or pyserial URL) or --simulate", file=sys.stderr)
+        print(f"linerigd: no front end: give --frontend PORT (a device path or pyserial URL), set "
+              f"[devices] frontend in {args.config or DEFAULT_CONFIG_PATH}, or use --simulate", file=sys.stderr)
         return 2
     try:
-        return asyncio.run(serve(args, frontend_url, material))
+        return asyncio.run(serve(args, cfg, frontend_url, material))
+    except BaseException:
+        # the loop itself died: whatever happened, the heater goes off before the process ends
+        safe_off(frontend_url, None if sim else cfg.devices.supply, cfg.devices.frontend_baud, timeout_s=0.5)
+        raise
     finally:
         if sim is not None:
             sim.terminate()
             with contextlib.suppress(subprocess.TimeoutExpired):
                 sim.wait(5)
             if sim.poll() is None:
-                os.kill(sim.pid, signal.SIGKILL)
-
-
-def _default_material() -> str:
-    from daemon.sim.materials import DEFAULT_MATERIAL_KEY
-
-    return DEFAULT_MATERIAL_KEY
+                sim.kill()
 
 
 if __name__ == "__main__":

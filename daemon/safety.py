@@ -9,36 +9,75 @@ check is a plain function that tests can drive sample by sample.
 from __future__ import annotations
 
 import math
+from collections import deque
 from dataclasses import dataclass, fields
+
+FRONT_END_MAX_LEASE_S = 1.0  # hardware/PROTOCOL.md: the front end caps a lease at 1000 ms
+
+LIMIT_HELP: dict[str, str] = {
+    "max_power_W_per_m": "heater power per metre of heater, W/m",
+    "power_tolerance": "fraction by which measured power may exceed the setpoint (0.15 = 15 %)",
+    "max_rise_K": "temperature rise of the hottest heater sensor over its baseline, K",
+    "max_probe_C": "absolute temperature of any probe sensor, °C",
+    "max_heating_s": "heating time of one run, s (device clock or the daemon's own clock, whichever is longer)",
+    "heater_ohm_tolerance": "fraction either side of the probe's nominal heater resistance (0.25 = ±25 %)",
+    "min_supply_V": "supply (battery) voltage at the front end, V",
+    "max_frame_loss": "fraction of frames lost or corrupted among the last frame_window frames",
+    "frame_window": "number of frames the loss fraction is taken over (a whole number)",
+    "stale_after_s": "seconds of silence from the front end before its data count as stale",
+    "lease_s": "heater lease given to the front end, s (at most 1 s; renewed every quarter of it)",
+    "precheck_margin_K": "a run may not start unless every probe sensor is this far below max_probe_C, K",
+    "heater_on_within_s": "seconds the front end has to report the heater on after it was armed",
+}
 
 
 @dataclass(frozen=True)
 class Limits:
     max_power_W_per_m: float = 60.0
-    power_tolerance: float = 0.15  # measured power may exceed the setpoint by this fraction
+    power_tolerance: float = 0.15
     max_rise_K: float = 12.0  # moisture migrates away from a hot needle (ASTM D5334-14 §1.2: add less heat)
     max_probe_C: float = 85.0
     max_heating_s: float = 3600.0
-    heater_ohm_tolerance: float = 0.25  # fraction of the probe's nominal heater resistance
+    heater_ohm_tolerance: float = 0.25
     min_supply_V: float = 10.5  # a 12 V lead-acid or LiFePO4 pack near empty (common practice, no source)
-    max_bad_frames_per_min: int = 20
-    stale_after_s: float = 2.0  # wall-clock silence from the front end before the data count as stale
-    lease_s: float = 1.0  # heater lease given to the front end; it must be renewed well within this
+    max_frame_loss: float = 0.1
+    frame_window: int = 50
+    stale_after_s: float = 2.0
+    lease_s: float = 0.8  # renewed every 0.2 s: four renewals may go missing before the heater goes off
+    precheck_margin_K: float = 5.0
+    heater_on_within_s: float = 2.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
-            value = getattr(self, f.name)
-            if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
-                raise ValueError(f"limit {f.name} must be a positive number, got {value!r}")
-        if self.lease_s > 1.0:
-            raise ValueError("limit lease_s must be at most 1 s: the front end caps its lease there")
+            problem = limit_problem(f.name, getattr(self, f.name))
+            if problem:
+                raise ValueError(f"limit {f.name} must be {problem}, got {getattr(self, f.name)!r}")
+
+    def to_dict(self) -> dict[str, float]:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+def limit_problem(name: str, value: object) -> str | None:
+    """What a value of limit ``name`` must be, when it is not; None when it is fine."""
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        return "a finite number"
+    if name == "frame_window":
+        return None if isinstance(value, int) and value >= 5 else "a whole number ≥ 5"
+    if value <= 0:
+        return "a number > 0"
+    if name in ("power_tolerance", "heater_ohm_tolerance", "max_frame_loss") and value >= 1:
+        return "a fraction between 0 and 1"
+    if name == "lease_s" and value > FRONT_END_MAX_LEASE_S:
+        return f"at most {FRONT_END_MAX_LEASE_S:g} s (the front end caps its lease there)"
+    return None
 
 
 @dataclass(frozen=True)
 class SampleView:
     """What the supervisor needs from one sample."""
 
-    heating: bool  # the daemon believes the heater should be on
+    heating: bool  # the daemon has armed the heater (it should be on)
+    heater_confirmed: bool  # since arming, the front end has reported the heater on at least once
     heater_on: bool  # the front end says the heater is on
     power_set_W_per_m: float
     power_W_per_m: float
@@ -48,6 +87,8 @@ class SampleView:
     faults: tuple[int, ...]
     rise_K: float | None  # rise of the hottest heater sensor over the baseline
     heating_elapsed_s: float
+    run_active: bool = False
+    off_pending: bool = False  # heater-off sent, not yet acknowledged: samples in flight may still show it on
 
 
 def check_sample(s: SampleView, lim: Limits, nominal_ohm: float | None) -> str | None:
@@ -55,9 +96,11 @@ def check_sample(s: SampleView, lim: Limits, nominal_ohm: float | None) -> str |
     finite = [t for t in s.temps_C if math.isfinite(t)]
     if finite and max(finite) > lim.max_probe_C:
         return f"probe temperature {max(finite):.1f} °C is above the limit {lim.max_probe_C:.1f} °C"
-    if s.heater_on and not s.heating:
+    if s.heater_on and not (s.heating or s.off_pending):
         return "the front end reports the heater on when it should be off"
     if s.heater_on:
+        if not (math.isfinite(s.power_W_per_m) and (s.heater_ohm is None or math.isfinite(s.heater_ohm))):
+            return "the front end's heater voltage or current reading is not a number (sensor fault?)"
         cap = min(lim.max_power_W_per_m, s.power_set_W_per_m * (1 + lim.power_tolerance))
         if s.power_W_per_m > cap:
             return f"heater power {s.power_W_per_m:.2f} W/m is above {cap:.2f} W/m"
@@ -66,37 +109,84 @@ def check_sample(s: SampleView, lim: Limits, nominal_ohm: float | None) -> str |
             if not lo <= s.heater_ohm <= hi:
                 what = "open" if s.heater_ohm > hi else "shorted"
                 return f"heater resistance {s.heater_ohm:.2f} Ω is outside {lo:.1f}–{hi:.1f} Ω (heater {what}?)"
-        if s.heater_on and s.heater_ohm is None and s.power_W_per_m <= 0:
+        if s.heater_ohm is None and s.power_W_per_m <= 0:
             return "heater draws no current (heater open?)"
+    if s.heating and s.heater_confirmed and not s.heater_on:
+        return "the front end reports the heater off while heating (lease lost or a front-end limit?)"
     if s.heating and s.rise_K is not None and s.rise_K > lim.max_rise_K:
         return f"temperature rise {s.rise_K:.2f} K is above the limit {lim.max_rise_K:.1f} K"
     if s.heating and s.heating_elapsed_s > lim.max_heating_s:
         return f"heating time {s.heating_elapsed_s:.0f} s is above the limit {lim.max_heating_s:.0f} s"
-    if s.supply_V < lim.min_supply_V:
+    if not s.supply_V >= lim.min_supply_V:  # also catches NaN
         return f"supply voltage {s.supply_V:.2f} V is below {lim.min_supply_V:.2f} V (battery low)"
-    if s.heating and any(f for f in s.faults):
+    if (s.heating or s.run_active) and any(s.faults):
         bad = [i for i, f in enumerate(s.faults) if f]
-        return f"thermocouple channel(s) {bad} report a fault while heating (open thermocouple?)"
+        return f"thermocouple channel(s) {bad} report a fault (open thermocouple?)"
     return None
 
 
-def check_precheck(temps_C: tuple[float, ...], faults: tuple[int, ...], supply_V: float, lim: Limits) -> list[str]:
+def check_precheck(temps_C: tuple[float, ...], faults: tuple[int, ...], supply_V: float, lim: Limits,
+                   heater_on: bool = False) -> list[str]:
     """Everything that must be true before the heater may be armed."""
     problems = []
     for i, (t, f) in enumerate(zip(temps_C, faults, strict=False)):
         if f or not math.isfinite(t):
             problems.append(f"channel {i} reports fault 0x{f:02X}: check the thermocouple connection")
-    if supply_V < lim.min_supply_V:
+    if not supply_V >= lim.min_supply_V:
         problems.append(f"supply {supply_V:.2f} V is below {lim.min_supply_V:.2f} V: charge or change the battery")
     finite = [t for t in temps_C if math.isfinite(t)]
-    if finite and max(finite) > lim.max_probe_C - 5:
-        problems.append(f"probe already at {max(finite):.1f} °C: let it cool first")
+    if finite and max(finite) > lim.max_probe_C - lim.precheck_margin_K:
+        problems.append(f"probe already at {max(finite):.1f} °C (limit {lim.max_probe_C:.1f} °C less "
+                        f"{lim.precheck_margin_K:g} K): let it cool first")
+    if heater_on:
+        problems.append("the front end reports the heater on before the run armed it: check the front end")
     return problems
 
 
-def check_link(bad_frames_last_min: int, silent_for_s: float, lim: Limits) -> str | None:
+def check_plan(power_W_per_m: float, heat_s: float, lim: Limits) -> list[str]:
+    """A run's plan must sit inside the daemon's limits (the third layer)."""
+    problems = []
+    if power_W_per_m > lim.max_power_W_per_m:
+        problems.append(f"power {power_W_per_m:g} W/m is above the limit {lim.max_power_W_per_m:g} W/m")
+    if heat_s > lim.max_heating_s:
+        problems.append(f"heating time {heat_s:g} s is above the limit {lim.max_heating_s:g} s")
+    return problems
+
+
+def check_link(lost_in_window: int, frames_in_window: int, silent_for_s: float, lim: Limits) -> str | None:
     if silent_for_s > lim.stale_after_s:
         return f"no data from the front end for {silent_for_s:.1f} s (cable, power or firmware?)"
-    if bad_frames_last_min > lim.max_bad_frames_per_min:
-        return f"{bad_frames_last_min} corrupted frames in the last minute (electrical noise or a bad cable?)"
+    total = lost_in_window + frames_in_window
+    # one lost frame is tolerated whatever the window; a burst is not
+    if lost_in_window >= 2 and total and lost_in_window / total > lim.max_frame_loss:
+        return (f"{lost_in_window} of the last {total} frames were lost or corrupted "
+                f"(limit {lim.max_frame_loss:.0%}; electrical noise or a bad cable?)")
     return None
+
+
+def check_arming(armed_for_s: float, confirmed: bool, lim: Limits) -> str | None:
+    if not confirmed and armed_for_s > lim.heater_on_within_s:
+        return f"the front end did not report the heater on within {lim.heater_on_within_s:g} s of arming"
+    return None
+
+
+class FrameLossWindow:
+    """Frames lost or corrupted among the last ``size`` good frames, from the decoder's running totals."""
+
+    def __init__(self, size: int) -> None:
+        self._marks: deque[int] = deque(maxlen=size + 1)
+
+    def reset(self) -> None:
+        self._marks.clear()
+
+    def add(self, lost_total: int) -> None:
+        """Call once per good frame with the running count of lost + corrupted frames."""
+        self._marks.append(lost_total)
+
+    @property
+    def lost(self) -> int:
+        return self._marks[-1] - self._marks[0] if len(self._marks) > 1 else 0
+
+    @property
+    def frames(self) -> int:
+        return max(len(self._marks) - 1, 0)

@@ -1,10 +1,11 @@
 """The daemon's running parts and who owns what.
 
-Tasks (all in one asyncio loop):
+Tasks (all in one asyncio loop, each guarded: an unexpected error turns the heater off and stops the daemon
+with a failure code, so systemd restarts it in the safe state):
 - link: opens the front end, reads frames, reconnects after an unplug; never re-arms.
 - lease: renews the heater lease while the heater should be on.
-- watch: stale data and frame-loss limits; pings the systemd watchdog while healthy.
-- flush: commits pending samples at least every FLUSH_INTERVAL_S.
+- watch: stale data, frame loss, arming and heating-time limits; pings the systemd watchdog while healthy.
+- flush: commits pending samples every FLUSH_INTERVAL_S and publishes what is committed.
 The run controller is the only thing that asks for heater power; ``trip`` is the
 one path to the safe state and may be called any number of times.
 """
@@ -16,8 +17,8 @@ import contextlib
 import json
 import logging
 import math
+import os
 import time
-from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -25,20 +26,31 @@ from typing import Any
 import numpy as np
 
 from daemon import sdnotify
-from daemon.api import Hub, RequestError
-from daemon.controller import FINAL, RunController, RunPlan, RunState
+from daemon.api import Hub, Peer, RequestError
+from daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
 from daemon.errors import RigError
 from daemon.probe import ProbeProfile
 from daemon.rig import messages as m
 from daemon.rig.frontend import FrontEnd, FrontEndHandlers
 from daemon.rig.transport import SerialTransport
-from daemon.safety import Limits, SampleView, check_link, check_precheck, check_sample
-from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
+from daemon.safety import (
+    FrameLossWindow,
+    Limits,
+    SampleView,
+    check_arming,
+    check_link,
+    check_plan,
+    check_precheck,
+    check_sample,
+)
+from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError, utc_now
 
 log = logging.getLogger("linerigd")
 
 RUN_METADATA_KEYS = ("site", "location", "depth_m", "sample", "material", "moisture_pct",
                      "dry_density_kg_per_m3", "notes", "operator")
+NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
+WATCH_PERIOD_S = 0.1
 
 
 @dataclass
@@ -48,7 +60,19 @@ class DaemonSettings:
     limits: Limits = field(default_factory=Limits)
     rate_hz: float = 1.0
     default_plan: RunPlan = field(default_factory=RunPlan)
+    presets: dict[str, RunPlan] = field(default_factory=dict)
     simulated_material: str | None = None
+    probes: tuple[ProbeProfile, ...] = ()
+    config_source: str = "<defaults>"
+    frontend_baud: int = 115200
+
+
+@dataclass
+class _Series:
+    series_id: int
+    plan: RunPlan
+    schedule: CycleSchedule
+    metadata: dict[str, Any]
 
 
 class RigService:
@@ -56,24 +80,38 @@ class RigService:
         self.s = settings
         self.store = store
         self.hub = hub
-        self.transport = SerialTransport(settings.frontend_url)
+        self.transport = SerialTransport(settings.frontend_url, settings.frontend_baud)
         self.frontend = FrontEnd(self.transport, FrontEndHandlers(
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
-            on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.warning("bad message: %s", why)))
+            on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why)))
         self.run: RunController | None = None
+        self.series: _Series | None = None
         self.link_up = False
         self.armed_power: float | None = None
+        self._armed_wall: float | None = None
+        self._heater_confirmed = False
+        self._last_power_set = 0.0
+        self._off_pending_until: float | None = None
+        self._arm_task: asyncio.Task[None] | None = None
+        self._last_lease_ack = 0.0
+        self._off_sent = -1.0
+        self._last_arm = -1.0
         self.last_sample: dict[str, Any] | None = None
         self.last_sample_wall = time.monotonic()
         self.device_s = 0.0
+        self.samples_seen = 0
         self._ms_offset = 0
         self._last_ms: int | None = None
         self._n = 0
+        self._loss = FrameLossWindow(settings.limits.frame_window)
         self._tasks: list[asyncio.Task[Any]] = []
-        self._bad_frames: deque[tuple[float, int]] = deque()
-        self._stopping = asyncio.Event()
         self._background: set[asyncio.Task[Any]] = set()
+        self._stopping = False
+        self.stop_requested = asyncio.Event()
+        self.fatal: str | None = None
         self.fault: str | None = None
+        self._fault_recorded: str | None = None
+        self._link_note: str | None = None
         self.run_arrays: dict[str, list[Any]] = {}
 
     # -- life cycle ---------------------------------------------------------
@@ -81,11 +119,18 @@ class RigService:
         closed = self.store.close_interrupted_runs()
         if closed:
             log.warning("closed interrupted runs %s; the heater stays off until an operator starts a run", closed)
-        for coro in (self._link_loop(), self._lease_loop(), self._watch_loop(), self._flush_loop()):
-            self._tasks.append(asyncio.create_task(coro))
+        for p in {*self.s.probes, self.s.probe}:
+            with contextlib.suppress(StoreError):
+                self.store.upsert_probe(p.serial or p.name, p.name, p.kind, json.dumps(_profile_dict(p)))
+        self._event(None, "daemon", None, f"linerigd started (pid {os.getpid()}, config {self.s.config_source}); "
+                                          "heater off, nothing re-armed",
+                    {"closed_runs": closed, "frontend": self.s.frontend_url})
+        for name, coro in (("link", self._link_loop()), ("lease", self._lease_loop()),
+                           ("watch", self._watch_loop()), ("flush", self._flush_loop())):
+            self._tasks.append(asyncio.create_task(self._guard(name, coro), name=f"linerigd-{name}"))
 
     async def stop(self, reason: str = "daemon stopping") -> None:
-        self._stopping.set()
+        self._stopping = True
         self.trip(reason, fault=False)
         with contextlib.suppress(Exception):
             await asyncio.wait_for(self.frontend.heater_off(), 0.5)
@@ -94,44 +139,107 @@ class RigService:
         for t in self._tasks:
             with contextlib.suppress(asyncio.CancelledError, Exception):
                 await t
+        for t in list(self._background):
+            with contextlib.suppress(asyncio.CancelledError, Exception):
+                await asyncio.wait_for(t, 2.0)
+        self._event(None, "daemon", None, f"linerigd stopping: {reason}")
         with contextlib.suppress(StoreError):
             self.store.flush()
         self.transport.close()
 
-    def _spawn(self, coro: Any) -> None:
+    async def _guard(self, name: str, coro: Any) -> None:
+        try:
+            await coro
+        except asyncio.CancelledError:
+            raise
+        except Exception as exc:
+            self.internal_error(f"the {name} task", exc)
+
+    def internal_error(self, where: str, exc: BaseException | None) -> None:
+        """A bug: heater off, record it, and stop with a failure code so systemd restarts us safe."""
+        log.error("internal error in %s", where, exc_info=exc)
+        reason = f"internal error in {where}: {type(exc).__name__ if exc else 'error'}: {exc}"
+        self.trip(reason)
+        if self.fatal is None:
+            self.fatal = reason
+            self.stop_requested.set()
+
+    def _spawn(self, coro: Any) -> asyncio.Task[Any]:
         task = asyncio.create_task(coro)
         self._background.add(task)
         task.add_done_callback(self._background.discard)
+        return task
 
     # -- the safe state -----------------------------------------------------
     def trip(self, reason: str, fault: bool = True) -> None:
         """Heater off first, then record why. Safe to call twice."""
-        was_armed = self.armed_power is not None
-        self.armed_power = None
-        self._spawn(self._heater_off())
+        self._disarm()
         run = self.run
+        recorded = False
         if run is not None and run.active:
-            if fault:
-                run.fault(reason, self.device_s)
-            else:
-                run.abort(reason, self.device_s)
-        elif fault and (was_armed or self.link_up):
-            self._event(None, "safety", None, reason)
+            recorded = True
+            try:
+                if fault:
+                    run.fault(reason, self.device_s)
+                else:
+                    run.abort(reason, self.device_s)
+            except Exception:  # recording failed: the heater is already off, the run must still end
+                log.exception("run %s: recording the trip failed", run.run_id)
+                run.state = RunState.FAULTED if fault else RunState.ABORTED
         if fault:
             self.fault = reason
-            self.hub.publish({"event": "fault", "reason": reason})
-            log.error("safety trip: %s", reason)
+            if reason != self._fault_recorded:
+                self._fault_recorded = reason
+                log.error("safety trip: %s", reason)
+                self.hub.publish({"event": "fault", "reason": reason, "run_id": run.run_id if recorded and run
+                                  else None})
+                if not recorded:
+                    self._event(None, "safety", None, reason)
+
+    def _disarm(self) -> None:
+        self.armed_power = None
+        self._armed_wall = None
+        self._heater_confirmed = False
+        task = self._arm_task
+        if task is not None and not task.done() and task is not asyncio.current_task():
+            task.cancel()  # a POWER command still retrying must not re-arm after the OFF
+        self._arm_task = None
+        now = time.monotonic()
+        self._off_pending_until = now + self.s.limits.lease_s + 1.0
+        if self._off_sent > self._last_arm and now - self._off_sent < 0.05:
+            return  # the same trip reaching here twice (safety, then the run's own transition)
+        self._off_sent = now
+        with contextlib.suppress(RuntimeError):  # no running loop (at shutdown): the lease is the backstop
+            self._spawn(self._heater_off())
 
     async def _heater_off(self) -> None:
+        await self.frontend.heater_off_best_effort()  # at once, not queued behind a command awaiting its ack
         try:
             await self.frontend.heater_off()
-        except (RigError, OSError) as exc:
+            if self.armed_power is None:
+                self._off_pending_until = None
+        except (RigError, OSError, TimeoutError) as exc:
             log.warning("heater off not acknowledged (%s); the front end's lease will turn it off", exc)
-            await self.frontend.heater_off_best_effort()
+
+    def _arm(self, power_W_per_m: float) -> None:
+        self.armed_power = power_W_per_m
+        self._last_power_set = power_W_per_m
+        self._armed_wall = self._last_arm = time.monotonic()
+        self._last_lease_ack = self._armed_wall
+        self._heater_confirmed = False
+        self._arm_task = self._spawn(self._send_arm(power_W_per_m))
+
+    async def _send_arm(self, power: float) -> None:
+        try:
+            await self.frontend.set_power(power, self.s.limits.lease_s)
+            self._last_lease_ack = time.monotonic()
+        except (RigError, TimeoutError, OSError) as exc:
+            if self.armed_power is not None:
+                self.trip(f"front end refused to arm the heater: {exc}")
 
     # -- link ---------------------------------------------------------------
     async def _link_loop(self) -> None:
-        while not self._stopping.is_set():
+        while True:
             try:
                 self.transport.open()
             except RigError as exc:
@@ -142,44 +250,55 @@ class RigService:
             try:
                 await self._bring_up()
             except (RigError, TimeoutError) as exc:
-                log.warning("front end did not come up: %s", exc)
+                if str(exc) != self._link_note:
+                    log.warning("front end did not come up: %s", exc)
+                    self._link_note = str(exc)
                 reader.cancel()
+                with contextlib.suppress(asyncio.CancelledError, Exception):
+                    await reader
                 self.transport.close()
                 await asyncio.sleep(0.5)
                 continue
-            self._note_link(True, f"front end {self.frontend.identity.serial if self.frontend.identity else '?'} "
-                                  "connected")
+            ident = self.frontend.identity
+            self._note_link(True, f"front end {ident.serial if ident else '?'} connected "
+                                  f"(boot id {ident.boot_id if ident else '?'})")
             await reader
             self._note_link(False, "front end link lost")
             await asyncio.sleep(0.2)
 
     async def _bring_up(self) -> None:
-        await self.frontend.heater_off()  # whatever state it was left in, it starts off
+        # whatever state it was left in, it starts off; samples already in flight may still show it on
+        self._off_pending_until = time.monotonic() + self.s.limits.lease_s + 1.0
+        await self.frontend.heater_off()
         await self.frontend.identify()
         await self.frontend.configure(self.s.rate_hz, self.s.probe.thermocouple or "T", "T",
                                       self.s.probe.length_m or 0.1)
         self.last_sample_wall = time.monotonic()
+        self._loss.reset()
 
     def _note_link(self, up: bool, why: str) -> None:
         if up == self.link_up:
             return
         self.link_up = up
+        self._link_note = None
         self.hub.publish({"event": "link", "up": up, "reason": why})
-        run_id = self.run.run_id if self.run and self.run.active else None
-        self._event(run_id, "link", None, why)
-        if not up and self.run is not None and self.run.heating:
-            self.trip(f"front end lost while heating: {why}")
+        run = self.run
+        self._event(run.run_id if run and run.active else None, "link", None, why)
+        if not up and run is not None and run.active:
+            self.trip(f"front end lost during the run: {why}")
 
     def _on_link_lost(self, why: str) -> None:
         log.warning("link lost: %s", why)
 
     def _on_boot(self, boot: m.Boot) -> None:
         self._last_ms = None
+        self._loss.reset()
         why = f"front end restarted (boot id {boot.boot_id}, cause {boot.reset_cause})"
-        if self.run is not None and self.run.heating:
+        run = self.run
+        if (run is not None and run.active) or self.armed_power is not None:
             self.trip(why)
         else:
-            self._event(self.run.run_id if self.run and self.run.active else None, "link", None, why)
+            self._event(None, "link", None, why)
         if self.link_up:
             self._spawn(self._reconfigure())
 
@@ -191,7 +310,7 @@ class RigService:
 
     def _on_fault(self, fault: m.Fault) -> None:
         why = f"front end reports {fault.code}: {fault.detail}"
-        if self.run is not None and self.run.active and (self.run.heating or fault.code != "LEASE"):
+        if (self.run is not None and self.run.active) or self.armed_power is not None:
             self.trip(why)
         else:
             self._event(None, "device", None, why)
@@ -204,62 +323,71 @@ class RigService:
         return (ms + self._ms_offset) / 1000.0
 
     def _on_sample(self, s: m.Sample) -> None:
+        try:
+            self._sample(s)
+        except Exception as exc:
+            self.internal_error("the sample path", exc)
+
+    def _sample(self, s: m.Sample) -> None:
         now = time.monotonic()
         self.last_sample_wall = now
+        self.samples_seen += 1
+        c = self.frontend.decoder.counters
+        self._loss.add(c.bad_frames + c.lost_frames)
         self.device_s = self._device_seconds(s.device_ms)
-        names = [x.name for x in self.s.probe.sensors]
-        temps = tuple(float("nan") if c.fault else c.value for c in s.channels)
-        faults = tuple(c.fault for c in s.channels)
-        length = self.s.probe.length_m or 0.1
+        probe = self.s.probe
+        temps = tuple(float("nan") if ch.fault else ch.value for ch in s.channels)
+        faults = tuple(ch.fault for ch in s.channels)
+        length = probe.length_m or 0.1
         power = s.heater_V * s.heater_A / length if s.heater_on else 0.0
         ohm = s.heater_V / s.heater_A if s.heater_on and s.heater_A > 1e-3 else None
+        if self.armed_power is not None and s.heater_on and not self._heater_confirmed:
+            self._heater_confirmed = True
         run = self.run
         active = run is not None and run.active
-        heater_temps = [temps[i] for i, x in enumerate(self.s.probe.sensors)
+        temps_json = [t if math.isfinite(t) else None for t in temps]
+        self.last_sample = {"device_s": self.device_s, "temps_C": temps_json, "faults": list(faults),
+                            "sensors": [x.name for x in probe.sensors], "q_W_per_m": power,
+                            "heater_on": s.heater_on, "heater_V": s.heater_V, "heater_A": s.heater_A,
+                            "supply_V": s.supply_V, "cj_C": s.cj_C}
+        if active and run is not None:  # stored first: the sample that trips a limit is the evidence
+            self._n += 1
+            self.store.add_sample((run.run_id, self._n, s.seq, s.device_ms, self.device_s, str(run.state),
+                                   int(s.heater_on), s.heater_V, s.heater_A, s.supply_V, power, s.cj_C,
+                                   json.dumps(temps_json), json.dumps(list(faults))))
+            arr = self.run_arrays
+            arr["device_s"].append(self.device_s)
+            arr["q"].append(power)
+            arr["temps"].append(temps)
+        # safety before anything else acts on the sample
+        heater_temps = [temps[i] for i, x in enumerate(probe.sensors)
                         if i < len(temps) and x.is_on_heater and math.isfinite(temps[i])]
-        rise = run.rise_K(max(heater_temps)) if (run is not None and heater_temps) else None
-        elapsed = self.device_s - run.heat_start_s if run is not None and run.heat_start_s is not None else 0.0
-        view = SampleView(heating=self.armed_power is not None, heater_on=s.heater_on,
-                          power_set_W_per_m=self.armed_power or 0.0, power_W_per_m=power, heater_ohm=ohm,
-                          supply_V=s.supply_V, temps_C=temps, faults=faults, rise_K=rise,
-                          heating_elapsed_s=elapsed if run is not None and run.heating else 0.0)
-        self.last_sample = {"device_s": self.device_s, "temps_C": [None if math.isnan(t) else t for t in temps],
-                            "faults": list(faults), "sensors": names, "q_W_per_m": power, "heater_on": s.heater_on,
-                            "heater_V": s.heater_V, "heater_A": s.heater_A, "supply_V": s.supply_V, "cj_C": s.cj_C}
-        if active and run is not None and run.state == RunState.CHECKING:
-            problems = check_precheck(temps, faults, s.supply_V, self.s.limits)
-            if problems:
-                run.precheck_failed(problems, self.device_s)
-                return
-        reason = check_sample(view, self.s.limits, self.s.probe.heater_resistance_ohm)
-        if reason and (active or s.heater_on):
+        rise = run.rise_K(max(heater_temps)) if (run is not None and run.heating and heater_temps) else None
+        view = SampleView(heating=self.armed_power is not None, heater_confirmed=self._heater_confirmed,
+                          heater_on=s.heater_on,
+                          power_set_W_per_m=self.armed_power if self.armed_power is not None else self._last_power_set,
+                          power_W_per_m=power, heater_ohm=ohm, supply_V=s.supply_V, temps_C=temps, faults=faults,
+                          rise_K=rise, heating_elapsed_s=run.heating_elapsed_s(self.device_s) if run else 0.0,
+                          run_active=active and run is not None and run.state != RunState.CHECKING,
+                          off_pending=self._off_pending_until is not None)
+        reason = check_sample(view, self.s.limits, probe.heater_resistance_ohm)
+        if reason and (active or s.heater_on or self.armed_power is not None):
             self.trip(reason)
-        run = self.run
-        if run is None or (not run.active and run.state != RunState.FAULTED):
-            self._publish_sample(None, None)
-            return
-        if not run.active:
-            self._publish_sample(None, None)
-            return
-        phase = str(run.state)
-        self._n += 1
-        self.store.add_sample((run.run_id, self._n, s.seq, s.device_ms, self.device_s, phase, int(s.heater_on),
-                               s.heater_V, s.heater_A, s.supply_V, power, s.cj_C,
-                               json.dumps(self.last_sample["temps_C"]), json.dumps(list(faults))))
-        arr = self.run_arrays
-        arr["device_s"].append(self.device_s)
-        arr["q"].append(power)
-        arr["temps"].append(temps)
-        primary = run.sensor_index
-        run.on_sample(self.device_s, temps[primary] if primary < len(temps) else float("nan"), power)
-        self._publish_sample(run.run_id, phase)
-
-    def _publish_sample(self, run_id: int | None, phase: str | None) -> None:
-        if self.hub.subscribers and self.last_sample is not None:
+        if active and run is not None and run.active:
+            if run.state == RunState.CHECKING:
+                problems = check_precheck(temps, faults, s.supply_V, self.s.limits, s.heater_on)
+                if problems:
+                    run.precheck_failed(problems, self.device_s)
+            if run.active:
+                primary = run.sensor_index
+                run.on_sample(self.device_s, temps[primary] if primary < len(temps) else float("nan"), power,
+                              s.heater_on)
+        if self.hub.subscribers:
             t = None
-            if self.run is not None and self.run.heat_start_s is not None and run_id is not None:
-                t = self.device_s - self.run.heat_start_s
-            self.hub.publish({"event": "sample", "run_id": run_id, "phase": phase, "t_s": t, **self.last_sample})
+            if active and run is not None and run.heat_start_s is not None:
+                t = self.device_s - run.heat_start_s
+            self.hub.publish({"event": "sample", "run_id": run.run_id if active and run else None,
+                              "phase": str(run.state) if active and run else None, "t_s": t, **self.last_sample})
 
     # -- periodic tasks -----------------------------------------------------
     async def _lease_loop(self) -> None:
@@ -268,28 +396,44 @@ class RigService:
             await asyncio.sleep(period)
             if self.armed_power is None or not self.link_up:
                 continue
-            try:
-                await self.frontend.renew_lease(self.s.limits.lease_s)
-            except (RigError, TimeoutError) as exc:
-                if self.armed_power is not None:
-                    self.trip(f"front end stopped acknowledging lease renewals: {exc}")
+            with contextlib.suppress(RigError, TimeoutError, OSError):
+                # never wait longer than one period: a lost ack must not delay the next renewal
+                await asyncio.wait_for(self.frontend.renew_lease(self.s.limits.lease_s), period)
+                self._last_lease_ack = time.monotonic()
+
+    def _check_timers(self, now: float) -> str | None:
+        lim = self.s.limits
+        if self.link_up and (self.armed_power is not None or (self.run is not None and self.run.active)):
+            reason = check_link(self._loss.lost, self._loss.frames, now - self.last_sample_wall, lim)
+            if reason:
+                return reason
+        if self.armed_power is not None and self._armed_wall is not None:
+            reason = check_arming(now - self._armed_wall, self._heater_confirmed, lim)
+            if reason:
+                return reason
+            if now - self._last_lease_ack > lim.lease_s:
+                return f"the front end acknowledged no lease renewal for {now - self._last_lease_ack:.1f} s"
+            if now - self._armed_wall > lim.max_heating_s:
+                return (f"heating time {now - self._armed_wall:.0f} s by the daemon's clock is above the limit "
+                        f"{lim.max_heating_s:.0f} s (is the front end's clock running?)")
+        return None
+
+    def _healthy(self) -> bool:
+        return all(not t.done() for t in self._tasks)
 
     async def _watch_loop(self) -> None:
         wd = sdnotify.watchdog_interval_s()
         last_ping = 0.0
         while True:
-            await asyncio.sleep(0.1)
+            await asyncio.sleep(WATCH_PERIOD_S)
             now = time.monotonic()
-            counters = self.frontend.decoder.counters
-            self._bad_frames.append((now, counters.bad_frames))
-            while self._bad_frames and self._bad_frames[0][0] < now - 60:
-                self._bad_frames.popleft()
-            bad = counters.bad_frames - self._bad_frames[0][1]
-            silent = now - self.last_sample_wall if self.link_up or self.armed_power is not None else 0.0
-            reason = check_link(bad, silent, self.s.limits)
-            if reason and (self.armed_power is not None or (self.run is not None and self.run.heating)):
+            reason = self._check_timers(now)
+            if reason:
                 self.trip(reason)
-            if wd is not None and now - last_ping >= wd and self.store.failed is None:
+            if self._off_pending_until is not None and now > self._off_pending_until:
+                self._off_pending_until = None
+            # the ping says: this loop runs and every task is alive; a wedged loop or a dead task stops it
+            if wd is not None and now - last_ping >= wd and self._healthy():
                 sdnotify.notify("WATCHDOG=1")
                 last_ping = now
 
@@ -297,111 +441,215 @@ class RigService:
         while True:
             await asyncio.sleep(FLUSH_INTERVAL_S)
             try:
-                self.store.flush()
+                if self.store.flush():
+                    self.hub.publish({"event": "committed", **(self.store.last_committed or {})})
             except StoreError as exc:
-                self.trip(str(exc))
+                self._store_failed(str(exc))
+
+    def _store_failed(self, why: str) -> None:
+        reason = (f"{why}: the heater is off and the run stops; free disk space or fix the database, "
+                  "then restart linerigd")
+        if self.fault != reason:
+            self.trip(reason)
 
     def _event(self, run_id: int | None, kind: str, state: str | None, reason: str,
                data: dict[str, Any] | None = None) -> None:
         try:
             self.store.event(run_id, kind, state, reason, self.device_s, data)
         except StoreError as exc:
-            if self.armed_power is not None:
-                self.armed_power = None
-                self._spawn(self._heater_off())
-            self.fault = str(exc)
-            log.error("%s (event was: %s)", exc, reason)
+            log.error("event not recorded (%s): %s", exc, reason)
+            self._store_failed(str(exc))
 
     # -- requests -----------------------------------------------------------
     def status(self) -> dict[str, Any]:
         run = self.run
+        series = self.series
         return {
             "link_up": self.link_up,
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
             "heater_armed": self.armed_power is not None,
+            "heater_on": bool(self.last_sample and self.last_sample["heater_on"]),
             "fault": self.fault,
             "store_failed": self.store.failed,
+            "committed": self.store.last_committed,
             "device_s": self.device_s,
             "last_sample": self.last_sample,
             "probe": {"name": self.s.probe.name, "serial": self.s.probe.serial,
                       "sensors": [x.name for x in self.s.probe.sensors]},
-            "limits": self.s.limits.__dict__,
+            "limits": self.s.limits.to_dict(),
             "simulated_material": self.s.simulated_material,
-            "run": None if run is None else {
-                "id": run.run_id, "state": str(run.state), "plan": run.plan.to_dict(), "cycle": run.cycle,
-                "heat_start_device_s": run.heat_start_s, "estimate": run.last_estimate,
-                "phase_start_device_s": run.phase_start_s},
+            "config": self.s.config_source,
+            "presets": sorted(self.s.presets),
+            "run": None if run is None else run.snapshot(),
+            "series": None if series is None else {
+                "id": series.series_id, "cycles": series.schedule.cycles, "cycle": series.schedule.cycle,
+                "done": series.schedule.done},
             "counters": self.frontend.decoder.counters.__dict__,
+            "frame_loss": {"lost": self._loss.lost, "frames": self._loss.frames},
+            "samples_seen": self.samples_seen,
         }
 
-    def start_run(self, plan: RunPlan, metadata: dict[str, Any]) -> int:
+    def make_plan(self, preset: str | None, changes: dict[str, Any]) -> RunPlan:
+        if preset is not None:
+            if preset not in self.s.presets:
+                known = ", ".join(sorted(self.s.presets)) or "none configured"
+                raise RequestError(f"no preset {preset!r} (presets: {known})")
+            base = self.s.presets[preset]
+        else:
+            base = self.s.default_plan
+        try:
+            return base.with_changes(changes)
+        except PlanError as exc:
+            raise RequestError(f"bad run plan: {exc}") from exc
+
+    def _check_can_start(self, plan: RunPlan) -> list[str]:
         if self.run is not None and self.run.active:
             raise RequestError(f"run {self.run.run_id} is still {self.run.state}; stop or abort it first")
         if not self.link_up:
             raise RequestError("the front end is not connected; check the cable and the port")
         if self.store.failed:
             raise RequestError(f"the database cannot take writes: {self.store.failed}")
-        unknown = sorted(set(metadata) - set(RUN_METADATA_KEYS))
-        if unknown:
-            raise RequestError(f"unknown metadata key {unknown[0]!r}; known: {', '.join(RUN_METADATA_KEYS)}")
+        problems = check_plan(plan.power_W_per_m, plan.heat_s, self.s.limits)
+        if problems:
+            raise RequestError("; ".join(problems))
         names = [x.name for x in self.s.probe.sensors]
         if plan.sensor not in names:
             raise RequestError(f"sensor {plan.sensor!r} is not on probe {self.s.probe.name!r} ({', '.join(names)})")
-        if plan.power_W_per_m > self.s.limits.max_power_W_per_m:
-            raise RequestError(f"power {plan.power_W_per_m} W/m is above the limit "
-                               f"{self.s.limits.max_power_W_per_m} W/m")
-        fields = {k: metadata.get(k) for k in RUN_METADATA_KEYS if metadata.get(k) is not None}
+        return names
+
+    @staticmethod
+    def check_metadata(metadata: Any) -> dict[str, Any]:
+        if not isinstance(metadata, dict):
+            raise RequestError("metadata must be an object")
+        unknown = sorted(set(metadata) - set(RUN_METADATA_KEYS))
+        if unknown:
+            raise RequestError(f"unknown metadata key {str(unknown[0])[:60]!r}; known: {', '.join(RUN_METADATA_KEYS)}")
+        out: dict[str, Any] = {}
+        for k, v in metadata.items():
+            if v is None:
+                continue
+            if k in NUMERIC_METADATA:
+                if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+                    raise RequestError(f"metadata {k} must be a number, got {str(v)[:60]!r}")
+            elif not isinstance(v, str) or len(v) > 4000:
+                raise RequestError(f"metadata {k} must be text of at most 4000 characters")
+            out[k] = v
+        return out
+
+    def start_run(self, plan: RunPlan, metadata: dict[str, Any], peer: Peer | None = None) -> dict[str, Any]:
+        self._check_can_start(plan)
+        fields = self.check_metadata(metadata)
         if self.s.simulated_material and "material" not in fields:
             fields["material"] = self.s.simulated_material
+        series_id = None
+        if plan.cycles > 1:
+            try:
+                series_id = self.store.create_series({
+                    "kind": "cycles", "name": fields.get("sample"), "site": fields.get("site"),
+                    "cycles": plan.cycles, "plan_json": json.dumps(plan.to_dict()),
+                    "probe_serial": self.s.probe.serial, "data": json.dumps({"metadata": fields})})
+            except StoreError as exc:
+                raise RequestError(str(exc)) from exc
+            self.series = _Series(series_id, plan, CycleSchedule(plan.cycles), fields)
+        else:
+            self.series = None
+        self.fault = None
+        self._fault_recorded = None
+        run_id = self._open_run(plan, fields, cycle=1, reequilibrate=False, peer=peer, why="run requested")
+        return {"run_id": run_id, "series_id": series_id}
+
+    def resume_series(self, series_id: int, peer: Peer | None = None) -> dict[str, Any]:
+        from daemon.store.queries import series_detail
+
+        detail = series_detail(self.store.reader, series_id)
+        if detail is None:
+            raise RequestError(f"no series {series_id}")
+        if detail["state"] not in ("interrupted", "faulted", "aborted"):
+            raise RequestError(f"series {series_id} is {detail['state']}; only an interrupted, faulted or aborted "
+                               "series can be resumed")
+        plan = self.make_plan(None, {k: v for k, v in detail["plan"].items() if k in RunPlan().to_dict()})
+        self._check_can_start(plan)
+        done = detail["cycles_done"]
+        if done >= plan.cycles:
+            raise RequestError(f"series {series_id} has all {plan.cycles} cycles done")
+        meta = json.loads(detail.get("data") or "{}").get("metadata", {})
+        next_cycle = max([r["cycle"] or 0 for r in detail["runs"]] + [0]) + 1
         try:
-            run_id = self.store.create_run({
-                **fields, "kind": "single", "probe_serial": self.s.probe.serial,
-                "sensor_names": json.dumps(names), "heater_length_m": self.s.probe.length_m,
-                "plan_json": json.dumps(plan.to_dict()),
-                "frontend_boot_id": self.frontend.identity.boot_id if self.frontend.identity else None})
+            self.store.update_series(series_id, {"state": "running", "ended_utc": None, "end_reason": None})
         except StoreError as exc:
             raise RequestError(str(exc)) from exc
+        self.series = _Series(series_id, plan, CycleSchedule(plan.cycles, done=done, cycle=next_cycle), meta)
         self.fault = None
+        self._fault_recorded = None
+        run_id = self._open_run(plan, meta, cycle=next_cycle, reequilibrate=True, peer=peer,
+                                why=f"series {series_id} resumed at a cycle boundary ({done} of {plan.cycles} "
+                                    "cycles done)")
+        return {"run_id": run_id, "series_id": series_id, "cycle": next_cycle}
+
+    def _open_run(self, plan: RunPlan, fields: dict[str, Any], cycle: int, reequilibrate: bool,
+                  peer: Peer | None, why: str) -> int:
+        names = [x.name for x in self.s.probe.sensors]
+        series = self.series
+        try:
+            run_id = self.store.create_run({
+                **fields, "kind": "cycle" if series else "single", "probe_serial": self.s.probe.serial,
+                "sensor_names": json.dumps(names), "heater_length_m": self.s.probe.length_m,
+                "plan_json": json.dumps(plan.to_dict()), "series_id": series.series_id if series else None,
+                "cycle": cycle,
+                "frontend_boot_id": self.frontend.identity.boot_id if self.frontend.identity else None})
+        except StoreError as exc:
+            self._store_failed(str(exc))
+            raise RequestError(str(exc)) from exc
+        self._n = 0
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=self._reducer_factory(plan.sensor))
-        self._event(run_id, "state", "checking", "run requested", {"plan": plan.to_dict(), "metadata": fields})
-        self.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": "run requested"})
+                                 reducer_factory=self._reducer_factory(plan.sensor), cycle=cycle,
+                                 reequilibrate=reequilibrate)
+        data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
+                "series_id": series.series_id if series else None, "cycle": cycle}
+        self._event(run_id, "state", "checking", why, data)
+        self.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
+                          "device_s": self.device_s, **self._cycle_fields(cycle)})
+        sdnotify.notify(f"STATUS=run {run_id} checking")
         return run_id
+
+    def _cycle_fields(self, cycle: int) -> dict[str, Any]:
+        s = self.series
+        return {"series_id": s.series_id if s else None, "cycle": cycle, "cycles": s.schedule.cycles if s else 1}
 
     def _reducer_factory(self, sensor: str) -> Any:
         from daemon.reduction.live import LiveReducer
 
         probe = self.s.probe
-        return lambda: LiveReducer(probe=probe, sensor=sensor)
+        lim = self.s.limits.max_rise_K
+        return lambda: LiveReducer(probe=probe, sensor=sensor, max_rise_K=lim)
 
-    def stop_heating(self) -> None:
+    def stop_heating(self, peer: Peer | None = None) -> None:
         if self.run is None or not self.run.stop_heating():
             raise RequestError("no run is heating")
-        self._event(self.run.run_id, "operator", None, "operator asked to stop heating")
+        self._event(self.run.run_id, "operator", None, self.run.stop_requested or "stop heating",
+                    {"peer": peer.to_dict() if peer else None})
 
-    def abort(self, reason: str = "operator abort") -> None:
+    def abort(self, reason: str = "operator abort", peer: Peer | None = None) -> None:
         if self.run is None or not self.run.active:
             raise RequestError("no run is active")
+        self._event(self.run.run_id, "operator", None, f"abort requested: {reason}",
+                    {"peer": peer.to_dict() if peer else None})
         self.trip(reason, fault=False)
 
-    async def final_reduction(self, run_id: int) -> dict[str, Any]:
-        run = self.run
-        arr = self.run_arrays
-        if run is None or run.heat_start_s is None or len(arr.get("device_s", [])) < 10:
+    async def final_reduction(self, run: RunController, arr: dict[str, list[Any]]) -> dict[str, Any]:
+        if run.heat_start_s is None or len(arr.get("device_s", [])) < 10:
             return {}
-        from daemon.reduction import reduce_run
+        from daemon.reduction.api import reduce_run
         from daemon.reduction.data import RunData
 
         t = np.asarray(arr["device_s"]) - run.heat_start_s
         temps = np.asarray(arr["temps"], dtype=float)
         names = [x.name for x in self.s.probe.sensors]
-        data = RunData(time_s=t, q_W_per_m=np.asarray(arr["q"]),
-                       temps_C={n: temps[:, i] for i, n in enumerate(names)})
-        usable = {n: v for n, v in data.temps_C.items() if np.all(np.isfinite(v))}
+        usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
         if not usable:
             return {}
-        data = RunData(time_s=t, q_W_per_m=data.q_W_per_m, temps_C=usable)
+        data = RunData(time_s=t, q_W_per_m=np.asarray(arr["q"]), temps_C=usable)
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing.
         red = await asyncio.to_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)
         out = {}
@@ -409,9 +657,52 @@ class RigService:
             j = res.to_json()
             if run.not_settled and "not_settled" not in j["flags"]:
                 j["flags"] = [*j["flags"], "not_settled"]
-            self.store.add_result(run_id, name, j, source="final")
+            self.store.add_result(run.run_id, name, j, source="final")
             out[name] = j
         return out
+
+    def _run_ended(self, run: RunController, state: RunState) -> None:
+        """Called as a run reaches a final state: start the next cycle at once, reduce this one."""
+        arr = self.run_arrays
+        series = self.series
+        next_cycle = series.schedule.after_run(state) if series is not None else None
+        if series is not None and next_cycle is None:
+            with contextlib.suppress(StoreError):
+                self.store.update_series(series.series_id, {
+                    "state": series.schedule.series_state(state), "ended_utc": utc_now(),
+                    "end_reason": f"cycle {run.cycle} {state}"})
+        self._spawn(self._finish(run, state, arr, series, last=next_cycle is None))
+        if series is not None and next_cycle is not None and not self._stopping:
+            try:
+                self._open_run(series.plan, series.metadata, cycle=next_cycle, reequilibrate=True, peer=None,
+                               why=f"cycle {next_cycle} of {series.plan.cycles}: re-equilibrating")
+            except RequestError as exc:
+                log.error("next cycle not started: %s", exc)
+        elif series is None or next_cycle is None:
+            sdnotify.notify(f"STATUS=idle (run {run.run_id} {state})")
+
+    async def _finish(self, run: RunController, state: RunState, arr: dict[str, list[Any]],
+                      series: _Series | None, last: bool) -> None:
+        results: dict[str, Any] = {}
+        try:
+            results = await self.final_reduction(run, arr)
+        except StoreError as exc:
+            self._store_failed(str(exc))
+        except Exception as exc:  # a failed reduction must not lose the run
+            log.warning("final reduction of run %s failed: %s", run.run_id, exc)
+            self._event(run.run_id, "reduction", None, f"final reduction failed: {exc}")
+        try:
+            self.store.flush()
+        except StoreError as exc:
+            self._store_failed(str(exc))
+        if self.run is None or not self.run.active:
+            self.store.checkpoint()
+        extra = self._cycle_fields(run.cycle) if series else {"series_id": None, "cycle": run.cycle, "cycles": 1}
+        self.hub.publish({"event": "run_finished", "run_id": run.run_id, "state": str(state), "results": results,
+                          **extra})
+        if series is not None and last:
+            self.hub.publish({"event": "series_finished", "series_id": series.series_id,
+                              "state": series.schedule.series_state(state), "cycles_done": series.schedule.done})
 
 
 class _Actions:
@@ -422,60 +713,66 @@ class _Actions:
         self.run_id = run_id
 
     def arm(self, power_W_per_m: float) -> None:
-        svc = self.svc
-        svc.armed_power = power_W_per_m
-
-        async def _arm() -> None:
-            try:
-                await svc.frontend.set_power(power_W_per_m, svc.s.limits.lease_s)
-            except (RigError, TimeoutError) as exc:
-                svc.trip(f"front end refused to arm the heater: {exc}")
-
-        svc._spawn(_arm())
+        self.svc._arm(power_W_per_m)
 
     def disarm(self, reason: str) -> None:
-        svc = self.svc
-        svc.armed_power = None
-        svc._spawn(svc._heater_off())
+        self.svc._disarm()
 
     def state_changed(self, state: RunState, reason: str, device_s: float) -> None:
         svc = self.svc
+        run = svc.run
         fields: dict[str, Any] = {"state": str(state)}
         if state in FINAL:
-            from daemon.store.writer import utc_now
-
             fields.update(ended_utc=utc_now(), end_reason=reason)
-        if state == RunState.RECOVERING:
-            fields["heat_end_device_s"] = device_s
-        with contextlib.suppress(StoreError):
+        if run is not None and run.run_id == self.run_id and run.heat_end_s is not None:
+            fields["heat_end_device_s"] = run.heat_end_s
+        try:
             svc.store.update_run(self.run_id, fields)
+        except StoreError as exc:
+            svc._store_failed(str(exc))
         svc._event(self.run_id, "state", str(state), reason)
         svc.hub.publish({"event": "state", "run_id": self.run_id, "state": str(state), "reason": reason,
-                         "device_s": device_s})
+                         "device_s": device_s, **svc._cycle_fields(run.cycle if run else 1)})
+        sdnotify.notify(f"STATUS=run {self.run_id} {state}")
 
     def heating_started(self, device_s: float) -> None:
-        with contextlib.suppress(StoreError):
-            self.svc.store.update_run(self.run_id, {"heat_start_device_s": device_s})
+        svc = self.svc
+        try:
+            svc.store.update_run(self.run_id, {"heat_start_device_s": device_s})
+        except StoreError as exc:
+            svc._store_failed(str(exc))
+        svc.hub.publish({"event": "heater_on", "run_id": self.run_id, "heat_start_device_s": device_s})
+
+    def heating_ended(self, device_s: float) -> None:
+        run = self.svc.run
+        if run is not None and run.run_id == self.run_id and run.last_estimate:
+            try:  # the live estimate at heater off, kept beside the final reduction
+                self.svc.store.add_result(self.run_id, run.plan.sensor, run.last_estimate, source="live")
+            except StoreError as exc:
+                self.svc._store_failed(str(exc))
 
     def estimate(self, est: dict[str, Any]) -> None:
-        self.svc.hub.publish({"event": "estimate", "run_id": self.run_id, **est})
+        if self.svc.hub.subscribers:
+            self.svc.hub.publish({"event": "estimate", "run_id": self.run_id, **est})
+
+    def verdict(self, est: dict[str, Any]) -> None:
+        svc = self.svc
+        why = (f"estimate stable: k = {est.get('k_W_per_mK') or float('nan'):.3f} W/(m·K) at t = "
+               f"{est.get('t_s') or 0:.0f} s; heating can stop")
+        svc._event(self.run_id, "verdict", None, why, {"estimate": est})
+        svc.hub.publish({"event": "stable", "run_id": self.run_id, "reason": why, **est})
 
     def finished(self, state: RunState) -> None:
         svc = self.svc
+        run = svc.run
+        if run is not None and run.run_id == self.run_id:
+            svc._run_ended(run, state)
 
-        async def _finish() -> None:
-            results: dict[str, Any] = {}
-            try:
-                results = await svc.final_reduction(self.run_id)
-            except Exception as exc:  # a failed reduction must not lose the run
-                log.exception("final reduction failed")
-                svc._event(self.run_id, "reduction", None, f"final reduction failed: {exc}")
-            with contextlib.suppress(StoreError):
-                svc.store.flush()
-            svc.hub.publish({"event": "run_finished", "run_id": self.run_id, "state": str(state),
-                             "results": results})
 
-        svc._spawn(_finish())
+def _profile_dict(p: ProbeProfile) -> dict[str, Any]:
+    from dataclasses import asdict
+
+    return asdict(p)
 
 
 def load_default_probe() -> ProbeProfile:

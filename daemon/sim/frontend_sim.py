@@ -2,8 +2,9 @@
 
 It answers exactly as the firmware does (hardware/PROTOCOL.md) and keeps the same
 hard limits, so the daemon cannot tell it from hardware. Wire faults (garbage,
-dropped or corrupted frames, silence, reset) are injected here; physical faults
-(open thermocouple, heater open or short) belong to the rig model.
+dropped or corrupted frames, silence, reset) and two firmware faults (a regulator
+that delivers more power than asked, a millisecond clock that stops) are injected
+here; physical faults (open thermocouple, heater open or short) belong to the rig model.
 """
 
 from __future__ import annotations
@@ -42,11 +43,26 @@ class FrontEndEmulator:
     serial: str = "SIM-0001"
     seed: int = 0
     faults: WireFaults = field(default_factory=WireFaults)
+    overpower: float = 1.0  # regulator fault: delivers this many times the power asked for
+    clock_stuck_ms: int | None = None  # firmware fault: the sample clock no longer advances
+    samples_sent: int = 0
 
     def __post_init__(self) -> None:
         self._rng = random.Random(self.seed)
         self._decoder = FrameDecoder()
         self._boot()
+
+    def set_overpower(self, factor: float) -> None:
+        self.overpower = factor
+        if self.heater_on:
+            self.rig.set_heater(True, self.power_set * factor)
+
+    def set_clock_stuck(self, on: bool) -> None:
+        last = getattr(self, "_last_ms", 0)
+        self.clock_stuck_ms = last if on else None
+
+    def switch_off(self, reason: str) -> None:
+        self._heater(False, reason)
 
     # -- state -------------------------------------------------------------
     def _boot(self, cause: str = "power-on") -> None:
@@ -83,7 +99,7 @@ class FrontEndEmulator:
         changed = on != self.heater_on or (on and power != self.power_set)
         self.heater_on = on
         self.power_set = power if on else 0.0
-        self.rig.set_heater(on, self.power_set)
+        self.rig.set_heater(on, self.power_set * self.overpower)
         if on and self.on_since_t is None:
             self.on_since_t = self.rig.t_s
         if not on:
@@ -175,7 +191,9 @@ class FrontEndEmulator:
         for c in s.channels:
             value = c.emf_uV if (self.mode == "E" and c.emf_uV is not None) else c.temp_C
             chans.append(m.ChannelValue(value, c.fault_bits))
-        ms = round(s.t_s * 1000) % (1 << 32)
+        ms = round(s.t_s * 1000) % (1 << 32) if self.clock_stuck_ms is None else self.clock_stuck_ms
+        self._last_ms = ms
+        self.samples_sent += 1
         sample = m.Sample(0, ms, s.cj_C, s.heater_V, s.heater_A, s.supply_V, s.heater_on, tuple(chans))
         return self._frame(m.MSG_SAMPLE, m.sample_fields(sample))
 

@@ -10,10 +10,12 @@ from __future__ import annotations
 import argparse
 import asyncio
 import json
+import os
 import signal
 import sys
 import tempfile
 from pathlib import Path
+from typing import Any
 
 from daemon.sim.frontend_sim import FrontEndEmulator
 from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, get_material
@@ -32,7 +34,34 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--control", type=Path, help="control socket path (fault injection, heater state)")
     p.add_argument("--heater-log", type=Path, help="append heater on/off events here as JSON lines")
     p.add_argument("--drift-K-per-h", type=float, default=None, dest="drift", help="ground temperature drift")
+    p.add_argument("--firmware", action="store_true",
+                   help="run the real front-end firmware (hardware/firmware) on the simulated board instead of "
+                        "the protocol emulator")
+    p.add_argument("--parent-pid", type=int, default=None,
+                   help=f"exit {PARENT_GRACE_S:g} s after this process is gone (the heater lease expires first)")
     return p
+
+
+PARENT_GRACE_S = 5.0
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return os.getppid() == pid
+
+
+async def _watch_parent(pid: int, server: SimServer) -> None:
+    """Like hardware, the simulator outlives a killed daemon, but not for ever: no orphan left behind."""
+    while _alive(pid):
+        await asyncio.sleep(0.5)
+    print(f"linerig-sim: parent {pid} is gone; stopping in {PARENT_GRACE_S:g} s", file=sys.stderr, flush=True)
+    await asyncio.sleep(PARENT_GRACE_S)
+    server.stop()
 
 
 def _probe(path: Path | None) -> ProbeSpec:
@@ -47,7 +76,12 @@ async def _run(args: argparse.Namespace) -> int:
     material = get_material(args.material)
     kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
     rig = SimulatedRig(material, _probe(args.probe), seed=args.seed, **kwargs)
-    frontend = FrontEndEmulator(rig, speed=args.speed, seed=args.seed)
+    if args.firmware:
+        from daemon.sim.firmware_host import FirmwareFrontEnd
+
+        frontend: Any = FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed)
+    else:
+        frontend = FrontEndEmulator(rig, speed=args.speed, seed=args.seed)
     link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix="linerig-sim-"))
     link_dir.mkdir(parents=True, exist_ok=True)
     server = SimServer(frontend, link_dir, args.heater_log)
@@ -57,11 +91,14 @@ async def _run(args: argparse.Namespace) -> int:
     for sig in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(sig, server.stop)
     task = asyncio.create_task(server.run())
+    watcher = asyncio.create_task(_watch_parent(args.parent_pid, server)) if args.parent_pid else None
     while server.port.master is None and not task.done():
         await asyncio.sleep(0)
     print(json.dumps({"frontend": str(link_dir / "frontend"), "control": str(control),
                       "material": material.key, "speed": args.speed}), flush=True)
     await task
+    if watcher is not None:
+        watcher.cancel()
     ctl.close()
     return 0
 

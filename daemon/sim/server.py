@@ -78,6 +78,8 @@ class SimServer:
         self.heater_events: list[dict[str, Any]] = []
         frontend.log_heater = self._log_heater
         self._stop = asyncio.Event()
+        self.inject_wall: float | None = None  # wall time (time.time) of the last injected fault
+        self.first_sample_after_inject: float | None = None  # wall time the next sample after it went out
 
     def _log_heater(self, event: dict[str, Any]) -> None:
         event = {"wall": time.time(), **event}
@@ -95,11 +97,15 @@ class SimServer:
             data = self.port.read()
             if data:
                 self.frontend.receive(data, wall)
+            sent = self.frontend.samples_sent
             for chunk in self.frontend.tick(wall):
                 self.port.write(chunk)
+            if self.inject_wall is not None and self.first_sample_after_inject is None \
+                    and self.frontend.samples_sent > sent:
+                self.first_sample_after_inject = time.time()
             with contextlib.suppress(TimeoutError):
                 await asyncio.wait_for(self._stop.wait(), TICK_S)
-        self.frontend.rig.set_heater(False, 0.0)
+        self.frontend.switch_off("simulator stopped")
         self.port.unplug()
 
     def stop(self) -> None:
@@ -126,12 +132,18 @@ class SimServer:
         op = req["op"]
         fe = self.frontend
         if op == "state":
+            wall = time.monotonic()
             return {"ok": True, "heater_on": fe.heater_on, "power_W_per_m": fe.power_set,
                     "device_t_s": fe.rig.t_s, "boot_id": fe.boot_id, "heater_events": self.heater_events[-50:],
-                    "plugged": self.port.master is not None}
+                    "plugged": self.port.master is not None, "configured": fe.configured,
+                    "lease_left_s": max(fe.lease_deadline - wall, 0.0) if fe.heater_on else 0.0,
+                    "samples_sent": fe.samples_sent, "rig_faults": sorted(fe.rig.active_faults),
+                    "overpower": fe.overpower, "clock_stuck": fe.clock_stuck_ms is not None,
+                    "inject_wall": self.inject_wall, "first_sample_after_inject": self.first_sample_after_inject}
         if op == "inject":
             fault, on = str(req["fault"]), bool(req.get("on", True))
             wf = fe.faults
+            self.inject_wall, self.first_sample_after_inject = time.time(), None
             if fault == "silence":
                 wf.silent = on
             elif fault == "garbage":
@@ -144,6 +156,10 @@ class SimServer:
                 self.port.unplug()
             elif fault == "replug":
                 self.port.plug()
+            elif fault == "overpower":
+                fe.set_overpower(float(req.get("factor", 1.5)) if on else 1.0)
+            elif fault == "clock_stuck":
+                fe.set_clock_stuck(on)
             else:
                 fe.rig.inject(fault, on)
             return {"ok": True}

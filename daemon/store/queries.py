@@ -11,8 +11,8 @@ import sqlite_utils
 
 def list_runs(db: sqlite_utils.Database, limit: int = 100, site: str | None = None) -> list[dict[str, Any]]:
     where, params = ("WHERE site = ?", [site]) if site else ("", [])
-    sql = (f"SELECT id, created_utc, ended_utc, state, end_reason, site, location, sample, material, probe_serial "
-           f"FROM runs {where} ORDER BY id DESC LIMIT ?")
+    sql = (f"SELECT id, created_utc, ended_utc, state, end_reason, site, location, sample, material, probe_serial, "
+           f"series_id, cycle FROM runs {where} ORDER BY id DESC LIMIT ?")
     return list(db.query(sql, [*params, limit]))
 
 
@@ -32,6 +32,22 @@ def run_detail(db: sqlite_utils.Database, run_id: int) -> dict[str, Any] | None:
     return run
 
 
+def series_detail(db: sqlite_utils.Database, series_id: int) -> dict[str, Any] | None:
+    rows = list(db.query("SELECT * FROM series WHERE id = ?", [series_id]))
+    if not rows:
+        return None
+    s = rows[0]
+    s["plan"] = json.loads(s.pop("plan_json") or "{}")
+    s["runs"] = list(db.query("SELECT id, cycle, state, end_reason, heat_start_device_s FROM runs "
+                              "WHERE series_id = ? ORDER BY id", [series_id]))
+    for run in s["runs"]:
+        res = list(db.query("SELECT sensor, k_W_per_mK, k_u_W_per_mK, source FROM results WHERE run_id = ? "
+                            "ORDER BY id", [run["id"]]))
+        run["results"] = {r["sensor"]: r for r in res}
+    s["cycles_done"] = sum(1 for r in s["runs"] if r["state"] == "done")
+    return s
+
+
 def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
     """Samples of a run as arrays, with time measured from heater on (baseline negative)."""
     run = next(iter(db.query("SELECT heat_start_device_s, sensor_names FROM runs WHERE id = ?", [run_id])), None)
@@ -43,6 +59,7 @@ def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
     t0 = run["heat_start_device_s"] or 0.0
     t = np.array([r[0] for r in rows], dtype=float) - t0
     q = np.array([r[1] or 0.0 for r in rows], dtype=float)
-    temps = np.array([json.loads(r[2]) for r in rows], dtype=float).reshape(len(rows), -1)
+    temps = np.array([[np.nan if v is None else v for v in json.loads(r[2])] for r in rows],
+                     dtype=float).reshape(len(rows), -1)
     return {"time_s": t, "q_W_per_m": q, "temps_C": {n: temps[:, i] for i, n in enumerate(names)},
             "phase": [r[3] for r in rows]}

@@ -54,7 +54,16 @@ def _v1(db: sqlite_utils.Database) -> None:
     }, pk="id")
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1]
+def _v2(db: sqlite_utils.Database) -> None:
+    """Series carry their plan and outcome, so a series can be resumed at a cycle boundary."""
+    for name, kind in (("state", str), ("cycles", int), ("plan_json", str), ("probe_serial", str),
+                       ("ended_utc", str), ("end_reason", str)):
+        db["series"].add_column(name, kind)
+    db["runs"].create_index(["series_id"])
+    db["runs"].create_index(["state"])
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
@@ -69,7 +78,12 @@ def migrate(db: sqlite_utils.Database) -> int:
     if have > SCHEMA_VERSION:
         raise RuntimeError(f"database schema {have} is newer than this linerig ({SCHEMA_VERSION}); upgrade linerig")
     for number in range(have, SCHEMA_VERSION):
-        with conn:
+        conn.execute("BEGIN IMMEDIATE")  # DDL is transactional in SQLite: a crash leaves a whole version
+        try:
             MIGRATIONS[number](db)
             conn.execute(f"PRAGMA user_version = {number + 1}")
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
     return SCHEMA_VERSION

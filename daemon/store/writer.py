@@ -1,22 +1,60 @@
-"""The one writer of the database: samples batched, events at once, commits at least every second."""
+"""The one writer of the database: samples batched, events at once, commits at least every second.
+
+Durability rules (see systemd/README.md for the storage advice that goes with them):
+- WAL with ``synchronous=FULL``: a commit that returned survives a process kill and, on storage that
+  honours flushes, a power cut. Samples are committed in batches every FLUSH_INTERVAL_S; an event
+  commits at once together with every sample before it.
+- A sample counts as logged only once its batch has committed (``last_committed``); the API publishes
+  that mark so a client can tell what a crash could still take away (nothing older).
+- ``quick_check`` at open; a damaged file is moved aside, never overwritten, and a new one started.
+- The first failed write (disk full, read-only, I/O error) latches ``failed``: every later write raises
+  StoreError at once, the service turns the heater off, and reads keep working for the status API.
+"""
 
 from __future__ import annotations
 
+import contextlib
 import json
+import logging
+import math
+import os
 import sqlite3
+import time
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import sqlite_utils
 
 from daemon.store.schema import migrate
 
+log = logging.getLogger("linerigd.store")
+
 FLUSH_INTERVAL_S = 0.25
+JOURNAL_SIZE_LIMIT = 16 * 1024 * 1024  # a checkpointed WAL is truncated back to this
+T = TypeVar("T")
 
 
 class StoreError(RuntimeError):
     """The database cannot take writes (disk full, read-only, corrupt)."""
+
+
+def _plain(value: Any) -> Any:
+    """JSON-safe copy: numpy scalars to Python, NaN and infinities to null."""
+    if hasattr(value, "item") and not isinstance(value, list | tuple | dict):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, list | tuple | set):
+        return [_plain(v) for v in value]
+    return value
+
+
+def to_json(value: Any) -> str:
+    return json.dumps(_plain(value), allow_nan=False, default=str)
 
 
 def utc_now() -> str:
@@ -25,21 +63,61 @@ def utc_now() -> str:
 
 SAMPLE_COLUMNS = ("run_id", "n", "seq", "device_ms", "device_s", "phase", "heater_on", "heater_V", "heater_A",
                   "supply_V", "q_W_per_m", "cj_C", "temps_C", "faults")
+_INSERT_SAMPLES = (f"INSERT OR IGNORE INTO samples ({','.join(SAMPLE_COLUMNS)}) "
+                   f"VALUES ({','.join('?' * len(SAMPLE_COLUMNS))})")
+OPEN_RUN_STATES = ("checking", "settling", "heating", "recovering")
+
+
+def _connect(path: Path) -> sqlite3.Connection:
+    conn = sqlite3.connect(str(path), isolation_level=None, check_same_thread=False)
+    conn.execute("PRAGMA busy_timeout=5000")
+    return conn
+
+
+def quick_check(path: Path) -> str:
+    """'ok' or SQLite's first complaint about the file."""
+    conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+    try:
+        return str(conn.execute("PRAGMA quick_check").fetchone()[0])
+    except sqlite3.DatabaseError as exc:
+        return str(exc)
+    finally:
+        conn.close()
 
 
 class Store:
-    def __init__(self, path: Path) -> None:
+    def __init__(self, path: Path, max_size_MB: float | None = None) -> None:
         self.path = path
         path.parent.mkdir(parents=True, exist_ok=True)
-        conn = sqlite3.connect(str(path), isolation_level=None, check_same_thread=False)
+        self.moved_aside: Path | None = None
+        if path.exists() and path.stat().st_size > 0:
+            verdict = quick_check(path)
+            if verdict != "ok":
+                self.moved_aside = path.with_name(f"{path.name}.damaged-{time.strftime('%Y%m%dT%H%M%S')}")
+                log.error("database %s failed its check (%s); moved aside to %s", path, verdict, self.moved_aside)
+                for suffix in ("", "-wal", "-shm"):
+                    src = Path(str(path) + suffix)
+                    if src.exists():
+                        os.replace(src, Path(str(self.moved_aside) + suffix))
+        conn = _connect(path)
         self.db = sqlite_utils.Database(conn)
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute("PRAGMA synchronous=FULL")
         conn.execute("PRAGMA foreign_keys=ON")
-        conn.isolation_level = ""  # back to implicit transactions for `with conn:`
+        conn.execute(f"PRAGMA journal_size_limit={JOURNAL_SIZE_LIMIT}")
         migrate(self.db)
+        if max_size_MB is not None:
+            page = int(conn.execute("PRAGMA page_size").fetchone()[0])
+            conn.execute(f"PRAGMA max_page_count={max(int(max_size_MB * 1e6 / page), 1)}")
+        self._reader_conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, check_same_thread=False)
+        self._reader_conn.execute("PRAGMA busy_timeout=2000")
+        self.reader = sqlite_utils.Database(self._reader_conn)
         self._pending: list[tuple[Any, ...]] = []
         self.failed: str | None = None
+        self.last_committed: dict[str, int] | None = None
+        if self.moved_aside is not None:
+            self.event(None, "store", None, f"the previous database failed its check and was moved to "
+                                            f"{self.moved_aside}; this is a new file")
 
     @property
     def conn(self) -> sqlite3.Connection:
@@ -47,19 +125,38 @@ class Store:
 
     def close(self) -> None:
         try:
-            self.flush()
+            with contextlib.suppress(StoreError):
+                self.flush()
+            if self.failed is None:
+                with contextlib.suppress(sqlite3.Error):
+                    self.conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
         finally:
+            self._reader_conn.close()
             self.conn.close()
 
-    def _write(self, fn: Any) -> Any:
+    @contextlib.contextmanager
+    def _tx_raw(self) -> Iterator[None]:
+        self.conn.execute("BEGIN IMMEDIATE")
         try:
-            with self.conn:
+            yield
+        except BaseException:
+            with contextlib.suppress(sqlite3.Error):
+                self.conn.execute("ROLLBACK")
+            raise
+        self.conn.execute("COMMIT")
+
+    def _write(self, fn: Callable[[], T]) -> T:
+        if self.failed is not None:
+            raise StoreError(self.failed)
+        try:
+            with self._tx_raw():
                 return fn()
         except sqlite3.Error as exc:
             self.failed = f"database write failed ({self.path}): {exc}"
+            log.error("%s", self.failed)
             raise StoreError(self.failed) from exc
 
-    # -- runs and events ---------------------------------------------------
+    # -- runs, series and events -------------------------------------------
     def create_run(self, fields: dict[str, Any]) -> int:
         row = {"created_utc": utc_now(), "state": "checking", **fields}
         return int(self._write(lambda: self.db["runs"].insert(row).last_pk))
@@ -67,48 +164,96 @@ class Store:
     def update_run(self, run_id: int, fields: dict[str, Any]) -> None:
         self._write(lambda: self.db["runs"].update(run_id, fields))
 
+    def create_series(self, fields: dict[str, Any]) -> int:
+        row = {"created_utc": utc_now(), "state": "running", **fields}
+        return int(self._write(lambda: self.db["series"].insert(row).last_pk))
+
+    def update_series(self, series_id: int, fields: dict[str, Any]) -> None:
+        self._write(lambda: self.db["series"].update(series_id, fields))
+
     def event(self, run_id: int | None, kind: str, state: str | None, reason: str,
               device_s: float | None = None, data: dict[str, Any] | None = None) -> None:
         """Events are rare and matter: flush pending samples and commit now."""
         row = {"run_id": run_id, "wall_utc": utc_now(), "device_s": device_s, "kind": kind, "state": state,
-               "reason": reason, "data": json.dumps(data) if data else None}
+               "reason": reason, "data": to_json(data) if data else None}
 
         def _do() -> None:
             self._flush_samples()
             self.db["events"].insert(row)
 
         self._write(_do)
+        self._mark_committed()
 
     def add_result(self, run_id: int, sensor: str, result: dict[str, Any], source: str = "live") -> None:
         row = {"run_id": run_id, "created_utc": utc_now(), "sensor": sensor, "method": result.get("method"),
                "k_W_per_mK": result.get("k_W_per_mK"), "k_u_W_per_mK": result.get("k_u_W_per_mK"),
-               "flags": json.dumps(result.get("flags", [])), "data": json.dumps(result), "source": source}
+               "flags": to_json(result.get("flags", [])), "data": to_json(result), "source": source}
         self._write(lambda: self.db["results"].insert(row))
+
+    def upsert_probe(self, serial: str, name: str, kind: str, profile_toml: str) -> None:
+        row = {"serial": serial, "name": name, "kind": kind, "profile_toml": profile_toml, "added_utc": utc_now()}
+
+        def _do() -> None:
+            old = list(self.db.query("SELECT profile_toml FROM probes WHERE serial = ?", [serial]))
+            if not old:
+                self.db["probes"].insert(row)
+            elif old[0]["profile_toml"] != profile_toml:
+                self.db["probes"].update(serial, {"name": name, "kind": kind, "profile_toml": profile_toml})
+
+        self._write(_do)
 
     # -- samples -----------------------------------------------------------
     def add_sample(self, row: tuple[Any, ...]) -> None:
-        self._pending.append(row)
+        if self.failed is None:
+            self._pending.append(row)
 
     def _flush_samples(self) -> None:
         if self._pending:
             rows, self._pending = self._pending, []
-            marks = ",".join("?" * len(SAMPLE_COLUMNS))
-            self.conn.executemany(f"INSERT OR IGNORE INTO samples ({','.join(SAMPLE_COLUMNS)}) VALUES ({marks})", rows)
+            self._unacked = rows[-1]
+            self.conn.executemany(_INSERT_SAMPLES, rows)
 
-    def flush(self) -> None:
-        if self._pending:
+    _unacked: tuple[Any, ...] | None = None
+
+    def _mark_committed(self) -> None:
+        if self._unacked is not None:
+            self.last_committed = {"run_id": self._unacked[0], "n": self._unacked[1]}
+            self._unacked = None
+
+    def flush(self) -> bool:
+        """Commit pending samples; True when some were committed."""
+        if not self._pending:
+            return False
+        try:
             self._write(self._flush_samples)
+        except StoreError:
+            self._unacked = None
+            raise
+        self._mark_committed()
+        return True
 
     @property
     def pending(self) -> int:
         return len(self._pending)
 
+    def checkpoint(self) -> None:
+        """Fold the WAL back into the file and truncate it (at the end of a run, when nothing waits)."""
+        if self.failed is None:
+            with contextlib.suppress(sqlite3.Error):
+                self.conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+
     def close_interrupted_runs(self) -> list[int]:
         """Runs left open by a crash or power cut are closed as interrupted; their samples stay."""
-        open_ids = [r["id"] for r in self.db.query(
-            "SELECT id FROM runs WHERE state NOT IN ('done', 'aborted', 'faulted', 'interrupted')")]
+        marks = ",".join("?" * len(OPEN_RUN_STATES))
+        open_ids = [r["id"] for r in self.db.query(f"SELECT id FROM runs WHERE state IN ({marks})",
+                                                     list(OPEN_RUN_STATES))]
         for rid in open_ids:
             self.update_run(rid, {"state": "interrupted", "ended_utc": utc_now(),
                                   "end_reason": "daemon stopped during the run"})
             self.event(rid, "state", "interrupted", "closed at daemon start: the previous daemon stopped mid-run")
+        series = [r["id"] for r in self.db.query("SELECT id FROM series WHERE state = 'running'")]
+        for sid in series:
+            self.update_series(sid, {"state": "interrupted", "ended_utc": utc_now(),
+                                     "end_reason": "daemon stopped during the series; resume it at a cycle "
+                                                   "boundary with the resume request"})
         return open_ids

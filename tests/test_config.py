@@ -1,0 +1,154 @@
+"""rig.toml: what it accepts, and errors that name file, key and line and say what is expected."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from daemon.config import RigConfig, key_line, load_config, parse_config
+from daemon.errors import ConfigError
+
+ROOT = Path(__file__).resolve().parent.parent
+PROFILE = ROOT / "daemon" / "profiles" / "default-needle.toml"
+
+GOOD = f"""\
+# a lab rig
+[devices]
+frontend = "/dev/linerig-frontend"
+supply = "socket://127.0.0.1:5025"
+rate_hz = 2
+
+[daemon]
+socket = "run/linerigd.sock"
+database = "/var/lib/linerig/linerig.db"
+max_database_MB = 500
+
+[probes]
+profiles = ["{PROFILE}"]
+active = "DEMO-0001"
+
+[limits]
+max_power_W_per_m = 40
+max_rise_K = 8.5
+lease_s = 0.5
+
+[run]
+heat_s = 900
+baseline_s = 120
+
+[presets.quick]
+heat_s = 300
+auto_stop = true
+
+[presets."long soak"]
+heat_s = 1800
+cycles = 3
+reequilibrate_s = 3600
+"""
+
+
+def test_a_full_file_is_read(tmp_path: Path) -> None:
+    cfg = parse_config(GOOD, "rig.toml", tmp_path)
+    assert cfg.devices.frontend == "/dev/linerig-frontend" and cfg.devices.rate_hz == 2.0
+    assert cfg.devices.supply == "socket://127.0.0.1:5025"
+    assert cfg.daemon.socket == tmp_path / "run" / "linerigd.sock"  # relative to the file
+    assert cfg.daemon.max_database_MB == 500
+    assert cfg.probe.serial == "DEMO-0001" and len(cfg.probes) == 1
+    assert cfg.limits.max_power_W_per_m == 40 and cfg.limits.lease_s == 0.5
+    assert cfg.limits.max_probe_C == 85.0  # unset limits keep their defaults
+    assert cfg.plan.heat_s == 900 and cfg.plan.baseline_s == 120
+    assert cfg.presets["quick"].heat_s == 300 and cfg.presets["quick"].auto_stop
+    assert cfg.presets["quick"].baseline_s == 120  # a preset starts from [run]
+    assert cfg.presets["long soak"].cycles == 3
+
+
+def test_defaults_without_any_file() -> None:
+    cfg = RigConfig()
+    assert cfg.devices.frontend is None and cfg.presets == {}
+    assert cfg.probe.name == "default lab needle"
+
+
+def test_key_line_finds_tables_dotted_and_quoted_keys() -> None:
+    assert key_line(GOOD, ["limits", "max_rise_K"]) == 18
+    assert key_line(GOOD, ["presets", "long soak", "cycles"]) == 31
+    assert key_line(GOOD, ["presets", "quick"]) == 25
+    assert key_line("a.b = 1\n[c]\nd = 2\n", ["a", "b"]) == 1
+    assert key_line("[x]\ny = 1", ["x", "z"]) is None
+
+
+@pytest.mark.parametrize(("old", "new", "line", "words"), [
+    ("max_rise_K = 8.5", "max_rise_K = -1", 18, "limits.max_rise_K: expected a number > 0"),
+    ("max_rise_K = 8.5", 'max_rise_K = "hot"', 18, "expected a finite number"),
+    ("lease_s = 0.5", "lease_s = 2", 19, "at most 1 s"),
+    ("max_rise_K = 8.5", "max_rise = 8.5", 18, "limits.max_rise: unknown key; expected one of:"),
+    ("heat_s = 900", "heat_s = 0", 22, "run.heat_s: expected a number > 0"),
+    ("heat_s = 900", "heat_s = 4000", 22, "run.heat_s: heating time 4000 s is above the limit 3600 s"),
+    ("auto_stop = true", 'auto_stop = "yes"', 27, "presets.quick.auto_stop: expected true or false"),
+    ("cycles = 3", "cycles = 0", 31, "expected a whole number from 1 to 1000"),
+    ("rate_hz = 2", "rate_hz = 50", 5, "devices.rate_hz: expected a sample rate from 0.1 to 20 Hz"),
+    ('frontend = "/dev/linerig-frontend"', 'frontend = "ttyACM0"', 3, "absolute device path or a pyserial URL"),
+    ('active = "DEMO-0001"', 'active = "NOPE-1"', 14, "probes.active: expected the serial or name of a listed"),
+    ("max_database_MB = 500", "max_database_MB = 0", 10, "expected a size in MB > 0"),
+    ("[presets.quick]", "[preset.quick]", 25, "preset: unknown section"),
+])
+def test_errors_name_file_key_line_and_what_is_expected(old: str, new: str, line: int, words: str) -> None:
+    assert old in GOOD
+    with pytest.raises(ConfigError) as e:
+        parse_config(GOOD.replace(old, new), "/etc/linerig/rig.toml")
+    msg = str(e.value)
+    assert msg.startswith(f"/etc/linerig/rig.toml line {line}: "), msg
+    assert words in msg, msg
+
+
+def test_a_plan_sensor_must_be_on_the_probe() -> None:
+    with pytest.raises(ConfigError, match=r"line 2: run.sensor: expected one of the active probe's sensors"):
+        parse_config('[run]\nsensor = "far"\n', "rig.toml")
+
+
+def test_bad_toml_reports_tomllibs_line(tmp_path: Path) -> None:
+    with pytest.raises(ConfigError, match=r"rig.toml: not valid TOML: .*line 2"):
+        parse_config("[limits]\nmax_rise_K = = 3\n", "rig.toml")
+
+
+def test_a_broken_probe_profile_is_reported_against_the_config_key(tmp_path: Path) -> None:
+    (tmp_path / "bad.toml").write_text('[probe]\nname = "x"\nradius_mm = -1\nheater_length_mm = 100\n')
+    text = '[probes]\nprofiles = ["bad.toml"]\n'
+    with pytest.raises(ConfigError) as e:
+        parse_config(text, str(tmp_path / "rig.toml"), tmp_path)
+    assert "rig.toml line 2: probes.profiles: profile 'bad.toml' cannot be used" in str(e.value)
+    assert "radius_mm must be > 0" in str(e.value)
+
+
+def test_unknown_group_and_missing_file(tmp_path: Path) -> None:
+    with pytest.raises(ConfigError, match=r"line 2: daemon.group: no group 'no-such-group-here'"):
+        parse_config('[daemon]\ngroup = "no-such-group-here"\n', "rig.toml")
+    with pytest.raises(ConfigError, match="no such file"):
+        load_config(tmp_path / "missing.toml")
+
+
+def test_check_config_command_and_exit_code_2_on_a_bad_file(tmp_path: Path) -> None:
+    good = tmp_path / "rig.toml"
+    good.write_text(GOOD)
+    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(good), "--check-config"],
+                          capture_output=True, text=True, timeout=30, cwd=ROOT)
+    assert done.returncode == 0, done.stderr
+    assert "presets: long soak, quick" in done.stdout
+    good.write_text(GOOD.replace("max_rise_K = 8.5", "max_rise_K = 0"))
+    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(good), "--check-config"],
+                          capture_output=True, text=True, timeout=30, cwd=ROOT)
+    assert done.returncode == 2
+    assert f"ConfigError: {good} line 18: limits.max_rise_K: expected a number > 0" in done.stderr
+
+
+def test_without_config_or_front_end_the_daemon_says_what_to_do(tmp_path: Path) -> None:
+    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(tmp_path / "none.toml")],
+                          capture_output=True, text=True, timeout=30, cwd=ROOT)
+    assert done.returncode == 2 and "no such file" in done.stderr
+    empty = tmp_path / "empty.toml"
+    empty.write_text("")
+    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(empty)],
+                          capture_output=True, text=True, timeout=30, cwd=ROOT)
+    assert done.returncode == 2 and "give --frontend PORT" in done.stderr

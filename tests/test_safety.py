@@ -1,0 +1,119 @@
+"""Each limit in daemon.safety, one sample at a time (the process-level trips are in test_reliability_limits)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import pytest
+
+from daemon.safety import (
+    FrameLossWindow,
+    Limits,
+    SampleView,
+    check_arming,
+    check_link,
+    check_plan,
+    check_precheck,
+    check_sample,
+    limit_problem,
+)
+
+LIM = Limits()
+OHM = 40.0
+# A healthy heating sample: 5 W/m on a 0.1 m, 40 Ω heater → 0.5 W, I = √(P/R) ≈ 0.112 A, V ≈ 4.47 V.
+HEATING = SampleView(heating=True, heater_confirmed=True, heater_on=True, power_set_W_per_m=5.0, power_W_per_m=5.0,
+                     heater_ohm=OHM, supply_V=12.6, temps_C=(14.0, 13.0), faults=(0, 0), rise_K=2.0,
+                     heating_elapsed_s=100.0, run_active=True)
+IDLE = replace(HEATING, heating=False, heater_confirmed=False, heater_on=False, power_W_per_m=0.0, heater_ohm=None,
+               rise_K=None, heating_elapsed_s=0.0, run_active=False)
+
+
+def test_healthy_samples_pass() -> None:
+    assert check_sample(HEATING, LIM, OHM) is None
+    assert check_sample(IDLE, LIM, OHM) is None
+
+
+@pytest.mark.parametrize(("change", "words"), [
+    ({"temps_C": (85.5, 13.0)}, "probe temperature 85.5 °C is above"),
+    ({"power_W_per_m": 5.9}, "heater power 5.90 W/m is above 5.75 W/m"),  # 5 W/m + 15 % tolerance
+    ({"power_set_W_per_m": 58.0, "power_W_per_m": 61.0}, "above 60.00 W/m"),  # the absolute cap wins
+    ({"heater_ohm": 0.2}, "heater shorted"),
+    ({"heater_ohm": 55.0}, "heater open"),
+    ({"heater_ohm": None, "power_W_per_m": 0.0}, "draws no current"),
+    ({"power_W_per_m": math.nan}, "not a number"),
+    ({"heater_on": False}, "reports the heater off while heating"),
+    ({"rise_K": 12.5}, "temperature rise 12.50 K is above the limit 12.0 K"),
+    ({"heating_elapsed_s": 3601.0}, "heating time 3601 s is above the limit 3600 s"),
+    ({"supply_V": 10.2}, "supply voltage 10.20 V is below 10.50 V"),
+    ({"supply_V": math.nan}, "supply voltage nan V is below"),
+    ({"temps_C": (math.nan, 13.0), "faults": (1, 0)}, "channel(s) [0] report a fault"),
+])
+def test_each_breach_while_heating_trips_with_its_reason(change: dict, words: str) -> None:
+    reason = check_sample(replace(HEATING, **change), LIM, OHM)
+    assert reason is not None and words in reason, reason
+
+
+def test_heater_on_when_it_should_be_off_unless_an_off_is_still_in_flight() -> None:
+    stray = replace(IDLE, heater_on=True, power_W_per_m=5.0, heater_ohm=OHM, power_set_W_per_m=5.0)
+    assert "should be off" in (check_sample(stray, LIM, OHM) or "")
+    assert check_sample(replace(stray, off_pending=True), LIM, OHM) is None
+
+
+def test_heater_not_yet_confirmed_is_not_a_breach_but_a_late_arming_is() -> None:
+    arming = replace(HEATING, heater_confirmed=False, heater_on=False, power_W_per_m=0.0, heater_ohm=None)
+    assert check_sample(arming, LIM, OHM) is None
+    assert check_arming(LIM.heater_on_within_s - 0.1, False, LIM) is None
+    assert "did not report the heater on" in (check_arming(LIM.heater_on_within_s + 0.1, False, LIM) or "")
+    assert check_arming(100.0, True, LIM) is None
+
+
+def test_a_fault_bit_outside_a_run_is_not_a_trip_but_inside_one_it_is() -> None:
+    broken = replace(IDLE, temps_C=(math.nan, 13.0), faults=(1, 0))
+    assert check_sample(broken, LIM, OHM) is None
+    assert "fault" in (check_sample(replace(broken, run_active=True), LIM, OHM) or "")
+
+
+def test_precheck_lists_every_problem() -> None:
+    assert check_precheck((12.0, 12.1), (0, 0), 12.6, LIM) == []
+    problems = check_precheck((math.nan, 81.0), (1, 0), 10.0, LIM, heater_on=True)
+    assert len(problems) == 4
+    assert "channel 0" in problems[0] and "battery" in problems[1] and "cool" in problems[2]
+    assert "heater on before" in problems[3]
+
+
+def test_plan_must_sit_inside_the_limits() -> None:
+    assert check_plan(5.0, 600.0, LIM) == []
+    assert len(check_plan(61.0, 3601.0, LIM)) == 2
+
+
+def test_stale_data_and_frame_loss() -> None:
+    assert check_link(0, 50, 1.0, LIM) is None
+    assert "no data" in (check_link(0, 50, LIM.stale_after_s + 0.1, LIM) or "")
+    assert check_link(1, 10, 0.0, LIM) is None  # one lost frame is always tolerated
+    assert check_link(5, 50, 0.0, LIM) is None  # 5 of 55 = 9 %
+    assert "lost or corrupted" in (check_link(6, 50, 0.0, LIM) or "")  # 6 of 56 = 10.7 %
+
+
+def test_frame_loss_window_counts_losses_among_the_last_frames() -> None:
+    w = FrameLossWindow(10)
+    for _ in range(20):
+        w.add(0)
+    assert (w.lost, w.frames) == (0, 10)
+    w.add(3)  # three frames lost before this good one
+    assert (w.lost, w.frames) == (3, 10)
+    for _ in range(10):
+        w.add(3)
+    assert w.lost == 0  # the burst has left the window
+    w.reset()
+    assert (w.lost, w.frames) == (0, 0)
+
+
+def test_limits_refuse_nonsense() -> None:
+    assert limit_problem("max_rise_K", True) == "a finite number"
+    assert limit_problem("max_rise_K", -1) == "a number > 0"
+    assert limit_problem("frame_window", 2.5) == "a whole number ≥ 5"
+    assert "at most 1 s" in (limit_problem("lease_s", 1.5) or "")
+    assert "fraction" in (limit_problem("max_frame_loss", 1.0) or "")
+    with pytest.raises(ValueError, match="max_probe_C"):
+        Limits(max_probe_C=math.inf)
