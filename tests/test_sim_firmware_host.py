@@ -528,3 +528,26 @@ def test_the_firmware_still_has_the_fields_kept_in_wall_time() -> None:
         for part in path.split("."):
             assert hasattr(obj, part), path
             obj = getattr(obj, part)
+
+
+@pytest.mark.parametrize(("error", "code"), [(OSError, "BUS"), (RuntimeError, "CRASH")])
+def test_a_failing_board_read_switches_the_heater_off_and_is_reported(
+    monkeypatch: pytest.MonkeyPatch, error: type[Exception], code: str
+) -> None:
+    """A dead converter bus is the firmware's BUS fault; anything else escaping it is caught as the board's
+    main loop does (hardware/firmware/main.py): heater off, F,CRASH, carry on."""
+    b = Bench()
+    b.send("C", "1", "T", "T", "100")
+    b.send("P", "20", "1000")
+    b.run(0.05, renew=True)
+
+    def broken() -> None:
+        raise error("converter gone")
+
+    monkeypatch.setattr(b.fe.hal, "read", broken)
+    got = b.run(0.02)
+    assert [f.fields[0] for f in b.of("F", got)][:1] == [code]
+    assert b.events[-1]["heater_on"] is False and b.events[-1]["reason"].startswith(f"fault {code}")
+    assert b.rig.sample().delivered_W_per_m == 0.0
+    monkeypatch.undo()
+    assert b.send("Q")[0].kind == "T"  # still answering

@@ -39,6 +39,8 @@ Physical faults (open thermocouple, heater open or short, flat battery) are the 
 
 from __future__ import annotations
 
+import contextlib
+import logging
 import math
 import os
 import random
@@ -77,6 +79,7 @@ CURRENT_LSB_A = 2.5e-6 / 0.01  # 2.5 µV shunt LSB over the board's 10 mΩ shunt
 SHORT_OHM = 0.2  # the rig's cable short (rig_model FAULT_NAMES: "about 0.2 ohm")
 
 _LogHeater = Callable[[dict[str, Any]], None]
+log = logging.getLogger(__name__)
 
 
 class FirmwareNotFoundError(ImportError):
@@ -152,11 +155,13 @@ class RigHal:
         self.mode = ""
         self.duty = 0.0
         self._driving = False  # whether this board last told the rig its heater is on
+        self._heater_ohm = rig.probe.heater_resistance_ohm  # at the last set_duty: the period's resistance
         self._rng = random.Random(seed ^ 0x5EED)
 
     # ---- the electrical side ----
-    def electrical(self, duty: float) -> tuple[float, float, float]:
-        """(mean bus V, mean heater A, heat into the ground in W) at this duty, noise-free."""
+    def electrical(self, duty: float, heater_ohm: float | None = None) -> tuple[float, float, float]:
+        """(mean bus V, mean heater A, heat into the ground in W) at this duty, noise-free; the heater's
+        resistance is the rig's now unless given."""
         rig = self.rig
         b = rig.battery
         voc = rig.open_circuit_V()
@@ -165,7 +170,7 @@ class RigHal:
         if duty <= 0.0 or "heater_open" in faults:
             return v_idle, 0.0, 0.0
         shorted = "heater_short" in faults
-        r = SHORT_OHM if shorted else rig.heater_resistance_ohm()
+        r = SHORT_OHM if shorted else heater_ohm or rig.heater_resistance_ohm()
         i_on = min(voc / (r + b.internal_resistance_ohm), b.current_limit_A)
         v_on = i_on * r  # at the heater; equals V_oc - I·R_int unless the current limit holds it down
         heat = 0.0 if shorted else duty * i_on * v_on  # a short in the cable heats the cable, not the ground
@@ -177,7 +182,9 @@ class RigHal:
         on = self.duty > 0.0
         if not on and not self._driving:
             return
-        heat = self.electrical(self.duty)[2] if on else 0.0
+        if on:
+            self._heater_ohm = self.rig.heater_resistance_ohm()
+        heat = self.electrical(self.duty, self._heater_ohm)[2] if on else 0.0
         self.rig.set_heater(on, heat / self.rig.probe.heater_length_m)
         self._driving = on
 
@@ -190,7 +197,8 @@ class RigHal:
         self.apply()
 
     def read_power(self) -> tuple[float, float]:
-        bus, amps, _ = self.electrical(self.duty)
+        # the period just ended ran at the resistance of its start (the firmware sets the duty every cycle)
+        bus, amps, _ = self.electrical(self.duty, self._heater_ohm)
         g = self._rng.gauss
         bus = round(bus * (1.0 + MONITOR_GAIN_SD * g(0.0, 1.0)) / BUS_LSB_V) * BUS_LSB_V
         amps = round(amps * (1.0 + MONITOR_GAIN_SD * g(0.0, 1.0)) / CURRENT_LSB_A) * CURRENT_LSB_A
@@ -419,6 +427,12 @@ class FirmwareFrontEnd:
         self._faults_seen = []
         try:
             fn()
+        except Exception as exc:  # as hardware/firmware/main.py does: heater off, report, carry on
+            log.exception("firmware raised; reporting F,CRASH as the board's main loop would")
+            self.hal.set_duty(0.0)
+            with contextlib.suppress(Exception):
+                fw.heater_off()
+                fw.send("F", ["CRASH", type(exc).__name__])
         finally:
             w["lease.end_ms"] = to_wall(fw.lease.end_ms)
             w["last_cmd"] = None if fw.last_cmd is None else to_wall(fw.last_cmd[3])
