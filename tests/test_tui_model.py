@@ -1,0 +1,285 @@
+"""The UI's model without a terminal: folding events, what the plot draws, headroom, advice, the run form,
+re-reduction and export.
+
+Physics checks use the ideal line source, ΔT = q/(4πk)·E1(r²/4αt) (Carslaw & Jaeger 1959, Conduction of
+Heat in Solids, §10.4), with E1 from scipy.special.exp1, and its superposition for the cooling after heater
+off, ΔT = q/(4πk)·[E1(r²/4αt) − E1(r²/4α(t − t_off))] → q/(4πk)·ln(t/(t − t_off)) late in the cooling.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy.special import exp1
+
+from daemon.reduction.data import RunData
+from daemon.safety import Limits, SampleView, check_sample
+from tui.screens.history import filter_runs, trace_from_data
+from tui.screens.live_state import LiveState, RunTrace
+from tui.screens.rereduce import export_run, rereduce, run_data_from_arrays
+from tui.screens.run_form import PRESETS, can_arm, check_form, precheck
+from tui.widgets.advice import fault_advice, flag_words
+from tui.widgets.headroom import headroom_rows
+from tui.widgets.readouts import k_spread
+from tui.widgets.run_plot import PlotView, auto_view, build_spec, log_ticks, next_choice
+
+REPLAY = json.loads((Path(__file__).parent / "snapshots" / "replay_rod.json").read_text())
+# the fixture's invented medium and rod (see tests/snapshots/make_replay.py)
+K, ALPHA, Q, R_HEATER = 1.20, 1.20 / 2.0e6, 5.0, 0.635e-3
+
+
+def line_source_rise(t: np.ndarray | float, r: float = R_HEATER, k: float = K, alpha: float = ALPHA,
+                     q: float = Q) -> np.ndarray:
+    return q / (4 * math.pi * k) * exp1(r * r / (4 * alpha * np.asarray(t, dtype=float)))
+
+
+def replayed() -> LiveState:
+    live = LiveState()
+    live.apply_status(REPLAY["status"])
+    live.pending_plan = {"heat_s": 600.0, "recover_s": 600.0, "power_W_per_m": 5.0, "baseline_s": 60.0,
+                         "cycles": 1, "sensor": "heater"}
+    for ev in REPLAY["events"]:
+        live.apply_event(ev)
+    return live
+
+
+# -- folding events -------------------------------------------------------------------------------------------
+def test_replayed_run_is_heating_with_every_sensor() -> None:
+    live = replayed()
+    tr = live.trace
+    assert tr is not None
+    assert (live.run_id, live.run_state) == (17, "heating")
+    assert tr.sensors == ["heater", "r6", "r12"]
+    assert tr.heat_start_device_s == pytest.approx(1061.0)
+    assert live.heating_elapsed_s == pytest.approx(240.0)
+    left, at_least = live.remaining_s()
+    assert left == pytest.approx(600 - 240 + 600) and not at_least
+    assert live.can_stop_heating
+    assert live.events_seen == len(REPLAY["events"])
+
+
+def test_baseline_and_rise_match_the_line_source() -> None:
+    tr = replayed().trace
+    assert tr is not None and tr.baseline_source == "measured"
+    assert tr.baseline_C() == pytest.approx([11.80] * 3, abs=0.002)  # fixture's ground temperature, 3 mK noise
+    t, dT = tr.heating()
+    for i, r in enumerate((0.635e-3, 6e-3, 12e-3)):
+        late = t > 100
+        assert dT[late, i] == pytest.approx(line_source_rise(t[late], r), abs=0.015)
+    assert tr.max_rise_K() == pytest.approx(float(line_source_rise(240.0)), abs=0.015)
+
+
+def test_a_new_run_and_a_new_cycle_start_fresh_traces() -> None:
+    live = replayed()
+    live.apply_event({"event": "state", "run_id": 17, "state": "recovering", "reason": "x", "device_s": 1301.0})
+    assert live.trace is not None and live.trace.heat_off_t_s == pytest.approx(240.0)
+    live.apply_event({"event": "state", "run_id": 17, "state": "settling", "reason": "cycle 2", "device_s": 1901.0})
+    assert live.cycle == 2 and live.trace.device_s == []
+    live.apply_event({"event": "state", "run_id": 18, "state": "checking", "reason": "run requested"})
+    assert live.run_id == 18 and live.trace.run_id == 18 and live.estimate is None
+
+
+def test_joining_mid_run_extrapolates_the_baseline_from_the_fit() -> None:
+    full = replayed()
+    est = full.estimate
+    late = LiveState()
+    late.apply_status({**REPLAY["status"], "run": {"id": 17, "state": "heating", "plan": full.plan, "cycle": 1,
+                                                   "heat_start_device_s": 1061.0, "estimate": est,
+                                                   "phase_start_device_s": 1061.0}})
+    for ev in REPLAY["events"][-40:]:
+        late.apply_event(ev)
+    tr = late.trace
+    assert tr is not None and tr.baseline_source == "fit"
+    t, dT = tr.heating()
+    # only as good as the live fit's line: within 2 % of the rise here
+    assert dT[-1, 0] == pytest.approx(float(line_source_rise(t[-1])), rel=0.02)
+
+
+# -- the plot -------------------------------------------------------------------------------------------------
+def test_log_view_draws_data_fit_and_window() -> None:
+    tr = replayed().trace
+    spec = build_spec(tr, PlotView.LOG)
+    labels = [s.label for s in spec.series]
+    assert labels == ["heater", "r6", "r12", "fit"]
+    heater, fit = spec.series[0], spec.series[-1]
+    assert heater.x[-1] == pytest.approx(math.log(240.0))
+    # the drawn line is the live estimate's line ...
+    est = tr.last_estimate
+    assert fit.y == pytest.approx(est["slope_K"] * fit.x + est["intercept_K"])
+    # ... and the drawn points have the ideal late-time slope q/(4πk) per unit of ln t
+    late = heater.x > math.log(60.0)
+    assert np.polyfit(heater.x[late], heater.y[late], 1)[0] == pytest.approx(Q / (4 * math.pi * K), rel=0.02)
+    t0, t1 = est["window_s"]
+    assert [x for x, _ in spec.vlines] == pytest.approx([math.log(t0), math.log(t1)])
+    assert "ΔT" in spec.ylabel and "log" in spec.xlabel
+
+
+def test_cooling_view_is_a_line_through_the_origin() -> None:
+    # Build a heat-then-cool record from the line source and check the transformed points against q/(4πk)·x.
+    t_off = 300.0
+    t = np.arange(-30.0, 900.0, 1.0)
+    rise = np.where(t > 0, line_source_rise(np.clip(t, 1e-9, None)), 0.0)
+    rise -= np.where(t > t_off, line_source_rise(np.clip(t - t_off, 1e-9, None)), 0.0)
+    tr = RunTrace(1, ["heater"], 0, baseline_s=30.0, heat_start_device_s=0.0, heat_end_device_s=t_off)
+    tr.device_s = t.tolist()
+    tr.temps = [[10.0 + v] for v in rise]
+    tr.last_estimate = {"slope_K": Q / (4 * math.pi * K), "intercept_K": 0.0, "window_s": [30.0, 300.0]}
+    spec = build_spec(tr, PlotView.COOLING)
+    data, line = spec.series[0], spec.series[-1]
+    late = data.x < math.log(900.0 / 500.0)  # t − t_off > 200 s: late cooling
+    assert data.y[late] == pytest.approx(Q / (4 * math.pi * K) * data.x[late], rel=0.01)
+    assert line.y[0] == 0.0 and line.x[0] == 0.0
+    assert build_spec(replayed().trace, PlotView.COOLING).note == "cooling view: heater still on"
+
+
+def test_linear_view_marks_heater_on_and_the_views_cycle() -> None:
+    spec = build_spec(replayed().trace, PlotView.LINEAR)
+    assert (0.0, "on") in spec.vlines
+    assert spec.series[0].x.min() < 0  # the baseline is shown
+    assert [auto_view(s) for s in ("settling", "heating", "recovering", "done")] == \
+        [PlotView.LINEAR, PlotView.LOG, PlotView.COOLING, PlotView.LOG]
+    seq = [None]
+    for _ in range(4):
+        seq.append(next_choice(seq[-1]))
+    assert seq == [None, PlotView.LOG, PlotView.LINEAR, PlotView.COOLING, None]
+    assert build_spec(None, PlotView.LOG).note
+
+
+def test_log_ticks_are_in_seconds() -> None:
+    ticks, labels = log_ticks(1.0, 600.0)
+    assert labels == ["1", "10", "100"] and ticks == pytest.approx([0.0, math.log(10), math.log(100)])
+    assert log_ticks(216.0, 357.0)[1] == ["220", "360"]  # no 1-2-5 value inside: the rounded ends
+
+
+# -- readouts -------------------------------------------------------------------------------------------------
+def test_headroom_rows_and_verdicts() -> None:
+    live = replayed()
+    rows = {r.name: r for r in headroom_rows(live)}
+    assert set(rows) == {"rise", "probe", "battery", "heating"}
+    assert rows["rise"].used == pytest.approx(float(line_source_rise(240.0)) / 12.0, rel=0.02)
+    assert rows["rise"].verdict == "ok"
+    assert rows["heating"].used == pytest.approx(240.0 / 3600.0)
+    live.last_sample = {**live.last_sample, "supply_V": 10.4}
+    assert {r.name: r.verdict for r in headroom_rows(live)}["battery"] == "over"
+
+
+def test_k_spread_over_the_latest_stretch() -> None:
+    ests = [(t, 1.0 + (0.02 if t < 70 else 0.0), 0.01, False) for t in range(10, 101)]
+    # the steadiness rule looks back to t·e^−0.3 = 74 s at t = 100 s: the 2 % step at 70 s is outside it
+    assert k_spread(ests) == pytest.approx(0.0)
+    assert k_spread(ests[:62]) == pytest.approx(0.02, rel=1e-6)  # at t = 71 s the step is inside
+    assert k_spread([(50.0, 1.0, 0.0, False)]) is None
+
+
+def test_advice_for_the_daemons_own_trip_reasons() -> None:
+    lim = Limits()
+    base = dict(heating=True, heater_on=True, power_set_W_per_m=5.0, power_W_per_m=5.0, heater_ohm=40.0,
+                supply_V=12.5, temps_C=(14.0,), faults=(0,), rise_K=2.0, heating_elapsed_s=10.0)
+    if "heater_confirmed" in {f.name for f in dataclasses.fields(SampleView)}:
+        base["heater_confirmed"] = True
+    low = check_sample(SampleView(**{**base, "supply_V": 10.0}), lim, 40.0)
+    hot = check_sample(SampleView(**{**base, "rise_K": 13.0}), lim, 40.0)
+    open_tc = check_sample(SampleView(**{**base, "faults": (1,)}), lim, 40.0)
+    assert low is not None and "battery" in fault_advice(low).lower()
+    assert hot is not None and "less power" in fault_advice(hot)
+    assert open_tc is not None and "thermocouple" in fault_advice(open_tc)
+    assert "History" in fault_advice("something nobody planned for")
+    assert flag_words(["window_short", "odd_flag"]) == ["fit window still short", "odd flag"]
+
+
+# -- the run form ---------------------------------------------------------------------------------------------
+def test_form_turns_strings_into_a_plan_and_names_each_bad_field() -> None:
+    lim = REPLAY["status"]["limits"]
+    good = {"heat_s": "600", "recover_s": "600", "power_W_per_m": "4,5", "baseline_s": "60", "cycles": "2",
+            "site": " Kestrel Lane ", "depth_m": "1.5", "moisture_pct": "", "dry_density_kg_per_m3": "1650"}
+    form = check_form(good, lim, auto_stop=True, sensor="heater")
+    assert form.ok
+    assert form.plan == {"heat_s": 600.0, "recover_s": 600.0, "power_W_per_m": 4.5, "baseline_s": 60.0,
+                         "cycles": 2, "auto_stop": True, "sensor": "heater"}
+    assert form.metadata == {"site": "Kestrel Lane", "depth_m": 1.5, "dry_density_kg_per_m3": 1650.0}
+    bad = check_form({**good, "power_W_per_m": "75", "heat_s": "x", "cycles": "0", "site": "",
+                      "dry_density_kg_per_m3": "16500"}, lim)
+    assert set(bad.errors) == {"power_W_per_m", "heat_s", "cycles", "site", "dry_density_kg_per_m3"}
+    assert "above the limit 60" in bad.errors["power_W_per_m"]
+    assert all(check_form({**good, **{k: f"{v:g}" for k, v in p.items() if k != "label"}}, lim).ok
+               for p in PRESETS.values())
+
+
+def test_precheck_blocks_arming_until_the_rig_is_ready() -> None:
+    live = LiveState()
+    form = check_form({"heat_s": "600", "recover_s": "600", "power_W_per_m": "5", "baseline_s": "60",
+                       "cycles": "1", "site": "x"}, REPLAY["status"]["limits"])
+    assert not can_arm(precheck(live, form.plan), form)  # not connected
+    live.apply_status(REPLAY["status"])
+    checks = precheck(live, form.plan)
+    assert can_arm(checks, form), [c.text for c in checks]
+    live.last_sample = {**live.last_sample, "faults": [0, 4, 0], "supply_V": 10.2}
+    texts = [c.text for c in precheck(live, form.plan) if c.ok is False]
+    assert any("r6" in t for t in texts) and any("BELOW" in t for t in texts)
+    busy = replayed()
+    assert not can_arm(precheck(busy, form.plan), form)
+
+
+# -- history: filters, re-reduction, export -------------------------------------------------------------------
+def test_runs_filter_by_site_and_date() -> None:
+    runs = REPLAY["replies"]["runs"]["runs"]
+    assert [r["id"] for r in filter_runs(runs, "kestrel", "", "")] == [17, 16]
+    assert [r["id"] for r in filter_runs(runs, "", "2031-05-13", "2031-05-13")] == [15]
+    assert [r["id"] for r in filter_runs(runs, "", "2031-05-13", "")] == [17, 16, 15]
+
+
+def synthetic_run(noise_K: float = 0.0) -> RunData:
+    rng = np.random.default_rng(7)
+    t = np.arange(-60.0, 601.0, 1.0)
+    rise = np.where(t > 0, line_source_rise(np.clip(t, 1e-9, None)), 0.0)
+    q = np.where(t >= 0, Q, 0.0)
+    return RunData(t, q, {"heater": 12.0 + rise + rng.normal(0, noise_K, t.size)})
+
+
+@pytest.mark.parametrize(("method", "window"), [("auto", None), ("window", (60.0, 600.0)), ("live", None)])
+def test_rereduce_recovers_the_line_source_conductivity(method: str, window: tuple[float, float] | None) -> None:
+    # noise-free: the late-time line's own error at t ≥ 60 s is r²/4αt < 0.3 %
+    res = rereduce(synthetic_run(), "heater", method, window)
+    assert res["k_W_per_mK"] == pytest.approx(K, rel=0.005)
+    assert res["resistivity_mK_per_W"] == pytest.approx(1 / res["k_W_per_mK"])
+    if window:
+        assert res["window_s"] == pytest.approx(list(window))
+
+
+def test_rereduce_refuses_a_bad_window_and_an_unknown_sensor() -> None:
+    data = synthetic_run()
+    with pytest.raises(ValueError, match="start < end"):
+        rereduce(data, "heater", "window", (300.0, 100.0))
+    with pytest.raises(ValueError, match="no sensor"):
+        rereduce(data, "r99", "auto")
+
+
+def test_export_writes_the_reduce_csv_format(tmp_path: Path) -> None:
+    data = synthetic_run()
+    detail = REPLAY["replies"]["run"]["run"]
+    paths = export_run(detail, data, tmp_path, {"rereduced": {"heater": {"k_W_per_mK": 1.2}}})
+    assert [p.name for p in paths] == ["run-17.json", "run-17.csv"]
+    doc = json.loads(paths[0].read_text())
+    assert doc["site"] == "Kestrel Lane test pit" and doc["rereduced"]["heater"]["k_W_per_mK"] == 1.2
+    rows = [r for r in csv.reader(line for line in paths[1].read_text().splitlines() if not line.startswith("#"))]
+    assert rows[0] == ["time_s", "q_W_per_m", "T_heater_C"]
+    cols = list(zip(*rows[1:], strict=True))
+    back = run_data_from_arrays({"time_s": [float(v) for v in cols[0]], "q_W_per_m": [float(v) for v in cols[1]],
+                                 "temps_C": {"heater": [float(v) for v in cols[2]]}})
+    assert back.temps_C["heater"] == pytest.approx(data.temps_C["heater"], abs=1e-5)
+    assert rereduce(back, "heater", "auto")["k_W_per_mK"] == pytest.approx(K, rel=0.005)
+
+
+def test_stored_run_becomes_a_plottable_trace() -> None:
+    data = synthetic_run()
+    tr = trace_from_data(17, data, {"k_W_per_mK": K, "window_s": [60.0, 600.0]}, "heater")
+    spec = build_spec(tr, PlotView.LOG)
+    fit = spec.series[-1]
+    assert fit.label == "fit"
+    assert (fit.y[-1] - fit.y[0]) / (fit.x[-1] - fit.x[0]) == pytest.approx(Q / (4 * math.pi * K), rel=0.01)
