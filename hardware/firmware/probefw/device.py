@@ -88,6 +88,7 @@ class FrontEnd:
         self.read_ok = False
         # link
         self.last_cmd = None  # (seq, kind, fields, t_ms, ack_fields)
+        self.ok_detail = ""  # what an OK acknowledgement carries (switch-on/off time for P and O)
         self.bad_frame_times = []
         self.bad_frames = 0
 
@@ -160,11 +161,12 @@ class FrontEnd:
         ):
             self.send("A", last[4])  # a retry of a command we already applied: answer again, change nothing
             return
+        self.ok_detail = ""
         try:
             result = self._execute(kind, fields, now_ms)
         except (ValueError, IndexError):
             result = "BADARG"
-        ack = [str(seq), "OK", ""] if result == "" else [str(seq), "ERR", result]
+        ack = [str(seq), "OK", self.ok_detail] if result == "" else [str(seq), "ERR", result]
         self.last_cmd = (seq, kind, list(fields), now_ms, ack)
         self.send("A", ack)
 
@@ -179,6 +181,8 @@ class FrontEnd:
                             str(self.lease.left_ms(now_ms)), f"{self.rate_hz:g}", self.mode or "-"])
             return ""
         if kind == "O":
+            if self.heater_on:
+                self.ok_detail = str(now_ms)  # when the heater went off, for the host's time axis
             self.heater_off()
             self.latched = None  # the host's explicit acknowledgement clears a latched fault
             return ""
@@ -232,6 +236,7 @@ class FrontEnd:
         self.lease.grant(now_ms, lease_ms)
         if self.armed_at_ms is None:
             self.armed_at_ms = now_ms
+        self.ok_detail = str(self.armed_at_ms)  # when the heater went on: time zero of the host's analysis
         self.power_set_W_per_m = power
         self.duty = self.reg.start(power * self.length_m)
         self.hal.set_duty(self.duty)
