@@ -120,14 +120,18 @@ class FrontEnd:
     async def configure(self, rate_hz: float, tc_type: str, mode: str, heater_length_m: float) -> None:
         await self.command(m.CMD_CONFIGURE, [f"{rate_hz:g}", tc_type, mode, f"{heater_length_m * 1000:.1f}"])
 
-    async def set_power(self, power_W_per_m: float, lease_s: float) -> None:
-        await self.command(m.CMD_POWER, [f"{power_W_per_m:.4f}", str(int(lease_s * 1000))])
+    async def set_power(self, power_W_per_m: float, lease_s: float) -> int | None:
+        """Arm the heater; returns the device ms at which it went on (PROTOCOL.md §4.2), if the device says."""
+        ack = await self.command(m.CMD_POWER, [f"{power_W_per_m:.4f}", str(int(lease_s * 1000))])
+        return _device_ms(ack.detail)
 
     async def renew_lease(self, lease_s: float) -> None:
         await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))])
 
-    async def heater_off(self) -> None:
-        await self.command(m.CMD_OFF)
+    async def heater_off(self) -> int | None:
+        """Heater off; returns the device ms at which it went off when it had been on."""
+        ack = await self.command(m.CMD_OFF)
+        return _device_ms(ack.detail)
 
     async def heater_off_best_effort(self) -> bool:
         """Send OFF without letting a dead link raise; the device lease is the backstop."""
@@ -137,3 +141,7 @@ class FrontEnd:
                 self._seq = (self._seq + 1) % 65536
                 return True
         return False
+
+
+def _device_ms(detail: str) -> int | None:
+    return int(detail) if detail.isdigit() else None
