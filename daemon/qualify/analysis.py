@@ -110,6 +110,7 @@ class HeaterFit:
     tcr_per_K: float
     tcr_u_per_K: float
     drift_rel_per_h: float | None
+    drift_u_rel_per_h: float | None
     n: int
     resid_rms_ohm: float
 
@@ -139,7 +140,8 @@ def fit_heater_resistance(points: list[ResistancePoint]) -> HeaterFit:
     tcr = float(coef[1]) / r20
     tcr_u = math.hypot(math.sqrt(cov[1, 1]) / r20, tcr * math.sqrt(cov[0, 0]) / r20)
     drift = float(coef[2]) * 3600.0 / r20 if with_drift else None
-    return HeaterFit(r20, math.sqrt(cov[0, 0]), tcr, tcr_u, drift, len(points),
+    drift_u = math.sqrt(cov[2, 2]) * 3600.0 / r20 if with_drift else None
+    return HeaterFit(r20, math.sqrt(cov[0, 0]), tcr, tcr_u, drift, drift_u, len(points),
                      float(np.sqrt(np.mean(resid**2))))
 
 

@@ -100,7 +100,8 @@ def _heater_tcr(m: Measurements, c: Criterion, cfg: QualificationConfig, p: Prob
         return [_result(c, None, None, f"|TCR| ≤ {lim:.2g} /K", "1/K", m.errors.get("heater", "not measured"))]
     h = m.heater
     extra = "" if h.drift_rel_per_h is None else (
-        f"; drift term of the bath sequence {100 * h.drift_rel_per_h:+.3f} %/h taken out")
+        f"; a drift of {100 * h.drift_rel_per_h:+.2f} ± {100 * (h.drift_u_rel_per_h or 0.0):.2f} %/h over the bath "
+        "sequence taken out")
     return [_result(c, abs(h.tcr_per_K) <= lim, h.tcr_per_K, f"|TCR| ≤ {lim:.2g} /K", "1/K",
                     f"{h.tcr_per_K:.3g} ± {h.tcr_u_per_K:.2g} /K from {h.n} bath points{extra}")]
 
