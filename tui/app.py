@@ -113,7 +113,7 @@ class LinerigApp(App[int]):
                 continue
             delay, first_loss = BACKOFF_FIRST_S, True
             self.client = client
-            self.live.apply_status(status)
+            self.live.apply_status(status, fresh=True)
             self.post_message(DaemonConnected(status, ever_connected))
             ever_connected = True
             reason = "the daemon closed the connection"

@@ -175,30 +175,39 @@ class LiveState:
     """The plan this client just asked for, shown with a new run until a status reply confirms it."""
 
     # -- inputs ----------------------------------------------------------------------------------------------
-    def apply_status(self, st: dict[str, Any]) -> None:
+    def apply_status(self, st: dict[str, Any], fresh: bool = False) -> None:
+        """Fold in a status reply. A reply older than the events already seen (its device time is earlier)
+        only fills gaps, so a slow reply never winds the picture back. ``fresh``: a new connection, where
+        the daemon's clock may have restarted and the reply is the truth."""
         self.connected = True
         self.lost_reason = None
         self.status = st
-        self.frontend_up = bool(st.get("link_up"))
-        self.fault = st.get("fault")
-        self.device_s = st.get("device_s")
-        self.last_sample = st.get("last_sample")
+        dev = st.get("device_s")
+        stale = not fresh and self.device_s is not None and isinstance(dev, int | float) and dev < self.device_s
         run = st.get("run")
-        if run is not None:
-            self.run_id = run["id"]
-            self.run_state = run["state"]
-            self.plan = run.get("plan") or {}
-            self.cycle = run.get("cycle") or 1
-            self.phase_start_device_s = run.get("phase_start_device_s")
-            if self.trace is None or self.trace.run_id != run["id"]:
-                self.trace = self._new_trace(run["id"])
-            self.trace.heat_start_device_s = run.get("heat_start_device_s")
-            if run["state"] == "recovering" and self.trace.heat_end_device_s is None:
-                self.trace.heat_end_device_s = run.get("heat_end_device_s", run.get("phase_start_device_s"))
+        if not stale:
+            self.frontend_up = bool(st.get("link_up"))
+            self.fault = st.get("fault")
+            self.device_s = dev
+            self.last_sample = st.get("last_sample") or self.last_sample
+        if run is not None and (not stale or run["id"] == self.run_id):
+            if not stale:
+                self.run_id = run["id"]
+                self.run_state = run["state"]
+                self.cycle = run.get("cycle") or 1
+                self.phase_start_device_s = run.get("phase_start_device_s")
+            self.plan = run.get("plan") or self.plan
+            tr = self.trace
+            if tr is None or tr.run_id != run["id"]:
+                tr = self.trace = self._new_trace(run["id"])
+            if tr.heat_start_device_s is None or not stale:
+                tr.heat_start_device_s = run.get("heat_start_device_s") or tr.heat_start_device_s
+            if run["state"] == "recovering" and tr.heat_end_device_s is None:
+                tr.heat_end_device_s = run.get("heat_end_device_s", run.get("phase_start_device_s"))
             if isinstance(run.get("baseline_mean_C"), int | float):
-                self.trace.baseline_hint_C = float(run["baseline_mean_C"])
+                tr.baseline_hint_C = float(run["baseline_mean_C"])
             if run.get("estimate"):
-                self.trace.add_estimate(run["estimate"])
+                tr.add_estimate(run["estimate"])
         self.version += 1
 
     def mark_lost(self, reason: str) -> None:

@@ -1,0 +1,164 @@
+"""The UI driven by Textual's pilot against a real linerigd on the simulator.
+
+The daemon runs as its own process (``linerigd --simulate glycerol --speed 200``) on a temporary socket and
+database; the test waits for its ready line. Every wait is on a condition with a deadline, never a sleep.
+Glycerol is used because the live rule reaches a steady estimate in it within a few simulated minutes.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import time
+from collections.abc import Callable, Iterator
+from pathlib import Path
+
+import pytest
+from textual.pilot import Pilot
+
+from tui.app import LinerigApp
+from tui.client import Client
+from tui.screens.confirm import Confirm
+from tui.screens.live import LiveScreen
+from tui.screens.start import StartScreen
+from tui.widgets.readouts import EstimateReadout, RunBar, StopPrompt
+
+pytestmark = pytest.mark.timeout(90)
+
+
+class Daemon:
+    def __init__(self, tmp: Path) -> None:
+        self.socket = tmp / "d.sock"
+        self.db = tmp / "runs.db"
+        self.proc: subprocess.Popen[str] | None = None
+
+    def start(self) -> None:
+        self.proc = subprocess.Popen(
+            [sys.executable, "-m", "daemon.main", "--simulate", "glycerol", "--speed", "200",
+             "--socket", str(self.socket), "--db", str(self.db)],
+            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+        assert self.proc.stdout is not None
+        ready = json.loads(self.proc.stdout.readline() or "{}")
+        assert ready.get("ready"), "linerigd did not report ready"
+
+    def stop(self) -> None:
+        if self.proc is not None and self.proc.poll() is None:
+            self.proc.terminate()
+            try:
+                self.proc.wait(10)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait(5)
+
+
+@pytest.fixture
+def daemon(tmp_path: Path) -> Iterator[Daemon]:
+    d = Daemon(tmp_path)
+    d.start()
+    yield d
+    d.stop()
+
+
+async def until(pilot: Pilot, cond: Callable[[], bool], what: str, timeout: float = 30.0) -> None:
+    """Let the app run until ``cond()`` holds; fail with ``what`` after ``timeout`` seconds."""
+    deadline = time.monotonic() + timeout
+    while not cond():
+        if time.monotonic() > deadline:
+            raise AssertionError(f"timed out waiting for {what}")
+        await pilot.pause(0.02)
+
+
+def text_of(widget: object) -> str:
+    return str(widget.render())  # type: ignore[attr-defined]
+
+
+async def test_start_see_estimate_stop_when_steady_then_abort(daemon: Daemon) -> None:
+    app = LinerigApp(daemon.socket)
+    async with app.run_test(size=(80, 24)) as pilot:
+        live = app.live
+        await until(pilot, lambda: live.connected and live.frontend_up, "the daemon and its front end")
+        await pilot.press("f3")
+        await until(pilot, lambda: isinstance(app.screen, StartScreen), "the new-run form")
+        form = app.screen
+        assert isinstance(form, StartScreen)
+        form.query_one("#f-site").focus()
+        await pilot.press(*"Pond edge")
+        form.query_one("#f-heat_s").value = "1800"  # long enough that only the operator ends the heating
+        form.query_one("#f-baseline_s").value = "30"
+        await pilot.pause()
+        assert "READY" in text_of(form.query_one("#arm-line"))
+        await pilot.press("ctrl+s")
+        await until(pilot, lambda: isinstance(app.screen, Confirm), "the arming question")
+        await pilot.press("y")
+        await until(pilot, lambda: isinstance(app.screen, LiveScreen) and live.run_id is not None, "the live screen")
+        run_id = live.run_id
+
+        await until(pilot, lambda: live.estimate is not None, "a running estimate")
+        screen = app.screen
+        assert isinstance(screen, LiveScreen)
+        screen.redraw()
+        assert "W/(m·K)" in text_of(screen.query_one(EstimateReadout))
+        assert "HEATING" in text_of(screen.query_one(RunBar))
+
+        await until(pilot, lambda: live.can_stop_heating, "the 'heating can stop' verdict", timeout=60)
+        screen.redraw()
+        prompt = screen.query_one(StopPrompt)
+        assert prompt.display and "HEATING CAN STOP" in text_of(prompt)
+        await pilot.press("s")  # the prompt itself is the confirmation
+        await until(pilot, lambda: live.run_state == "recovering", "heating to stop")
+        assert live.trace is not None and live.trace.heat_off_t_s is not None
+
+        await pilot.press("a")
+        await until(pilot, lambda: isinstance(app.screen, Confirm), "the abort question")
+        await pilot.press("y")
+        await until(pilot, lambda: live.run_state == "aborted", "the run to be aborted")
+
+    async with Client(daemon.socket) as client:
+        detail = (await client.request("run", run_id=run_id))["run"]
+    assert detail["state"] == "aborted" and detail["site"] == "Pond edge"
+    kinds = [(e["kind"], e["state"]) for e in detail["events"]]
+    assert ("operator", None) in kinds and ("state", "recovering") in kinds
+
+
+async def test_closing_and_reopening_the_ui_leaves_the_run_alone(daemon: Daemon) -> None:
+    async with Client(daemon.socket) as client:
+        for _ in range(200):
+            if (await client.request("status"))["link_up"]:
+                break
+            await client.request("status")
+        run_id = (await client.request("start", heat_s=3000, baseline_s=20, metadata={"site": "bench"}))["run_id"]
+
+    app = LinerigApp(daemon.socket)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await until(pilot, lambda: app.live.run_state == "heating" and app.live.estimate is not None,
+                    "the heating run and an estimate")
+    async with Client(daemon.socket) as client:
+        run = (await client.request("status"))["run"]
+    assert run["id"] == run_id and run["state"] == "heating"  # the UI went away, the run did not
+
+    again = LinerigApp(daemon.socket)
+    async with again.run_test(size=(160, 48)) as pilot:
+        live = again.live
+        await until(pilot, lambda: live.run_id == run_id and len(live.trace.device_s if live.trace else []) > 5,
+                    "the reopened UI to follow the same run")
+        assert live.run_state == "heating"
+        assert live.trace is not None and live.trace.baseline_source in ("measured", "daemon", "fit")
+        await pilot.press("a")
+        await until(pilot, lambda: isinstance(again.screen, Confirm), "the abort question")
+        await pilot.press("y")
+        await until(pilot, lambda: live.run_state == "aborted", "the run to be aborted")
+
+
+async def test_the_link_comes_back_after_the_daemon_restarts(daemon: Daemon) -> None:
+    app = LinerigApp(daemon.socket)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await until(pilot, lambda: app.live.connected, "the first connection")
+        daemon.stop()
+        await until(pilot, lambda: not app.live.connected, "the UI to notice the daemon went away")
+        screen = app.screen
+        assert isinstance(screen, LiveScreen)
+        screen.redraw()
+        assert "NO DAEMON" in text_of(screen.query_one(RunBar))
+        daemon.start()
+        await until(pilot, lambda: app.live.connected and app.live.frontend_up, "the link to come back")
