@@ -88,6 +88,7 @@ class LinerigApp(App[int]):
         self.client: Client | None = None
         self._autostarted = False
         self.pending_preset: tuple[str, dict[str, Any]] | None = None
+        self._connected = asyncio.Event()
 
     def on_mount(self) -> None:
         self.run_worker(self._link(), name="daemon link", group="link", exclusive=True, exit_on_error=False)
@@ -113,6 +114,7 @@ class LinerigApp(App[int]):
                 continue
             delay, first_loss = BACKOFF_FIRST_S, True
             self.client = client
+            self._connected.set()
             self.live.apply_status(status, fresh=True)
             self.post_message(DaemonConnected(status, ever_connected))
             ever_connected = True
@@ -125,6 +127,7 @@ class LinerigApp(App[int]):
                 reason = str(exc)
             finally:
                 self.client = None
+                self._connected.clear()
                 await client.close()
             self.live.mark_lost(reason)
             self.post_message(DaemonLost(reason, delay, True))
@@ -164,6 +167,10 @@ class LinerigApp(App[int]):
         except DaemonError:
             return
         self.live.apply_status(status)
+
+    async def wait_connected(self) -> None:
+        """Return once the link is up (screens that load data call this before asking)."""
+        await self._connected.wait()
 
     async def request(self, op: str, **fields: Any) -> dict[str, Any]:
         """One request to the daemon; raises DaemonError with a message fit for the operator."""
@@ -211,8 +218,11 @@ class LinerigApp(App[int]):
                         severity="warning", timeout=6)
 
     def on_fault_raised(self, msg: FaultRaised) -> None:
+        from tui.screens.live import LiveScreen
         from tui.widgets.advice import fault_advice
 
+        if isinstance(self.screen, LiveScreen):
+            return  # the live screen's own banner says it, with what to do
         self.notify(f"{msg.reason}\n{fault_advice(msg.reason)}", title="Heater off: safety stop",
                     severity="error", timeout=15)
 

@@ -201,7 +201,9 @@ async def _live(args: argparse.Namespace, profile: Any, config: Any, operator: _
 
     prompts = _AsyncPromptOperator(operator)
     async with Client(args.socket) as client:
-        rig = DaemonQualificationRig(client, profile, prompts, primary_sensor(profile, config.procedure.sensor))
+        rig = DaemonQualificationRig(client, profile, prompts, primary_sensor(profile, config.procedure.sensor),
+                                     max_drift_K_per_min=config.procedure.max_drift_K_per_min,
+                                     settle_timeout_s=config.procedure.settle_timeout_s)
         await rig.check()
         return await run_async(profile, config, rig, prompts, _progress(args))
 

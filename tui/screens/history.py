@@ -108,6 +108,7 @@ class HistoryScreen(Screen[None]):
 
     @work(exclusive=True, group="runs")
     async def _load(self) -> None:
+        await self.rig.wait_connected()
         try:
             reply = await self.rig.request("runs", limit=RUNS_LIMIT)
         except DaemonError as exc:
@@ -209,6 +210,7 @@ class RunDetailScreen(Screen[None]):
 
     @work(exclusive=True, group="detail")
     async def _load(self) -> None:
+        await self.rig.wait_connected()
         try:
             detail = (await self.rig.request("run", run_id=self.run_id))["run"]
         except DaemonError as exc:

@@ -92,7 +92,7 @@ class LiveScreen(Screen[None]):
             plot = self.query_one(RunPlot)
             view = plot.choice or auto_view(live.run_state)
             spec = build_spec(live.trace, view)
-            spec.title += "" if plot.choice else "  [auto view]"
+            spec.title += "" if plot.choice else " · auto"
             plot.draw(spec)
             k_plot = self.query_one(EstimatePlot)
             if k_plot.display:

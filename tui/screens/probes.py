@@ -86,6 +86,8 @@ class ProbesScreen(Screen[None]):
         self.probes: list[dict[str, Any]] = []
         self.active: dict[str, Any] = {}
         self.calibrations: list[dict[str, Any]] = []
+        self.shown_serial: str | None = None
+        self.cals_loaded = False
 
     @property
     def rig(self) -> LinerigApp:
@@ -116,6 +118,7 @@ class ProbesScreen(Screen[None]):
     @work(exclusive=True, group="probes")
     async def _load(self) -> None:
         note = self.query_one("#probe-note", Static)
+        await self.rig.wait_connected()
         try:
             reply = await self.rig.request("probes")
         except DaemonError as exc:
@@ -144,7 +147,8 @@ class ProbesScreen(Screen[None]):
 
     @on(DataTable.RowHighlighted, "#probes")
     def _probe_highlighted(self, event: DataTable.RowHighlighted) -> None:
-        self._reload_cals(event.row_key.value)
+        if event.row_key.value != self.shown_serial:
+            self._reload_cals(event.row_key.value)
 
     @work(exclusive=True, group="cals")
     async def _reload_cals(self, serial: str | None) -> None:
@@ -153,6 +157,8 @@ class ProbesScreen(Screen[None]):
     async def _load_calibrations(self, serial: str | None) -> None:
         if serial is None:
             return
+        self.shown_serial = serial  # before any await, so the table's highlight message does not load it twice
+        self.cals_loaded = False
         try:
             reply = await self.rig.request("calibrations", probe_serial=serial)
         except DaemonError as exc:
@@ -166,6 +172,7 @@ class ProbesScreen(Screen[None]):
         for row in factor_rows(self.calibrations):
             table.add_row(*row)
         self._draw_factors()
+        self.cals_loaded = True
 
     def _draw_factors(self) -> None:
         plot = self.query_one("#factor-plot", PlotextPlot)

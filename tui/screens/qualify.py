@@ -175,7 +175,9 @@ class QualifyScreen(Screen[None]):
             from tui.client import Client
 
             async with Client(self._socket_path) as client:
-                rig = DaemonQualificationRig(client, profile, self, primary_sensor(profile, config.procedure.sensor))
+                rig = DaemonQualificationRig(client, profile, self, primary_sensor(profile, config.procedure.sensor),
+                                             max_drift_K_per_min=config.procedure.max_drift_K_per_min,
+                                             settle_timeout_s=config.procedure.settle_timeout_s)
                 await rig.check()
                 m = await run_async(profile, config, rig, self, self._on_progress)
         q = judge(profile, config, m, simulated=simulate)

@@ -29,6 +29,7 @@ META_INPUTS = (("site", "Site *", "e.g. North paddock"), ("location", "Borehole/
                ("dry_density_kg_per_m3", "Dry dens., kg/m³", "e.g. 1650"), ("operator", "Operator", ""),
                ("notes", "Notes", ""))
 RECHECK_S = 0.5
+AUTO_STOP_LABEL = "Stop heating by itself once the estimate is steady: "
 
 
 class StartScreen(Screen[None]):
@@ -61,7 +62,7 @@ class StartScreen(Screen[None]):
                     yield Input(placeholder=ph, id=f"f-{name}", compact=True)
                 yield Label("Fit sensor", classes="field-label")
                 yield Select([], id="sensor", allow_blank=True, prompt="(probe's own)", compact=True)
-            yield Checkbox("Stop heating by itself once the estimate is steady", id="auto-stop", compact=True)
+            yield Checkbox(AUTO_STOP_LABEL + "off", id="auto-stop", compact=True)
             yield Static("SAMPLE AND PLACE", classes="section")
             with Grid(id="meta-grid", classes="form-grid"):
                 for name, label, ph in META_INPUTS:
@@ -110,9 +111,13 @@ class StartScreen(Screen[None]):
             self.apply_preset(event.value)
 
     @on(Input.Changed)
-    @on(Checkbox.Changed)
     @on(Select.Changed, "#sensor")
     def _edited(self) -> None:
+        self.refresh_checks()
+
+    @on(Checkbox.Changed, "#auto-stop")
+    def _auto_stop_changed(self, event: Checkbox.Changed) -> None:
+        event.checkbox.label = AUTO_STOP_LABEL + ("ON" if event.value else "off")  # words, not only colour
         self.refresh_checks()
 
     def _sync_sensors(self) -> None:

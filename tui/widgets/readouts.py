@@ -97,12 +97,10 @@ class EstimateReadout(Static):
             text.append(f"\n ⚠ no new fit since {t_fit:.0f} s", style="yellow")
         alpha = _f(src.get("alpha_m2_per_s"))
         rms = _f(src.get("residual_rms_K"))
-        if wide and (math.isfinite(alpha) or math.isfinite(rms)):
-            text.append("\n")
-            if math.isfinite(alpha):
-                text.append(f" α {alpha * 1e6:.2f} mm²/s")
-            if math.isfinite(rms):
-                text.append(f" · fit rms {1000 * rms:.1f} mK")
+        extra = ([f"α {alpha * 1e6:.2f} mm²/s"] if math.isfinite(alpha) else []) + \
+            ([f"fit rms {1000 * rms:.1f} mK"] if math.isfinite(rms) else [])
+        if wide and extra:
+            text.append("\n " + " · ".join(extra))
         self.update(text)
 
 

@@ -132,7 +132,7 @@ def build_spec(tr: RunTrace | None, view: PlotView) -> PlotSpec:
 
 
 def _log_spec(tr: RunTrace | None) -> PlotSpec:
-    spec = PlotSpec("ΔT against ln t (heating)", "time since heater on, s (log scale)")
+    spec = PlotSpec("ΔT vs ln t (heating)", "time since heater on, s (log scale)")
     if tr is None:
         spec.note = "ln t view: no run yet"
         return spec
@@ -150,14 +150,14 @@ def _log_spec(tr: RunTrace | None) -> PlotSpec:
         spec.series.append(Series(xs, slope * xs + icpt, "fit", "braille", line=True, color="red"))
         spec.vlines = [(math.log(t0), ""), (math.log(t1), "")]
         spec.labels = [("window", 0.5 * (math.log(t0) + math.log(t1)))]
-        spec.title = f"ΔT against ln t · fit window {t0:.0f}–{t1:.0f} s"
+        spec.title = f"ΔT vs ln t · window {t0:.0f}–{t1:.0f} s"
         lo, hi = min(lo, t0), max(hi, t1)
     spec.xticks = log_ticks(lo, hi)
     return spec
 
 
 def _linear_spec(tr: RunTrace | None) -> PlotSpec:
-    spec = PlotSpec("ΔT against t (whole cycle)", "time since heater on, s")
+    spec = PlotSpec("ΔT vs t (whole cycle)", "time since heater on, s")
     if tr is None or not tr.device_s:
         spec.note = "t view: no run yet"
         return spec
@@ -180,7 +180,7 @@ def _linear_spec(tr: RunTrace | None) -> PlotSpec:
 
 
 def _cooling_spec(tr: RunTrace | None) -> PlotSpec:
-    spec = PlotSpec("Cooling: ΔT against ln(t/(t − t_off))", "ln(t / (t − t_off))  (late cooling at left)")
+    spec = PlotSpec("cooling: ΔT vs ln(t/(t−t_off))", "ln(t / (t − t_off)), late cooling at left")
     if tr is None or tr.heat_off_t_s is None:
         spec.note = "cooling view: heater still on"
         return spec
