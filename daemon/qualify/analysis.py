@@ -35,6 +35,8 @@ SKIP_FRACTION = 0.2
 """Share of a heater check discarded at its start, while the heater warms (common practice, no source)."""
 MIN_WINDOW_LN = 0.5
 """A reference-run window never spans less than half a unit of ln t (the reduction's own fallback)."""
+MIN_TCR_SPAN_K = 5.0
+"""Bath temperatures closer than this cannot give a temperature coefficient worth the name (common practice)."""
 DRIFT_Z = 3.0
 """A reference run's baseline drift is removed only when it exceeds 3 standard uncertainties (common practice)."""
 
@@ -116,8 +118,11 @@ class HeaterFit:
 
 
 def fit_heater_resistance(points: list[ResistancePoint]) -> HeaterFit:
-    if len(points) < 2 or len({round(p.heater_C, 3) for p in points}) < 2:
-        raise QualificationDataError("the temperature coefficient needs resistance at two or more temperatures")
+    temps = [p.heater_C for p in points]
+    if len(points) < 2 or max(temps) - min(temps) < MIN_TCR_SPAN_K:
+        raise QualificationDataError(
+            f"the temperature coefficient needs resistance at temperatures at least {MIN_TCR_SPAN_K:g} K apart "
+            f"(heater at {', '.join(f'{t:.2f}' for t in temps)} °C): use baths further apart")
     T = np.array([p.heater_C - 20.0 for p in points])
     ts = np.array([p.session_s for p in points])
     R = np.array([p.R_ohm for p in points])

@@ -80,6 +80,8 @@ class Procedure:
     baseline_s: float
     heat_s: float
     sample_interval_s: float
+    max_drift_K_per_min: float
+    settle_timeout_s: float
 
 
 @dataclass(frozen=True)
@@ -225,6 +227,8 @@ def config_from_dict(doc: dict[str, Any]) -> QualificationConfig:
         baseline_s=_num(p, "baseline_s", "procedure"),
         heat_s=_num(p, "heat_s", "procedure"),
         sample_interval_s=_num(p, "sample_interval_s", "procedure"),
+        max_drift_K_per_min=_num(p, "max_drift_K_per_min", "procedure"),
+        settle_timeout_s=_num(p, "settle_timeout_s", "procedure"),
     )
 
     u = doc.get("intended_use")

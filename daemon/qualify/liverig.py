@@ -55,12 +55,16 @@ class DaemonQualificationRig:
 
     blocking = False
     link_wait_s = 10.0
+    settle_window_s = 60.0
 
-    def __init__(self, client: DaemonClient, profile: ProbeProfile, operator: LiveOperator, sensor: str) -> None:
+    def __init__(self, client: DaemonClient, profile: ProbeProfile, operator: LiveOperator, sensor: str, *,
+                 max_drift_K_per_min: float = 0.002, settle_timeout_s: float = 3600.0) -> None:
         self.client = client
         self.profile = profile
         self.operator = operator
         self.sensor = sensor
+        self.max_drift_K_per_min = max_drift_K_per_min
+        self.settle_timeout_s = settle_timeout_s
         self._subscribed = False
         self._t0_device_s: float | None = None
 
@@ -117,16 +121,43 @@ class DaemonQualificationRig:
             self._t0_device_s = device_s
         return device_s - self._t0_device_s
 
-    async def _log_only(self, seconds: float) -> Recording:
-        rows: list[dict[str, Any]] = []
-        start: float | None = None
+    def _fresh(self, ev: dict[str, Any], after_s: float) -> bool:
+        """A heater-off sample taken after ``after_s`` (events queued while the operator was busy are stale)."""
+        return ev.get("event") == "sample" and ev.get("run_id") is None and float(ev["device_s"]) > after_s
+
+    async def _settle(self, after_s: float) -> float:
+        """Wait until every channel drifts by less than ``max_drift_K_per_min`` over ``settle_window_s``, as the
+        daemon's own settling state does before a run; return the device time it was reached."""
+        window: list[tuple[float, list[float]]] = []
         async for ev in self.client.events():
-            if ev.get("event") != "sample" or ev.get("run_id") is not None:
+            if not self._fresh(ev, after_s):
                 continue
             d = float(ev["device_s"])
-            start = d if start is None else start
+            window.append((d, [math.nan if v is None else float(v) for v in ev["temps_C"]]))
+            while window and d - window[0][0] > self.settle_window_s:
+                window.pop(0)
+            if d - after_s > self.settle_timeout_s:
+                raise LiveRigError(f"the bath readings did not settle within {self.settle_timeout_s:.0f} s: check "
+                                   "the bath's stirring and temperature control")
+            if len(window) < 10 or d - window[0][0] < 0.9 * self.settle_window_s:
+                continue
+            t = np.array([w[0] for w in window])
+            temps = np.array([w[1] for w in window], dtype=float)
+            ok = np.all(np.isfinite(temps), axis=0)
+            slopes = [abs(float(np.polyfit(t, temps[:, j], 1)[0])) * 60.0 for j in np.nonzero(ok)[0]]
+            if slopes and max(slopes) <= self.max_drift_K_per_min:
+                return d
+        raise LiveRigError("the daemon closed the event stream")
+
+    async def _log_only(self, seconds: float) -> Recording:
+        st = await self.client.request("status")
+        start = await self._settle(float(st.get("device_s") or 0.0))
+        rows: list[dict[str, Any]] = []
+        async for ev in self.client.events():
+            if not self._fresh(ev, start):
+                continue
             rows.append(ev)
-            if d - start >= seconds:
+            if float(ev["device_s"]) - float(rows[0]["device_s"]) >= seconds:
                 break
         end = float(rows[-1]["device_s"])
         return self._recording(rows, t_origin=end)
@@ -135,6 +166,7 @@ class DaemonQualificationRig:
         reply = await self.client.request(
             "start", baseline_s=max(request.log_s, 1.0), heat_s=request.heat_s, recover_s=1.0,
             power_W_per_m=request.power_W_per_m, sensor=self.sensor,
+            max_drift_K_per_min=self.max_drift_K_per_min, settle_timeout_s=self.settle_timeout_s,
             metadata={"notes": f"probe qualification: {request.purpose}", "sample": request.purpose})
         run_id = reply["run_id"]
         rows: list[dict[str, Any]] = []
@@ -154,6 +186,8 @@ class DaemonQualificationRig:
         t0 = detail.get("heat_start_device_s")
         if t0 is None:
             raise LiveRigError(f"run {run_id} never started heating")
+        # the daemon heats only once the baseline has settled: keep the last log_s of it, not the settling itself
+        rows = [r for r in rows if float(r["device_s"]) >= float(t0) - max(request.log_s, 1.0)]
         return self._recording(rows, t_origin=float(t0))
 
     def _recording(self, rows: list[dict[str, Any]], t_origin: float) -> Recording:
@@ -168,9 +202,16 @@ class DaemonQualificationRig:
                 if i < len(names):
                     faults[names[i]] |= int(bits or 0)
         on = np.array([bool(r.get("heater_on")) for r in rows])
+        t = device - t_origin
+        q = np.where(on, [float(r.get("q_W_per_m") or 0.0) for r in rows], 0.0)
+        # The daemon's heat_start_device_s is when the heater came on; a sample taken at that instant may predate
+        # the switch. The reduction reads q[i] as held from t[i] on, so that row carries the heating power.
+        heating = np.nonzero((t > 0) & (q > 0))[0]
+        at_zero = np.nonzero(np.abs(t) < 1e-6)[0]
+        if heating.size and at_zero.size and q[at_zero[0]] == 0.0:
+            q[at_zero[0]] = q[heating[0]]
         return Recording(
-            t_s=device - t_origin, session_s=np.array([self._session(d) for d in device]),
+            t_s=t, session_s=np.array([self._session(d) for d in device]),
             heater_V=np.array([float(r.get("heater_V") or 0.0) for r in rows]),
             heater_A=np.array([float(r.get("heater_A") or 0.0) for r in rows]),
-            q_W_per_m=np.where(on, [float(r.get("q_W_per_m") or 0.0) for r in rows], 0.0),
-            temps_C={n: temps[:, i] for i, n in enumerate(names)}, faults=faults)
+            q_W_per_m=q, temps_C={n: temps[:, i] for i, n in enumerate(names)}, faults=faults)
