@@ -222,3 +222,22 @@ def test_probes_screen(replay: Callable[..., LinerigApp], snap_compare: Any, siz
         await pilot.pause()
 
     assert snap_compare(replay(), terminal_size=size, run_before=run_before)
+
+
+# -- the CLI twins of the history and probes screens, against the same replayed daemon -------------------------
+def test_history_and_probes_commands(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from tui.cli import main
+
+    with ReplayServer(tmp_path / "cli.sock", DOC["events"]) as srv:
+        assert main(["--socket", str(srv.path), "history", "--site", "KESTREL", "--json"]) == 0
+        assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [17, 16]
+        assert main(["--socket", str(srv.path), "history", "--since", "2031-05-13", "--until", "2031-05-13"]) == 0
+        out = capsys.readouterr().out
+        assert "Heron Farm verge" in out and "Kestrel" not in out
+        assert main(["--socket", str(srv.path), "history", "--since", "13/05/2031"]) == 2
+        assert "YYYY-MM-DD" in capsys.readouterr().err
+        assert main(["--socket", str(srv.path), "history", "17"]) == 0
+        assert "heater: k = 1.197 ± 0.014 W/(m·K)" in capsys.readouterr().out
+        assert main(["--socket", str(srv.path), "probes"]) == 0
+        out = capsys.readouterr().out
+        assert "ROD-0003  three-sensor rod  (rod)  in use" in out and "factor 0.9828 ± 0.0061" in out

@@ -1,0 +1,68 @@
+"""``linerig history``: stored runs filtered by site and date, or one run in detail (the UI's history, as text)."""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import json
+import sys
+from typing import Any
+
+from tui.client import Client, DaemonError
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = sub.add_parser("history", help="list stored runs, or show one")
+    p.add_argument("run_id", nargs="?", type=int, help="show this run in detail")
+    p.add_argument("--site", default="", help="only runs whose site contains this text")
+    p.add_argument("--since", default="", metavar="YYYY-MM-DD", help="only runs started on or after this day (UTC)")
+    p.add_argument("--until", default="", metavar="YYYY-MM-DD", help="only runs started on or before this day (UTC)")
+    p.add_argument("--limit", type=int, default=200, help="look at this many recent runs (default 200)")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=run)
+
+
+async def _run(args: argparse.Namespace) -> int:
+    from tui.screens.history import DATE, filter_runs
+
+    for day in (args.since, args.until):
+        if day and not DATE.match(day):
+            print(f"linerig history: dates are YYYY-MM-DD, got {day!r}", file=sys.stderr)
+            return 2
+    async with Client(args.socket) as client:
+        if args.run_id is not None:
+            detail = (await client.request("run", run_id=args.run_id))["run"]
+            print(json.dumps(detail, indent=2) if args.json else _detail_text(detail))
+            return 0
+        runs = (await client.request("runs", limit=args.limit))["runs"]
+    shown = filter_runs(runs, args.site, args.since, args.until)
+    if args.json:
+        print(json.dumps(shown, indent=2))
+        return 0
+    for r in shown:
+        print(f"{r['id']:>5}  {str(r.get('created_utc') or '')[:16].replace('T', ' ')}  {r.get('state') or '?':<9} "
+              f"{r.get('site') or '':<24} {r.get('location') or '':<10} {r.get('sample') or ''}")
+    print(f"{len(shown)} of {len(runs)} runs", file=sys.stderr)
+    return 0
+
+
+def _detail_text(d: dict[str, Any]) -> str:
+    lines = [f"run {d['id']}: {d.get('state')} — {d.get('end_reason') or ''}",
+             f"  site {d.get('site') or '-'}, spot {d.get('location') or '-'}, sample {d.get('sample') or '-'}, "
+             f"material {d.get('material') or '-'}, probe {d.get('probe_serial') or '-'}"]
+    for name, r in (d.get("results") or {}).items():
+        k, ku = r.get("k_W_per_mK"), r.get("k_u_W_per_mK")
+        if isinstance(k, int | float):
+            flags = ", ".join(r.get("flags") or []) or "none"
+            lines.append(f"  {name}: k = {k:.3f} ± {ku or 0:.3f} W/(m·K), flags: {flags}")
+    for ev in d.get("events") or []:
+        lines.append(f"  {ev.get('wall_utc') or '':<24} {ev.get('kind') or '':<9} {ev.get('reason') or ''}")
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    try:
+        return asyncio.run(_run(args))
+    except DaemonError as exc:
+        print(f"linerig history: {exc}", file=sys.stderr)
+        return 2
