@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from functools import cache
 from pathlib import Path
 
@@ -366,3 +367,15 @@ axial_mm = 50.0
     assert "no qualification 9" in capsys.readouterr().err
     assert cli_main(["qualify", "criteria"]) == 0
     assert "[criteria.insulation]" in capsys.readouterr().out
+
+
+def test_profile_gaps_are_named_with_the_value_to_add() -> None:
+    q = qualified("good")
+    bare = profile_from_dict({"probe": {"name": "bench needle", "serial": "QN-0001", "heater_length_mm": 100.0,
+                                        "radius_mm": 0.635},
+                              "sensor": [{"name": "heater", "radial_mm": 0.0, "axial_mm": 50.0}]})
+    res = {r.id: r for r in evaluate(q.measurements, q.config, bare)}
+    assert res["probe_heat_capacity"].status == "fail"
+    assert re.search(r"add heat_capacity_MJ_per_m3K = 3\.[0-3]\d", res["probe_heat_capacity"].detail)
+    assert res["heater_resistance"].status == "not_applicable"
+    assert re.search(r"add heater_resistance_ohm = (39\.9\d|40\.0\d)", res["heater_resistance"].detail)
