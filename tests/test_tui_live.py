@@ -7,6 +7,7 @@ Glycerol is used because the live rule reaches a steady estimate in it within a 
 
 from __future__ import annotations
 
+import asyncio
 import json
 import subprocess
 import sys
@@ -122,10 +123,12 @@ async def test_start_see_estimate_stop_when_steady_then_abort(daemon: Daemon) ->
 
 async def test_closing_and_reopening_the_ui_leaves_the_run_alone(daemon: Daemon) -> None:
     async with Client(daemon.socket) as client:
-        for _ in range(200):
-            if (await client.request("status"))["link_up"]:
-                break
-            await client.request("status")
+        await client.request("subscribe")
+        if not (await client.request("status"))["link_up"]:
+            async with asyncio.timeout(30):
+                async for ev in client.events():  # the daemon announces its front end with a link event
+                    if ev["event"] == "link" and ev["up"]:
+                        break
         run_id = (await client.request("start", heat_s=3000, baseline_s=20, metadata={"site": "bench"}))["run_id"]
 
     app = LinerigApp(daemon.socket)

@@ -44,6 +44,7 @@ class RunTrace:
     estimates: list[tuple[float, float, float, bool]] = field(default_factory=list)
     last_estimate: dict[str, Any] | None = None
     baseline_hint_C: float | None = None
+    _cache: tuple[Any, np.ndarray, np.ndarray] | None = field(default=None, repr=False, compare=False)
 
     def add_sample(self, ev: dict[str, Any]) -> None:
         temps = [_num(v) for v in ev.get("temps_C") or []]
@@ -65,11 +66,18 @@ class RunTrace:
 
     # -- arrays ----------------------------------------------------------------------------------------------
     def _arrays(self) -> tuple[np.ndarray, np.ndarray]:
+        """Device times and a (samples × sensors) array; rebuilt only when samples were added or put in front."""
+        key = (len(self.device_s), self.device_s[0] if self.device_s else None)
+        cached = self._cache
+        if cached is not None and cached[0] == key:
+            return cached[1], cached[2]
         width = max((len(r) for r in self.temps), default=0)
         temps = np.full((len(self.temps), width), np.nan)
         for i, row in enumerate(self.temps):
             temps[i, :len(row)] = row
-        return np.asarray(self.device_s, dtype=float), temps
+        dev = np.asarray(self.device_s, dtype=float)
+        self._cache = (key, dev, temps)
+        return dev, temps
 
     def baseline_C(self) -> np.ndarray:
         """Temperature of each sensor before heater on (NaN where unknown); see ``baseline_source``."""

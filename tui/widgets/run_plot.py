@@ -134,7 +134,7 @@ def build_spec(tr: RunTrace | None, view: PlotView) -> PlotSpec:
 def _log_spec(tr: RunTrace | None) -> PlotSpec:
     spec = PlotSpec("ΔT vs ln t (heating)", "time since heater on, s (log scale)")
     if tr is None:
-        spec.note = "ln t view: no run yet"
+        spec.note = "no run yet: F3 sets one up"
         return spec
     t, dT = tr.heating()
     if t.size < 2:
@@ -159,7 +159,7 @@ def _log_spec(tr: RunTrace | None) -> PlotSpec:
 def _linear_spec(tr: RunTrace | None) -> PlotSpec:
     spec = PlotSpec("ΔT vs t (whole cycle)", "time since heater on, s")
     if tr is None or not tr.device_s:
-        spec.note = "t view: no run yet"
+        spec.note = "no run yet: F3 sets one up"
         return spec
     t, dT = tr.rise()
     if tr.heat_start_device_s is None:  # still settling: time from the first sample, ΔT from its mean
