@@ -283,3 +283,25 @@ def test_stored_run_becomes_a_plottable_trace() -> None:
     fit = spec.series[-1]
     assert fit.label == "fit"
     assert (fit.y[-1] - fit.y[0]) / (fit.x[-1] - fit.x[0]) == pytest.approx(Q / (4 * math.pi * K), rel=0.01)
+
+
+def test_settling_drift_is_the_slope_over_the_baseline_span() -> None:
+    from tui.widgets.readouts import baseline_drift_K_per_min
+
+    tr = RunTrace(3, ["heater"], 0, baseline_s=60.0)
+    tr.device_s = [float(i) for i in range(200)]
+    tr.temps = [[15.0 + (0.5 if i < 100 else 0.0) + 0.03 * i / 60.0] for i in range(200)]  # step then 0.03 K/min
+    assert baseline_drift_K_per_min(tr) == pytest.approx(0.03, rel=1e-9)
+    assert baseline_drift_K_per_min(RunTrace(3, ["heater"])) is None
+
+
+def test_joining_while_cooling_uses_the_late_cooling_line() -> None:
+    t_off = 300.0
+    t = np.arange(700.0, 900.0, 1.0)  # the UI saw only late cooling
+    rise = line_source_rise(t) - line_source_rise(t - t_off)
+    tr = RunTrace(1, ["heater"], 0, heat_start_device_s=0.0, heat_end_device_s=t_off)
+    tr.device_s = t.tolist()
+    tr.temps = [[10.0 + v] for v in rise]
+    tr.last_estimate = {"slope_K": Q / (4 * math.pi * K), "intercept_K": 5.0, "window_s": [30.0, 300.0]}
+    assert tr.baseline_source == "fit"
+    assert tr.baseline_C()[0] == pytest.approx(10.0, abs=0.005)

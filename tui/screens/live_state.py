@@ -108,6 +108,9 @@ class RunTrace:
         slope, icpt = est.get("slope_K"), est.get("intercept_K")
         t_first = dev[0] - self.heat_start_device_s if self.heat_start_device_s is not None else math.nan
         if isinstance(slope, int | float) and isinstance(icpt, int | float) and t_first > 0:
+            t_off = self.heat_off_t_s
+            if t_off is not None and t_first > t_off:  # joined while cooling: the late-cooling line instead
+                return temps[0] - slope * math.log(t_first / (t_first - t_off)), "fit"
             return temps[0] - (slope * math.log(t_first) + icpt), "fit"
         return base, "none"
 

@@ -9,11 +9,12 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import numpy as np
 from rich.text import Text
 from textual.widgets import Static
 
 from daemon.reduction.stability import STRETCH_LN
-from tui.screens.live_state import STATE_SYMBOLS, STATE_WORDS, LiveState
+from tui.screens.live_state import STATE_SYMBOLS, STATE_WORDS, LiveState, RunTrace
 from tui.units import DisplayUnit, companion, duration, show
 from tui.widgets.advice import fault_advice, flag_words
 
@@ -123,6 +124,20 @@ def k_spread(estimates: list[tuple[float, float, float, bool]]) -> float | None:
     return max(max(ks) - k_now, k_now - min(ks)) / abs(k_now)
 
 
+def baseline_drift_K_per_min(tr: RunTrace | None) -> float | None:
+    """Slope of the fit sensor over the latest baseline span, as the daemon judges settling (K/min)."""
+    if tr is None or len(tr.device_s) < 3:
+        return None
+    dev = np.asarray(tr.device_s, dtype=float)
+    sel = dev >= dev[-1] - tr.baseline_s
+    y = np.asarray([row[tr.primary] if tr.primary < len(row) else math.nan for row in tr.temps], dtype=float)[sel]
+    x = dev[sel]
+    ok = np.isfinite(y)
+    if np.count_nonzero(ok) < 3 or np.ptp(x[ok]) <= 0:
+        return None
+    return float(np.polyfit(x[ok] - x[ok][0], y[ok], 1)[0] * 60.0)
+
+
 class VerdictReadout(Static):
     """Whether heating can stop yet, and why not."""
 
@@ -133,7 +148,15 @@ class VerdictReadout(Static):
         est = live.estimate
         tr = live.trace
         if est is None:
-            text.append("\n ○ no estimate yet", style="dim")
+            drift = baseline_drift_K_per_min(tr) if live.run_state == "settling" else None
+            if drift is not None:
+                limit = _f(live.plan.get("max_drift_K_per_min"))
+                ok = math.isfinite(limit) and abs(drift) <= limit
+                text.append(f"\n {'✓' if ok else '~'} ground drift {drift:+.3f} K/min", style="green" if ok else "")
+                if math.isfinite(limit):
+                    text.append(f"\n   heater goes on at ≤ {limit:.3f}")
+            else:
+                text.append("\n ○ no estimate yet", style="dim")
             self.update(text)
             return
         stable_at = est.get("stable_at_s")
@@ -141,7 +164,7 @@ class VerdictReadout(Static):
             text.append(f"\n ● STEADY since {stable_at:.0f} s" if stable_at is not None else "\n ● STEADY",
                         style="bold green")
         elif stable_at is not None:
-            text.append(f"\n ◑ was steady at {stable_at:.0f} s, moving again", style="yellow")
+            text.append(f"\n ◑ steady at {stable_at:.0f} s, then moved", style="yellow")
         else:
             text.append("\n ◔ not yet steady", style="yellow")
         spread = k_spread(tr.estimates) if tr is not None else None
