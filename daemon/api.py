@@ -115,6 +115,23 @@ def peer_credentials(sock: socket.socket | None) -> Peer:
     return Peer(pid, uid, gid)
 
 
+def peer_groups(peer: Peer) -> set[int]:
+    """The peer process's supplementary groups as the kernel has them (/proc), else as /etc/group says."""
+    if peer.pid:
+        try:
+            with open(f"/proc/{peer.pid}/status") as fh:
+                for line in fh:
+                    if line.startswith("Groups:"):
+                        return {int(g) for g in line.split()[1:]}
+        except OSError:
+            pass
+    try:
+        name = pwd.getpwuid(peer.uid if peer.uid is not None else -1).pw_name
+    except KeyError:
+        return set()
+    return set(os.getgrouplist(name, peer.gid if peer.gid is not None else -1))
+
+
 def peer_allowed(peer: Peer, group_gid: int | None) -> bool:
     """Root, the daemon's own user and members of the control group; anyone who could open the file when
     no group is set (the file mode already limits that to the daemon's user and group)."""
@@ -122,11 +139,7 @@ def peer_allowed(peer: Peer, group_gid: int | None) -> bool:
         return True
     if peer.uid in (0, os.getuid()) or peer.gid == group_gid:
         return True
-    try:
-        name = pwd.getpwuid(peer.uid).pw_name
-    except KeyError:
-        return False
-    return group_gid in os.getgrouplist(name, peer.gid if peer.gid is not None else -1)
+    return group_gid in peer_groups(peer)
 
 
 class ApiServer:
@@ -208,13 +221,19 @@ class ApiServer:
                         continue
                     if not line.strip():
                         continue
-                    reply = await self._handle(line, peer)
+                    if len(line) > MAX_LINE:
+                        self.errors += 1
+                        reply = {"ok": False, "error": f"request longer than {MAX_LINE} bytes; ignored"}
+                    else:
+                        reply = await self._handle(line, peer)
                     if reply.pop("_subscribe", False) and sub_task is None:
                         sub_task = asyncio.create_task(self._stream(writer))
                     await self._send(writer, encode(reply))
                     await asyncio.sleep(0)  # a client sending a flood of requests must not starve the rig
         except (ConnectionError, OSError, TimeoutError):
             pass
+        except asyncio.CancelledError:
+            pass  # shutting down; ending normally keeps asyncio 3.11's stream callback from raising
         finally:
             if counted:
                 self.clients -= 1

@@ -185,7 +185,14 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
         loop.add_signal_handler(sig, svc.stop_requested.set)
-    loop.set_exception_handler(lambda lp, ctx: svc.internal_error(str(ctx.get("message")), ctx.get("exception")))
+    def unhandled(lp: asyncio.AbstractEventLoop, ctx: dict[str, Any]) -> None:
+        exc = ctx.get("exception")
+        if isinstance(exc, asyncio.CancelledError):  # a task cancelled at shutdown, not a fault
+            log.debug("cancelled: %s", ctx.get("message"))
+            return
+        svc.internal_error(str(ctx.get("message")), exc)
+
+    loop.set_exception_handler(unhandled)
     await svc.start()
     await api.start()
     log.info("linerigd ready: socket %s, database %s, front end %s", api.path, db_path, frontend_url)

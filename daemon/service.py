@@ -109,6 +109,7 @@ class RigService:
         self._stopping = False
         self.stop_requested = asyncio.Event()
         self.fatal: str | None = None
+        self._store_tripped = False
         self.fault: str | None = None
         self._fault_recorded: str | None = None
         self._link_note: str | None = None
@@ -230,9 +231,10 @@ class RigService:
         self._arm_task = self._spawn(self._send_arm(power_W_per_m))
 
     async def _send_arm(self, power: float) -> None:
+        sent = time.monotonic()
         try:
             await self.frontend.set_power(power, self.s.limits.lease_s)
-            self._last_lease_ack = time.monotonic()
+            self._last_lease_ack = max(self._last_lease_ack, sent)
         except (RigError, TimeoutError, OSError) as exc:
             if self.armed_power is not None:
                 self.trip(f"front end refused to arm the heater: {exc}")
@@ -391,15 +393,18 @@ class RigService:
 
     # -- periodic tasks -----------------------------------------------------
     async def _lease_loop(self) -> None:
-        period = self.s.limits.lease_s / 4
+        lease = self.s.limits.lease_s
+        period = lease / 4
         while True:
             await asyncio.sleep(period)
             if self.armed_power is None or not self.link_up:
                 continue
+            sent = time.monotonic()
             with contextlib.suppress(RigError, TimeoutError, OSError):
-                # never wait longer than one period: a lost ack must not delay the next renewal
-                await asyncio.wait_for(self.frontend.renew_lease(self.s.limits.lease_s), period)
-                self._last_lease_ack = time.monotonic()
+                # a lost ack must not hold up the next renewal for long; the device extended the lease when
+                # the frame arrived, which was after ``sent``: that is what an ack proves
+                await asyncio.wait_for(self.frontend.renew_lease(lease), lease / 2)
+                self._last_lease_ack = max(self._last_lease_ack, sent)
 
     def _check_timers(self, now: float) -> str | None:
         lim = self.s.limits
@@ -447,10 +452,12 @@ class RigService:
                 self._store_failed(str(exc))
 
     def _store_failed(self, why: str) -> None:
-        reason = (f"{why}: the heater is off and the run stops; free disk space or fix the database, "
+        """The first failed write trips once; everything after it is only logged."""
+        if self._store_tripped:
+            return
+        self._store_tripped = True
+        self.trip(f"{why}: the heater is off and the run stops; free disk space or fix the database, "
                   "then restart linerigd")
-        if self.fault != reason:
-            self.trip(reason)
 
     def _event(self, run_id: int | None, kind: str, state: str | None, reason: str,
                data: dict[str, Any] | None = None) -> None:
@@ -507,6 +514,9 @@ class RigService:
             raise RequestError(f"run {self.run.run_id} is still {self.run.state}; stop or abort it first")
         if not self.link_up:
             raise RequestError("the front end is not connected; check the cable and the port")
+        silent = time.monotonic() - self.last_sample_wall
+        if silent > self.s.limits.stale_after_s:
+            raise RequestError(f"no data from the front end for {silent:.1f} s; check the cable and its power")
         if self.store.failed:
             raise RequestError(f"the database cannot take writes: {self.store.failed}")
         problems = check_plan(plan.power_W_per_m, plan.heat_s, self.s.limits)
@@ -601,6 +611,7 @@ class RigService:
             self._store_failed(str(exc))
             raise RequestError(str(exc)) from exc
         self._n = 0
+        self._loss.reset()  # a burst that is over does not count against a new run; the window refills
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
                                  reducer_factory=self._reducer_factory(plan.sensor), cycle=cycle,

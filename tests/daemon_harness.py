@@ -8,6 +8,7 @@ that is polled against a deadline, never slept on.
 
 from __future__ import annotations
 
+import atexit
 import contextlib
 import json
 import os
@@ -17,9 +18,11 @@ import socket
 import subprocess
 import sys
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any, TypeVar
+
+import pytest
 
 T = TypeVar("T")
 ROOT = Path(__file__).resolve().parent.parent
@@ -28,6 +31,27 @@ FAST_PLAN = {"baseline_s": 10, "heat_s": 60, "recover_s": 20, "max_drift_K_per_m
 
 class HarnessError(AssertionError):
     pass
+
+
+_LIVE: set[subprocess.Popen[str]] = set()
+
+
+@atexit.register
+def kill_leftovers() -> None:
+    """A failing test must never leave a daemon or simulator behind (they would hold ptys and sockets)."""
+    for proc in list(_LIVE):
+        if proc.poll() is None:
+            proc.kill()
+            with contextlib.suppress(subprocess.TimeoutExpired):
+                proc.wait(5)
+        _LIVE.discard(proc)
+
+
+@pytest.fixture(autouse=True)
+def reap() -> Iterator[None]:
+    """Import into a test module: whatever a test started is gone when it ends, pass or fail."""
+    yield
+    kill_leftovers()
 
 
 def wait_for(pred: Callable[[], T | None], timeout: float, what: str, interval: float = 0.02) -> T:
@@ -92,6 +116,7 @@ class Sim:
                *(["--probe", str(probe)] if probe else []), *extra]
         self._err = self.err_path.open("w")
         self.proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=self._err, text=True, cwd=ROOT)
+        _LIVE.add(self.proc)
         self.info = _read_ready_line(self.proc, 20, "linerig-sim", self.err_path)
         self.frontend: str = self.info["frontend"]
 
@@ -143,6 +168,7 @@ class Daemon:
         self._err = self.err_path.open("w")
         self.proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=self._err, text=True, cwd=ROOT,
                                      env={**os.environ, **(env or {})})
+        _LIVE.add(self.proc)
         self.ready = _read_ready_line(self.proc, 20, "linerigd", self.err_path)
         self.pid = self.proc.pid
 
@@ -161,6 +187,11 @@ class Daemon:
     def wait_link(self, timeout: float = 10) -> dict[str, Any]:
         return wait_for(lambda: (st := self.status())["link_up"] and st.get("last_sample") and st, timeout,
                         "the front end link")
+
+    def wait_fresh(self, n: int = 3, timeout: float = 10) -> None:
+        """Until the daemon has taken ``n`` more samples (data flowing again after a fault)."""
+        start = self.status()["samples_seen"]
+        wait_for(lambda: self.status()["samples_seen"] >= start + n, timeout, f"{n} fresh samples")
 
     def run_state(self, run_id: int) -> str:
         return str(self.request("run", run_id=run_id)["run"]["state"])

@@ -47,6 +47,9 @@ class PtyPort:
         tmp.replace(self.link)
 
     def unplug(self) -> None:
+        """The device goes away, and so does its stable name (as /dev/serial/by-id entries do)."""
+        with contextlib.suppress(FileNotFoundError):
+            self.link.unlink()
         for fd in (self.master, self.slave):
             if fd is not None:
                 with contextlib.suppress(OSError):

@@ -71,19 +71,21 @@ def current_version(conn: sqlite3.Connection) -> int:
     return int(conn.execute("PRAGMA user_version").fetchone()[0])
 
 
-def migrate(db: sqlite_utils.Database) -> int:
-    """Bring the file up to SCHEMA_VERSION; refuse a file from a newer linerig."""
+def migrate(db: sqlite_utils.Database,
+            migrations: list[Callable[[sqlite_utils.Database], None]] | None = None) -> int:
+    """Bring the file up to the last migration; refuse a file from a newer linerig."""
+    steps = MIGRATIONS if migrations is None else migrations
     conn = db.conn
     have = current_version(conn)
-    if have > SCHEMA_VERSION:
-        raise RuntimeError(f"database schema {have} is newer than this linerig ({SCHEMA_VERSION}); upgrade linerig")
-    for number in range(have, SCHEMA_VERSION):
+    if have > len(steps):
+        raise RuntimeError(f"database schema {have} is newer than this linerig ({len(steps)}); upgrade linerig")
+    for number in range(have, len(steps)):
         conn.execute("BEGIN IMMEDIATE")  # DDL is transactional in SQLite: a crash leaves a whole version
         try:
-            MIGRATIONS[number](db)
+            steps[number](db)
             conn.execute(f"PRAGMA user_version = {number + 1}")
         except BaseException:
             conn.execute("ROLLBACK")
             raise
         conn.execute("COMMIT")
-    return SCHEMA_VERSION
+    return len(steps)
