@@ -152,3 +152,27 @@ def test_without_config_or_front_end_the_daemon_says_what_to_do(tmp_path: Path) 
     done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(empty)],
                           capture_output=True, text=True, timeout=30, cwd=ROOT)
     assert done.returncode == 2 and "give --frontend PORT" in done.stderr
+
+
+def test_the_example_for_etc_linerig_parses(tmp_path: Path) -> None:
+    text = (ROOT / "systemd" / "rig.toml.example").read_text()
+    (tmp_path / "probes").mkdir()
+    (tmp_path / "probes" / "lab-needle.toml").write_text(PROFILE.read_text())
+    text = text.replace('group = "linerig"', 'group = "root"')  # the service's group may not exist here
+    cfg = parse_config(text, str(tmp_path / "rig.toml"), tmp_path)
+    assert cfg.devices.frontend == "/dev/linerig-frontend" and cfg.presets["lab-cycles"].cycles == 5
+
+
+def test_the_service_unit_passes_systemd_analyze_verify(tmp_path: Path) -> None:
+    import shutil
+
+    if shutil.which("systemd-analyze") is None:
+        pytest.skip("systemd-analyze is not installed here")
+    unit = (ROOT / "systemd" / "linerigd.service").read_text()
+    linerigd = Path(sys.executable).parent / "linerigd"
+    if not linerigd.exists():
+        pytest.skip("linerigd is not installed in this environment")
+    (tmp_path / "linerigd.service").write_text(unit.replace("/opt/linerig/bin/linerigd", str(linerigd)))
+    done = subprocess.run(["systemd-analyze", "verify", str(tmp_path / "linerigd.service")], capture_output=True,
+                          text=True, timeout=60)
+    assert done.returncode == 0 and "linerigd.service" not in done.stderr, done.stderr
