@@ -38,3 +38,18 @@ def test_missing_baseline_is_flagged() -> None:
     data = make_run(Medium(1.5, 2.5e6), baseline_s=0.0)
     res = reduce_run(data, PROBE, method="line").sensors["heater"]
     assert "no_baseline" in res.flags
+
+
+def test_slope_lost_in_noise_is_reported_not_extrapolated() -> None:
+    # A baseline of pure noise: its fitted slope is noise, and extrapolating it over a heating several times
+    # the baseline's length would bend ΔT. The level is kept, the slope reported, and its size carried into u.
+    rng = np.random.default_rng(7)
+    t = np.arange(-60.0, 0.0, 1.0)
+    flat = fit_baseline(t, 20.0 + 0.005 * rng.standard_normal(t.size))
+    assert flat.rate_K_per_s == 0.0 and flat.fitted_rate_K_per_s != 0.0
+    assert flat.rate_u_K_per_s >= abs(flat.fitted_rate_K_per_s)
+    assert flat.to_dict()["removed"] is False
+    # a real drift of 1 K/h over the same noise stands out and is removed
+    drifting = fit_baseline(t, 20.0 + t / 3600.0 + 0.005 * rng.standard_normal(t.size))
+    assert drifting.rate_K_per_s == drifting.fitted_rate_K_per_s
+    assert abs(drifting.rate_K_per_s * 3600.0 - 1.0) < 0.3

@@ -40,12 +40,10 @@ def test_none_until_enough_then_estimates() -> None:
 def test_incremental_fit_equals_direct_fit_on_its_window() -> None:
     data = _run(1)
     t, T = data.time_s, data.temps_C["heater"]
-    _, ests = replay(t, T, data.q_W_per_m, PROBE)
+    red, ests = replay(t, T, data.q_W_per_m, PROBE)
     e = ests[-1]
-    base = t < 0
-    A = np.polyfit(t[base], T[base], 1)
     sel = (t >= e.window_s[0]) & (t <= e.window_s[1])
-    lf = fit_line(np.log(t[sel]), T[sel] - np.polyval(A, t[sel]))
+    lf = fit_line(np.log(t[sel]), T[sel] - red.baseline.at(t[sel]))
     assert e.k_W_per_mK == pytest.approx(5.0 / (4 * math.pi * lf.slope), rel=1e-9)
     assert e.k_u_stat_W_per_mK == pytest.approx(e.k_W_per_mK * lf.slope_u / lf.slope, rel=1e-6)
     assert e.rho1 == pytest.approx(lf.rho1, abs=1e-6)

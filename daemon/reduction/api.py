@@ -105,8 +105,9 @@ class SensorResult:
             "residual_rms_K": self.residual_rms_K,
             "n_used": self.n_used,
             "calibration_factor": self.calibration_factor,
-            "drift_K_per_h": (self.baseline.rate_K_per_s * 3600 if self.baseline and self.baseline.present
+            "drift_K_per_h": (self.baseline.to_dict()["rate_K_per_h"] if self.baseline and self.baseline.present
                               else None),
+            "drift_removed": bool(self.baseline and self.baseline.present and self.baseline.rate_K_per_s != 0.0),
             "k_line_W_per_mK": self.line.k_W_per_mK * self.calibration_factor if self.line else None,
             "k_model_W_per_mK": self.model.k_W_per_mK * self.calibration_factor if self.model else None,
             "k_recovery_W_per_mK": (self.recovery.k_W_per_mK * self.calibration_factor

@@ -21,6 +21,10 @@ MIN_BASELINE_SAMPLES = 5
 DRIFT_FLAG_FRACTION = 0.01
 NOT_SETTLED_FRACTION = 0.10
 CURVATURE_FRACTION = 0.02
+# A fitted slope is removed only when it stands out of the noise (|b| > 2u, about 95 %): extrapolating a slope
+# that is mostly noise over a heating several times longer than the baseline adds more error than it removes.
+# Either way its uncertainty stays in the budget.
+REMOVE_Z = 2.0
 
 
 @dataclass(frozen=True)
@@ -35,6 +39,7 @@ class Baseline:
     resid_rms_K: float
     quad_K_per_s2: float = 0.0
     quad_z: float = 0.0
+    fitted_rate_K_per_s: float | None = None  # the slope found, whether or not it was removed
 
     @property
     def present(self) -> bool:
@@ -60,8 +65,10 @@ class Baseline:
         return out
 
     def to_dict(self) -> dict[str, float | int | None]:
+        fitted = self.rate_K_per_s if self.fitted_rate_K_per_s is None else self.fitted_rate_K_per_s
         return {"offset_C": self.offset_C if self.present else None,
-                "rate_K_per_h": self.rate_K_per_s * 3600.0 if self.present else None,
+                "rate_K_per_h": fitted * 3600.0 if self.present else None,
+                "removed": bool(self.present and self.rate_K_per_s != 0.0),
                 "rate_u_K_per_h": self.rate_u_K_per_s * 3600.0 if self.present else None,
                 "n": self.n, "span_s": self.span_s, "resid_rms_K": self.resid_rms_K}
 
@@ -97,5 +104,12 @@ def fit_baseline(t: np.ndarray, temp_C: np.ndarray) -> Baseline:
         scale = max(abs(float(t.min())), 1e-9)
         quad = float(cq[2]) / scale**2
         quad_z = abs(float(cq[2])) / math.sqrt(covq[2, 2]) if covq[2, 2] > 0 else math.inf
-    return Baseline(float(coef[0]), float(coef[1]), math.sqrt(max(cov[1, 1], 0.0)), n,
-                    float(t.max() - t.min()), math.sqrt(float(resid @ resid) / n), quad, quad_z)
+    rate, rate_u = float(coef[1]), math.sqrt(max(cov[1, 1], 0.0))
+    offset = float(coef[0])
+    if abs(rate) <= REMOVE_Z * rate_u:
+        # level, not an extrapolated line; the slope left in is as uncertain as the slope found plus its noise
+        offset, applied, applied_u = float(y.mean()), 0.0, math.hypot(rate, rate_u)
+    else:
+        applied, applied_u = rate, rate_u
+    return Baseline(offset, applied, applied_u, n, float(t.max() - t.min()), math.sqrt(float(resid @ resid) / n),
+                    quad, quad_z, fitted_rate_K_per_s=rate)
