@@ -170,10 +170,15 @@ def test_headroom_rows_and_verdicts() -> None:
 
 
 def test_k_spread_over_the_latest_stretch() -> None:
-    ests = [(t, 1.0 + (0.02 if t < 70 else 0.0), 0.01, False) for t in range(10, 101)]
-    # the steadiness rule looks back to t·e^−0.3 = 74 s at t = 100 s: the 2 % step at 70 s is outside it
+    from daemon.reduction.stability import STRETCH_LN
+
+    step_t = 40
+    ests = [(t, 1.0 + (0.02 if t < step_t else 0.0), 0.01, False) for t in range(10, 101)]
+    # the steadiness rule looks back to t·e^−STRETCH_LN; at t = 100 s that is after the 2 % step
+    assert 100 * math.exp(-STRETCH_LN) > step_t
     assert k_spread(ests) == pytest.approx(0.0)
-    assert k_spread(ests[:62]) == pytest.approx(0.02, rel=1e-6)  # at t = 71 s the step is inside
+    t_inside = int((step_t - 1) * math.exp(STRETCH_LN))  # latest whole second whose look-back holds t = 39 s
+    assert k_spread(ests[: t_inside - 10 + 1]) == pytest.approx(0.02, rel=1e-6)
     assert k_spread([(50.0, 1.0, 0.0, False)]) is None
 
 

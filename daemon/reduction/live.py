@@ -13,21 +13,30 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass
+from typing import Any
 
 import numpy as np
 
 from ..probe import ProbeProfile
 from . import window as win
 from .drift import Baseline, fit_baseline, no_baseline
-from .linesource import ALPHA_MAX, ALPHA_MIN
+from .linesource import ALPHA_MIN
 from .stability import StabilityTracker
 from .stats import ar1_inflation
 
 MIN_POINTS = 10
 MIN_SPAN_LN = 0.25          # window must cover at least this much ln t before an estimate is published
 SHORT_SPAN_LN = math.log(2.0)  # shorter than a factor 2 in time: window_short (common practice, no source)
-FLOOR_FRACTION = 0.1        # window never starts before 0.1·t_now (common practice, no source)
-START_TOL = 0.01            # slope error allowed at the window start (probe criterion, see window.py)
+FLOOR_FRACTION = 0.3        # window never starts before 0.3·t_end (common practice, no source)
+START_TOL = 0.02            # slope error allowed at the window start (probe criterion, see window.py)
+END_TOL = 0.02              # slope error allowed at the window end (axial loss, see window.py)
+# The intercept gives α·e^{2h}: contact resistance inflates it, and an inflated α would end the window early and
+# feed back through the next intercept. For the axial end α is capped at the top of the range of soils and
+# rocks (about 2 mm²/s; common practice, no source). The offline reduction uses the probe model instead.
+ALPHA_AXIAL_MAX = 2e-6
+# The start criterion needs the medium's ρc through α_J; taken from the intercept it would inherit the same
+# inflation. A typical soil's 2 MJ/(m³·K) is assumed instead (de Vries 1963 lists 1.3–3.1 for sands and clays).
+NOMINAL_RHO_C = 2.0e6
 NOISE_HIGH_FRACTION = 0.05  # residual RMS above 5 % of the slope (K per ln-unit): noise_high (no source)
 TREND_TOL = 0.02            # local slope drifts > 2 % over the window with z > 3: residual_trend (no source)
 DEFAULT_POWER_U_REL = 0.005  # power readback standard uncertainty (relative), common practice, no source
@@ -234,27 +243,25 @@ class LiveReducer:
         z = abs(c[2]) / math.sqrt(var_c2) if var_c2 > 0 else 0.0
         return float(rel), float(z)
 
-    def _window_start(self, t_now: float, alpha: float | None) -> float:
-        start = FLOOR_FRACTION * t_now
-        if alpha and self.r_m:
-            aj = None
-            if self.alpha_J_factor is not None:
-                aj = self.alpha_J_factor * self._k_raw / alpha if self._k_raw else None
-            start = max(start, win.start_s(self.r_m, alpha, aj, 0.0, START_TOL))
-        return start
+    def _window_start(self, t_end: float, alpha: float | None) -> tuple[float, bool]:
+        """Start of the window ending at ``t_end``, and whether the start criterion could be met."""
+        floor = FLOOR_FRACTION * t_end
+        if not (alpha and self.r_m):
+            return floor, True
+        aj = self.alpha_J_factor * NOMINAL_RHO_C if self.alpha_J_factor is not None else None
+        start = max(floor, win.start_s(self.r_m, alpha, aj, 0.0, START_TOL))
+        if start > t_end * math.exp(-MIN_SPAN_LN):
+            return floor, False  # not late enough yet: keep a usable window, flagged short
+        return start, True
 
-    def _estimate(self, t_now: float) -> LiveEstimate | None:
-        n_all = self._n
-        t_arr = self._t[:n_all]
-        alpha = self._alpha
-        t_end = t_now
-        if alpha and self.length_m:
-            t_end = min(t_now, win.axial_end_s(self.length_m, alpha, 0.01, self.axial_m))
+    def _fit_to(self, t_end: float, alpha: float | None) -> tuple[Any, int, int, float | None, bool] | None:
+        """Fit the window that ends at ``t_end``, its start set by the probe criterion with the intercept's α."""
+        t_arr = self._t[: self._n]
         j = int(np.searchsorted(t_arr, t_end, side="right"))
-        fit = None
-        i = 0
+        fit, i, criterion_met = None, 0, True
         for _ in range(3):
-            i = int(np.searchsorted(t_arr, self._window_start(t_now, alpha), side="left"))
+            start, criterion_met = self._window_start(t_end, alpha)
+            i = int(np.searchsorted(t_arr, start, side="left"))
             if j - i < MIN_POINTS:
                 i = max(0, j - MIN_POINTS)
             fit = self._fit(i, j)
@@ -262,12 +269,27 @@ class LiveReducer:
                 return None
             a, b = fit[0], fit[1]
             if self.r_m:
-                new_alpha = min(max(win.alpha_from_intercept(self.r_m, -b / a), ALPHA_MIN), ALPHA_MAX)
+                new_alpha = min(max(win.alpha_from_intercept(self.r_m, -b / a), ALPHA_MIN), ALPHA_AXIAL_MAX)
                 if alpha and abs(new_alpha / alpha - 1) < 0.05:
                     alpha = new_alpha
                     break
                 alpha = new_alpha
-        assert fit is not None
+        return fit, i, j, alpha, criterion_met
+
+    def _estimate(self, t_now: float) -> LiveEstimate | None:
+        # The window runs to now while the residuals stay straight; once they bend (axial loss, a boundary) it
+        # ends where the axial criterion says, and stays there: more heating adds nothing, the estimate settles.
+        got = self._fit_to(t_now, self._alpha)
+        if got is None:
+            return None
+        fit, i, j, alpha, criterion_met = got
+        if alpha and self.length_m and j - i >= 8:
+            rel_curv, z_curv = self._curvature(i, j, fit[0])
+            t_ax = win.axial_end_s(self.length_m, alpha, END_TOL, self.axial_m)
+            if abs(rel_curv) > TREND_TOL and z_curv > 3.0 and t_ax < t_now:
+                cut = self._fit_to(t_ax, alpha)
+                if cut is not None:
+                    fit, i, j, alpha, criterion_met = cut
         a, b, sse, rho, sxx = fit
         n = j - i
         t0, t1 = float(self._t[i]), float(self._t[j - 1])
@@ -292,7 +314,7 @@ class LiveReducer:
         rms_K = math.sqrt(sse / n) * q_mean
         flags: list[str] = []
         flags += self.baseline.flags(self._rise, t_now)
-        if span_ln < SHORT_SPAN_LN or n < 20:
+        if span_ln < SHORT_SPAN_LN or n < 20 or not criterion_met:
             flags.append("window_short")
         rel_curv, z_curv = self._curvature(i, j, a)
         if abs(rel_curv) > TREND_TOL and z_curv > 3.0:
