@@ -19,6 +19,7 @@ import os
 import pwd
 import socket
 import struct
+from collections import deque
 from collections.abc import Awaitable, Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -27,7 +28,7 @@ from typing import Any
 log = logging.getLogger("linerigd.api")
 
 MAX_LINE = 64 * 1024  # longest request accepted, bytes
-QUEUE_DEPTH = 2000  # events held for a subscriber that reads slowly; the oldest go first
+QUEUE_DEPTH = 2000  # samples held for a subscriber that reads slowly; the oldest go first
 MAX_CLIENTS = 64
 DRAIN_TIMEOUT_S = 10.0  # a client that takes no bytes for this long is disconnected
 
@@ -76,35 +77,79 @@ def encode(obj: dict[str, Any]) -> bytes:
     return (text + "\n").encode()
 
 
-class Hub:
-    """Fan-out of events to subscribers; a slow subscriber loses its oldest events, never blocks a run."""
+LOSSY_EVENTS = frozenset({"sample", "estimate", "committed"})  # superseded by the next one of their kind
+MAX_KEPT = 10_000  # state changes, faults... held for one subscriber; past this it is too far behind and is cut off
+
+
+class Outbox:
+    """One subscriber's queue. Samples and estimates beyond QUEUE_DEPTH lose their oldest; state changes,
+    faults and run ends are never dropped in their favour. Order across both kinds is kept."""
 
     def __init__(self) -> None:
-        self._queues: set[asyncio.Queue[bytes]] = set()
+        self._lossy: deque[tuple[int, bytes]] = deque(maxlen=QUEUE_DEPTH)
+        self._kept: deque[tuple[int, bytes]] = deque()
+        self._seq = 0
+        self._ready = asyncio.Event()
+        self.overflowed = False
+
+    def put(self, data: bytes, lossy: bool) -> bool:
+        """Queue an event; False when it replaced an older one."""
+        self._seq += 1
+        full = False
+        if lossy:
+            full = len(self._lossy) == QUEUE_DEPTH
+            self._lossy.append((self._seq, data))
+        elif len(self._kept) < MAX_KEPT:
+            self._kept.append((self._seq, data))
+        else:
+            self.overflowed = True
+        self._ready.set()
+        return not full
+
+    @property
+    def ready(self) -> bool:
+        return bool(self._lossy or self._kept)
+
+    async def get(self) -> bytes:
+        while not (self._lossy or self._kept):
+            if self.overflowed:
+                raise ConnectionError("subscriber too far behind")
+            self._ready.clear()
+            await self._ready.wait()
+        if self.overflowed:
+            raise ConnectionError("subscriber too far behind")
+        if self._kept and (not self._lossy or self._kept[0][0] < self._lossy[0][0]):
+            return self._kept.popleft()[1]
+        return self._lossy.popleft()[1]
+
+
+class Hub:
+    """Fan-out of events to subscribers; a slow subscriber loses old samples, never blocks a run."""
+
+    def __init__(self) -> None:
+        self._boxes: set[Outbox] = set()
         self.dropped = 0
 
     def publish(self, event: dict[str, Any]) -> None:
-        if not self._queues:
+        if not self._boxes:
             return
         data = encode(event)  # once, whatever the number of subscribers
-        for q in self._queues:
-            if q.full():
-                with contextlib.suppress(asyncio.QueueEmpty):
-                    q.get_nowait()
-                    self.dropped += 1
-            q.put_nowait(data)
+        lossy = event.get("event") in LOSSY_EVENTS
+        for box in self._boxes:
+            if not box.put(data, lossy):
+                self.dropped += 1
 
-    def subscribe(self) -> asyncio.Queue[bytes]:
-        q: asyncio.Queue[bytes] = asyncio.Queue(QUEUE_DEPTH)
-        self._queues.add(q)
-        return q
+    def subscribe(self) -> Outbox:
+        box = Outbox()
+        self._boxes.add(box)
+        return box
 
-    def unsubscribe(self, q: asyncio.Queue[bytes]) -> None:
-        self._queues.discard(q)
+    def unsubscribe(self, box: Outbox) -> None:
+        self._boxes.discard(box)
 
     @property
     def subscribers(self) -> int:
-        return len(self._queues)
+        return len(self._boxes)
 
 
 def peer_credentials(sock: socket.socket | None) -> Peer:
@@ -278,7 +323,10 @@ class ApiServer:
         q = self.hub.subscribe()
         try:
             while True:
-                await self._send(writer, await q.get())
+                chunk = [await q.get()]
+                while len(chunk) < 256 and q.ready:  # whatever else is waiting goes in the same write
+                    chunk.append(await q.get())
+                await self._send(writer, b"".join(chunk))
         except (ConnectionError, OSError, TimeoutError):
             writer.close()
         finally:

@@ -136,6 +136,27 @@ class RunActions(Protocol):
     def finished(self, state: RunState) -> None: ...
 
 
+def estimate_dict(est: Any) -> dict[str, Any]:
+    """A live estimate as plain JSON-ready values: its own ``to_dict`` deep-copies, too slow per sample."""
+    names = _EST_FIELDS.get(type(est))
+    if names is None:
+        names = _EST_FIELDS[type(est)] = tuple(f.name for f in fields(est))
+    out: dict[str, Any] = {}
+    for name in names:
+        v = getattr(est, name)
+        if isinstance(v, tuple):
+            v = list(v)
+        elif isinstance(v, float) and not math.isfinite(v):
+            v = None
+        elif hasattr(v, "item"):
+            v = v.item()
+        out[name] = v
+    return out
+
+
+_EST_FIELDS: dict[type, tuple[str, ...]] = {}
+
+
 def drift_K_per_min(t_s: np.ndarray, temp: np.ndarray) -> float:
     if len(t_s) < 3 or t_s[-1] - t_s[0] <= 0:
         return math.inf
@@ -265,7 +286,7 @@ class RunController:
         if self.reducer is not None and math.isfinite(temp_C) and t > 0:
             est = self.reducer.add(t, temp_C + 273.15, q_W_per_m)
             if est is not None:
-                self.last_estimate = est.to_dict()
+                self.last_estimate = estimate_dict(est)
                 self.actions.estimate(self.last_estimate)
                 if est.stable and self.stable_at_s is None:
                     self.stable_at_s = t

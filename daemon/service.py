@@ -18,6 +18,7 @@ import json
 import logging
 import math
 import os
+import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -53,6 +54,42 @@ NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
 WATCH_PERIOD_S = 0.1
 
 
+def in_daemon_thread(fn: Any, *args: Any, **kwargs: Any) -> asyncio.Future[Any]:
+    """Run ``fn`` in a daemon thread and await its result; unlike to_thread, exit never waits for it."""
+    loop = asyncio.get_running_loop()
+    fut: asyncio.Future[Any] = loop.create_future()
+
+    def deliver(ok: bool, value: Any) -> None:
+        if not fut.done():
+            (fut.set_result if ok else fut.set_exception)(value)
+
+    def work() -> None:
+        try:
+            result = fn(*args, **kwargs)
+        except Exception as exc:
+            ok, value = False, exc
+        else:
+            ok, value = True, result
+        with contextlib.suppress(RuntimeError):  # the loop is gone: the daemon stopped meanwhile
+            loop.call_soon_threadsafe(deliver, ok, value)
+
+    threading.Thread(target=work, name="linerigd-reduce", daemon=True).start()
+    return fut
+
+
+class FairTransport(SerialTransport):
+    """The serial transport, made to yield to the event loop after every read.
+
+    SerialTransport.read returns without suspending while bytes are waiting, so a front end that never pauses
+    (a fast sample rate, or a babbling one) would starve the lease renewals, the watchdog ping and the API.
+    """
+
+    async def read(self) -> bytes:
+        data = await super().read()
+        await asyncio.sleep(0)
+        return data
+
+
 @dataclass
 class DaemonSettings:
     frontend_url: str
@@ -80,7 +117,7 @@ class RigService:
         self.s = settings
         self.store = store
         self.hub = hub
-        self.transport = SerialTransport(settings.frontend_url, settings.frontend_baud)
+        self.transport = FairTransport(settings.frontend_url, settings.frontend_baud)
         self.frontend = FrontEnd(self.transport, FrontEndHandlers(
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
             on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why)))
@@ -114,9 +151,15 @@ class RigService:
         self._fault_recorded: str | None = None
         self._link_note: str | None = None
         self.run_arrays: dict[str, list[Any]] = {}
+        self._sensor_names = [x.name for x in settings.probe.sensors]
+        self._heater_idx = [i for i, x in enumerate(settings.probe.sensors) if x.is_on_heater]
+        self._length_m = settings.probe.length_m or 0.1
 
     # -- life cycle ---------------------------------------------------------
     async def start(self) -> None:
+        loop = asyncio.get_running_loop()
+        self.store.on_commit = lambda mark: loop.call_soon_threadsafe(self._committed, mark)
+        self.store.on_failure = lambda why: loop.call_soon_threadsafe(self._store_failed, why)
         closed = self.store.close_interrupted_runs()
         if closed:
             log.warning("closed interrupted runs %s; the heater stays off until an operator starts a run", closed)
@@ -210,11 +253,23 @@ class RigService:
         if self._off_sent > self._last_arm and now - self._off_sent < 0.05:
             return  # the same trip reaching here twice (safety, then the run's own transition)
         self._off_sent = now
+        self._off_now()
         with contextlib.suppress(RuntimeError):  # no running loop (at shutdown): the lease is the backstop
             self._spawn(self._heater_off())
 
+    def _off_now(self) -> None:
+        """The OFF frame on the wire before this call returns, ahead of any logging or database work."""
+        coro = self.frontend.heater_off_best_effort()
+        try:
+            coro.send(None)  # it writes at once and finishes without waiting for anything
+        except StopIteration:
+            return
+        except Exception as exc:
+            log.warning("immediate heater off failed (%s); the acknowledged one follows", exc)
+            return
+        coro.close()  # it wanted to wait: the acknowledged OFF that follows covers it
+
     async def _heater_off(self) -> None:
-        await self.frontend.heater_off_best_effort()  # at once, not queued behind a command awaiting its ack
         try:
             await self.frontend.heater_off()
             if self.armed_power is None:
@@ -340,7 +395,7 @@ class RigService:
         probe = self.s.probe
         temps = tuple(float("nan") if ch.fault else ch.value for ch in s.channels)
         faults = tuple(ch.fault for ch in s.channels)
-        length = probe.length_m or 0.1
+        length = self._length_m
         power = s.heater_V * s.heater_A / length if s.heater_on else 0.0
         ohm = s.heater_V / s.heater_A if s.heater_on and s.heater_A > 1e-3 else None
         if self.armed_power is not None and s.heater_on and not self._heater_confirmed:
@@ -349,7 +404,7 @@ class RigService:
         active = run is not None and run.active
         temps_json = [t if math.isfinite(t) else None for t in temps]
         self.last_sample = {"device_s": self.device_s, "temps_C": temps_json, "faults": list(faults),
-                            "sensors": [x.name for x in probe.sensors], "q_W_per_m": power,
+                            "sensors": self._sensor_names, "q_W_per_m": power,
                             "heater_on": s.heater_on, "heater_V": s.heater_V, "heater_A": s.heater_A,
                             "supply_V": s.supply_V, "cj_C": s.cj_C}
         if active and run is not None:  # stored first: the sample that trips a limit is the evidence
@@ -362,8 +417,7 @@ class RigService:
             arr["q"].append(power)
             arr["temps"].append(temps)
         # safety before anything else acts on the sample
-        heater_temps = [temps[i] for i, x in enumerate(probe.sensors)
-                        if i < len(temps) and x.is_on_heater and math.isfinite(temps[i])]
+        heater_temps = [temps[i] for i in self._heater_idx if i < len(temps) and math.isfinite(temps[i])]
         rise = run.rise_K(max(heater_temps)) if (run is not None and run.heating and heater_temps) else None
         view = SampleView(heating=self.armed_power is not None, heater_confirmed=self._heater_confirmed,
                           heater_on=s.heater_on,
@@ -446,10 +500,12 @@ class RigService:
         while True:
             await asyncio.sleep(FLUSH_INTERVAL_S)
             try:
-                if self.store.flush():
-                    self.hub.publish({"event": "committed", **(self.store.last_committed or {})})
+                self.store.flush()  # to the writer thread; ``_committed`` hears back
             except StoreError as exc:
                 self._store_failed(str(exc))
+
+    def _committed(self, mark: dict[str, int]) -> None:
+        self.hub.publish({"event": "committed", **mark})
 
     def _store_failed(self, why: str) -> None:
         """The first failed write trips once; everything after it is only logged."""
@@ -661,8 +717,9 @@ class RigService:
         if not usable:
             return {}
         data = RunData(time_s=t, q_W_per_m=np.asarray(arr["q"]), temps_C=usable)
-        # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing.
-        red = await asyncio.to_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)
+        # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
+        # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
+        red = await in_daemon_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)
         out = {}
         for name, res in red.sensors.items():
             j = res.to_json()
@@ -703,7 +760,7 @@ class RigService:
             log.warning("final reduction of run %s failed: %s", run.run_id, exc)
             self._event(run.run_id, "reduction", None, f"final reduction failed: {exc}")
         try:
-            self.store.flush()
+            self.store.flush(wait=True)  # the run's samples are on disk before it is reported finished
         except StoreError as exc:
             self._store_failed(str(exc))
         if self.run is None or not self.run.active:

@@ -105,13 +105,13 @@ class Sim:
     """A `linerig-sim` process with its control socket and heater log."""
 
     def __init__(self, tmp: Path, speed: float = 50.0, material: str | None = None, probe: Path | None = None,
-                 extra: tuple[str, ...] = ()) -> None:
+                 extra: tuple[str, ...] = (), program: tuple[str, ...] = ("-m", "daemon.sim.main")) -> None:
         self.dir = tmp / "sim"
         self.dir.mkdir(parents=True, exist_ok=True)
         self.control_path = self.dir / "control.sock"
         self.heater_log = self.dir / "heater.jsonl"
         self.err_path = self.dir / "stderr.txt"
-        cmd = [sys.executable, "-m", "daemon.sim.main", *([material] if material else []), "--speed", str(speed),
+        cmd = [sys.executable, *program, *([material] if material else []), "--speed", str(speed),
                "--link-dir", str(self.dir), "--control", str(self.control_path), "--heater-log", str(self.heater_log),
                *(["--probe", str(probe)] if probe else []), *extra]
         self._err = self.err_path.open("w")

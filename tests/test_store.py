@@ -89,9 +89,11 @@ def test_interrupted_runs_and_series_are_closed_with_their_samples(tmp_path: Pat
                         "heat_start_device_s": 10.0})
     for n in range(1, 51):
         s.add_sample(sample(rid, n, float(n), 12 + n / 100, 5.0 if n > 10 else 0.0))
-    s.flush()
+    s.flush(wait=True)
     assert s.last_committed == {"run_id": rid, "n": 50}
-    s.conn.close()  # no orderly close: as after a crash
+    s._jobs.put(None)  # stop the writer thread, then no orderly close: as after a crash
+    s._thread.join()
+    s.conn.close()
     s2 = Store(path)
     try:
         assert s2.close_interrupted_runs() == [rid]
@@ -117,7 +119,7 @@ WRITER = textwrap.dedent("""
         for _ in range(50):
             n += 1
             s.add_sample((rid, n, n, n, float(n), "heating", 1, 4.4, 0.11, 12.6, 5.0, 20.0, "[12.0]", "[0]"))
-        s.flush()
+        s.flush(wait=True)
         print(s.last_committed["n"], flush=True)  # acknowledged only once the batch has committed
 """)
 
@@ -151,7 +153,7 @@ def test_a_full_database_latches_failed_and_reads_go_on(tmp_path: Path) -> None:
             for n in range(1, 5000):
                 s.add_sample(sample(rid, n, float(n)))
                 if n % 50 == 0:
-                    s.flush()
+                    s.flush(wait=True)
         assert s.failed and "full" in s.failed
         with pytest.raises(StoreError):
             s.event(rid, "state", "faulted", "anything")  # latched: no further write is tried

@@ -20,6 +20,7 @@ from typing import Any
 from daemon.sim.frontend_sim import FrontEndEmulator
 
 TICK_S = 0.01
+OUT_CAP = 1 << 20  # bytes held for a host that reads late
 
 
 class PtyPort:
@@ -30,6 +31,7 @@ class PtyPort:
         self.master: int | None = None
         self.slave: int | None = None
         self.slave_path = ""
+        self._out = bytearray()
 
     def plug(self) -> None:
         master, slave = os.openpty()
@@ -55,6 +57,7 @@ class PtyPort:
                 with contextlib.suppress(OSError):
                     os.close(fd)
         self.master = self.slave = None
+        self._out.clear()
 
     def read(self) -> bytes:
         if self.master is None:
@@ -65,11 +68,21 @@ class PtyPort:
             return b""
 
     def write(self, data: bytes) -> None:
-        if self.master is None or not data:
+        """Queue bytes for the host. A USB CDC device stalls rather than drop when the host reads late, so
+        bytes wait here (up to OUT_CAP) and go out as the host takes them; past the cap they are dropped."""
+        if self.master is None:
             return
-        # A pty with nobody reading fills up; a real device would drop bytes too.
-        with contextlib.suppress(BlockingIOError, OSError):
-            os.write(self.master, data)
+        if len(self._out) + len(data) <= OUT_CAP:
+            self._out += data
+        self.flush()
+
+    def flush(self) -> None:
+        while self._out and self.master is not None:
+            try:
+                n = os.write(self.master, self._out)
+            except (BlockingIOError, OSError):
+                return
+            del self._out[:n]
 
 
 class SimServer:
@@ -101,6 +114,7 @@ class SimServer:
             if data:
                 self.frontend.receive(data, wall)
             sent = self.frontend.samples_sent
+            self.port.flush()
             for chunk in self.frontend.tick(wall):
                 self.port.write(chunk)
             if self.inject_wall is not None and self.first_sample_after_inject is None \

@@ -6,6 +6,8 @@ Durability rules (see systemd/README.md for the storage advice that goes with th
   commits at once together with every sample before it.
 - A sample counts as logged only once its batch has committed (``last_committed``); the API publishes
   that mark so a client can tell what a crash could still take away (nothing older).
+- Writes happen in one thread of the store's own (see Store), so a slow fsync on an SD card holds up the
+  log, never the control loop.
 - ``quick_check`` at open; a damaged file is moved aside, never overwritten, and a new one started.
 - The first failed write (disk full, read-only, I/O error) latches ``failed``: every later write raises
   StoreError at once, the service turns the heater off, and reads keep working for the status API.
@@ -18,7 +20,9 @@ import json
 import logging
 import math
 import os
+import queue
 import sqlite3
+import threading
 import time
 from collections.abc import Callable, Iterator
 from datetime import UTC, datetime
@@ -86,6 +90,14 @@ def quick_check(path: Path) -> str:
 
 
 class Store:
+    """The database, written by one thread of its own so that fsync never stalls the control loop.
+
+    Sample batches go to the writer thread without waiting (``flush``); the thread commits them in order and
+    reports each commit through ``on_commit`` and a failure through ``on_failure`` (called in the writer
+    thread: hand them to the event loop with call_soon_threadsafe). Rare writes (runs, events, results) wait
+    for their own commit, which also commits every sample queued before them.
+    """
+
     def __init__(self, path: Path, max_size_MB: float | None = None) -> None:
         self.path = path
         path.parent.mkdir(parents=True, exist_ok=True)
@@ -115,6 +127,11 @@ class Store:
         self._pending: list[tuple[Any, ...]] = []
         self.failed: str | None = None
         self.last_committed: dict[str, int] | None = None
+        self.on_commit: Callable[[dict[str, int]], None] = lambda mark: None
+        self.on_failure: Callable[[str], None] = lambda why: None
+        self._jobs: queue.Queue[_Job | None] = queue.Queue()
+        self._thread = threading.Thread(target=self._work, name="linerigd-store", daemon=True)
+        self._thread.start()
         if self.moved_aside is not None:
             self.event(None, "store", None, f"the previous database failed its check and was moved to "
                                             f"{self.moved_aside}; this is a new file")
@@ -126,13 +143,20 @@ class Store:
     def close(self) -> None:
         try:
             with contextlib.suppress(StoreError):
-                self.flush()
+                self.flush(wait=True)
+        finally:
+            self._jobs.put(None)
+            self._thread.join(30)
             if self.failed is None:
                 with contextlib.suppress(sqlite3.Error):
                     self.conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
-        finally:
             self._reader_conn.close()
             self.conn.close()
+
+    # -- the writer thread -------------------------------------------------
+    def _work(self) -> None:
+        while (job := self._jobs.get()) is not None:
+            job.run(self)
 
     @contextlib.contextmanager
     def _tx_raw(self) -> Iterator[None]:
@@ -145,16 +169,37 @@ class Store:
             raise
         self.conn.execute("COMMIT")
 
-    def _write(self, fn: Callable[[], T]) -> T:
+    def _commit(self, rows: list[tuple[Any, ...]], fn: Callable[[], T] | None) -> T | None:
+        """In the writer thread: one transaction with the rows, then fn. Raises StoreError."""
         if self.failed is not None:
             raise StoreError(self.failed)
         try:
             with self._tx_raw():
-                return fn()
+                if rows:
+                    self.conn.executemany(_INSERT_SAMPLES, rows)
+                result = fn() if fn is not None else None
         except sqlite3.Error as exc:
             self.failed = f"database write failed ({self.path}): {exc}"
             log.error("%s", self.failed)
+            self.on_failure(self.failed)
             raise StoreError(self.failed) from exc
+        if rows:
+            self.last_committed = mark = {"run_id": rows[-1][0], "n": rows[-1][1]}
+            self.on_commit(mark)
+        return result
+
+    def _write(self, fn: Callable[[], T]) -> T:
+        """Commit every queued sample and then ``fn``, and wait for it: for rare writes."""
+        if self.failed is not None:
+            raise StoreError(self.failed)
+        rows, self._pending = self._pending, []
+        job = _Job(rows, fn, threading.Event())
+        self._jobs.put(job)
+        assert job.done is not None
+        job.done.wait()
+        if job.error is not None:
+            raise job.error
+        return job.result  # type: ignore[return-value]
 
     # -- runs, series and events -------------------------------------------
     def create_run(self, fields: dict[str, Any]) -> int:
@@ -173,16 +218,10 @@ class Store:
 
     def event(self, run_id: int | None, kind: str, state: str | None, reason: str,
               device_s: float | None = None, data: dict[str, Any] | None = None) -> None:
-        """Events are rare and matter: flush pending samples and commit now."""
+        """Events are rare and matter: committed at once, with every sample before them."""
         row = {"run_id": run_id, "wall_utc": utc_now(), "device_s": device_s, "kind": kind, "state": state,
                "reason": reason, "data": to_json(data) if data else None}
-
-        def _do() -> None:
-            self._flush_samples()
-            self.db["events"].insert(row)
-
-        self._write(_do)
-        self._mark_committed()
+        self._write(lambda: self.db["events"].insert(row))
 
     def add_result(self, run_id: int, sensor: str, result: dict[str, Any], source: str = "live") -> None:
         row = {"run_id": run_id, "created_utc": utc_now(), "sensor": sensor, "method": result.get("method"),
@@ -207,53 +246,79 @@ class Store:
         if self.failed is None:
             self._pending.append(row)
 
-    def _flush_samples(self) -> None:
-        if self._pending:
-            rows, self._pending = self._pending, []
-            self._unacked = rows[-1]
-            self.conn.executemany(_INSERT_SAMPLES, rows)
-
-    _unacked: tuple[Any, ...] | None = None
-
-    def _mark_committed(self) -> None:
-        if self._unacked is not None:
-            self.last_committed = {"run_id": self._unacked[0], "n": self._unacked[1]}
-            self._unacked = None
-
-    def flush(self) -> bool:
-        """Commit pending samples; True when some were committed."""
+    def flush(self, wait: bool = False) -> bool:
+        """Hand pending samples to the writer thread; True when there were some. ``wait``: until committed
+        (raising StoreError if the commit failed)."""
         if not self._pending:
             return False
-        try:
-            self._write(self._flush_samples)
-        except StoreError:
-            self._unacked = None
-            raise
-        self._mark_committed()
+        if self.failed is not None:
+            self._pending.clear()
+            raise StoreError(self.failed)
+        rows, self._pending = self._pending, []
+        job = _Job(rows, None, threading.Event() if wait else None)
+        self._jobs.put(job)
+        if job.done is not None:
+            job.done.wait()
+            if job.error is not None:
+                raise job.error
         return True
 
     @property
     def pending(self) -> int:
         return len(self._pending)
 
+    @property
+    def backlog(self) -> int:
+        """Batches handed to the writer thread and not yet committed."""
+        return self._jobs.qsize()
+
     def checkpoint(self) -> None:
         """Fold the WAL back into the file and truncate it (at the end of a run, when nothing waits)."""
         if self.failed is None:
-            with contextlib.suppress(sqlite3.Error):
-                self.conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+            with contextlib.suppress(StoreError):
+                self._write(lambda: None)  # everything queued is committed first
+            self._jobs.put(_Job([], None, None, checkpoint=True))
 
     def close_interrupted_runs(self) -> list[int]:
         """Runs left open by a crash or power cut are closed as interrupted; their samples stay."""
         marks = ",".join("?" * len(OPEN_RUN_STATES))
-        open_ids = [r["id"] for r in self.db.query(f"SELECT id FROM runs WHERE state IN ({marks})",
-                                                     list(OPEN_RUN_STATES))]
+        open_ids = [r["id"] for r in self.reader.query(f"SELECT id FROM runs WHERE state IN ({marks})",
+                                                         list(OPEN_RUN_STATES))]
         for rid in open_ids:
             self.update_run(rid, {"state": "interrupted", "ended_utc": utc_now(),
                                   "end_reason": "daemon stopped during the run"})
             self.event(rid, "state", "interrupted", "closed at daemon start: the previous daemon stopped mid-run")
-        series = [r["id"] for r in self.db.query("SELECT id FROM series WHERE state = 'running'")]
+        series = [r["id"] for r in self.reader.query("SELECT id FROM series WHERE state = 'running'")]
         for sid in series:
             self.update_series(sid, {"state": "interrupted", "ended_utc": utc_now(),
                                      "end_reason": "daemon stopped during the series; resume it at a cycle "
                                                    "boundary with the resume request"})
         return open_ids
+
+
+class _Job:
+    """One unit of work for the writer thread."""
+
+    def __init__(self, rows: list[tuple[Any, ...]], fn: Callable[[], Any] | None,
+                 done: threading.Event | None, checkpoint: bool = False) -> None:
+        self.rows = rows
+        self.fn = fn
+        self.done = done
+        self.checkpoint = checkpoint
+        self.result: Any = None
+        self.error: StoreError | None = None
+
+    def run(self, store: Store) -> None:
+        try:
+            if self.checkpoint:
+                with contextlib.suppress(sqlite3.Error):
+                    store.conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+            else:
+                self.result = store._commit(self.rows, self.fn)
+        except StoreError as exc:
+            self.error = exc
+        except Exception as exc:  # a bug in a write: reported to the waiter, never kills the thread
+            self.error = StoreError(f"database write failed ({store.path}): {type(exc).__name__}: {exc}")
+        finally:
+            if self.done is not None:
+                self.done.set()
