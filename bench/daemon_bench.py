@@ -226,7 +226,7 @@ def soak(hours: float, speed: float) -> None:
             first, last = rows[1] if len(rows) > 1 else rows[0], rows[-1]
             print(f"   RSS from {first[0]:.1f} h to {last[0]:.1f} h: {first[1]:.1f} → {last[1]:.1f} MB "
                   f"({last[1] - first[1]:+.1f} MB); WAL at most {max(r[2] for r in rows):.2f} MB "
-                  f"(journal_size_limit 16 MB, checkpoint at each run's end)")
+                  f"(journal_size_limit 4 MB, checkpoint at each run's end)")
             fault = d.status()["fault"]
             print(f"   faults during the soak: {fault or 'none'}")
         finally:

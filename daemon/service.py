@@ -763,8 +763,7 @@ class RigService:
             self.store.flush(wait=True)  # the run's samples are on disk before it is reported finished
         except StoreError as exc:
             self._store_failed(str(exc))
-        if self.run is None or not self.run.active:
-            self.store.checkpoint()
+        self.store.checkpoint()  # the WAL folds back into the file once per run: it stays small
         extra = self._cycle_fields(run.cycle) if series else {"series_id": None, "cycle": run.cycle, "cycles": 1}
         self.hub.publish({"event": "run_finished", "run_id": run.run_id, "state": str(state), "results": results,
                           **extra})

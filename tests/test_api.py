@@ -15,7 +15,17 @@ from typing import Any
 
 import pytest
 
-from daemon.api import MAX_CLIENTS, MAX_LINE, ApiServer, Hub, Peer, RequestError, peer_allowed
+from daemon.api import (
+    MAX_CLIENTS,
+    MAX_LINE,
+    QUEUE_DEPTH,
+    ApiServer,
+    Hub,
+    Outbox,
+    Peer,
+    RequestError,
+    peer_allowed,
+)
 from daemon.main import handlers
 from daemon.store.writer import Store
 from tests.daemon_harness import (
@@ -154,6 +164,24 @@ async def wait_async(pred: Any, timeout: float = 5.0) -> None:
     while not pred():
         assert loop.time() < end, "condition not met in time"
         await asyncio.sleep(0.01)
+
+
+async def test_a_lagging_subscriber_loses_old_samples_but_never_a_state_change() -> None:
+    box = Outbox()
+    for i in range(QUEUE_DEPTH * 3):
+        box.put(f"sample {i}".encode(), lossy=True)
+        if i % 1000 == 500:
+            box.put(f"state {i}".encode(), lossy=False)
+    got = []
+    while box.ready:
+        got.append((await box.get()).decode())
+    states = [g for g in got if g.startswith("state")]
+    assert states == [f"state {i}" for i in range(500, QUEUE_DEPTH * 3, 1000)]  # every one, in order
+    samples = [int(g.split()[1]) for g in got if g.startswith("sample")]
+    assert len(samples) == QUEUE_DEPTH and samples == sorted(samples) and samples[-1] == QUEUE_DEPTH * 3 - 1
+    # order across the two kinds is kept: a state change comes after the samples that preceded it
+    last_state = got.index(states[-1])
+    assert all(int(g.split()[1]) <= 5500 for g in got[:last_state] if g.startswith("sample"))
 
 
 def test_peer_check_allows_root_self_and_group_members_only() -> None:

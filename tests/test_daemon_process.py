@@ -285,3 +285,48 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
     finally:
         proc.terminate()
         assert proc.wait(15) == 0
+
+
+class ExplodingReducer:
+    """A deliberately broken part: the first heating sample it is fed raises, as a bug would."""
+
+    def add(self, t_s: float, temp_K: float, q_W_per_m: float) -> None:
+        if t_s > 0:
+            raise ArithmeticError("injected bug in the live fit")
+
+
+async def test_an_unhandled_error_turns_the_heater_off_and_stops_the_daemon(tmp_path: Path) -> None:
+    import asyncio
+
+    from daemon.api import Hub
+    from daemon.controller import RunPlan
+    from daemon.service import DaemonSettings, RigService, load_default_probe
+    from daemon.store.writer import Store
+
+    sim = Sim(tmp_path, speed=20)
+    store = Store(tmp_path / "r.db")
+    svc = RigService(DaemonSettings(frontend_url=sim.frontend, probe=load_default_probe()), store, Hub())
+    svc._reducer_factory = lambda sensor: ExplodingReducer  # type: ignore[method-assign]
+    await svc.start()
+    try:
+        for _ in range(500):
+            if svc.link_up and svc.samples_seen > 2:
+                break
+            await asyncio.sleep(0.01)
+        rid = svc.start_run(RunPlan(**FAST_PLAN), {})["run_id"]
+        await asyncio.wait_for(svc.stop_requested.wait(), 20)  # the daemon asks to be stopped (exit code 70)
+        assert svc.fatal is not None and "internal error in the sample path" in svc.fatal
+        assert "ArithmeticError: injected bug" in svc.fatal
+        for _ in range(200):
+            if not sim.state()["heater_on"]:
+                break
+            await asyncio.sleep(0.01)
+        off = sim.heater_events()[-1]
+        assert (off["heater_on"], off["reason"]) == (False, "host command")  # the daemon's OFF, not the lease
+        assert svc.run is not None and svc.run.state == "faulted"
+    finally:
+        await svc.stop()
+        store.close()
+        sim.stop()
+    con = sqlite3.connect(tmp_path / "r.db")
+    assert con.execute("SELECT state FROM runs WHERE id = ?", [rid]).fetchone()[0] == "faulted"

@@ -36,7 +36,7 @@ from daemon.store.schema import migrate
 log = logging.getLogger("linerigd.store")
 
 FLUSH_INTERVAL_S = 0.25
-JOURNAL_SIZE_LIMIT = 16 * 1024 * 1024  # a checkpointed WAL is truncated back to this
+JOURNAL_SIZE_LIMIT = 4 * 1024 * 1024  # a checkpointed WAL is truncated back to this
 T = TypeVar("T")
 
 
@@ -275,9 +275,7 @@ class Store:
     def checkpoint(self) -> None:
         """Fold the WAL back into the file and truncate it (at the end of a run, when nothing waits)."""
         if self.failed is None:
-            with contextlib.suppress(StoreError):
-                self._write(lambda: None)  # everything queued is committed first
-            self._jobs.put(_Job([], None, None, checkpoint=True))
+            self._jobs.put(_Job([], None, None, checkpoint=True))  # after everything queued before it
 
     def close_interrupted_runs(self) -> list[int]:
         """Runs left open by a crash or power cut are closed as interrupted; their samples stay."""
