@@ -280,7 +280,7 @@ class RunController:
                 if math.isfinite(temp_C):
                     self._recent.append((device_s, temp_C))  # still baseline: no heat has gone in yet
                 return
-            self._heater_came_on(device_s)
+            self._heater_came_on(q_W_per_m)
         assert self.heat_start_s is not None
         t = device_s - self.heat_start_s
         if self.reducer is not None and math.isfinite(temp_C) and t > 0:
@@ -298,16 +298,17 @@ class RunController:
         elif t >= self.plan.heat_s:
             self.transition(RunState.RECOVERING, f"planned heating time {self.plan.heat_s:.0f} s reached", device_s)
 
-    def _heater_came_on(self, device_s: float) -> None:
-        """The heater went on between the previous sample and this one; time zero is the previous sample."""
-        prev = self._prev_device_s if self._prev_device_s is not None else device_s
+    def _heater_came_on(self, q_W_per_m: float) -> None:
+        """The heater went on between the previous sample and this one; time zero is the previous sample,
+        and the power this sample measured is the power held from time zero on."""
+        prev = self._prev_device_s if self._prev_device_s is not None else 0.0
         self.heat_start_s = prev
         self.reducer = self.reducer_factory() if self.reducer_factory else None
         if self.reducer is not None:
             lo = (self.arm_device_s or prev) - self.plan.baseline_s
             for t, temp in self._recent:
                 if lo <= t <= prev:
-                    self.reducer.add(float(t - prev), float(temp) + 273.15, 0.0)
+                    self.reducer.add(float(t - prev), float(temp) + 273.15, q_W_per_m if t == prev else 0.0)
         self._recent.clear()
         self.actions.heating_started(prev)
 

@@ -44,6 +44,7 @@ from daemon.safety import (
     check_precheck,
     check_sample,
 )
+from daemon.store.queries import power_held_from
 from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError, utc_now
 
 log = logging.getLogger("linerigd")
@@ -661,7 +662,7 @@ class RigService:
                 **fields, "kind": "cycle" if series else "single", "probe_serial": self.s.probe.serial,
                 "sensor_names": json.dumps(names), "heater_length_m": self.s.probe.length_m,
                 "plan_json": json.dumps(plan.to_dict()), "series_id": series.series_id if series else None,
-                "cycle": cycle,
+                "cycle": cycle, "q_timing": "reading",
                 "frontend_boot_id": self.frontend.identity.boot_id if self.frontend.identity else None})
         except StoreError as exc:
             self._store_failed(str(exc))
@@ -716,7 +717,7 @@ class RigService:
         usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
         if not usable:
             return {}
-        data = RunData(time_s=t, q_W_per_m=np.asarray(arr["q"]), temps_C=usable)
+        data = RunData(time_s=t, q_W_per_m=power_held_from(np.asarray(arr["q"])), temps_C=usable)
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
         red = await in_daemon_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)

@@ -86,7 +86,7 @@ def test_interrupted_runs_and_series_are_closed_with_their_samples(tmp_path: Pat
     sid = s.create_series({"kind": "cycles", "cycles": 3, "plan_json": "{}"})
     done = s.create_run({"state": "done", "series_id": sid, "cycle": 1, "sensor_names": '["heater"]'})
     rid = s.create_run({"state": "heating", "series_id": sid, "cycle": 2, "sensor_names": '["heater"]',
-                        "heat_start_device_s": 10.0})
+                        "heat_start_device_s": 10.0, "q_timing": "reading"})
     for n in range(1, 51):
         s.add_sample(sample(rid, n, float(n), 12 + n / 100, 5.0 if n > 10 else 0.0))
     s.flush(wait=True)
@@ -102,6 +102,14 @@ def test_interrupted_runs_and_series_are_closed_with_their_samples(tmp_path: Pat
         assert series_detail(s2.reader, sid)["state"] == "interrupted"
         arr = run_arrays(s2.reader, rid)
         assert len(arr["time_s"]) == 50 and arr["time_s"][0] == -9.0  # time from heater on
+        # the first sample to read power is n = 11; that power is held from the sample before it, t = 0
+        assert arr["time_s"][9] == 0.0 and arr["q_W_per_m"][9] == 5.0 and arr["q_W_per_m"][8] == 0.0
+        # a run written in the reduction's own convention (an import, demo data) is read back unchanged
+        other = s2.create_run({"state": "done", "sensor_names": '["heater"]', "heat_start_device_s": 10.0})
+        for n in range(1, 21):
+            s2.add_sample(sample(other, n, float(n), 12.0, 5.0 if n >= 10 else 0.0))
+        s2.flush(wait=True)
+        assert list(run_arrays(s2.reader, other)["q_W_per_m"][8:10]) == [0.0, 5.0]
         ev = list(s2.db.query("SELECT state, reason FROM events WHERE run_id = ?", [rid]))
         assert ev[-1]["state"] == "interrupted"
     finally:

@@ -48,9 +48,23 @@ def series_detail(db: sqlite_utils.Database, series_id: int) -> dict[str, Any] |
     return s
 
 
+def power_held_from(q: np.ndarray) -> np.ndarray:
+    """The power held from each sample on, from the power each sample measured.
+
+    A sample's heater reading describes the interval that ends at it: the heater switches right after the
+    sample that decided it, so the next sample is the first to show the change. The reduction (and the CSV's
+    q_W_per_m) wants the power held from each row on, which is the next sample's reading.
+    """
+    q = np.asarray(q, dtype=float)
+    return np.append(q[1:], q[-1:]) if q.size else q
+
+
 def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
-    """Samples of a run as arrays, with time measured from heater on (baseline negative)."""
-    run = next(iter(db.query("SELECT heat_start_device_s, sensor_names FROM runs WHERE id = ?", [run_id])), None)
+    """Samples of a run as arrays: time from heater on (baseline negative), the power held from each sample on
+    (the reduction's and the CSV's convention: runs recorded by linerigd keep each reading as received, marked
+    runs.q_timing = "reading", and are converted with power_held_from), temperatures by sensor."""
+    run = next(iter(db.query("SELECT heat_start_device_s, sensor_names, q_timing FROM runs WHERE id = ?",
+                             [run_id])), None)
     if run is None:
         raise KeyError(f"no run {run_id}")
     rows = list(db.execute(
@@ -59,6 +73,8 @@ def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
     t0 = run["heat_start_device_s"] or 0.0
     t = np.array([r[0] for r in rows], dtype=float) - t0
     q = np.array([r[1] or 0.0 for r in rows], dtype=float)
+    if run["q_timing"] == "reading":
+        q = power_held_from(q)
     temps = np.array([[np.nan if v is None else v for v in json.loads(r[2])] for r in rows],
                      dtype=float).reshape(len(rows), -1)
     return {"time_s": t, "q_W_per_m": q, "temps_C": {n: temps[:, i] for i, n in enumerate(names)},

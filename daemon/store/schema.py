@@ -63,7 +63,14 @@ def _v2(db: sqlite_utils.Database) -> None:
     db["runs"].create_index(["state"])
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2]
+def _v3(db: sqlite_utils.Database) -> None:
+    """How a run's samples time their power: "reading" (each sample's own heater reading, which describes the
+    interval ending at it: linerigd) or null/"held" (the power held from the sample on, as CSV files and the
+    reduction have it: imports and invented demo data)."""
+    db["runs"].add_column("q_timing", str)
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
