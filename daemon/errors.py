@@ -6,6 +6,10 @@ RigError
  └── DeviceRejected     a device answered a command with an error code
 ConfigError             a setting is missing or out of range (names file, key and line)
 RunRequestError         a start/stop request that cannot be honoured now
+
+Kept beside the code that raises them: StoreError (daemon.store.writer: the database takes no more writes),
+PlanError (daemon.controller: a run plan value, with its key), RequestError (daemon.api: a request refused,
+sent back to the client as its error text), TransitionError (daemon.controller: a bug, never an operator's).
 """
 
 from __future__ import annotations
