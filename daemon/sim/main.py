@@ -34,6 +34,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--control", type=Path, help="control socket path (fault injection, heater state)")
     p.add_argument("--heater-log", type=Path, help="append heater on/off events here as JSON lines")
     p.add_argument("--drift-K-per-h", type=float, default=None, dest="drift", help="ground temperature drift")
+    p.add_argument("--supply", action="store_true",
+                   help="also offer a SCPI bench supply (on <link-dir>/supply) whose output heats the probe")
     p.add_argument("--firmware", action="store_true",
                    help="run the real front-end firmware (hardware/firmware) on the simulated board instead of "
                         "the protocol emulator")
@@ -86,6 +88,7 @@ async def _run(args: argparse.Namespace) -> int:
     link_dir.mkdir(parents=True, exist_ok=True)
     server = SimServer(frontend, link_dir, args.heater_log)
     control = args.control or link_dir / "control.sock"
+    supply_path = server.offer_supply() if args.supply else None
     ctl = await server.serve_control(control)
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGTERM, signal.SIGINT):
@@ -95,6 +98,7 @@ async def _run(args: argparse.Namespace) -> int:
     while server.port.master is None and not task.done():
         await asyncio.sleep(0)
     print(json.dumps({"frontend": str(link_dir / "frontend"), "control": str(control),
+                      "supply": str(supply_path) if supply_path else None,
                       "material": material.key, "speed": args.speed}), flush=True)
     await task
     if watcher is not None:

@@ -94,6 +94,8 @@ class SimServer:
         self.heater_events: list[dict[str, Any]] = []
         frontend.log_heater = self._log_heater
         self._stop = asyncio.Event()
+        self.supply: Any = None  # (ScpiPort, RigLoad, PtyPort) when a SCPI bench supply is offered too
+        self._supply_on = False
         self.inject_wall: float | None = None  # wall time (time.time) of the last injected fault
         self.first_sample_after_inject: float | None = None  # wall time the next sample after it went out
 
@@ -106,10 +108,35 @@ class SimServer:
                 fh.flush()
                 os.fsync(fh.fileno())
 
+    def offer_supply(self) -> Path:
+        """Put a SCPI bench supply on its own pty, its output wired to the simulated heater."""
+        from daemon.sim.supply_link import ScpiPort, make_supply
+
+        supply, load = make_supply(self.frontend.rig)
+        self.supply = (ScpiPort(supply), load, PtyPort(self.link_dir / "supply"))
+        return self.link_dir / "supply"
+
+    def _serve_supply(self) -> None:
+        port, load, pty = self.supply
+        data = pty.read()
+        if data:
+            pty.write(port.feed(data))
+            pty.flush()
+        load.sync()
+        on = bool(load.on and load.volts > 0)
+        if on != self._supply_on:
+            self._supply_on = on
+            self._log_heater({"heater_on": on, "power_W_per_m": load.requested_W_per_m, "source": "scpi",
+                              "reason": "supply output", "device_t_s": round(self.frontend.rig.t_s, 3)})
+
     async def run(self) -> None:
         self.port.plug()
+        if self.supply is not None:
+            self.supply[2].plug()
         while not self._stop.is_set():
             wall = time.monotonic()
+            if self.supply is not None:
+                self._serve_supply()
             data = self.port.read()
             if data:
                 self.frontend.receive(data, wall)
@@ -124,6 +151,9 @@ class SimServer:
                 await asyncio.wait_for(self._stop.wait(), TICK_S)
         self.frontend.switch_off("simulator stopped")
         self.port.unplug()
+        if self.supply is not None:
+            self.supply[1].set_heater_electrical(0.0, False)
+            self.supply[2].unplug()
 
     def stop(self) -> None:
         self._stop.set()
