@@ -231,11 +231,13 @@ def safe_off(frontend: str | None, supply: str | None, frontend_baud: int = 1152
             dec = FrameDecoder()
             seq0 = random.randrange(1, 60000)  # not the daemon's last sequence number: never taken as a repeat
             acked = False
+            sent: set[int] = set()
             deadline = time.monotonic() + timeout_s
             k = 0
             with contextlib.closing(port):
                 while not acked and time.monotonic() < deadline:
                     seq = (seq0 + k) % 65536
+                    sent.add(seq)
                     k += 1
                     try:
                         port.write(encode_frame(m.CMD_OFF, seq))
@@ -248,7 +250,8 @@ def safe_off(frontend: str | None, supply: str | None, frontend_baud: int = 1152
                             for frame in dec.feed(port.read(512)):
                                 with contextlib.suppress(m.MessageError):
                                     msg = m.parse_message(frame)
-                                    acked = isinstance(msg, m.Ack) and msg.cmd_seq == seq and msg.ok
+                                    if isinstance(msg, m.Ack) and msg.cmd_seq in sent and msg.ok:
+                                        acked = True  # frames after it in the same read must not undo this
             if acked:
                 notes.append(f"front end {frontend}: heater off acknowledged")
             else:

@@ -158,6 +158,10 @@ class RigService:
 
     # -- life cycle ---------------------------------------------------------
     async def start(self) -> None:
+        # imported now, not in the middle of the first run, where it would hold the loop up
+        import daemon.reduction.api
+        import daemon.reduction.live  # noqa: F401
+
         loop = asyncio.get_running_loop()
         self.store.on_commit = lambda mark: loop.call_soon_threadsafe(self._committed, mark)
         self.store.on_failure = lambda why: loop.call_soon_threadsafe(self._store_failed, why)
@@ -484,10 +488,14 @@ class RigService:
     async def _watch_loop(self) -> None:
         wd = sdnotify.watchdog_interval_s()
         last_ping = 0.0
+        last = time.monotonic()
         while True:
             await asyncio.sleep(WATCH_PERIOD_S)
             now = time.monotonic()
-            reason = self._check_timers(now)
+            late = now - last > 3 * WATCH_PERIOD_S
+            last = now
+            # after the loop itself was held up, samples may be waiting unread: let the reader run first
+            reason = None if late else self._check_timers(now)
             if reason:
                 self.trip(reason)
             if self._off_pending_until is not None and now > self._off_pending_until:
