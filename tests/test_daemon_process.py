@@ -170,6 +170,8 @@ def test_sigterm_mid_heating_aborts_turns_the_heater_off_and_exits_cleanly(rig) 
 
 
 def test_systemd_notify_ready_watchdog_and_stopping(tmp_path: Path) -> None:
+    # The protocol is systemd's, sd_notify(3): datagrams "READY=1", "WATCHDOG=1" (at least every
+    # WATCHDOG_USEC, half of it recommended) and "STOPPING=1" to the socket named by $NOTIFY_SOCKET.
     sim = Sim(tmp_path, speed=50)
     note = tmp_path / "notify.sock"
     rx = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
