@@ -59,6 +59,12 @@ def _probes_screen() -> Screen[Any]:
     return ProbesScreen()
 
 
+def _qualify_screen() -> Screen[Any]:
+    from tui.screens.qualify import QualifyScreen
+
+    return QualifyScreen()
+
+
 class LinerigApp(App[int]):
     """Live run, new run, history and probes, each a mode with its own screen stack."""
 
@@ -67,7 +73,8 @@ class LinerigApp(App[int]):
     HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-narrow"), (120, "-wide")]
     VERTICAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-short"), (36, "-tall")]
     MODES: ClassVar[dict[str, Any]] = {
-        "live": _live_screen, "start": _start_screen, "history": _history_screen, "probes": _probes_screen}
+        "live": _live_screen, "start": _start_screen, "history": _history_screen, "probes": _probes_screen,
+        "qualify": _qualify_screen}
     DEFAULT_MODE = "live"
     ENABLE_COMMAND_PALETTE = False
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -75,6 +82,8 @@ class LinerigApp(App[int]):
         Binding("f3", "switch_mode('start')", "New run"),
         Binding("f4", "switch_mode('history')", "Runs"),
         Binding("f5", "switch_mode('probes')", "Probes"),
+        # for instrument builders, not operators: kept out of the footer (README lists it)
+        Binding("f6", "switch_mode('qualify')", "Qualify", show=False),
         Binding("ctrl+q", "quit", "Quit", priority=True),
     ]
 
