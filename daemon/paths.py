@@ -5,13 +5,17 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+SERVICE_SOCKET = Path("/run/linerig/linerigd.sock")
+
 
 def default_socket_path() -> Path:
+    """The installed service's socket when it is there (operators cannot write /run/linerig, but may connect),
+    else a per-user one for a daemon started by hand."""
     if env := os.environ.get("LINERIG_SOCKET"):
         return Path(env)
-    run = Path("/run/linerig")
-    if run.is_dir() and os.access(run, os.W_OK):
-        return run / "linerigd.sock"
+    run = SERVICE_SOCKET.parent
+    if SERVICE_SOCKET.exists() or (run.is_dir() and os.access(run, os.W_OK)):
+        return SERVICE_SOCKET
     base = os.environ.get("XDG_RUNTIME_DIR") or f"/tmp/linerig-{os.getuid()}"
     return Path(base) / "linerigd.sock"
 
