@@ -31,6 +31,7 @@ from daemon.api import Hub, Peer, RequestError
 from daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
 from daemon.errors import RigError
 from daemon.probe import ProbeProfile
+from daemon.reduction.alignment import power_held_from_each_sample
 from daemon.rig import messages as m
 from daemon.rig.frontend import FrontEnd, FrontEndHandlers
 from daemon.rig.transport import SerialTransport
@@ -44,7 +45,6 @@ from daemon.safety import (
     check_precheck,
     check_sample,
 )
-from daemon.store.queries import power_held_from
 from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError, utc_now
 
 log = logging.getLogger("linerigd")
@@ -725,7 +725,7 @@ class RigService:
         usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
         if not usable:
             return {}
-        data = RunData(time_s=t, q_W_per_m=power_held_from(np.asarray(arr["q"])), temps_C=usable)
+        data = RunData(time_s=t, q_W_per_m=power_held_from_each_sample(t, np.asarray(arr["q"])), temps_C=usable)
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
         red = await in_daemon_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)

@@ -8,6 +8,8 @@ from typing import Any
 import numpy as np
 import sqlite_utils
 
+from daemon.reduction.alignment import power_held_from_each_sample
+
 
 def list_runs(db: sqlite_utils.Database, limit: int = 100, site: str | None = None) -> list[dict[str, Any]]:
     where, params = ("WHERE site = ?", [site]) if site else ("", [])
@@ -48,21 +50,10 @@ def series_detail(db: sqlite_utils.Database, series_id: int) -> dict[str, Any] |
     return s
 
 
-def power_held_from(q: np.ndarray) -> np.ndarray:
-    """The power held from each sample on, from the power each sample measured.
-
-    A sample's heater reading describes the interval that ends at it: the heater switches right after the
-    sample that decided it, so the next sample is the first to show the change. The reduction (and the CSV's
-    q_W_per_m) wants the power held from each row on, which is the next sample's reading.
-    """
-    q = np.asarray(q, dtype=float)
-    return np.append(q[1:], q[-1:]) if q.size else q
-
-
 def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
     """Samples of a run as arrays: time from heater on (baseline negative), the power held from each sample on
     (the reduction's and the CSV's convention: runs recorded by linerigd keep each reading as received, marked
-    runs.q_timing = "reading", and are converted with power_held_from), temperatures by sensor."""
+    runs.q_timing = "reading", and are converted by reduction.alignment), temperatures by sensor."""
     run = next(iter(db.query("SELECT heat_start_device_s, sensor_names, q_timing FROM runs WHERE id = ?",
                              [run_id])), None)
     if run is None:
@@ -74,7 +65,7 @@ def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
     t = np.array([r[0] for r in rows], dtype=float) - t0
     q = np.array([r[1] or 0.0 for r in rows], dtype=float)
     if run["q_timing"] == "reading":
-        q = power_held_from(q)
+        q = power_held_from_each_sample(t, q)
     temps = np.array([[np.nan if v is None else v for v in json.loads(r[2])] for r in rows],
                      dtype=float).reshape(len(rows), -1)
     return {"time_s": t, "q_W_per_m": q, "temps_C": {n: temps[:, i] for i, n in enumerate(names)},
