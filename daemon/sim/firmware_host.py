@@ -472,23 +472,4 @@ class FirmwareFrontEnd:
 
     def _apply_wire_faults(self, frames: list[bytes]) -> list[bytes]:
         """The same faults, with the same meaning, as FrontEndEmulator applies."""
-        fl = self.faults
-        if fl.silent:
-            return []
-        out: list[bytes] = []
-        if fl.garbage_bytes:
-            out.append(bytes(self._rng.randrange(256) for _ in range(fl.garbage_bytes)))
-            fl.garbage_bytes = 0
-        for fr in frames:
-            r = self._rng.random()
-            if r < fl.drop_fraction:
-                continue
-            if r < fl.drop_fraction + fl.corrupt_fraction:
-                b = bytearray(fr)
-                i = self._rng.randrange(1, len(b) - 1)
-                b[i] = ord("#") if b[i] != ord("#") else ord("%")
-                fr = bytes(b)
-            out.append(fr)
-            if self._rng.random() < fl.duplicate_fraction:
-                out.append(fr)
-        return out
+        return self.faults.apply(frames, self._rng)

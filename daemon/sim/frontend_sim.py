@@ -34,6 +34,28 @@ class WireFaults:
     duplicate_fraction: float = 0.0
     garbage_bytes: int = 0  # bytes of noise to send once, before the next frame
 
+    def apply(self, frames: list[bytes], rng: random.Random) -> list[bytes]:
+        """What reaches the wire of the frames a device meant to send."""
+        if self.silent:
+            return []
+        out: list[bytes] = []
+        if self.garbage_bytes:
+            out.append(bytes(rng.randrange(256) for _ in range(self.garbage_bytes)))
+            self.garbage_bytes = 0
+        for fr in frames:
+            r = rng.random()
+            if r < self.drop_fraction:
+                continue
+            if r < self.drop_fraction + self.corrupt_fraction:
+                b = bytearray(fr)
+                i = rng.randrange(1, len(b) - 1)
+                b[i] = ord("#") if b[i] != ord("#") else ord("%")
+                fr = bytes(b)
+            out.append(fr)
+            if rng.random() < self.duplicate_fraction:
+                out.append(fr)
+        return out
+
 
 @dataclass
 class FrontEndEmulator:
@@ -210,23 +232,4 @@ class FrontEndEmulator:
             self._out.append(self._frame(m.MSG_FAULT, ["ONTIME", f"{HARD_MAX_ON_S:.0f}"]))
 
     def _apply_wire_faults(self, frames: list[bytes]) -> list[bytes]:
-        fl = self.faults
-        if fl.silent:
-            return []
-        out: list[bytes] = []
-        if fl.garbage_bytes:
-            out.append(bytes(self._rng.randrange(256) for _ in range(fl.garbage_bytes)))
-            fl.garbage_bytes = 0
-        for fr in frames:
-            r = self._rng.random()
-            if r < fl.drop_fraction:
-                continue
-            if r < fl.drop_fraction + fl.corrupt_fraction:
-                b = bytearray(fr)
-                i = self._rng.randrange(1, len(b) - 1)
-                b[i] = ord("#") if b[i] != ord("#") else ord("%")
-                fr = bytes(b)
-            out.append(fr)
-            if self._rng.random() < fl.duplicate_fraction:
-                out.append(fr)
-        return out
+        return self.faults.apply(frames, self._rng)
