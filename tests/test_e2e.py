@@ -66,3 +66,19 @@ def test_simulated_run_end_to_end(daemon: dict) -> None:
     k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
     k = out["results"]["heater"]["k_W_per_mK"]
     assert abs(k - k_true) / k_true < 0.05, (k, k_true)
+
+
+def test_repeat_cycles_are_followed_to_the_end_of_the_series(daemon: dict) -> None:
+    cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "120",
+           "--recover-s", "120", "--baseline-s", "60", "--cycles", "2", "--wait", "--json"]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
+    assert done.returncode == 0, done.stderr
+    out = json.loads(done.stdout)
+    assert out["state"] == "done" and [r["state"] for r in out["runs"]] == ["done", "done"]
+    con = sqlite3.connect(daemon["db"])
+    cycles = con.execute("SELECT cycle FROM runs WHERE series_id = ? ORDER BY id", [out["series_id"]]).fetchall()
+    assert [c[0] for c in cycles] == [1, 2]
+    assert all(r["results"]["heater"]["k_W_per_mK"] > 0 for r in out["runs"])
+    # the heater went on and off once per cycle
+    events = [json.loads(line)["heater_on"] for line in daemon["heater_log"].read_text().splitlines()]
+    assert events == [True, False, True, False]

@@ -55,6 +55,8 @@ async def _run(args: argparse.Namespace) -> int:
         if not args.wait:
             print(json.dumps({"run_id": run_id}) if args.json else f"run {run_id} started")
             return 0
+        if (args.cycles or 1) > 1 and reply.get("series_id") is not None:
+            return await _follow_series(client, reply["series_id"], args.json)
         final = None
         async for ev in client.events():
             if ev.get("run_id") != run_id:
@@ -64,18 +66,50 @@ async def _run(args: argparse.Namespace) -> int:
             if ev["event"] == "run_finished":
                 final = ev
                 break
-        detail = (await client.request("run", run_id=run_id))["run"]
-        out = {"run_id": run_id, "state": final["state"] if final else detail["state"],
-               "end_reason": detail.get("end_reason"), "results": detail["results"]}
+        out = await _run_outcome(client, run_id, final["state"] if final else None)
         if args.json:
             print(json.dumps(out, indent=2))
         else:
-            print(f"run {run_id} {out['state']}: {out['end_reason']}")
-            for name, r in out["results"].items():
-                if r.get("k_W_per_mK") is not None:
-                    print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {r['k_u_W_per_mK'] or 0:.3f} W/(m·K), "
-                          f"ρ = {r['resistivity_mK_per_W']:.3f} m·K/W, flags: {', '.join(r['flags']) or 'none'}")
+            _print_run(out)
         return 0 if out["state"] == "done" else 1
+
+
+async def _run_outcome(client: Client, run_id: int, state: str | None) -> dict[str, Any]:
+    detail = (await client.request("run", run_id=run_id))["run"]
+    return {"run_id": run_id, "state": state or detail["state"], "end_reason": detail.get("end_reason"),
+            "results": detail["results"]}
+
+
+async def _follow_series(client: Client, series_id: int, as_json: bool) -> int:
+    """Every cycle of a series is its own run: follow them all until the series ends."""
+    runs: list[dict[str, Any]] = []
+    state = "unknown"
+    async for ev in client.events():
+        if ev.get("series_id") != series_id:
+            continue
+        if ev["event"] == "state" and not as_json:
+            print(f"cycle {ev.get('cycle')}/{ev.get('cycles')} run {ev['run_id']}: {ev['state']} — {ev['reason']}",
+                  file=sys.stderr)
+        elif ev["event"] == "run_finished":
+            runs.append(await _run_outcome(client, ev["run_id"], ev["state"]))
+        elif ev["event"] == "series_finished":
+            state = ev["state"]
+            break
+    if as_json:
+        print(json.dumps({"series_id": series_id, "state": state, "runs": runs}, indent=2))
+    else:
+        print(f"series {series_id} {state}: {len(runs)} cycle(s)")
+        for out in runs:
+            _print_run(out)
+    return 0 if state == "done" and all(r["state"] == "done" for r in runs) else 1
+
+
+def _print_run(out: dict[str, Any]) -> None:
+    print(f"run {out['run_id']} {out['state']}: {out['end_reason']}")
+    for name, r in out["results"].items():
+        if r.get("k_W_per_mK") is not None:
+            print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {r['k_u_W_per_mK'] or 0:.3f} W/(m·K), "
+                  f"ρ = {r['resistivity_mK_per_W']:.3f} m·K/W, flags: {', '.join(r['flags']) or 'none'}")
 
 
 def run(args: argparse.Namespace) -> int:
