@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from waiting import Changed
 
 from daemon.rig.frontend import FrontEnd, FrontEndHandlers
 from daemon.rig.heater import FrontEndHeater, HeaterNotArmed, HeaterSource, ScpiHeater, open_scpi_heater
@@ -44,26 +45,6 @@ def needle(tcr_per_K: float = 5e-5) -> ProbeSpec:
 
 def make_rig(probe: ProbeSpec | None = None) -> SimulatedRig:
     return SimulatedRig(get_material("moist-sand"), probe or needle(), seed=11)
-
-
-class Changed:
-    def __init__(self) -> None:
-        self.event = asyncio.Event()
-
-    def set(self) -> None:
-        self.event.set()
-
-    async def until(self, cond: Callable[[], Any], timeout: float, what: str) -> Any:
-        loop = asyncio.get_running_loop()
-        end = loop.time() + timeout
-        while not (got := cond()):
-            self.event.clear()
-            left = end - loop.time()
-            if left <= 0:
-                raise AssertionError(f"timed out after {timeout:g} s waiting for {what}")
-            with contextlib.suppress(TimeoutError):
-                await asyncio.wait_for(self.event.wait(), left)
-        return got
 
 
 @contextlib.asynccontextmanager

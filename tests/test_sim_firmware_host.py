@@ -14,12 +14,13 @@ import itertools
 import math
 import re
 import time
-from collections.abc import AsyncIterator, Callable
+from collections.abc import AsyncIterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import pytest
+from waiting import Changed
 
 from daemon.rig import its90
 from daemon.rig.framing import Frame, FrameDecoder, decode_line, encode_frame
@@ -48,28 +49,6 @@ def make_rig(probe: ProbeSpec | None = None, **kw: Any) -> SimulatedRig:
 
 
 # ---- over a real pseudo-terminal ------------------------------------------------------------------------
-
-
-class Changed:
-    """One event for "something arrived"; waiters re-check their condition each time it fires."""
-
-    def __init__(self) -> None:
-        self.event = asyncio.Event()
-
-    def set(self) -> None:
-        self.event.set()
-
-    async def until(self, cond: Callable[[], Any], timeout: float, what: str) -> Any:
-        loop = asyncio.get_running_loop()
-        end = loop.time() + timeout
-        while not (got := cond()):
-            self.event.clear()
-            left = end - loop.time()
-            if left <= 0:
-                raise AssertionError(f"timed out after {timeout:g} s waiting for {what}")
-            with contextlib.suppress(TimeoutError):
-                await asyncio.wait_for(self.event.wait(), left)
-        return got
 
 
 class RawHost:
