@@ -179,6 +179,8 @@ class RunController:
     arm_device_s: float | None = None  # when the controller asked for heat
     heat_start_s: float | None = None  # the last sample before the front end first reported the heater on
     heat_end_s: float | None = None
+    device_on_s: float | None = None  # the front end's own report of when the heater went on (its P reply)
+    device_off_s: float | None = None  # and went off (its O reply), when it sends them
     baseline_mean_C: float | None = None
     stop_requested: str | None = None
     last_estimate: dict[str, Any] | None = None
@@ -280,7 +282,7 @@ class RunController:
                 if math.isfinite(temp_C):
                     self._recent.append((device_s, temp_C))  # still baseline: no heat has gone in yet
                 return
-            self._heater_came_on(q_W_per_m)
+            self._heater_came_on(q_W_per_m, device_s)
         assert self.heat_start_s is not None
         t = device_s - self.heat_start_s
         if self.reducer is not None and math.isfinite(temp_C) and t > 0:
@@ -298,19 +300,22 @@ class RunController:
         elif t >= self.plan.heat_s:
             self.transition(RunState.RECOVERING, f"planned heating time {self.plan.heat_s:.0f} s reached", device_s)
 
-    def _heater_came_on(self, q_W_per_m: float) -> None:
-        """The heater went on between the previous sample and this one; time zero is the previous sample,
-        and the power this sample measured is the power held from time zero on."""
+    def _heater_came_on(self, q_W_per_m: float, device_s: float) -> None:
+        """The heater went on between the previous sample and this one. Time zero is the instant the front end
+        reported in its reply to the power command when it sent one (PROTOCOL.md §4.2), else the previous sample;
+        the power this sample measured is the power held from time zero on."""
         prev = self._prev_device_s if self._prev_device_s is not None else 0.0
-        self.heat_start_s = prev
+        on = self.device_on_s
+        t0 = on if on is not None and prev - 1e-6 <= on <= device_s + 1e-6 else prev
+        self.heat_start_s = t0
         self.reducer = self.reducer_factory() if self.reducer_factory else None
         if self.reducer is not None:
             lo = (self.arm_device_s or prev) - self.plan.baseline_s
             for t, temp in self._recent:
                 if lo <= t <= prev:
-                    self.reducer.add(float(t - prev), float(temp) + 273.15, q_W_per_m if t == prev else 0.0)
+                    self.reducer.add(float(t - t0), float(temp) + 273.15, q_W_per_m if t >= t0 else 0.0)
         self._recent.clear()
-        self.actions.heating_started(prev)
+        self.actions.heating_started(t0)
 
     def rise_K(self, hottest_heater_C: float) -> float | None:
         if self.baseline_mean_C is None or not math.isfinite(hottest_heater_C):
