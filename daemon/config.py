@@ -5,7 +5,9 @@ field operator can fix the file without reading code. Example::
 
     [devices]
     frontend = "/dev/linerig-frontend"   # a device path or a pyserial URL (socket://host:port)
-    supply = "/dev/linerig-supply"       # optional SCPI bench supply, switched off by `linerigd --safe-off`
+    supply = "/dev/linerig-supply"       # optional SCPI bench supply: heats instead of the front end
+    supply_v_max = 20.0                  # optional ceilings asked of the supply (default: from the probe)
+    supply_i_max = 0.5
     rate_hz = 1.0
 
     [daemon]
@@ -55,6 +57,8 @@ class DeviceConfig:
     frontend_baud: int = 115200
     supply: str | None = None
     supply_baud: int = 9600
+    supply_v_max: float | None = None
+    supply_i_max: float | None = None
     rate_hz: float = 1.0
 
 
@@ -163,7 +167,8 @@ def _only(src: _Src, table: dict[str, Any], path: list[str], known: dict[str, st
 
 # -- sections -----------------------------------------------------------------
 _DEVICE_KEYS = {"frontend": "front-end port", "frontend_baud": "baud rate", "supply": "SCPI supply port",
-                "supply_baud": "baud rate", "rate_hz": "sample rate, Hz"}
+                "supply_baud": "baud rate", "supply_v_max": "supply voltage ceiling, V",
+                "supply_i_max": "supply current ceiling, A", "rate_hz": "sample rate, Hz"}
 _DAEMON_KEYS = {"socket": "socket path", "database": "database path", "group": "control group",
                 "max_database_MB": "size cap, MB"}
 _PROBE_KEYS = {"profiles": "profile paths", "active": "serial or name"}
@@ -191,6 +196,12 @@ def _devices(src: _Src, t: dict[str, Any]) -> DeviceConfig:
     for key in ("frontend_baud", "supply_baud"):
         if key in t:
             kw[key] = _baud(src, ["devices", key], t[key])
+    for key, top in (("supply_v_max", 60.0), ("supply_i_max", 10.0)):
+        if key in t:
+            v = t[key]
+            if isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v <= top:
+                raise src.error(["devices", key], f"expected a number above 0 and at most {top:g}, got {v!r}")
+            kw[key] = float(v)
     if "rate_hz" in t:
         v = t["rate_hz"]
         if isinstance(v, bool) or not isinstance(v, int | float) or not 0.1 <= v <= 20:

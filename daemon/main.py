@@ -25,8 +25,10 @@ from daemon import sdnotify
 from daemon.api import ApiServer, Handler, Hub, Peer, RequestError
 from daemon.config import DEFAULT_CONFIG_PATH, RigConfig, load_config
 from daemon.controller import RunPlan
-from daemon.errors import ConfigError
+from daemon.errors import ConfigError, RigError
 from daemon.paths import default_db_path, default_socket_path
+from daemon.probe import ProbeProfile
+from daemon.rig.scpi import ScpiError, SupplyLimits
 from daemon.service import DaemonSettings, RigService
 from daemon.store import queries
 from daemon.store.writer import Store
@@ -43,6 +45,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--simulate", nargs="?", const="", default=None, metavar="MATERIAL",
                    help="start a simulated rig (linerig-sim) and use it; MATERIAL from `linerig-sim --list`")
     p.add_argument("--speed", type=float, default=1.0, help="simulator time-scale factor (with --simulate)")
+    p.add_argument("--supply", action="store_true",
+                   help="with --simulate: heat through the simulator's SCPI bench supply, not the front end")
     p.add_argument("--socket", type=Path, default=None, help="control socket path")
     p.add_argument("--db", type=Path, default=None, help="SQLite database file")
     p.add_argument("--frontend", default=None, help="front-end port: a device path or pyserial URL")
@@ -69,6 +73,8 @@ def start_simulator(args: argparse.Namespace, probe_path: Path | None) -> tuple[
         cmd += ["--heater-log", str(args.sim_heater_log)]
     if args.sim_control:
         cmd += ["--control", str(args.sim_control)]
+    if args.supply:
+        cmd.append("--supply")
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
     assert proc.stdout is not None
     line = proc.stdout.readline()
@@ -165,7 +171,20 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
 
 
 # -- serving -------------------------------------------------------------------
-async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None) -> int:
+def supply_limits(cfg: RigConfig, probe: ProbeProfile) -> SupplyLimits:
+    """The ceilings asked of a SCPI supply: the power limit over the heater, and V and I that reach it on
+    the highest and lowest heater resistance safety accepts (plus 10 %), unless the configuration sets them."""
+    length_m = probe.length_m or 0.1
+    p_max_W = cfg.limits.max_power_W_per_m * length_m
+    r_ohm = probe.heater_resistance_ohm or 40.0
+    tol = cfg.limits.heater_ohm_tolerance
+    v_max = cfg.devices.supply_v_max or 1.1 * (p_max_W * r_ohm * (1 + tol)) ** 0.5
+    i_max = cfg.devices.supply_i_max or 1.1 * (p_max_W / (r_ohm * (1 - tol))) ** 0.5
+    return SupplyLimits(v_max=v_max, i_max=i_max, p_max_W=p_max_W)
+
+
+async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None,
+                supply_url: str | None = None) -> int:
     from daemon.probe import load_probe_profile
 
     probe = load_probe_profile(args.probe) if args.probe else cfg.probe
@@ -175,7 +194,8 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
     settings = DaemonSettings(frontend_url=frontend_url, probe=probe, limits=cfg.limits,
                               rate_hz=args.rate_hz or cfg.devices.rate_hz, default_plan=plan, presets=cfg.presets,
                               simulated_material=material, probes=cfg.probes, config_source=cfg.source,
-                              frontend_baud=cfg.devices.frontend_baud)
+                              frontend_baud=cfg.devices.frontend_baud, supply_url=supply_url,
+                              supply_baud=cfg.devices.supply_baud, supply_limits=supply_limits(cfg, probe))
     db_path = args.db or cfg.daemon.database or default_db_path()
     store = Store(db_path, cfg.daemon.max_database_MB)
     hub = Hub()
@@ -193,7 +213,12 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         svc.internal_error(str(ctx.get("message")), exc)
 
     loop.set_exception_handler(unhandled)
-    await svc.start()
+    try:
+        await svc.start()
+    except (RigError, ScpiError, OSError) as exc:
+        log.error("cannot start: %s", exc)
+        store.close()
+        return 1
     await api.start()
     log.info("linerigd ready: socket %s, database %s, front end %s", api.path, db_path, frontend_url)
     print(json.dumps({"ready": True, "socket": str(api.path), "db": str(db_path), "pid": os.getpid()}), flush=True)
@@ -320,6 +345,10 @@ def main(argv: list[str] | None = None) -> int:
         return 0 if ok else 1
     sim: subprocess.Popen[str] | None = None
     material = None
+    if args.supply and args.simulate is None:
+        print("linerigd: --supply goes with --simulate; for a real supply set [devices] supply in the configuration",
+              file=sys.stderr)
+        return 2
     if args.simulate is not None:
         from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
@@ -330,17 +359,19 @@ def main(argv: list[str] | None = None) -> int:
             return 2
         sim, info = start_simulator(args, args.probe)
         frontend_url = info["frontend"]
+        supply_url = info.get("supply")
     elif args.frontend or cfg.devices.frontend:
         frontend_url = args.frontend or cfg.devices.frontend
+        supply_url = cfg.devices.supply
     else:
         print(f"linerigd: no front end: give --frontend PORT (a device path or pyserial URL), set "
               f"[devices] frontend in {args.config or DEFAULT_CONFIG_PATH}, or use --simulate", file=sys.stderr)
         return 2
     try:
-        return asyncio.run(serve(args, cfg, frontend_url, material))
+        return asyncio.run(serve(args, cfg, frontend_url, material, supply_url))
     except BaseException:
         # the loop itself died: whatever happened, the heater goes off before the process ends
-        safe_off(frontend_url, None if sim else cfg.devices.supply, cfg.devices.frontend_baud, timeout_s=0.5)
+        safe_off(frontend_url, supply_url, cfg.devices.frontend_baud, cfg.devices.supply_baud, timeout_s=0.5)
         raise
     finally:
         if sim is not None:

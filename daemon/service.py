@@ -3,7 +3,8 @@
 Tasks (all in one asyncio loop, each guarded: an unexpected error turns the heater off and stops the daemon
 with a failure code, so systemd restarts it in the safe state):
 - link: opens the front end, reads frames, reconnects after an unplug; never re-arms.
-- lease: renews the heater lease while the heater should be on.
+- lease: renews the heater lease while the heater should be on; with a SCPI supply as the power source, it
+  runs the software constant-power loop instead (one step per period).
 - watch: stale data, frame loss, arming and heating-time limits; pings the systemd watchdog while healthy.
 - flush: commits pending samples every FLUSH_INTERVAL_S and publishes what is committed.
 The run controller is the only thing that asks for heater power; ``trip`` is the
@@ -34,6 +35,8 @@ from daemon.probe import ProbeProfile
 from daemon.reduction.alignment import power_held_from_each_sample
 from daemon.rig import messages as m
 from daemon.rig.frontend import FrontEnd, FrontEndHandlers
+from daemon.rig.heater import ScpiHeater, open_scpi_heater
+from daemon.rig.scpi import ScpiError, SupplyLimits
 from daemon.rig.transport import SerialTransport
 from daemon.safety import (
     FrameLossWindow,
@@ -103,6 +106,10 @@ class DaemonSettings:
     probes: tuple[ProbeProfile, ...] = ()
     config_source: str = "<defaults>"
     frontend_baud: int = 115200
+    supply_url: str | None = None
+    """A SCPI bench supply that heats the probe instead of the front end; the front end still measures."""
+    supply_baud: int = 9600
+    supply_limits: SupplyLimits | None = None
 
 
 @dataclass
@@ -155,6 +162,7 @@ class RigService:
         self._sensor_names = [x.name for x in settings.probe.sensors]
         self._heater_idx = [i for i, x in enumerate(settings.probe.sensors) if x.is_on_heater]
         self._length_m = settings.probe.length_m or 0.1
+        self.supply: ScpiHeater | None = None  # opened by start() when settings.supply_url is set
 
     # -- life cycle ---------------------------------------------------------
     async def start(self) -> None:
@@ -162,6 +170,8 @@ class RigService:
         import daemon.reduction.api
         import daemon.reduction.live  # noqa: F401
 
+        if self.s.supply_url:
+            self.supply = await self._open_supply(self.s.supply_url)
         loop = asyncio.get_running_loop()
         self.store.on_commit = lambda mark: loop.call_soon_threadsafe(self._committed, mark)
         self.store.on_failure = lambda why: loop.call_soon_threadsafe(self._store_failed, why)
@@ -173,14 +183,23 @@ class RigService:
                 self.store.upsert_probe(p.serial or p.name, p.name, p.kind, json.dumps(_profile_dict(p)))
         self._event(None, "daemon", None, f"linerigd started (pid {os.getpid()}, config {self.s.config_source}); "
                                           "heater off, nothing re-armed",
-                    {"closed_runs": closed, "frontend": self.s.frontend_url})
+                    {"closed_runs": closed, "frontend": self.s.frontend_url, "supply": self.s.supply_url})
         for name, coro in (("link", self._link_loop()), ("lease", self._lease_loop()),
                            ("watch", self._watch_loop()), ("flush", self._flush_loop())):
             self._tasks.append(asyncio.create_task(self._guard(name, coro), name=f"linerigd-{name}"))
 
+    async def _open_supply(self, url: str) -> ScpiHeater:
+        """The supply's session starts with its output off (confirmed), before any task can arm."""
+        nominal = self.s.probe.heater_resistance_ohm or 40.0
+        limits = self.s.supply_limits or SupplyLimits(v_max=30.0, i_max=1.0,
+                                                      p_max_W=self.s.limits.max_power_W_per_m * self._length_m)
+        return await open_scpi_heater(url, self._length_m, nominal, limits, baud=self.s.supply_baud)
+
     async def stop(self, reason: str = "daemon stopping") -> None:
         self._stopping = True
         self.trip(reason, fault=False)
+        if self.supply is not None:
+            await self.supply.off()
         with contextlib.suppress(Exception):
             await asyncio.wait_for(self.frontend.heater_off(), 0.5)
         for t in self._tasks:
@@ -195,6 +214,8 @@ class RigService:
         with contextlib.suppress(StoreError):
             self.store.flush()
         self.transport.close()
+        if self.supply is not None:
+            self.supply.close()
 
     async def _guard(self, name: str, coro: Any) -> None:
         try:
@@ -275,6 +296,8 @@ class RigService:
         coro.close()  # it wanted to wait: the acknowledged OFF that follows covers it
 
     async def _heater_off(self) -> None:
+        if self.supply is not None and not await self.supply.off():
+            log.error("SCPI supply: output off not confirmed; switch it off at the panel")
         try:
             await self.frontend.heater_off()
             if self.armed_power is None:
@@ -292,6 +315,15 @@ class RigService:
 
     async def _send_arm(self, power: float) -> None:
         sent = time.monotonic()
+        if self.supply is not None:
+            try:
+                await self.supply.arm(power)
+                await self.supply.keep_alive()  # a readback at once: samples show the heater on from here
+                self._last_lease_ack = max(self._last_lease_ack, sent)
+            except (ScpiError, RigError, TimeoutError, OSError) as exc:
+                if self.armed_power is not None:
+                    self.trip(f"SCPI supply did not start heating: {exc}")
+            return
         try:
             await self.frontend.set_power(power, self.s.limits.lease_s)
             self._last_lease_ack = max(self._last_lease_ack, sent)
@@ -401,21 +433,32 @@ class RigService:
         temps = tuple(float("nan") if ch.fault else ch.value for ch in s.channels)
         faults = tuple(ch.fault for ch in s.channels)
         length = self._length_m
-        power = s.heater_V * s.heater_A / length if s.heater_on else 0.0
-        ohm = s.heater_V / s.heater_A if s.heater_on and s.heater_A > 1e-3 else None
-        if self.armed_power is not None and s.heater_on and not self._heater_confirmed:
+        heater_on, heater_V, heater_A = s.heater_on, s.heater_V, s.heater_A
+        supply = self.supply
+        if supply is not None:  # the supply heats: its output state and readback, not the front end's
+            heater_on = supply.armed  # its output is confirmed on
+            reading, loop = supply.reading, supply.loop
+            if reading is not None:
+                heater_V, heater_A = reading.volts, reading.amps
+            elif loop is not None and loop.r_ohm > 0:  # on, not yet read back: its setting on the assumed load
+                heater_V, heater_A = loop.v_set, loop.v_set / loop.r_ohm
+            else:
+                heater_V, heater_A = 0.0, 0.0
+        power = heater_V * heater_A / length if heater_on else 0.0
+        ohm = heater_V / heater_A if heater_on and heater_A > 1e-3 else None
+        if self.armed_power is not None and heater_on and not self._heater_confirmed:
             self._heater_confirmed = True
         run = self.run
         active = run is not None and run.active
         temps_json = [t if math.isfinite(t) else None for t in temps]
         self.last_sample = {"device_s": self.device_s, "temps_C": temps_json, "faults": list(faults),
                             "sensors": self._sensor_names, "q_W_per_m": power,
-                            "heater_on": s.heater_on, "heater_V": s.heater_V, "heater_A": s.heater_A,
+                            "heater_on": heater_on, "heater_V": heater_V, "heater_A": heater_A,
                             "supply_V": s.supply_V, "cj_C": s.cj_C}
         if active and run is not None:  # stored first: the sample that trips a limit is the evidence
             self._n += 1
             self.store.add_sample((run.run_id, self._n, s.seq, s.device_ms, self.device_s, str(run.state),
-                                   int(s.heater_on), s.heater_V, s.heater_A, s.supply_V, power, s.cj_C,
+                                   int(heater_on), heater_V, heater_A, s.supply_V, power, s.cj_C,
                                    json.dumps(temps_json), json.dumps(list(faults))))
             arr = self.run_arrays
             arr["device_s"].append(self.device_s)
@@ -425,24 +468,24 @@ class RigService:
         heater_temps = [temps[i] for i in self._heater_idx if i < len(temps) and math.isfinite(temps[i])]
         rise = run.rise_K(max(heater_temps)) if (run is not None and run.heating and heater_temps) else None
         view = SampleView(heating=self.armed_power is not None, heater_confirmed=self._heater_confirmed,
-                          heater_on=s.heater_on,
+                          heater_on=heater_on,
                           power_set_W_per_m=self.armed_power if self.armed_power is not None else self._last_power_set,
                           power_W_per_m=power, heater_ohm=ohm, supply_V=s.supply_V, temps_C=temps, faults=faults,
                           rise_K=rise, heating_elapsed_s=run.heating_elapsed_s(self.device_s) if run else 0.0,
                           run_active=active and run is not None and run.state != RunState.CHECKING,
                           off_pending=self._off_pending_until is not None)
         reason = check_sample(view, self.s.limits, probe.heater_resistance_ohm)
-        if reason and (active or s.heater_on or self.armed_power is not None):
+        if reason and (active or heater_on or self.armed_power is not None):
             self.trip(reason)
         if active and run is not None and run.active:
             if run.state == RunState.CHECKING:
-                problems = check_precheck(temps, faults, s.supply_V, self.s.limits, s.heater_on)
+                problems = check_precheck(temps, faults, s.supply_V, self.s.limits, heater_on)
                 if problems:
                     run.precheck_failed(problems, self.device_s)
             if run.active:
                 primary = run.sensor_index
                 run.on_sample(self.device_s, temps[primary] if primary < len(temps) else float("nan"), power,
-                              s.heater_on)
+                              heater_on)
         if self.hub.subscribers:
             t = None
             if active and run is not None and run.heat_start_s is not None:
@@ -459,6 +502,17 @@ class RigService:
             if self.armed_power is None or not self.link_up:
                 continue
             sent = time.monotonic()
+            if self.supply is not None:
+                if not self.supply.armed:
+                    continue  # still arming (or already off): _send_arm reports its own failure
+                try:
+                    await self.supply.keep_alive()
+                except (ScpiError, RigError, TimeoutError, OSError) as exc:
+                    if self.armed_power is not None:
+                        self.trip(f"SCPI supply: {exc}")
+                    continue
+                self._last_lease_ack = max(self._last_lease_ack, sent)
+                continue
             with contextlib.suppress(RigError, TimeoutError, OSError):
                 # a lost ack must not hold up the next renewal for long; the device extended the lease when
                 # the frame arrived, which was after ``sent``: that is what an ack proves
@@ -476,7 +530,9 @@ class RigService:
             if reason:
                 return reason
             if now - self._last_lease_ack > lim.lease_s:
-                return f"the front end acknowledged no lease renewal for {now - self._last_lease_ack:.1f} s"
+                who = "the SCPI supply completed no constant-power step" if self.supply is not None else \
+                    "the front end acknowledged no lease renewal"
+                return f"{who} for {now - self._last_lease_ack:.1f} s"
             if now - self._armed_wall > lim.max_heating_s:
                 return (f"heating time {now - self._armed_wall:.0f} s by the daemon's clock is above the limit "
                         f"{lim.max_heating_s:.0f} s (is the front end's clock running?)")
@@ -540,6 +596,7 @@ class RigService:
             "link_up": self.link_up,
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
             "heater_armed": self.armed_power is not None,
+            "heat_source": "scpi" if self.supply is not None else "frontend",
             "heater_on": bool(self.last_sample and self.last_sample["heater_on"]),
             "fault": self.fault,
             "store_failed": self.store.failed,

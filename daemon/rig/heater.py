@@ -20,7 +20,7 @@ from typing import Protocol, runtime_checkable
 from daemon.errors import DeviceRejected, RigError
 from daemon.rig import messages as m
 from daemon.rig.frontend import FrontEnd
-from daemon.rig.scpi import ConstantPowerLoop, ScpiSupply, SupplyLimits
+from daemon.rig.scpi import ConstantPowerLoop, Reading, ScpiSupply, SupplyLimits
 from daemon.rig.transport import SerialTransport
 
 __all__ = [
@@ -164,6 +164,8 @@ class ScpiHeater:
         self.loop: ConstantPowerLoop | None = None
         self.measured_W_per_m: float | None = None
         self.heater_ohm: float | None = None
+        self.reading: Reading | None = None
+        """The last volts and amps read back while armed (None until the first step of this arming)."""
 
     @property
     def armed(self) -> bool:
@@ -176,6 +178,7 @@ class ScpiHeater:
             self.loop.target_W = min(target_W, self.supply.limits.p_max_W)
             return
         loop = ConstantPowerLoop(self.supply, target_W)
+        self.measured_W_per_m = self.reading = None  # a readback from an earlier arming says nothing about this one
         try:
             await loop.start(self.heater_ohm or self.nominal_ohm)
         except BaseException:
@@ -195,7 +198,10 @@ class ScpiHeater:
             self.loop = None
             self.measured_W_per_m = None
             raise
+        if self.loop is not loop:  # switched off while this step was on the wire: its readback is stale
+            return
         self.measured_W_per_m = state.power_W / self.length_m
+        self.reading = state.reading
         if state.reading.amps >= loop.min_current_A:
             if math.isfinite(state.resistance_ohm):
                 self.heater_ohm = state.resistance_ohm
@@ -213,6 +219,7 @@ class ScpiHeater:
 
     async def off(self) -> bool:
         self.loop = None
+        self.reading = None
         try:
             ok = await self.supply.off()
         except asyncio.CancelledError:
@@ -238,13 +245,14 @@ async def open_scpi_heater(
     *,
     timeout_s: float = 1.0,
     expect_idn: str | None = None,
+    baud: int = 9600,
 ) -> ScpiHeater:
     """Open the supply at a pyserial URL and start its session: *CLS, *IDN?, output off (confirmed).
 
     Raises LinkError when the port cannot be opened and ScpiError when the supply does not answer sensibly;
     the port is closed again in both cases.
     """
-    transport = SerialTransport(url)
+    transport = SerialTransport(url, baud)
     transport.open()
     supply = ScpiSupply(transport, limits, timeout_s=timeout_s, expect_idn=expect_idn)
     try:

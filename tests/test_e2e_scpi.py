@@ -1,0 +1,70 @@
+"""The whole path with a SCPI bench supply as the heater's power source: `linerigd --simulate --supply`.
+
+Real parts: the daemon and the simulator as separate processes, pyserial on both pseudo-terminals (front end
+for the thermocouple samples, SCPI supply for the heater), constant power held by the daemon in software, a
+real SQLite file, and the `linerig start --wait --json` command a user types.
+"""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+
+pytestmark = pytest.mark.timeout(120)
+
+
+@pytest.fixture
+def daemon(tmp_path: Path):
+    sock, db, hlog = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "daemon.main", "--simulate", "--supply", "--speed", "100", "--socket", str(sock),
+         "--db", str(db), "--sim-heater-log", str(hlog)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert proc.stdout is not None
+    ready = json.loads(proc.stdout.readline() or "{}")
+    assert ready.get("ready"), proc.stderr.read() if proc.poll() is not None else "daemon did not report ready"
+    yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc}
+    proc.terminate()
+    try:
+        proc.wait(10)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+
+
+def test_run_heated_through_the_scpi_supply(daemon: dict) -> None:
+    cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
+           "--recover-s", "200", "--baseline-s", "120", "--wait", "--json"]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
+    assert done.returncode == 0, done.stderr
+    out = json.loads(done.stdout)
+    assert out["state"] == "done", out
+    run_id = out["run_id"]
+
+    con = sqlite3.connect(daemon["db"])
+    states = [r[0] for r in con.execute(
+        "SELECT state FROM events WHERE run_id = ? AND kind = 'state' ORDER BY id", [run_id])]
+    assert states == ["checking", "settling", "heating", "recovering", "done"]
+    plan_q = json.loads(con.execute("SELECT plan_json FROM runs WHERE id = ?", [run_id]).fetchone()[0])[
+        "power_W_per_m"]
+    # the power recorded while heating is the supply's readback, held at the plan's power by the daemon's loop
+    q_median = con.execute("SELECT q_W_per_m FROM samples WHERE run_id = ? AND phase = 'heating' AND heater_on = 1 "
+                           "ORDER BY q_W_per_m LIMIT 1 OFFSET (SELECT count(*) / 2 FROM samples WHERE run_id = ? "
+                           "AND phase = 'heating' AND heater_on = 1)", [run_id, run_id]).fetchone()[0]
+    assert abs(q_median / plan_q - 1) < 0.03, (q_median, plan_q)
+
+    # the simulator's own log of its heater switches: the supply's output on, then off; the front end's never
+    events = [json.loads(line) for line in daemon["heater_log"].read_text().splitlines()]
+    assert [e["heater_on"] for e in events if e.get("source") == "scpi"] == [True, False]
+    assert [e for e in events if e.get("source") != "scpi"] == []
+
+    # k within 5 % of the simulated material's conductivity (the simulator's input, not a fitted number)
+    k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
+    k = out["results"]["heater"]["k_W_per_mK"]
+    assert abs(k - k_true) / k_true < 0.05, (k, k_true)
