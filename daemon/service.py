@@ -128,7 +128,8 @@ class RigService:
         self.transport = FairTransport(settings.frontend_url, settings.frontend_baud)
         self.frontend = FrontEnd(self.transport, FrontEndHandlers(
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
-            on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why)))
+            on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why),
+            on_heater_switch=self._on_heater_switch))
         self.run: RunController | None = None
         self.series: _Series | None = None
         self.link_up = False
@@ -410,6 +411,17 @@ class RigService:
             self._event(None, "device", None, why)
 
     # -- samples ------------------------------------------------------------
+    def _on_heater_switch(self, kind: str, device_ms: int) -> None:
+        """The front end's own time of switch-on or switch-off: the run's exact time zero and end of heating."""
+        run = self.run
+        if run is None or not run.active or self.supply is not None:
+            return  # with a SCPI supply the front end's heater is not the one heating
+        t = (device_ms + self._ms_offset) / 1000.0
+        if kind == m.CMD_POWER and run.device_on_s is None and run.heating:
+            run.device_on_s = t
+        elif kind == m.CMD_OFF and run.heat_start_s is not None and run.device_off_s is None:
+            run.device_off_s = t
+
     def _device_seconds(self, ms: int) -> float:
         if self._last_ms is not None and ms < self._last_ms - (1 << 31):
             self._ms_offset += 1 << 32  # the 32-bit millisecond counter wrapped
@@ -782,7 +794,9 @@ class RigService:
         usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
         if not usable:
             return {}
-        data = RunData(time_s=t, q_W_per_m=power_held_from_each_sample(t, np.asarray(arr["q"])), temps_C=usable)
+        off = run.device_off_s - run.heat_start_s if run.device_off_s is not None else None
+        q = power_held_from_each_sample(t, np.asarray(arr["q"]), heater_off_s=off)
+        data = RunData(time_s=t, q_W_per_m=q, temps_C=usable)
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
         red = await in_daemon_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)

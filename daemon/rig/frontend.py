@@ -25,6 +25,9 @@ class FrontEndHandlers:
     on_fault: Callable[[m.Fault], None] = lambda f: None
     on_link_lost: Callable[[str], None] = lambda why: None
     on_bad_message: Callable[[str], None] = lambda why: None
+    # the device's own time (ms) at which its heater went on ("P") or off ("O"), from its acknowledgement;
+    # delivered in frame order, before any later sample, so time zero is known when the first hot sample arrives
+    on_heater_switch: Callable[[str, int], None] = lambda kind, device_ms: None
 
 
 class FrontEnd:
@@ -36,6 +39,7 @@ class FrontEnd:
         self.last_status: m.Status | None = None
         self._seq = 0
         self._acks: dict[int, asyncio.Future[m.Ack]] = {}
+        self._sent_kinds: dict[int, str] = {}
         self._lock = asyncio.Lock()
         self._identity_wait: asyncio.Future[m.Identity] | None = None
         self._status_wait: asyncio.Future[m.Status] | None = None
@@ -62,6 +66,10 @@ class FrontEnd:
         if isinstance(msg, m.Sample):
             self.handlers.on_sample(msg)
         elif isinstance(msg, m.Ack):
+            kind = self._sent_kinds.pop(msg.cmd_seq, None)
+            switched = _device_ms(msg.detail) if msg.ok else None
+            if kind in (m.CMD_POWER, m.CMD_OFF) and switched is not None:
+                self.handlers.on_heater_switch(kind, switched)
             fut = self._acks.get(msg.cmd_seq)
             if fut is not None and not fut.done():
                 fut.set_result(msg)
@@ -92,6 +100,7 @@ class FrontEnd:
             seq = self._seq
             fut: asyncio.Future[m.Ack] = asyncio.get_running_loop().create_future()
             self._acks[seq] = fut
+            self._note_sent(seq, kind)
             frame = encode_frame(kind, seq, list(fields))
             try:
                 for _ in range(RETRIES + 1):
@@ -106,6 +115,11 @@ class FrontEnd:
                 raise DeviceTimeout(f"front end did not acknowledge {kind} after {RETRIES + 1} tries")
             finally:
                 self._acks.pop(seq, None)
+
+    def _note_sent(self, seq: int, kind: str) -> None:
+        self._sent_kinds[seq] = kind
+        if len(self._sent_kinds) > 64:  # acknowledgements that never came: forget the oldest
+            self._sent_kinds.pop(next(iter(self._sent_kinds)))
 
     async def identify(self) -> m.Identity:
         self._identity_wait = asyncio.get_running_loop().create_future()
@@ -137,11 +151,14 @@ class FrontEnd:
         """Send OFF without letting a dead link raise; the device lease is the backstop."""
         with contextlib.suppress(Exception):
             if self.transport.is_open:
-                await self.transport.write(encode_frame(m.CMD_OFF, (self._seq + 1) % 65536))
-                self._seq = (self._seq + 1) % 65536
+                seq = (self._seq + 1) % 65536
+                await self.transport.write(encode_frame(m.CMD_OFF, seq))
+                self._seq = seq
+                self._note_sent(seq, m.CMD_OFF)
                 return True
         return False
 
 
 def _device_ms(detail: str) -> int | None:
+    """The switch time an OK carries for P and O (PROTOCOL.md §4.2), or None."""
     return int(detail) if detail.isdigit() else None
