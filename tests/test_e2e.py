@@ -82,3 +82,38 @@ def test_repeat_cycles_are_followed_to_the_end_of_the_series(daemon: dict) -> No
     # the heater went on and off once per cycle
     events = [json.loads(line)["heater_on"] for line in daemon["heater_log"].read_text().splitlines()]
     assert events == [True, False, True, False]
+
+
+def test_time_zero_is_the_firmwares_own_switch_on(tmp_path: Path) -> None:
+    """The simulator hosting the real firmware switches the heater on when the command arrives, between samples,
+    as hardware does; the daemon's time zero must be that instant (the firmware's reply says it), or k is biased."""
+    hlog = tmp_path / "heater.jsonl"
+    sim = subprocess.Popen([sys.executable, "-m", "daemon.sim.main", "--firmware", "--speed", "100",
+                            "--link-dir", str(tmp_path / "dev"), "--heater-log", str(hlog)],
+                           stdout=subprocess.PIPE, text=True)
+    assert sim.stdout is not None
+    info = json.loads(sim.stdout.readline())
+    sock, db = tmp_path / "d.sock", tmp_path / "runs.db"
+    daemon = subprocess.Popen([sys.executable, "-m", "daemon.main", "--frontend", info["frontend"], "--socket",
+                               str(sock), "--db", str(db)], stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+                              text=True)
+    try:
+        assert daemon.stdout is not None and json.loads(daemon.stdout.readline()).get("ready")
+        cmd = [sys.executable, "-m", "tui.cli", "--socket", str(sock), "start", "--heat-s", "300",
+               "--recover-s", "200", "--baseline-s", "120", "--wait", "--json"]
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
+        assert done.returncode == 0, done.stderr
+        out = json.loads(done.stdout)
+        on = next(json.loads(line) for line in hlog.read_text().splitlines() if json.loads(line)["heater_on"])
+        t0 = sqlite3.connect(db).execute("SELECT heat_start_device_s FROM runs WHERE id = ?",
+                                         [out["run_id"]]).fetchone()[0]
+        assert abs(t0 - on["device_t_s"]) < 0.002  # to the firmware's millisecond
+        k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
+        assert abs(out["results"]["heater"]["k_W_per_mK"] / k_true - 1) < 0.05
+    finally:
+        for proc in (daemon, sim):
+            proc.terminate()
+            try:
+                proc.wait(10)
+            except subprocess.TimeoutExpired:
+                proc.kill()
