@@ -81,19 +81,6 @@ def in_daemon_thread(fn: Any, *args: Any, **kwargs: Any) -> asyncio.Future[Any]:
     return fut
 
 
-class FairTransport(SerialTransport):
-    """The serial transport, made to yield to the event loop after every read.
-
-    SerialTransport.read returns without suspending while bytes are waiting, so a front end that never pauses
-    (a fast sample rate, or a babbling one) would starve the lease renewals, the watchdog ping and the API.
-    """
-
-    async def read(self) -> bytes:
-        data = await super().read()
-        await asyncio.sleep(0)
-        return data
-
-
 @dataclass
 class DaemonSettings:
     frontend_url: str
@@ -125,7 +112,7 @@ class RigService:
         self.s = settings
         self.store = store
         self.hub = hub
-        self.transport = FairTransport(settings.frontend_url, settings.frontend_baud)
+        self.transport = SerialTransport(settings.frontend_url, settings.frontend_baud)
         self.frontend = FrontEnd(self.transport, FrontEndHandlers(
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
             on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why),

@@ -61,6 +61,9 @@ class SerialTransport:
                 self.close()
                 raise LinkError(f"{self.url}: {exc}") from exc
             if data:
+                # Yield once even when bytes were waiting: a front end that never pauses (a fast rate, or one
+                # babbling) must not starve the lease renewals, the watchdog and the API on the same loop.
+                await asyncio.sleep(0)
                 return data
             await self._wait_readable()
 
