@@ -23,8 +23,10 @@ pytestmark = pytest.mark.timeout(120)
 @pytest.fixture
 def daemon(tmp_path: Path):
     sock, db, hlog = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl"
+    # 25×, not 100×: constant power is held in software, a step every quarter second of wall time; at 100× that is
+    # one correction per 25 simulated seconds, coarser than any real rig and enough to bend the record.
     proc = subprocess.Popen(
-        [sys.executable, "-m", "daemon.main", "--simulate", "--supply", "--speed", "100", "--socket", str(sock),
+        [sys.executable, "-m", "daemon.main", "--simulate", "--supply", "--speed", "25", "--socket", str(sock),
          "--db", str(db), "--sim-heater-log", str(hlog)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     assert proc.stdout is not None
@@ -40,7 +42,7 @@ def daemon(tmp_path: Path):
 
 def test_run_heated_through_the_scpi_supply(daemon: dict) -> None:
     cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
-           "--recover-s", "200", "--baseline-s", "120", "--wait", "--json"]
+           "--recover-s", "100", "--baseline-s", "120", "--wait", "--json"]
     done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
     assert done.returncode == 0, done.stderr
     out = json.loads(done.stdout)
