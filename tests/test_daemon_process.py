@@ -2,13 +2,16 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import signal
 import socket
 import sqlite3
 import subprocess
 import sys
+import threading
 import time
+from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
@@ -221,6 +224,23 @@ class HostPort:
     def close(self) -> None:
         self.port.close()
 
+    @contextlib.contextmanager
+    def holding(self) -> Iterator[None]:
+        """Renew the lease every 0.1 s from a thread for as long as the block runs."""
+        stop = threading.Event()
+
+        def renew() -> None:
+            while not stop.wait(0.1):  # the stand-in host's renewal period
+                self.send(m.CMD_LEASE, "1000")
+
+        t = threading.Thread(target=renew, daemon=True)
+        t.start()
+        try:
+            yield
+        finally:
+            stop.set()
+            t.join()
+
 
 def test_safe_off_turns_a_held_heater_off_by_command(tmp_path: Path) -> None:
     sim = Sim(tmp_path, speed=10)
@@ -254,18 +274,20 @@ def test_a_new_daemon_turns_off_a_heater_it_finds_on(tmp_path: Path) -> None:
         host.send(m.CMD_CONFIGURE, "1", "T", "T", "100.0")
         host.send(m.CMD_POWER, "5.0", "1000")
         wait_for(lambda: sim.state()["heater_on"], 5, "the test's own heater-on")
-        d = Daemon(tmp_path, sim.frontend)
+        d = None
         try:
-            deadline = time.monotonic() + 5
-            while sim.state()["heater_on"] and time.monotonic() < deadline:
-                host.send(m.CMD_LEASE, "1000")
-                time.sleep(0.1)  # renewal period of the stand-in host
+            # the stand-in host keeps renewing however long the new daemon takes to start; a renewal cannot
+            # switch a heater back on (the device answers NOTARMED), so only the daemon's command can end it
+            with host.holding():
+                d = Daemon(tmp_path, sim.frontend)
+                wait_for(lambda: not sim.state()["heater_on"], 5, "the new daemon's heater-off")
             off = sim.heater_events()[-1]
             assert (off["heater_on"], off["reason"]) == (False, "host command")
             st = d.wait_link()
             assert not st["heater_armed"] and st["fault"] is None
         finally:
-            d.stop()
+            if d is not None:
+                d.stop()
     finally:
         host.close()
         sim.stop()

@@ -64,8 +64,14 @@ async def test_scpi_supply_heats_the_simulated_probe(tmp_path: Path) -> None:
         slope = (T2 - T1) / math.log((t2 - t_on) / (t1 - t_on))
         k = get_material("glycerol").k_W_per_mK
         assert abs(slope / (5.0 / (4 * math.pi * k)) - 1) < 0.1
-        events = [json.loads(line) for line in hlog.read_text().splitlines()]
-        scpi = [e["heater_on"] for e in events if e.get("source") == "scpi"]
+        # the simulator logs the output change on its next tick: poll the log (with a deadline) until it has
+        deadline = asyncio.get_running_loop().time() + 3.0
+        while True:
+            events = [json.loads(line) for line in hlog.read_text().splitlines()]
+            scpi = [e["heater_on"] for e in events if e.get("source") == "scpi"]
+            if scpi == [True, False] or asyncio.get_running_loop().time() > deadline:
+                break
+            await asyncio.sleep(0.02)
         assert scpi == [True, False]
         reader.cancel()
         fe.transport.close()
