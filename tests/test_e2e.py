@@ -24,7 +24,7 @@ pytestmark = pytest.mark.timeout(120)
 def daemon(tmp_path: Path):
     sock, db, hlog, ctl = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl", tmp_path / "sim.sock"
     proc = subprocess.Popen(
-        [sys.executable, "-m", "daemon.main", "--simulate", "--speed", "100", "--socket", str(sock), "--db", str(db),
+        [sys.executable, "-m", "daemon.main", "--simulate", "--speed", "50", "--socket", str(sock), "--db", str(db),
          "--sim-heater-log", str(hlog), "--sim-control", str(ctl)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     assert proc.stdout is not None
