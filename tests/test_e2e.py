@@ -11,9 +11,11 @@ import os
 import sqlite3
 import subprocess
 import sys
+from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from simulated_daemon import simulated_daemon
 
 from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
@@ -21,21 +23,9 @@ pytestmark = pytest.mark.timeout(120)
 
 
 @pytest.fixture
-def daemon(tmp_path: Path):
-    sock, db, hlog, ctl = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl", tmp_path / "sim.sock"
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "daemon.main", "--simulate", "--speed", "50", "--socket", str(sock), "--db", str(db),
-         "--sim-heater-log", str(hlog), "--sim-control", str(ctl)],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    assert proc.stdout is not None
-    ready = json.loads(proc.stdout.readline() or "{}")
-    assert ready.get("ready"), proc.stderr.read() if proc.poll() is not None else "daemon did not report ready"
-    yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc}
-    proc.terminate()
-    try:
-        proc.wait(10)
-    except subprocess.TimeoutExpired:
-        proc.kill()
+def daemon(tmp_path: Path) -> Iterator[dict]:
+    with simulated_daemon(tmp_path, 50) as d:
+        yield d
 
 
 def test_simulated_run_end_to_end(daemon: dict) -> None:

@@ -11,9 +11,11 @@ import json
 import sqlite3
 import subprocess
 import sys
+from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from simulated_daemon import simulated_daemon
 
 from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
@@ -21,23 +23,11 @@ pytestmark = pytest.mark.timeout(120)
 
 
 @pytest.fixture
-def daemon(tmp_path: Path):
-    sock, db, hlog = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl"
+def daemon(tmp_path: Path) -> Iterator[dict]:
     # 25×, not 100×: constant power is held in software, a step every quarter second of wall time; at 100× that is
     # one correction per 25 simulated seconds, coarser than any real rig and enough to bend the record.
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "daemon.main", "--simulate", "--supply", "--speed", "25", "--socket", str(sock),
-         "--db", str(db), "--sim-heater-log", str(hlog)],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    assert proc.stdout is not None
-    ready = json.loads(proc.stdout.readline() or "{}")
-    assert ready.get("ready"), proc.stderr.read() if proc.poll() is not None else "daemon did not report ready"
-    yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc}
-    proc.terminate()
-    try:
-        proc.wait(10)
-    except subprocess.TimeoutExpired:
-        proc.kill()
+    with simulated_daemon(tmp_path, 25, "--supply") as d:
+        yield d
 
 
 def test_run_heated_through_the_scpi_supply(daemon: dict) -> None:

@@ -1,0 +1,31 @@
+"""`linerigd --simulate` as a real process for end-to-end tests: started, waited for, stopped."""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import subprocess
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+
+@contextlib.contextmanager
+def simulated_daemon(tmp_path: Path, speed: float, *extra: str) -> Iterator[dict[str, Any]]:
+    sock, db, hlog = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "daemon.main", "--simulate", *extra, "--speed", str(speed), "--socket", str(sock),
+         "--db", str(db), "--sim-heater-log", str(hlog)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout is not None
+        ready = json.loads(proc.stdout.readline() or "{}")
+        assert ready.get("ready"), proc.stderr.read() if proc.poll() is not None else "daemon did not report ready"
+        yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc}
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
