@@ -87,6 +87,9 @@ async def test_start_see_estimate_stop_when_steady_then_abort(daemon: Daemon) ->
         await pilot.press(*"Pond edge")
         form.query_one("#f-heat_s").value = "1800"  # long enough that only the operator ends the heating
         form.query_one("#f-baseline_s").value = "30"
+        # 200× speed: the default 600 s cooling passes in 3 s of wall time, which a busy machine can spend between
+        # the abort key and the daemon hearing it; a long cooling keeps the run active for the abort to land on
+        form.query_one("#f-recover_s").value = "6000"
         await until(pilot, lambda: "✓ READY" in text_of(form.query_one("#arm-line")), "the form to be ready")
         await pilot.press("ctrl+s")
         await until(pilot, lambda: isinstance(app.screen, Confirm), "the arming question")

@@ -64,6 +64,29 @@ def test_replayed_run_is_heating_with_every_sensor() -> None:
     assert live.events_seen == len(REPLAY["events"])
 
 
+def test_the_stop_verdict_stays_when_one_estimate_falls_outside_the_tolerance() -> None:
+    """The daemon latches ``stable_at_s``; the prompt follows that, not each estimate's own ``stable`` flag."""
+    live = replayed()
+    est = live.estimate
+    assert est is not None and est["stable_at_s"] is not None
+    wobble = {**est, "event": "estimate", "run_id": 17, "t_s": est["t_s"] + 1.0, "stable": False,
+              "k_W_per_mK": est["k_W_per_mK"] * 1.006}
+    live.apply_event(wobble)
+    assert live.can_stop_heating and live.stable_at_s == est["stable_at_s"]
+    live.apply_event({"event": "state", "run_id": 17, "state": "recovering", "reason": "x", "device_s": 1302.0})
+    assert not live.can_stop_heating  # the heater is off: nothing left to stop
+
+
+def test_no_stop_verdict_before_the_daemon_gives_one() -> None:
+    live2 = LiveState()
+    live2.apply_status(REPLAY["status"])
+    for ev in REPLAY["events"]:
+        if ev.get("event") == "estimate":
+            ev = {**ev, "stable": False, "stable_at_s": None}
+        live2.apply_event(ev)
+    assert live2.run_state == "heating" and live2.estimate is not None and not live2.can_stop_heating
+
+
 def test_baseline_and_rise_match_the_line_source() -> None:
     tr = replayed().trace
     assert tr is not None and tr.baseline_source == "measured"

@@ -347,10 +347,21 @@ class LiveState:
         return self.trace.last_estimate if self.trace is not None else None
 
     @property
-    def can_stop_heating(self) -> bool:
-        """The live rule says the estimate is steady and the heater is still on."""
+    def stable_at_s(self) -> float | None:
+        """When the daemon's live rule first found the estimate steady in this heating (latched, as the
+        daemon's own verdict and its ``auto_stop`` are); None before that."""
         est = self.estimate
-        return self.run_state == "heating" and est is not None and bool(est.get("stable"))
+        at = _num(est.get("stable_at_s")) if est is not None else math.nan
+        return at if math.isfinite(at) else None
+
+    @property
+    def can_stop_heating(self) -> bool:
+        """The daemon has given its "heating can stop" verdict and the heater is still on.
+
+        Latched rather than following each estimate's ``stable`` flag: near the tolerance that flag can flicker
+        from one sample to the next, and a prompt that comes and goes under the operator's finger turns a
+        deliberate key press into a question about a different state."""
+        return self.run_state == "heating" and self.stable_at_s is not None
 
     def supply_V(self) -> float | None:
         s = self.last_sample

@@ -228,6 +228,16 @@ class SensorReadout(Static):
         self.update(text)
 
 
+def _moved_since(live: LiveState, at_s: float) -> float | None:
+    """Relative change of k from the estimate at ``at_s`` to the latest one, from this client's record."""
+    tr = live.trace
+    if tr is None or not tr.estimates:
+        return None
+    then = min(tr.estimates, key=lambda e: abs(e[0] - at_s))
+    now = tr.estimates[-1]
+    return (now[1] - then[1]) / then[1] if then[1] else None
+
+
 class StopPrompt(Static):
     """The 'heating can stop' prompt; shown only while it applies."""
 
@@ -239,10 +249,14 @@ class StopPrompt(Static):
         if not visible:
             return
         est = live.estimate or {}
-        at = est.get("stable_at_s")
+        at = live.stable_at_s
         text = Text(" ▶ HEATING CAN STOP ", style="bold reverse green")
-        text.append(f" the estimate has held steady since {at:.0f} s. " if at is not None
-                    else " the estimate is steady. ")
+        if est.get("stable"):
+            text.append(f" the estimate has held steady since {at:.0f} s. ")
+        else:
+            since = _moved_since(live, at)
+            moved = f" (k {100 * since:+.1f} % since)" if since is not None else ""
+            text.append(f" the estimate was steady at {at:.0f} s and has moved since{moved}. ")
         if auto_stop:
             text.append("The run will stop heating by itself.")
         else:
