@@ -19,7 +19,6 @@ import json
 import logging
 import math
 import os
-import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -49,6 +48,7 @@ from daemon.safety import (
     check_sample,
 )
 from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError, utc_now
+from daemon.threads import in_daemon_thread
 
 log = logging.getLogger("linerigd")
 
@@ -56,29 +56,6 @@ RUN_METADATA_KEYS = ("site", "location", "depth_m", "sample", "material", "moist
                      "dry_density_kg_per_m3", "notes", "operator")
 NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
 WATCH_PERIOD_S = 0.1
-
-
-def in_daemon_thread(fn: Any, *args: Any, **kwargs: Any) -> asyncio.Future[Any]:
-    """Run ``fn`` in a daemon thread and await its result; unlike to_thread, exit never waits for it."""
-    loop = asyncio.get_running_loop()
-    fut: asyncio.Future[Any] = loop.create_future()
-
-    def deliver(ok: bool, value: Any) -> None:
-        if not fut.done():
-            (fut.set_result if ok else fut.set_exception)(value)
-
-    def work() -> None:
-        try:
-            result = fn(*args, **kwargs)
-        except Exception as exc:
-            ok, value = False, exc
-        else:
-            ok, value = True, result
-        with contextlib.suppress(RuntimeError):  # the loop is gone: the daemon stopped meanwhile
-            loop.call_soon_threadsafe(deliver, ok, value)
-
-    threading.Thread(target=work, name="linerigd-reduce", daemon=True).start()
-    return fut
 
 
 @dataclass
