@@ -116,7 +116,7 @@ class RigService:
         self._loss = FrameLossWindow(settings.limits.frame_window)
         self._tasks: list[asyncio.Task[Any]] = []
         self._background: set[asyncio.Task[Any]] = set()
-        self._stopping = False
+        self.stopping = False
         self.stop_requested = asyncio.Event()
         self.fatal: str | None = None
         self._store_tripped = False
@@ -139,14 +139,14 @@ class RigService:
             self.supply = await self._open_supply(self.s.supply_url)
         loop = asyncio.get_running_loop()
         self.store.on_commit = lambda mark: loop.call_soon_threadsafe(self._committed, mark)
-        self.store.on_failure = lambda why: loop.call_soon_threadsafe(self._store_failed, why)
+        self.store.on_failure = lambda why: loop.call_soon_threadsafe(self.note_store_failure, why)
         closed = self.store.close_interrupted_runs()
         if closed:
             log.warning("closed interrupted runs %s; the heater stays off until an operator starts a run", closed)
         for p in {*self.s.probes, self.s.probe}:
             with contextlib.suppress(StoreError):
                 self.store.upsert_probe(p.serial or p.name, p.name, p.kind, json.dumps(_profile_dict(p)))
-        self._event(None, "daemon", None, f"linerigd started (pid {os.getpid()}, config {self.s.config_source}); "
+        self.record_event(None, "daemon", None, f"linerigd started (pid {os.getpid()}, config {self.s.config_source}); "
                                           "heater off, nothing re-armed",
                     {"closed_runs": closed, "frontend": self.s.frontend_url, "supply": self.s.supply_url})
         for name, coro in (("link", self._link_loop()), ("lease", self._lease_loop()),
@@ -161,7 +161,7 @@ class RigService:
         return await open_scpi_heater(url, self._length_m, nominal, limits, baud=self.s.supply_baud)
 
     async def stop(self, reason: str = "daemon stopping") -> None:
-        self._stopping = True
+        self.stopping = True
         self.trip(reason, fault=False)
         if self.supply is not None:
             await self.supply.off()
@@ -175,7 +175,7 @@ class RigService:
         for t in list(self._background):
             with contextlib.suppress(asyncio.CancelledError, Exception):
                 await asyncio.wait_for(t, 2.0)
-        self._event(None, "daemon", None, f"linerigd stopping: {reason}")
+        self.record_event(None, "daemon", None, f"linerigd stopping: {reason}")
         with contextlib.suppress(StoreError):
             self.store.flush()
         self.transport.close()
@@ -199,7 +199,7 @@ class RigService:
             self.fatal = reason
             self.stop_requested.set()
 
-    def _spawn(self, coro: Any) -> asyncio.Task[Any]:
+    def spawn(self, coro: Any) -> asyncio.Task[Any]:
         task = asyncio.create_task(coro)
         self._background.add(task)
         task.add_done_callback(self._background.discard)
@@ -208,7 +208,7 @@ class RigService:
     # -- the safe state -----------------------------------------------------
     def trip(self, reason: str, fault: bool = True) -> None:
         """Heater off first, then record why. Safe to call twice."""
-        self._disarm()
+        self.disarm()
         run = self.run
         recorded = False
         if run is not None and run.active:
@@ -229,9 +229,9 @@ class RigService:
                 self.hub.publish({"event": "fault", "reason": reason, "run_id": run.run_id if recorded and run
                                   else None})
                 if not recorded:
-                    self._event(None, "safety", None, reason)
+                    self.record_event(None, "safety", None, reason)
 
-    def _disarm(self) -> None:
+    def disarm(self) -> None:
         self.armed_power = None
         self._armed_wall = None
         self._heater_confirmed = False
@@ -246,7 +246,7 @@ class RigService:
         self._off_sent = now
         self._off_now()
         with contextlib.suppress(RuntimeError):  # no running loop (at shutdown): the lease is the backstop
-            self._spawn(self._heater_off())
+            self.spawn(self._heater_off())
 
     def _off_now(self) -> None:
         """The OFF frame on the wire before this call returns, ahead of any logging or database work."""
@@ -270,13 +270,13 @@ class RigService:
         except (RigError, OSError, TimeoutError) as exc:
             log.warning("heater off not acknowledged (%s); the front end's lease will turn it off", exc)
 
-    def _arm(self, power_W_per_m: float) -> None:
+    def arm(self, power_W_per_m: float) -> None:
         self.armed_power = power_W_per_m
         self._last_power_set = power_W_per_m
         self._armed_wall = self._last_arm = time.monotonic()
         self._last_lease_ack = self._armed_wall
         self._heater_confirmed = False
-        self._arm_task = self._spawn(self._send_arm(power_W_per_m))
+        self._arm_task = self.spawn(self._send_arm(power_W_per_m))
 
     async def _send_arm(self, power: float) -> None:
         sent = time.monotonic()
@@ -342,7 +342,7 @@ class RigService:
         self._link_note = None
         self.hub.publish({"event": "link", "up": up, "reason": why})
         run = self.run
-        self._event(run.run_id if run and run.active else None, "link", None, why)
+        self.record_event(run.run_id if run and run.active else None, "link", None, why)
         if not up and run is not None and run.active:
             self.trip(f"front end lost during the run: {why}")
 
@@ -357,9 +357,9 @@ class RigService:
         if (run is not None and run.active) or self.armed_power is not None:
             self.trip(why)
         else:
-            self._event(None, "link", None, why)
+            self.record_event(None, "link", None, why)
         if self.link_up:
-            self._spawn(self._reconfigure())
+            self.spawn(self._reconfigure())
 
     async def _reconfigure(self) -> None:
         try:
@@ -372,7 +372,7 @@ class RigService:
         if (self.run is not None and self.run.active) or self.armed_power is not None:
             self.trip(why)
         else:
-            self._event(None, "device", None, why)
+            self.record_event(None, "device", None, why)
 
     # -- samples ------------------------------------------------------------
     def _on_heater_switch(self, kind: str, device_ms: int) -> None:
@@ -543,12 +543,12 @@ class RigService:
             try:
                 self.store.flush()  # to the writer thread; ``_committed`` hears back
             except StoreError as exc:
-                self._store_failed(str(exc))
+                self.note_store_failure(str(exc))
 
     def _committed(self, mark: dict[str, int]) -> None:
         self.hub.publish({"event": "committed", **mark})
 
-    def _store_failed(self, why: str) -> None:
+    def note_store_failure(self, why: str) -> None:
         """The first failed write trips once; everything after it is only logged."""
         if self._store_tripped:
             return
@@ -556,13 +556,13 @@ class RigService:
         self.trip(f"{why}: the heater is off and the run stops; free disk space or fix the database, "
                   "then restart linerigd")
 
-    def _event(self, run_id: int | None, kind: str, state: str | None, reason: str,
+    def record_event(self, run_id: int | None, kind: str, state: str | None, reason: str,
                data: dict[str, Any] | None = None) -> None:
         try:
             self.store.event(run_id, kind, state, reason, self.device_s, data)
         except StoreError as exc:
             log.error("event not recorded (%s): %s", exc, reason)
-            self._store_failed(str(exc))
+            self.note_store_failure(str(exc))
 
     # -- requests -----------------------------------------------------------
     def status(self) -> dict[str, Any]:
@@ -706,7 +706,7 @@ class RigService:
                 "cycle": cycle, "q_timing": "reading",
                 "frontend_boot_id": self.frontend.identity.boot_id if self.frontend.identity else None})
         except StoreError as exc:
-            self._store_failed(str(exc))
+            self.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
         self._n = 0
         self._loss.reset()  # a burst that is over does not count against a new run; the window refills
@@ -716,7 +716,7 @@ class RigService:
                                  reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}
-        self._event(run_id, "state", "checking", why, data)
+        self.record_event(run_id, "state", "checking", why, data)
         self.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
                           "device_s": self.device_s, **self._cycle_fields(cycle)})
         sdnotify.notify(f"STATUS=run {run_id} checking")
@@ -736,13 +736,13 @@ class RigService:
     def stop_heating(self, peer: Peer | None = None) -> None:
         if self.run is None or not self.run.stop_heating():
             raise RequestError("no run is heating")
-        self._event(self.run.run_id, "operator", None, self.run.stop_requested or "stop heating",
+        self.record_event(self.run.run_id, "operator", None, self.run.stop_requested or "stop heating",
                     {"peer": peer.to_dict() if peer else None})
 
     def abort(self, reason: str = "operator abort", peer: Peer | None = None) -> None:
         if self.run is None or not self.run.active:
             raise RequestError("no run is active")
-        self._event(self.run.run_id, "operator", None, f"abort requested: {reason}",
+        self.record_event(self.run.run_id, "operator", None, f"abort requested: {reason}",
                     {"peer": peer.to_dict() if peer else None})
         self.trip(reason, fault=False)
 
@@ -783,8 +783,8 @@ class RigService:
                 self.store.update_series(series.series_id, {
                     "state": series.schedule.series_state(state), "ended_utc": utc_now(),
                     "end_reason": f"cycle {run.cycle} {state}"})
-        self._spawn(self._finish(run, state, arr, series, last=next_cycle is None))
-        if series is not None and next_cycle is not None and not self._stopping:
+        self.spawn(self._finish(run, state, arr, series, last=next_cycle is None))
+        if series is not None and next_cycle is not None and not self.stopping:
             try:
                 self._open_run(series.plan, series.metadata, cycle=next_cycle, reequilibrate=True, peer=None,
                                why=f"cycle {next_cycle} of {series.plan.cycles}: re-equilibrating")
@@ -799,14 +799,14 @@ class RigService:
         try:
             results = await self.final_reduction(run, arr)
         except StoreError as exc:
-            self._store_failed(str(exc))
+            self.note_store_failure(str(exc))
         except Exception as exc:  # a failed reduction must not lose the run
             log.warning("final reduction of run %s failed: %s", run.run_id, exc)
-            self._event(run.run_id, "reduction", None, f"final reduction failed: {exc}")
+            self.record_event(run.run_id, "reduction", None, f"final reduction failed: {exc}")
         try:
             self.store.flush(wait=True)  # the run's samples are on disk before it is reported finished
         except StoreError as exc:
-            self._store_failed(str(exc))
+            self.note_store_failure(str(exc))
         self.store.checkpoint()  # the WAL folds back into the file once per run: it stays small
         extra = self._cycle_fields(run.cycle) if series else {"series_id": None, "cycle": run.cycle, "cycles": 1}
         self.hub.publish({"event": "run_finished", "run_id": run.run_id, "state": str(state), "results": results,
@@ -824,10 +824,10 @@ class _Actions:
         self.run_id = run_id
 
     def arm(self, power_W_per_m: float) -> None:
-        self.svc._arm(power_W_per_m)
+        self.svc.arm(power_W_per_m)
 
     def disarm(self, reason: str) -> None:
-        self.svc._disarm()
+        self.svc.disarm()
 
     def state_changed(self, state: RunState, reason: str, device_s: float) -> None:
         svc = self.svc
@@ -840,8 +840,8 @@ class _Actions:
         try:
             svc.store.update_run(self.run_id, fields)
         except StoreError as exc:
-            svc._store_failed(str(exc))
-        svc._event(self.run_id, "state", str(state), reason)
+            svc.note_store_failure(str(exc))
+        svc.record_event(self.run_id, "state", str(state), reason)
         svc.hub.publish({"event": "state", "run_id": self.run_id, "state": str(state), "reason": reason,
                          "device_s": device_s, **svc._cycle_fields(run.cycle if run else 1)})
         sdnotify.notify(f"STATUS=run {self.run_id} {state}")
@@ -851,7 +851,7 @@ class _Actions:
         try:
             svc.store.update_run(self.run_id, {"heat_start_device_s": device_s})
         except StoreError as exc:
-            svc._store_failed(str(exc))
+            svc.note_store_failure(str(exc))
         svc.hub.publish({"event": "heater_on", "run_id": self.run_id, "heat_start_device_s": device_s})
 
     def heating_ended(self, device_s: float) -> None:
@@ -860,7 +860,7 @@ class _Actions:
             try:  # the live estimate at heater off, kept beside the final reduction
                 self.svc.store.add_result(self.run_id, run.plan.sensor, run.last_estimate, source="live")
             except StoreError as exc:
-                self.svc._store_failed(str(exc))
+                self.svc.note_store_failure(str(exc))
 
     def estimate(self, est: dict[str, Any]) -> None:
         if self.svc.hub.subscribers:
@@ -870,7 +870,7 @@ class _Actions:
         svc = self.svc
         why = (f"estimate stable: k = {est.get('k_W_per_mK') or float('nan'):.3f} W/(m·K) at t = "
                f"{est.get('t_s') or 0:.0f} s; heating can stop")
-        svc._event(self.run_id, "verdict", None, why, {"estimate": est})
+        svc.record_event(self.run_id, "verdict", None, why, {"estimate": est})
         svc.hub.publish({"event": "stable", "run_id": self.run_id, "reason": why, **est})
 
     def finished(self, state: RunState) -> None:
