@@ -9,6 +9,10 @@ with a failure code, so systemd restarts it in the safe state):
 - flush: commits pending samples every FLUSH_INTERVAL_S and publishes what is committed.
 The run controller is the only thing that asks for heater power; ``trip`` is the
 one path to the safe state and may be called any number of times.
+
+The rig service owns the devices, the sample pipeline and the safe state. Runs and series (checking a request,
+opening a run, the next cycle, the final reduction) belong to the run keeper (``daemon/run_keeper.py``); the
+service answers the run requests by handing them to it.
 """
 
 from __future__ import annotations
@@ -24,37 +28,30 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from daemon import sdnotify
-from daemon.api import Hub, Peer, RequestError
-from daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
+from daemon.api import Hub, Peer
+from daemon.controller import RunController, RunPlan, RunState
 from daemon.errors import RigError
 from daemon.probe import ProbeProfile
-from daemon.reduction.alignment import power_held_from_each_sample
 from daemon.rig import messages as m
 from daemon.rig.frontend import FrontEnd, FrontEndHandlers
 from daemon.rig.heater import ScpiHeater, open_scpi_heater
 from daemon.rig.scpi import ScpiError, SupplyLimits
 from daemon.rig.transport import SerialTransport
+from daemon.run_keeper import RunKeeper
 from daemon.safety import (
     FrameLossWindow,
     Limits,
     SampleView,
     check_arming,
     check_link,
-    check_plan,
     check_precheck,
     check_sample,
 )
-from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError, utc_now
-from daemon.threads import in_daemon_thread
+from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
 
 log = logging.getLogger("linerigd")
 
-RUN_METADATA_KEYS = ("site", "location", "depth_m", "sample", "material", "moisture_pct",
-                     "dry_density_kg_per_m3", "notes", "operator")
-NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
 WATCH_PERIOD_S = 0.1
 
 
@@ -76,14 +73,6 @@ class DaemonSettings:
     supply_limits: SupplyLimits | None = None
 
 
-@dataclass
-class _Series:
-    series_id: int
-    plan: RunPlan
-    schedule: CycleSchedule
-    metadata: dict[str, Any]
-
-
 class RigService:
     def __init__(self, settings: DaemonSettings, store: Store, hub: Hub) -> None:
         self.s = settings
@@ -94,8 +83,7 @@ class RigService:
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
             on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why),
             on_heater_switch=self._on_heater_switch))
-        self.run: RunController | None = None
-        self.series: _Series | None = None
+        self.runs = RunKeeper(self)  # the current run and series
         self.link_up = False
         self.armed_power: float | None = None
         self._armed_wall: float | None = None
@@ -567,7 +555,6 @@ class RigService:
     # -- requests -----------------------------------------------------------
     def status(self) -> dict[str, Any]:
         run = self.run
-        series = self.series
         return {
             "link_up": self.link_up,
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
@@ -586,298 +573,51 @@ class RigService:
             "config": self.s.config_source,
             "presets": sorted(self.s.presets),
             "run": None if run is None else run.snapshot(),
-            "series": None if series is None else {
-                "id": series.series_id, "cycles": series.schedule.cycles, "cycle": series.schedule.cycle,
-                "done": series.schedule.done},
+            "series": self.runs.series_status(),
             "counters": self.frontend.decoder.counters.__dict__,
             "frame_loss": {"lost": self._loss.lost, "frames": self._loss.frames},
             "samples_seen": self.samples_seen,
         }
 
     def make_plan(self, preset: str | None, changes: dict[str, Any]) -> RunPlan:
-        if preset is not None:
-            if preset not in self.s.presets:
-                known = ", ".join(sorted(self.s.presets)) or "none configured"
-                raise RequestError(f"no preset {preset!r} (presets: {known})")
-            base = self.s.presets[preset]
-        else:
-            base = self.s.default_plan
-        try:
-            return base.with_changes(changes)
-        except PlanError as exc:
-            raise RequestError(f"bad run plan: {exc}") from exc
-
-    def _check_can_start(self, plan: RunPlan) -> list[str]:
-        if self.run is not None and self.run.active:
-            raise RequestError(f"run {self.run.run_id} is still {self.run.state}; stop or abort it first")
-        if not self.link_up:
-            raise RequestError("the front end is not connected; check the cable and the port")
-        silent = time.monotonic() - self.last_sample_wall
-        if silent > self.s.limits.stale_after_s:
-            raise RequestError(f"no data from the front end for {silent:.1f} s; check the cable and its power")
-        if self.store.failed:
-            raise RequestError(f"the database cannot take writes: {self.store.failed}")
-        problems = check_plan(plan.power_W_per_m, plan.heat_s, self.s.limits)
-        if problems:
-            raise RequestError("; ".join(problems))
-        names = [x.name for x in self.s.probe.sensors]
-        if plan.sensor not in names:
-            raise RequestError(f"sensor {plan.sensor!r} is not on probe {self.s.probe.name!r} ({', '.join(names)})")
-        return names
-
-    @staticmethod
-    def check_metadata(metadata: Any) -> dict[str, Any]:
-        if not isinstance(metadata, dict):
-            raise RequestError("metadata must be an object")
-        unknown = sorted(set(metadata) - set(RUN_METADATA_KEYS))
-        if unknown:
-            raise RequestError(f"unknown metadata key {str(unknown[0])[:60]!r}; known: {', '.join(RUN_METADATA_KEYS)}")
-        out: dict[str, Any] = {}
-        for k, v in metadata.items():
-            if v is None:
-                continue
-            if k in NUMERIC_METADATA:
-                if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-                    raise RequestError(f"metadata {k} must be a number, got {str(v)[:60]!r}")
-            elif not isinstance(v, str) or len(v) > 4000:
-                raise RequestError(f"metadata {k} must be text of at most 4000 characters")
-            out[k] = v
-        return out
+        return self.runs.make_plan(preset, changes)
 
     def start_run(self, plan: RunPlan, metadata: dict[str, Any], peer: Peer | None = None) -> dict[str, Any]:
-        self._check_can_start(plan)
-        fields = self.check_metadata(metadata)
-        if self.s.simulated_material and "material" not in fields:
-            fields["material"] = self.s.simulated_material
-        series_id = None
-        if plan.cycles > 1:
-            try:
-                series_id = self.store.create_series({
-                    "kind": "cycles", "name": fields.get("sample"), "site": fields.get("site"),
-                    "cycles": plan.cycles, "plan_json": json.dumps(plan.to_dict()),
-                    "probe_serial": self.s.probe.serial, "data": json.dumps({"metadata": fields})})
-            except StoreError as exc:
-                raise RequestError(str(exc)) from exc
-            self.series = _Series(series_id, plan, CycleSchedule(plan.cycles), fields)
-        else:
-            self.series = None
-        self.fault = None
-        self._fault_recorded = None
-        run_id = self._open_run(plan, fields, cycle=1, reequilibrate=False, peer=peer, why="run requested")
-        return {"run_id": run_id, "series_id": series_id}
+        return self.runs.start_run(plan, metadata, peer)
 
     def resume_series(self, series_id: int, peer: Peer | None = None) -> dict[str, Any]:
-        from daemon.store.queries import series_detail
+        return self.runs.resume_series(series_id, peer)
 
-        detail = series_detail(self.store.reader, series_id)
-        if detail is None:
-            raise RequestError(f"no series {series_id}")
-        if detail["state"] not in ("interrupted", "faulted", "aborted"):
-            raise RequestError(f"series {series_id} is {detail['state']}; only an interrupted, faulted or aborted "
-                               "series can be resumed")
-        plan = self.make_plan(None, {k: v for k, v in detail["plan"].items() if k in RunPlan().to_dict()})
-        self._check_can_start(plan)
-        done = detail["cycles_done"]
-        if done >= plan.cycles:
-            raise RequestError(f"series {series_id} has all {plan.cycles} cycles done")
-        meta = json.loads(detail.get("data") or "{}").get("metadata", {})
-        next_cycle = max([r["cycle"] or 0 for r in detail["runs"]] + [0]) + 1
-        try:
-            self.store.update_series(series_id, {"state": "running", "ended_utc": None, "end_reason": None})
-        except StoreError as exc:
-            raise RequestError(str(exc)) from exc
-        self.series = _Series(series_id, plan, CycleSchedule(plan.cycles, done=done, cycle=next_cycle), meta)
+    def stop_heating(self, peer: Peer | None = None) -> None:
+        self.runs.stop_heating(peer)
+
+    def abort(self, reason: str = "operator abort", peer: Peer | None = None) -> None:
+        self.runs.abort(reason, peer)
+
+    # -- what the run keeper asks of the rig ----------------------------------
+    @property
+    def run(self) -> RunController | None:
+        """The current or last run; the run keeper opens it, the sample path and the safe state act on it."""
+        return self.runs.run
+
+    def clear_fault(self) -> None:
+        """An operator starts a new run: the last trip is history (it stays in the events)."""
         self.fault = None
         self._fault_recorded = None
-        run_id = self._open_run(plan, meta, cycle=next_cycle, reequilibrate=True, peer=peer,
-                                why=f"series {series_id} resumed at a cycle boundary ({done} of {plan.cycles} "
-                                    "cycles done)")
-        return {"run_id": run_id, "series_id": series_id, "cycle": next_cycle}
 
-    def _open_run(self, plan: RunPlan, fields: dict[str, Any], cycle: int, reequilibrate: bool,
-                  peer: Peer | None, why: str) -> int:
-        names = [x.name for x in self.s.probe.sensors]
-        series = self.series
-        try:
-            run_id = self.store.create_run({
-                **fields, "kind": "cycle" if series else "single", "probe_serial": self.s.probe.serial,
-                "sensor_names": json.dumps(names), "heater_length_m": self.s.probe.length_m,
-                "plan_json": json.dumps(plan.to_dict()), "series_id": series.series_id if series else None,
-                "cycle": cycle, "q_timing": "reading",
-                "frontend_boot_id": self.frontend.identity.boot_id if self.frontend.identity else None})
-        except StoreError as exc:
-            self.note_store_failure(str(exc))
-            raise RequestError(str(exc)) from exc
+    def begin_run_samples(self) -> None:
+        """A new run's samples are numbered from 1 and kept for its final reduction."""
         self._n = 0
         self._loss.reset()  # a burst that is over does not count against a new run; the window refills
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
-        self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=self._reducer_factory(plan.sensor), cycle=cycle,
-                                 reequilibrate=reequilibrate)
-        data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
-                "series_id": series.series_id if series else None, "cycle": cycle}
-        self.record_event(run_id, "state", "checking", why, data)
-        self.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
-                          "device_s": self.device_s, **self._cycle_fields(cycle)})
-        sdnotify.notify(f"STATUS=run {run_id} checking")
-        return run_id
-
-    def _cycle_fields(self, cycle: int) -> dict[str, Any]:
-        s = self.series
-        return {"series_id": s.series_id if s else None, "cycle": cycle, "cycles": s.schedule.cycles if s else 1}
 
     def _reducer_factory(self, sensor: str) -> Any:
+        """The live reducer for one sensor of this rig's probe, within its temperature-rise limit."""
         from daemon.reduction.live import LiveReducer
 
         probe = self.s.probe
         lim = self.s.limits.max_rise_K
         return lambda: LiveReducer(probe=probe, sensor=sensor, max_rise_K=lim)
-
-    def stop_heating(self, peer: Peer | None = None) -> None:
-        if self.run is None or not self.run.stop_heating():
-            raise RequestError("no run is heating")
-        self.record_event(self.run.run_id, "operator", None, self.run.stop_requested or "stop heating",
-                    {"peer": peer.to_dict() if peer else None})
-
-    def abort(self, reason: str = "operator abort", peer: Peer | None = None) -> None:
-        if self.run is None or not self.run.active:
-            raise RequestError("no run is active")
-        self.record_event(self.run.run_id, "operator", None, f"abort requested: {reason}",
-                    {"peer": peer.to_dict() if peer else None})
-        self.trip(reason, fault=False)
-
-    async def final_reduction(self, run: RunController, arr: dict[str, list[Any]]) -> dict[str, Any]:
-        if run.heat_start_s is None or len(arr.get("device_s", [])) < 10:
-            return {}
-        from daemon.reduction.api import reduce_run
-        from daemon.reduction.data import RunData
-
-        t = np.asarray(arr["device_s"]) - run.heat_start_s
-        temps = np.asarray(arr["temps"], dtype=float)
-        names = [x.name for x in self.s.probe.sensors]
-        usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
-        if not usable:
-            return {}
-        off = run.device_off_s - run.heat_start_s if run.device_off_s is not None else None
-        q = power_held_from_each_sample(t, np.asarray(arr["q"]), heater_off_s=off)
-        data = RunData(time_s=t, q_W_per_m=q, temps_C=usable)
-        # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
-        # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
-        red = await in_daemon_thread(reduce_run, data, self.s.probe, max_rise_K=self.s.limits.max_rise_K)
-        out = {}
-        for name, res in red.sensors.items():
-            j = res.to_json()
-            if run.not_settled and "not_settled" not in j["flags"]:
-                j["flags"] = [*j["flags"], "not_settled"]
-            self.store.add_result(run.run_id, name, j, source="final")
-            out[name] = j
-        return out
-
-    def _run_ended(self, run: RunController, state: RunState) -> None:
-        """Called as a run reaches a final state: start the next cycle at once, reduce this one."""
-        arr = self.run_arrays
-        series = self.series
-        next_cycle = series.schedule.after_run(state) if series is not None else None
-        if series is not None and next_cycle is None:
-            with contextlib.suppress(StoreError):
-                self.store.update_series(series.series_id, {
-                    "state": series.schedule.series_state(state), "ended_utc": utc_now(),
-                    "end_reason": f"cycle {run.cycle} {state}"})
-        self.spawn(self._finish(run, state, arr, series, last=next_cycle is None))
-        if series is not None and next_cycle is not None and not self.stopping:
-            try:
-                self._open_run(series.plan, series.metadata, cycle=next_cycle, reequilibrate=True, peer=None,
-                               why=f"cycle {next_cycle} of {series.plan.cycles}: re-equilibrating")
-            except RequestError as exc:
-                log.error("next cycle not started: %s", exc)
-        elif series is None or next_cycle is None:
-            sdnotify.notify(f"STATUS=idle (run {run.run_id} {state})")
-
-    async def _finish(self, run: RunController, state: RunState, arr: dict[str, list[Any]],
-                      series: _Series | None, last: bool) -> None:
-        results: dict[str, Any] = {}
-        try:
-            results = await self.final_reduction(run, arr)
-        except StoreError as exc:
-            self.note_store_failure(str(exc))
-        except Exception as exc:  # a failed reduction must not lose the run
-            log.warning("final reduction of run %s failed: %s", run.run_id, exc)
-            self.record_event(run.run_id, "reduction", None, f"final reduction failed: {exc}")
-        try:
-            self.store.flush(wait=True)  # the run's samples are on disk before it is reported finished
-        except StoreError as exc:
-            self.note_store_failure(str(exc))
-        self.store.checkpoint()  # the WAL folds back into the file once per run: it stays small
-        extra = self._cycle_fields(run.cycle) if series else {"series_id": None, "cycle": run.cycle, "cycles": 1}
-        self.hub.publish({"event": "run_finished", "run_id": run.run_id, "state": str(state), "results": results,
-                          **extra})
-        if series is not None and last:
-            self.hub.publish({"event": "series_finished", "series_id": series.series_id,
-                              "state": series.schedule.series_state(state), "cycles_done": series.schedule.done})
-
-
-class _Actions:
-    """What a run controller may ask of the daemon."""
-
-    def __init__(self, svc: RigService, run_id: int) -> None:
-        self.svc = svc
-        self.run_id = run_id
-
-    def arm(self, power_W_per_m: float) -> None:
-        self.svc.arm(power_W_per_m)
-
-    def disarm(self, reason: str) -> None:
-        self.svc.disarm()
-
-    def state_changed(self, state: RunState, reason: str, device_s: float) -> None:
-        svc = self.svc
-        run = svc.run
-        fields: dict[str, Any] = {"state": str(state)}
-        if state in FINAL:
-            fields.update(ended_utc=utc_now(), end_reason=reason)
-        if run is not None and run.run_id == self.run_id and run.heat_end_s is not None:
-            fields["heat_end_device_s"] = run.heat_end_s
-        try:
-            svc.store.update_run(self.run_id, fields)
-        except StoreError as exc:
-            svc.note_store_failure(str(exc))
-        svc.record_event(self.run_id, "state", str(state), reason)
-        svc.hub.publish({"event": "state", "run_id": self.run_id, "state": str(state), "reason": reason,
-                         "device_s": device_s, **svc._cycle_fields(run.cycle if run else 1)})
-        sdnotify.notify(f"STATUS=run {self.run_id} {state}")
-
-    def heating_started(self, device_s: float) -> None:
-        svc = self.svc
-        try:
-            svc.store.update_run(self.run_id, {"heat_start_device_s": device_s})
-        except StoreError as exc:
-            svc.note_store_failure(str(exc))
-        svc.hub.publish({"event": "heater_on", "run_id": self.run_id, "heat_start_device_s": device_s})
-
-    def heating_ended(self, device_s: float) -> None:
-        run = self.svc.run
-        if run is not None and run.run_id == self.run_id and run.last_estimate:
-            try:  # the live estimate at heater off, kept beside the final reduction
-                self.svc.store.add_result(self.run_id, run.plan.sensor, run.last_estimate, source="live")
-            except StoreError as exc:
-                self.svc.note_store_failure(str(exc))
-
-    def estimate(self, est: dict[str, Any]) -> None:
-        if self.svc.hub.subscribers:
-            self.svc.hub.publish({"event": "estimate", "run_id": self.run_id, **est})
-
-    def verdict(self, est: dict[str, Any]) -> None:
-        svc = self.svc
-        why = (f"estimate stable: k = {est.get('k_W_per_mK') or float('nan'):.3f} W/(m·K) at t = "
-               f"{est.get('t_s') or 0:.0f} s; heating can stop")
-        svc.record_event(self.run_id, "verdict", None, why, {"estimate": est})
-        svc.hub.publish({"event": "stable", "run_id": self.run_id, "reason": why, **est})
-
-    def finished(self, state: RunState) -> None:
-        svc = self.svc
-        run = svc.run
-        if run is not None and run.run_id == self.run_id:
-            svc._run_ended(run, state)
 
 
 def _profile_dict(p: ProbeProfile) -> dict[str, Any]:
