@@ -242,8 +242,11 @@ async def test_lease_runs_out_in_wall_time_whatever_the_speed(
     lasted = off_wall - sent
     assert lasted >= expect_s - 0.02  # never early by more than one simulator tick (the re-based clocks step in ticks)
     assert lasted <= expect_s + 0.25  # the lease plus the simulator's tick and scheduling latency
-    # in device time the heater ran speed times longer: the firmware's clock is not what timed the lease
-    assert off["device_t_s"] - on["device_t_s"] == pytest.approx(speed * lasted, rel=0.2)
+    # in device time the heater ran about speed times longer: the firmware's clock is not what timed the lease.
+    # A loaded machine makes the simulator fall behind its speed (never ahead), so the lower side is loose;
+    # timed on the device clock, the heating would have lasted the lease itself, a tiny fraction of this.
+    ran_device_s = off["device_t_s"] - on["device_t_s"]
+    assert 0.5 * speed * lasted <= ran_device_s <= 1.2 * speed * lasted, (ran_device_s, speed * lasted)
 
 
 async def test_a_late_retry_is_reacked_and_not_reapplied(tmp_path: Path) -> None:
