@@ -195,7 +195,7 @@ class RunKeeper:
             raise RequestError(str(exc)) from exc
         rig.begin_run_samples()
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=rig._reducer_factory(plan.sensor), cycle=cycle,
+                                 reducer_factory=rig.reducer_factory(plan.sensor), cycle=cycle,
                                  reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}

@@ -611,7 +611,7 @@ class RigService:
         self._loss.reset()  # a burst that is over does not count against a new run; the window refills
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
 
-    def _reducer_factory(self, sensor: str) -> Any:
+    def reducer_factory(self, sensor: str) -> Any:
         """The live reducer for one sensor of this rig's probe, within its temperature-rise limit."""
         from daemon.reduction.live import LiveReducer
 
