@@ -47,6 +47,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--speed", type=float, default=1.0, help="simulator time-scale factor (with --simulate)")
     p.add_argument("--supply", action="store_true",
                    help="with --simulate: heat through the simulator's SCPI bench supply, not the front end")
+    p.add_argument("--firmware", action="store_true",
+                   help="with --simulate: the simulated front end runs the real firmware (hardware/firmware) "
+                        "rather than the compact emulator")
     p.add_argument("--socket", type=Path, default=None, help="control socket path")
     p.add_argument("--db", type=Path, default=None, help="SQLite database file")
     p.add_argument("--frontend", default=None, help="front-end port: a device path or pyserial URL")
@@ -75,6 +78,8 @@ def start_simulator(args: argparse.Namespace, probe_path: Path | None) -> tuple[
         cmd += ["--control", str(args.sim_control)]
     if args.supply:
         cmd.append("--supply")
+    if args.firmware:
+        cmd.append("--firmware")
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
     assert proc.stdout is not None
     line = proc.stdout.readline()
@@ -347,6 +352,10 @@ def main(argv: list[str] | None = None) -> int:
     material = None
     if args.supply and args.simulate is None:
         print("linerigd: --supply goes with --simulate; for a real supply set [devices] supply in the configuration",
+              file=sys.stderr)
+        return 2
+    if args.firmware and args.simulate is None:
+        print("linerigd: --firmware goes with --simulate; a real rig runs the firmware on its own board",
               file=sys.stderr)
         return 2
     if args.simulate is not None:

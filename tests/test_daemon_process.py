@@ -311,6 +311,35 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
         assert proc.wait(15) == 0
 
 
+def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) -> None:
+    """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware."""
+    proc = subprocess.Popen([sys.executable, "-m", "daemon.main", "--simulate", "--firmware", "--speed", "20",
+                             "--socket", str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    try:
+        assert proc.stdout is not None
+        assert json.loads(proc.stdout.readline())["ready"]
+
+        def identity() -> dict | None:
+            with socket.socket(socket.AF_UNIX) as s:
+                s.connect(str(tmp_path / "s.sock"))
+                s.sendall(b'{"op":"status"}\n')
+                return json.loads(s.makefile().readline()).get("identity")
+
+        ident = wait_for(identity, 20, "the front end's identity")
+        assert ident["model"] == "linerig-fe"  # the firmware's own name; the emulator calls itself linerig-sim
+    finally:
+        proc.terminate()
+        assert proc.wait(15) == 0
+
+
+def test_firmware_without_simulate_is_refused(tmp_path: Path) -> None:
+    done = subprocess.run([sys.executable, "-m", "daemon.main", "--firmware", "--db", str(tmp_path / "r.db")],
+                          capture_output=True, text=True, cwd=ROOT, timeout=30)
+    assert done.returncode == 2 and "--firmware goes with --simulate" in done.stderr
+    assert not (tmp_path / "r.db").exists()
+
+
 class ExplodingReducer:
     """A deliberately broken part: the first heating sample it is fed raises, as a bug would."""
 
