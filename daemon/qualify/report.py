@@ -24,6 +24,19 @@ from daemon.report.pdf import render_pdf
 STATUS_WORDS = {"pass": "PASS", "fail": "FAIL", "warn": "WARN", "not_measured": "NOT MEASURED",
                 "not_applicable": "n/a"}
 
+# The hazards of this procedure (a megohmmeter, heater power beside water baths, a hot needle), printed with
+# every qualification report as the run and site reports print theirs.
+CAUTIONS = (
+    "Insulation test: a megohmmeter's 500 V DC can give a shock and destroys thermocouple converters. Disconnect "
+    "the probe from the front end first, keep hands off the leads while testing, and discharge them afterwards.",
+    "Electrical safety: heater supplies are used beside water baths. Use a battery or a protected "
+    "(residual-current) supply, keep connections dry and inspect leads before use.",
+    "Never power the heater in air: out of a medium a needle overheats quickly. The probe is hot after heating; "
+    "let it cool before handling it.",
+    "A qualification shows that the probe measured right in these reference media under these conditions. It does "
+    "not replace the probe's calibration record, nor engineering judgement on field results.",
+)
+
 
 def _fmt(v: Any) -> str:
     if v is None:
@@ -284,6 +297,7 @@ def build_report(res: dict[str, Any], criteria_toml: str = "") -> rm.Report:
         rep.add(rm.Heading("Criteria and procedure used", 3),
                 rm.Para("The full settings are stored with this qualification in the database "
                         "(qualifications.criteria_toml).", "small"))
+    rep.add(rm.Heading("Cautions"), rm.Bullets(CAUTIONS, "caution"))
     return rep
 
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import math
+import sqlite3
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -35,7 +36,11 @@ def open_db(path: Path | str, *, write: bool = False) -> sqlite_utils.Database:
     if not p.is_file():
         raise SourceError(f"no database at {p}: give --db PATH (the daemon's file, e.g. from `linerigd --db`)")
     db = sqlite_utils.Database(p)
-    if "runs" not in db.table_names():
+    try:
+        tables = db.table_names()
+    except sqlite3.DatabaseError as e:
+        raise SourceError(f"{p} is not a linerig database ({e}): give --db PATH of the daemon's file") from None
+    if "runs" not in tables:
         raise SourceError(f"{p} is not a linerig database (no runs table)")
     if write and "calibrations" not in db.table_names():
         raise SourceError(f"{p} has no calibrations table: start linerigd once to bring the schema up to date")
@@ -43,7 +48,11 @@ def open_db(path: Path | str, *, write: bool = False) -> sqlite_utils.Database:
 
 
 def probe_profiles(db: sqlite_utils.Database) -> dict[str, ProbeProfile]:
-    """Probe profiles stored with the probes (rows whose TOML does not parse are skipped)."""
+    """Probe profiles stored with the probes (rows that do not parse are skipped).
+
+    The column holds the profile TOML, or the flat JSON of the profile's fields that linerigd writes for the
+    probes it loads; both are read, so a daemon-made run is reduced again with its probe's geometry.
+    """
     out: dict[str, ProbeProfile] = {}
     if "probes" not in db.table_names():
         return out
@@ -52,10 +61,25 @@ def probe_profiles(db: sqlite_utils.Database) -> dict[str, ProbeProfile]:
         if not text:
             continue
         try:
-            out[row["serial"]] = profile_from_dict(tomllib.loads(text), f"probe {row['serial']}")
-        except (tomllib.TOMLDecodeError, ProbeProfileError):
+            out[row["serial"]] = stored_profile(text, f"probe {row['serial']}")
+        except (tomllib.TOMLDecodeError, ValueError, TypeError):  # ProbeProfileError is a ValueError
             continue
     return out
+
+
+def stored_profile(text: str, source: str) -> ProbeProfile:
+    """A profile from the probes table: TOML (``[probe]`` and ``[[sensor]]``) or the daemon's flat JSON."""
+    if not text.lstrip().startswith("{"):
+        return profile_from_dict(tomllib.loads(text), source)
+    flat = json.loads(text)
+    if not isinstance(flat, dict):
+        raise ProbeProfileError(f"{source}: stored profile is not a table")
+    sensors = flat.pop("sensors", None) or [{"name": "heater"}]
+    probe = {k: v for k, v in flat.items() if v is not None}
+    if not isinstance(sensors, list):
+        raise ProbeProfileError(f"{source}: stored sensors are not a list")
+    return profile_from_dict({"probe": probe, "sensor": [{k: v for k, v in s.items() if v is not None}
+                                                         for s in sensors if isinstance(s, dict)]}, source)
 
 
 def calibration_history(db: sqlite_utils.Database, probe_serial: str) -> list[dict[str, Any]]:

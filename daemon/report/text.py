@@ -66,6 +66,7 @@ FLAGS = {
     "straggler": "a cycle result is a straggler (Grubbs 5 %)",
     "trend_across_cycles": "results change steadily from cycle to cycle (moisture migration?)",
     "not_reequilibrated": "a cycle started before the ground had cooled back",
+    "cycle_result_flagged": "the reduction flagged one or more cycles itself (see the flags per cycle)",
     "near_surface": "shallower than 0.3 m: daily temperature swings and loosened soil",
 }
 

@@ -185,9 +185,9 @@ def evaluate_calibration(probe_serial: str, reference: ReferenceValue, runs: Seq
     if not lo <= f <= hi:
         reasons.append(f"factor {f:.4f} outside {lo:.2f}–{hi:.2f}: check probe geometry, power reading and medium")
     if f_u / f > MAX_FACTOR_U_REL:
-        reasons.append(f"factor uncertainty {100 * f_u / f:.1f} % above {100 * MAX_FACTOR_U_REL:.0f} %")
+        reasons.append(f"factor uncertainty {100 * f_u / f:.2f} % above {100 * MAX_FACTOR_U_REL:.0f} %")
     if cv is not None and cv > MAX_REPEAT_CV:
-        reasons.append(f"repeat runs scatter {100 * cv:.1f} % (limit {100 * MAX_REPEAT_CV:.1f} %)")
+        reasons.append(f"repeat runs scatter {100 * cv:.2f} % (limit {100 * MAX_REPEAT_CV:.1f} %)")
     for r in runs:
         bad = sorted(set(r.flags) & BLOCKING_RESULT_FLAGS)
         if bad:

@@ -75,6 +75,7 @@ class CycleValue:
     run_id: int | None = None
     start_offset_K: float | None = None   # start temperature minus the first cycle's baseline
     rise_K: float | None = None           # temperature rise of this cycle's heating
+    result_flags: tuple[str, ...] = ()    # the reduction's own quality flags for this cycle (drift, ...)
 
 
 @dataclass(frozen=True)
@@ -121,8 +122,8 @@ def summarise_cycles(values: list[CycleValue], quantity: str = "k_W_per_mK") -> 
     n = x.size
     mean = float(x.mean())
     sd = float(np.std(x, ddof=1))
-    per_cycle: dict[int, list[str]] = {v.cycle: [] for v in vals}
-    flags: list[str] = []
+    per_cycle: dict[int, list[str]] = {v.cycle: list(v.result_flags) for v in vals}
+    flags: list[str] = ["cycle_result_flagged"] if any(v.result_flags for v in vals) else []
 
     g = g5 = g1 = None
     if n >= 3:

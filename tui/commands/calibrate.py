@@ -46,7 +46,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
                                           f"({', '.join(MEDIA)}). Acceptance: factor within {FACTOR_LIMITS[0]:.2f}–"
                                           f"{FACTOR_LIMITS[1]:.2f}, u(F)/F ≤ {100 * MAX_FACTOR_U_REL:.0f} %, repeat "
                                           f"runs within {100 * MAX_REPEAT_CV:.1f} %; valid {VALID_DAYS} days.")
-    p.add_argument("--probe", required=True, metavar="SERIAL", help="probe serial number")
+    p.add_argument("--probe", metavar="SERIAL", help="probe serial number (needed except with --media)")
     p.add_argument("--reference", choices=tuple(MEDIA), help="reference medium")
     p.add_argument("--run", type=int, action="append", default=[], metavar="RUN_ID",
                    help="a run in the reference medium (repeat the option for several)")
@@ -97,6 +97,8 @@ def run(args: argparse.Namespace) -> int:
             for n in m.notes:
                 print(f"  note: {n}")
         return 0
+    if not args.probe:
+        return fail(CMD, "give --probe SERIAL (the probe being calibrated; `linerig probes` lists them)")
     try:
         db = open_db(db_path(args), write=not (args.history or args.dry_run))
     except SourceError as e:

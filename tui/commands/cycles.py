@@ -12,12 +12,14 @@ import math
 import sys
 from pathlib import Path
 
+import numpy as np
+
 from daemon.reduction.data import ReductionError
 from daemon.report import plots
 from daemon.report.build import f, now_utc, workflow_tail
 from daemon.report.cli import add_db_option, db_path, fail, write_report
 from daemon.report.model import Bullets, Figure, Heading, Para, Report, Table
-from daemon.report.sources import SourceError, cycle_data, load_run, open_db, series_runs
+from daemon.report.sources import RunRecord, SourceError, cycle_data, load_run, open_db, series_runs
 from daemon.workflows.cycles import REPEATABILITY_FACTOR, CycleDataError, CycleSummary, CycleValue, summarise_cycles
 
 CMD = "cycles"
@@ -50,11 +52,17 @@ def collect(db_file: Path, run_id: int, sensor: str | None) -> tuple[list[CycleV
             if name is None:
                 raise CycleDataError(f"series {series_id}: no run has a result yet")
             vals = []
+            first_start: float | None = None
             for i, r in enumerate(runs, start=1):
                 res = (r.get("results") or {}).get(name)
+                start = _start_C(load_run(db, int(r["id"])), name)
+                if first_start is None:
+                    first_start = start
+                offset = None if start is None or first_start is None else start - first_start
                 if res and res.get("k_W_per_mK"):
                     vals.append(CycleValue(int(r.get("cycle") or i), float(res["k_W_per_mK"]),
-                                           res.get("k_u_W_per_mK"), int(r["id"]), None, res.get("rise_K")))
+                                           res.get("k_u_W_per_mK"), int(r["id"]), offset, res.get("rise_K"),
+                                           tuple(res.get("flags") or ())))
             return vals, name, f"series {series_id} ({len(runs)} runs)"
     parts = cycle_data(rec)
     if len(parts) < 2:
@@ -79,8 +87,20 @@ def collect(db_file: Path, run_id: int, sensor: str | None) -> tuple[list[CycleV
             first_base = float(base)
         offset = None if base is None or first_base is None else float(base) - first_base
         if r.k_W_per_mK:
-            vals.append(CycleValue(cyc, r.k_W_per_mK, r.k_u_W_per_mK, run_id, offset, r.rise_K))
+            vals.append(CycleValue(cyc, r.k_W_per_mK, r.k_u_W_per_mK, run_id, offset, r.rise_K, tuple(r.flags)))
     return vals, name or "?", f"run {run_id} ({len(parts)} cycles, each reduced on its own)"
+
+
+START_SPAN_S = 30.0   # the start temperature of a cycle: mean of its last 30 s of baseline (common practice, no source)
+
+
+def _start_C(rec: RunRecord, sensor: str) -> float | None:
+    """Temperature at which a cycle's heating started, from the end of its stored baseline."""
+    d = rec.data
+    if d is None or sensor not in d.temps_C:
+        return None
+    base = (d.time_s < 0) & (d.time_s >= -START_SPAN_S) & np.isfinite(d.temps_C[sensor])
+    return float(np.mean(d.temps_C[sensor][base])) if np.any(base) else None
 
 
 def print_summary(s: CycleSummary, sensor: str, origin: str) -> None:
@@ -140,11 +160,11 @@ def run(args: argparse.Namespace) -> int:
         flagged = [c for c, fl in s.flags_by_cycle.items() if any("outlier" in x or "straggler" in x for x in fl)]
         png = plots.cycles([v.cycle for v in s.values], [v.value for v in s.values], [v.u for v in s.values],
                            s.mean, s.repeatability_limit, flagged, f"Repeat cycles, sensor {sensor}")
-        if args.plot:
-            args.plot.write_bytes(png)
-        if args.report:
-            try:
+        try:
+            if args.plot:
+                args.plot.write_bytes(png)
+            if args.report:
                 write_report(build_report(s, sensor, origin, png), args.report)
-            except (ValueError, OSError) as e:
-                return fail(CMD, str(e))
+        except (ValueError, OSError) as e:
+            return fail(CMD, str(e))
     return 0

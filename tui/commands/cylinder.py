@@ -81,6 +81,11 @@ def read_record(path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
 
 
 def run(args: argparse.Namespace) -> int:
+    for opt, v, positive in (("--k", args.k, True), ("--initial-C", args.initial_C, False),
+                             ("--bath-C", args.bath_C, False), ("--step-at", args.step_at, False),
+                             ("--height-mm", args.height_mm, True)):
+        if v is not None and (not math.isfinite(v) or (positive and v <= 0)):
+            return fail(CMD, f"{opt} must be a finite number{' > 0' if positive else ''}, got {v}")
     try:
         t, centre, bath = read_record(args.file)
         if bath is not None and args.bath_C is None:
@@ -121,13 +126,13 @@ def run(args: argparse.Namespace) -> int:
                                SurfaceSteps(steps.times_s, np.r_[steps.levels_C[:-1], fit.final_level_C]),
                                fit.initial_C, fit.lag_s)
         png = plots.cylinder(t, centre, model, f"Surface-step test — {args.file.name}")
-        if args.plot:
-            args.plot.write_bytes(png)
-        if args.report:
-            try:
+        try:
+            if args.plot:
+                args.plot.write_bytes(png)
+            if args.report:
                 write_report(_report(args, fit, steps, png, rho_c), args.report)
-            except (ValueError, OSError) as e:
-                return fail(CMD, str(e))
+        except (ValueError, OSError) as e:
+            return fail(CMD, str(e))
     return 0
 
 

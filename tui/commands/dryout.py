@@ -137,10 +137,20 @@ def analyse(pts: list[DryoutPoint], args: argparse.Namespace) -> tuple[dict[str,
     models = MODELS if args.model == "all" else (args.model,)
     fits = {m: fit_dryout(pts, m, mat) for m in models}
     dens = sorted({p.dry_density_kg_per_m3 for p in pts})
-    design_rho_d = args.design_density or dens[-1]
+    design_rho_d = args.design_density if args.design_density is not None else dens[-1]
+    if not (0 < design_rho_d < args.particle_density):
+        raise DryoutError(f"--design-density must lie between 0 and the particle density "
+                          f"({args.particle_density:g} kg/m³), got {design_rho_d:g}")
+    if args.critical_moisture is not None and not (args.critical_moisture >= 0 and
+                                                   math.isfinite(args.critical_moisture)):
+        raise DryoutError(f"--critical-moisture must be a moisture content >= 0 %, got {args.critical_moisture}")
     notes: list[str] = []
     crit = None
-    series = [p for p in pts if p.dry_density_kg_per_m3 == design_rho_d] or pts
+    series = [p for p in pts if p.dry_density_kg_per_m3 == design_rho_d]
+    if not series:
+        notes.append(f"no series at ρ_d {design_rho_d:g} kg/m³: the Annex F tangents are drawn through every point "
+                     f"(dry densities {', '.join(f'{d:g}' for d in dens)})")
+        series = pts
     try:
         crit = critical_moisture(np.array([p.moisture_pct for p in series]),
                                  np.array([p.resistivity_mK_per_W for p in series]), args.split)
@@ -193,13 +203,13 @@ def run(args: argparse.Namespace) -> int:
             for d in sorted({p.dry_density_kg_per_m3 for p in pts}):
                 curves[f"{m}, ρ_d {d:.0f}"] = (ws, ft.resistivity_mK_per_W(ws, d))
         png = plots.dryout(pts, curves, f"Dry-out curve — {name}", crit, dv)
-        if args.plot:
-            args.plot.write_bytes(png)
-        if args.report:
-            try:
+        try:
+            if args.plot:
+                args.plot.write_bytes(png)
+            if args.report:
                 write_report(_report(name, pts, fits, crit, dv, notes, png), args.report)
-            except (ValueError, OSError) as e:
-                return fail(CMD, str(e))
+        except (ValueError, OSError) as e:
+            return fail(CMD, str(e))
     return 0
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import datetime as dt
 import json
 import sys
 from typing import Any
@@ -18,7 +19,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.add_argument("--since", default="", metavar="YYYY-MM-DD", help="only runs started on or after this day (UTC)")
     p.add_argument("--until", default="", metavar="YYYY-MM-DD", help="only runs started on or before this day (UTC)")
     p.add_argument("--limit", type=int, default=200, help="look at this many recent runs (default 200)")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(func=run)
 
 
@@ -26,8 +27,8 @@ async def _run(args: argparse.Namespace) -> int:
     from tui.screens.history import DATE, filter_runs
 
     for day in (args.since, args.until):
-        if day and not DATE.match(day):
-            print(f"linerig history: dates are YYYY-MM-DD, got {day!r}", file=sys.stderr)
+        if day and not (DATE.match(day) and _is_date(day)):
+            print(f"linerig history: dates are YYYY-MM-DD (a real calendar day), got {day!r}", file=sys.stderr)
             return 2
     async with Client(args.socket) as client:
         if args.run_id is not None:
@@ -44,6 +45,14 @@ async def _run(args: argparse.Namespace) -> int:
               f"{r.get('site') or '':<24} {r.get('location') or '':<10} {r.get('sample') or ''}")
     print(f"{len(shown)} of {len(runs)} runs", file=sys.stderr)
     return 0
+
+
+def _is_date(day: str) -> bool:
+    try:
+        dt.date.fromisoformat(day)
+    except ValueError:
+        return False
+    return True
 
 
 def _detail_text(d: dict[str, Any]) -> str:

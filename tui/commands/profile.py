@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 from pathlib import Path
 
 from daemon.report import plots
@@ -33,6 +34,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
 
 
 def run(args: argparse.Namespace) -> int:
+    if not (args.tolerance_m >= 0 and math.isfinite(args.tolerance_m)):
+        return fail(CMD, f"--tolerance-m must be a finite distance >= 0 m, got {args.tolerance_m}")
     try:
         db = open_db(db_path(args))
     except SourceError as e:
@@ -72,5 +75,8 @@ def run(args: argparse.Namespace) -> int:
                                                f"(n={d.n}, highest {100 * d.worst_mK_per_W:.1f})" for d in summ))
     if args.plot:
         title = f"{args.site}" + (f", borehole {args.borehole}" if args.borehole else "")
-        args.plot.write_bytes(plots.depth_profile(groups, f"Thermal resistivity against depth — {title}"))
+        try:
+            args.plot.write_bytes(plots.depth_profile(groups, f"Thermal resistivity against depth — {title}"))
+        except OSError as e:
+            return fail(CMD, f"cannot write plot {args.plot}: {e.strerror or e}")
     return 0

@@ -34,6 +34,7 @@ from daemon.qualify.store import (
     open_store,
     save_qualification,
 )
+from daemon.report.sources import SourceError, open_db
 from daemon.sim.rig_model import FAULT_NAMES
 
 CMD = "qualify"
@@ -213,6 +214,9 @@ def _run(args: argparse.Namespace) -> int:
     from daemon.qualify.liverig import LiveRigError
     from tui.client import DaemonError
 
+    problem = _output_problem(args)
+    if problem:
+        return _err(problem)
     try:
         profile = load_probe_profile(args.profile)
         overrides: dict[str, Any] = {}
@@ -249,7 +253,12 @@ def _run(args: argparse.Namespace) -> int:
             qual_id = save_qualification(store.db, q)
         finally:
             store.close()
-    paths = write_report(res, args.html, args.pdf, config.text) if (args.html or args.pdf) else []
+    try:
+        paths = write_report(res, args.html, args.pdf, config.text) if (args.html or args.pdf) else []
+    except OSError as e:
+        kept = (f"; the result is stored as qualification {qual_id} (`linerig qualify report {qual_id}` writes it "
+                "again)") if qual_id is not None else ""
+        return _err(f"cannot write the report: {e.strerror or e} ({e.filename}){kept}")
     if args.json:
         print(json.dumps({"id": qual_id, "passed": q.passed, "failed": q.failed_ids, "probe_serial": profile.serial,
                           "reports": [str(x) for x in paths], "criteria": res["criteria"],
@@ -261,11 +270,27 @@ def _run(args: argparse.Namespace) -> int:
     return 0 if q.passed else EXIT_NOT_QUALIFIED
 
 
+def _output_problem(args: argparse.Namespace) -> str | None:
+    """Where the result and the reports go, checked before a procedure that can take hours on a live rig."""
+    for opt, path in (("--html", args.html), ("--pdf", args.pdf)):
+        if path is not None and not Path(path).parent.is_dir():
+            return f"{opt} {path}: no folder {Path(path).parent}"
+    if args.no_save:
+        return None
+    path = Path(args.db or default_db_path())
+    if path.exists():
+        try:
+            open_db(path).conn.close()
+        except SourceError as e:
+            return str(e)
+    elif args.db is not None and not path.parent.is_dir():
+        return f"--db {path}: no folder {path.parent} (give the daemon's database, or an existing folder)"
+    return None
+
+
 def _db(args: argparse.Namespace) -> Any:
-    path = args.db or default_db_path()
-    if not Path(path).is_file():
-        raise FileNotFoundError(f"no database at {path}: give --db PATH")
-    return open_store(Path(path))
+    """The database, read-only in spirit: never created, migrated or moved aside by list, show or report."""
+    return open_db(Path(args.db or default_db_path()))
 
 
 def run(args: argparse.Namespace) -> int:
@@ -276,12 +301,13 @@ def run(args: argparse.Namespace) -> int:
     if action == "run":
         return _run(args)
     try:
-        store = _db(args)
-    except FileNotFoundError as e:
+        db = _db(args)
+    except SourceError as e:
         return _err(str(e))
+    stored = "qualifications" in db.table_names()
     try:
         if action == "list":
-            rows = list_qualifications(store.db, args.serial)
+            rows = list_qualifications(db, args.serial) if stored else []
             if args.json:
                 print(json.dumps(rows, indent=2))
             elif not rows:
@@ -291,7 +317,9 @@ def run(args: argparse.Namespace) -> int:
                 print(f"{r['id']:>4}  {r['created_utc']}  {r['probe_serial']:<16} {verdict}"
                       f"{'  (simulated)' if r['simulated'] else ''}")
             return 0
-        row = load_qualification(store.db, args.id)
+        if not stored:
+            raise QualificationNotFound(f"no qualification {args.id}: {db_path_of(args)} holds none yet")
+        row = load_qualification(db, args.id)
         if action == "show":
             if args.json:
                 print(json.dumps(row, indent=2))
@@ -305,5 +333,11 @@ def run(args: argparse.Namespace) -> int:
         return 0
     except QualificationNotFound as e:
         return _err(str(e.args[0]))
+    except OSError as e:
+        return _err(f"cannot write the report: {e.strerror or e} ({e.filename})")
     finally:
-        store.close()
+        db.conn.close()
+
+
+def db_path_of(args: argparse.Namespace) -> Path:
+    return Path(args.db or default_db_path())

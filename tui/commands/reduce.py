@@ -94,8 +94,9 @@ def run(args: argparse.Namespace) -> int:
         data = read_run_csv(Path(args.file))
     except RunCsvError as e:
         return _fail(str(e))
-    if not (args.calibration_factor > 0 and math.isfinite(args.calibration_factor)):
-        return _fail(f"--calibration-factor must be > 0, got {args.calibration_factor}")
+    problem = option_problem(args)
+    if problem:
+        return _fail(problem)
     try:
         red = reduce_run(data, probe, method=args.method, calibration_factor=args.calibration_factor,
                          calibration_factor_u=args.calibration_factor_u,
@@ -110,9 +111,22 @@ def run(args: argparse.Namespace) -> int:
     if args.plot:
         try:
             plot(red, data, probe, args.plot)
-        except OSError as e:
+        except (OSError, ValueError) as e:  # ValueError: matplotlib knows no format for the file's suffix
             return _fail(f"cannot write plot {args.plot}: {e}")
     return 0
+
+
+def option_problem(args: argparse.Namespace) -> str | None:
+    """What is wrong with the numeric options, before any reduction is tried (None when nothing is)."""
+    checks = (("--calibration-factor", args.calibration_factor, False),
+              ("--calibration-factor-u", args.calibration_factor_u, True),
+              ("--max-rise", args.max_rise, False), ("--bulk-density", args.bulk_density, False))
+    for opt, v, zero_ok in checks:
+        if v is None:
+            continue
+        if not math.isfinite(v) or v < 0 or (v == 0 and not zero_ok):
+            return f"{opt} must be a finite number {'>= 0' if zero_ok else '> 0'}, got {v}"
+    return None
 
 
 def _fmt(v: float | None, digits: int = 4) -> str:

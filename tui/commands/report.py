@@ -7,6 +7,7 @@ behind the numbers; the calibration current when the run was made is applied and
 from __future__ import annotations
 
 import argparse
+import math
 from pathlib import Path
 
 from daemon.probe import ProbeProfileError
@@ -86,6 +87,8 @@ def _csv_report(args: argparse.Namespace) -> tuple[object, str]:
     data = read_run_csv(Path(args.csv))
     if not args.calibration_factor > 0:
         raise ReductionError(f"--calibration-factor must be > 0, got {args.calibration_factor}")
+    if not (args.calibration_factor_u >= 0 and math.isfinite(args.calibration_factor_u)):
+        raise ReductionError(f"--calibration-factor-u must be a finite number >= 0, got {args.calibration_factor_u}")
     red = reduce_run(data, probe, calibration_factor=args.calibration_factor,
                      calibration_factor_u=args.calibration_factor_u)
     comments = [ln[1:].strip() for ln in Path(args.csv).read_text(encoding="utf-8").splitlines()
@@ -122,6 +125,10 @@ def _site_report(args: argparse.Namespace) -> tuple[object, str]:
     db = open_db(db_path(args))
     runs = site_runs(db, args.site, args.borehole)
     if not runs:
+        if args.borehole and site_runs(db, args.site):
+            holes = sorted({str(r.get("location")) for r in site_runs(db, args.site) if r.get("location")})
+            raise SourceError(f"no runs in borehole {args.borehole!r} of site {args.site!r} "
+                              f"(its boreholes: {', '.join(holes) or 'none recorded'})")
         known = ", ".join(s["site"] for s in list_sites(db)) or "none"
         raise SourceError(f"no runs for site {args.site!r} (sites on record: {known})")
     pts = points_from_runs(runs, probe_profiles(db))

@@ -22,6 +22,16 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.add_argument("--baseline-s", type=float, help="minimum baseline before heating, s")
     p.add_argument("--auto-stop", action="store_true", help="stop heating when the estimate has stabilised")
     p.add_argument("--cycles", type=int, help="heating–recovery cycles")
+    p.add_argument("--reequilibrate-s", type=float, metavar="S",
+                   help="with --cycles: extra wait before each later cycle's baseline, s (the ground must cool back; "
+                        "several times the heating time is usual)")
+    p.add_argument("--max-drift", type=float, dest="max_drift_K_per_min", metavar="K_PER_MIN",
+                   help="baseline drift that counts as settled, K/min")
+    p.add_argument("--settle-timeout-s", type=float, metavar="S",
+                   help="longest wait for a settled baseline before heating anyway, s")
+    p.add_argument("--sensor", help="sensor that drives the live fit and the stop verdict")
+    p.add_argument("--preset", help="a run preset from the daemon's rig.toml [presets] (options given here override "
+                                    "it)")
     p.add_argument("--meta", action="append", default=[], metavar="KEY=VALUE",
                    help=f"run metadata ({', '.join(METADATA)})")
     p.add_argument("--wait", action="store_true", help="follow the run to its end")
@@ -29,33 +39,51 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.set_defaults(func=run)
 
 
-def _metadata(items: list[str]) -> dict[str, Any]:
+PLAN_OPTIONS = ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles", "reequilibrate_s",
+                "max_drift_K_per_min", "settle_timeout_s", "sensor", "preset")
+
+
+class StartOptionError(ValueError):
+    """A --meta item the daemon would refuse; the message names it and says what to give."""
+
+
+def metadata(items: list[str]) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for item in items:
         key, sep, value = item.partition("=")
         if not sep or key not in METADATA:
-            raise SystemExit(f"linerig start: --meta {item!r}: use KEY=VALUE with KEY one of {', '.join(METADATA)}")
+            raise StartOptionError(f"--meta {item!r}: use KEY=VALUE with KEY one of {', '.join(METADATA)}")
         try:
             out[key] = float(value) if key in ("depth_m", "moisture_pct", "dry_density_kg_per_m3") else value
         except ValueError:
-            raise SystemExit(f"linerig start: --meta {key} must be a number, got {value!r}") from None
+            raise StartOptionError(f"--meta {key} must be a number, got {value!r}") from None
     return out
 
 
-async def _run(args: argparse.Namespace) -> int:
-    plan = {k: getattr(args, k) for k in ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles")
-            if getattr(args, k) is not None}
+def start_request(args: argparse.Namespace) -> dict[str, Any]:
+    """The fields of the daemon's ``start`` request (daemon/API.md) from the options given."""
+    req: dict[str, Any] = {k: getattr(args, k) for k in PLAN_OPTIONS if getattr(args, k) is not None}
     if args.auto_stop:
-        plan["auto_stop"] = True
+        req["auto_stop"] = True
+    req["metadata"] = metadata(args.meta)
+    return req
+
+
+async def _run(args: argparse.Namespace) -> int:
+    try:
+        request = start_request(args)
+    except StartOptionError as e:
+        print(f"linerig start: {e}", file=sys.stderr)
+        return 2
     async with Client(args.socket) as client:
         if args.wait:
             await client.request("subscribe")
-        reply = await client.request("start", metadata=_metadata(args.meta), **plan)
+        reply = await client.request("start", **request)
         run_id = reply["run_id"]
         if not args.wait:
             print(json.dumps({"run_id": run_id}) if args.json else f"run {run_id} started")
             return 0
-        if (args.cycles or 1) > 1 and reply.get("series_id") is not None:
+        if reply.get("series_id") is not None:
             return await _follow_series(client, reply["series_id"], args.json)
         final = None
         async for ev in client.events():
