@@ -254,3 +254,24 @@ def test_profile_dict_round_trip_keeps_every_field() -> None:
     from daemon.report.sources import stored_profile
 
     assert stored_profile(json.dumps(asdict(prof)), "probe test") == prof
+
+
+def test_calibrate_refuses_repeats_that_are_one_insertion_and_csvs_without_geometry(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    db = tmp_path / "c.db"
+    store = Store(db)
+    try:
+        store.upsert_probe("FN-0412", "field needle", "single", NEEDLE.read_text(encoding="utf-8"))
+    finally:
+        store.close()
+    common = ["calibrate", "--reference", "agar-water", "--db", str(db), "--dry-run"]
+    # one file three times would pass the repeatability limit with a spread of 0 %
+    rc, out, err = _cli(capsys, *common, "--probe", "FN-0412", "--csv", str(RUN_CSV), "--csv", str(RUN_CSV))
+    assert rc == 2 and "more than once" in err and out == ""
+    rc, out, err = _cli(capsys, *common, "--probe", "FN-0412", "--run", "1", "--run", "1")
+    assert rc == 2 and "more than once" in err
+    # a serial with no stored profile and no --probe-profile: the factor would come from another reduction
+    rc, out, err = _cli(capsys, *common, "--probe", "FN-0413", "--csv", str(RUN_CSV))
+    assert rc == 2 and "--probe-profile" in err and out == ""
+    rc, out, err = _cli(capsys, *common, "--probe", "FN-0413", "--csv", str(RUN_CSV), "--probe-profile", str(NEEDLE))
+    assert rc in (0, 1) and "factor F" in out, err

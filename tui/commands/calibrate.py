@@ -114,6 +114,10 @@ def run(args: argparse.Namespace) -> int:
         return fail(CMD, f"give --reference ({', '.join(MEDIA)})")
     if not args.run and not args.csv:
         return fail(CMD, "give at least one --run RUN_ID or --csv FILE.csv recorded in the reference medium")
+    twice = sorted({str(x) for x in args.run if args.run.count(x) > 1}
+                   | {str(x) for x in args.csv if [c.resolve() for c in args.csv].count(x.resolve()) > 1})
+    if twice:
+        return fail(CMD, f"{', '.join(twice)} given more than once: each repeat must be its own insertion")
     meas: list[Measurement] = []
     bases: list[float] = []
     try:
@@ -133,6 +137,9 @@ def run(args: argparse.Namespace) -> int:
                 from daemon.report.sources import probe_profiles
 
                 probe = probe_profiles(db).get(args.probe)
+            if probe is None:
+                return fail(CMD, f"no profile stored for probe {args.probe}: give --probe-profile PROFILE.toml, so "
+                                 "the factor comes from the same reduction as the probe's own runs")
             for path in args.csv:
                 m, b = _raw_measurement(read_run_csv(path), probe, args.sensor, None)
                 meas.append(m)

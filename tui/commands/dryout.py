@@ -185,7 +185,8 @@ def run(args: argparse.Namespace) -> int:
                   f"rms misfit {100 * ft.rms_rel:.1f} % (free: {', '.join(ft.free)})")
         if crit:
             print(f"critical moisture (IEEE 442-2017 Annex F tangents, ρ_d {rho_d:.0f}): {crit.moisture_pct:.2f} % "
-                  f"at {100 * crit.resistivity_mK_per_W:.0f} °C·cm/W" + (f"  [{', '.join(crit.flags)}]"
+                  f"(the tangents meet at {100 * crit.resistivity_mK_per_W:.0f} °C·cm/W)"
+                  + (f"  [{', '.join(crit.flags)}]"
                                                                        if crit.flags else ""))
         for n in notes:
             print(f"note: {n}")

@@ -12,7 +12,7 @@ from tui.client import Client, DaemonError
 
 def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
     p = sub.add_parser("probes", help="list probes and their calibration history")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(func=run)
 
 
