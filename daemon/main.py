@@ -12,14 +12,18 @@ import asyncio
 import contextlib
 import json
 import logging
+import math
 import os
 import random
 import signal
+import sqlite3
 import subprocess
 import sys
 import time
 from pathlib import Path
 from typing import Any
+
+import sqlite_utils
 
 from daemon import sdnotify
 from daemon.api import ApiServer, Handler, Hub, Peer, RequestError
@@ -154,8 +158,15 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
             raise RequestError(f"no series {sid}")
         return {"series": detail}
 
+    async def samples(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+        rid = _int_field(req, "run_id")
+        try:  # a day of samples takes a while to read: off the loop that keeps the lease and the limits
+            return {"run_id": rid, "samples": await asyncio.to_thread(run_samples_json, store.path, rid)}
+        except KeyError:
+            raise RequestError(f"no run {rid}") from None
+
     async def probes(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
-        rows = list(db.query("SELECT serial, name, kind, added_utc FROM probes ORDER BY serial"))
+        rows = list(db.query("SELECT serial, name, kind, added_utc, profile_toml FROM probes ORDER BY serial"))
         active = {"serial": svc.s.probe.serial, "name": svc.s.probe.name, "kind": svc.s.probe.kind}
         return {"probes": rows, "active": active}
 
@@ -171,8 +182,30 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
                 "presets": {k: v.to_dict() for k, v in sorted(svc.s.presets.items())}}
 
     return {"status": status, "ping": ping, "start": start, "resume": resume, "stop_heating": stop_heating,
-            "abort": abort, "subscribe": subscribe, "runs": runs, "run": run, "series": series, "probes": probes,
-            "calibrations": calibrations, "presets": presets}
+            "abort": abort, "subscribe": subscribe, "runs": runs, "run": run, "series": series, "samples": samples,
+            "probes": probes, "calibrations": calibrations, "presets": presets}
+
+
+def run_samples_json(db_path: Path, run_id: int) -> dict[str, Any]:
+    """A run's samples for a client, on a connection of this thread's own: ``time_s`` from heater on,
+    ``device_s``, ``q_W_per_m`` held from each sample on (the reduction's convention), ``temps_C`` by sensor
+    (None where a channel had no reading), ``phase``. Rounded to what the instruments resolve."""
+    con = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True)
+    try:
+        con.execute("PRAGMA busy_timeout=2000")
+        rdb = sqlite_utils.Database(con)
+        arr = queries.run_arrays(rdb, run_id)
+        row = next(iter(rdb.query("SELECT heat_start_device_s FROM runs WHERE id = ?", [run_id])))
+    finally:
+        con.close()
+
+    def listed(a: Any, nd: int) -> list[float | None]:
+        return [None if not math.isfinite(v) else round(float(v), nd) for v in a]
+
+    t0 = row["heat_start_device_s"] or 0.0
+    return {"time_s": listed(arr["time_s"], 4), "device_s": listed(arr["time_s"] + t0, 4),
+            "q_W_per_m": listed(arr["q_W_per_m"], 5),
+            "temps_C": {n: listed(v, 5) for n, v in arr["temps_C"].items()}, "phase": arr["phase"]}
 
 
 # -- serving -------------------------------------------------------------------

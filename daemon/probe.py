@@ -26,6 +26,7 @@ Schema (``hardware/probes/*.toml``)::
 
 from __future__ import annotations
 
+import json
 import math
 import tomllib
 from dataclasses import dataclass, field, replace
@@ -235,3 +236,18 @@ def load_probe_profile(path: str | Path) -> ProbeProfile:
     except tomllib.TOMLDecodeError as e:
         raise ProbeProfileError(f"{p}: not valid TOML ({e})") from e
     return profile_from_dict(doc, str(p))
+
+
+def stored_profile(text: str, source: str) -> ProbeProfile:
+    """A profile from the probes table: TOML (``[probe]`` and ``[[sensor]]``) or the daemon's flat JSON."""
+    if not text.lstrip().startswith("{"):
+        return profile_from_dict(tomllib.loads(text), source)
+    flat = json.loads(text)
+    if not isinstance(flat, dict):
+        raise ProbeProfileError(f"{source}: stored profile is not a table")
+    sensors = flat.pop("sensors", None) or [{"name": "heater"}]
+    probe = {k: v for k, v in flat.items() if v is not None}
+    if not isinstance(sensors, list):
+        raise ProbeProfileError(f"{source}: stored sensors are not a list")
+    return profile_from_dict({"probe": probe, "sensor": [{k: v for k, v in s.items() if v is not None}
+                                                         for s in sensors if isinstance(s, dict)]}, source)

@@ -8,11 +8,13 @@ import json
 import os
 import re
 import socket
+import sqlite3
 import subprocess
 import sys
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 
 from daemon.api import (
@@ -290,3 +292,40 @@ def test_the_client_in_use_by_the_ui_still_works(tmp_path: Path) -> None:
     finally:
         d.stop()
         sim.stop()
+
+
+def test_a_client_gets_a_runs_samples_and_its_probe_profile(tmp_path: Path) -> None:
+    """What the UI's run detail and reconnect use: the samples as the reduction takes them, and the profile."""
+    from daemon.probe import stored_profile
+    from daemon.reduction.alignment import power_held_from_each_sample
+
+    sim = Sim(tmp_path, speed=50)
+    d = Daemon(tmp_path, sim.frontend)
+    try:
+        d.wait_link()
+        rid = d.request("start", **FAST_PLAN)["run_id"]
+        assert d.wait_state(rid, "done", 30) == "done"
+        arr = d.request("samples", run_id=rid)["samples"]
+        probes = d.request("probes")
+        missing = d.raw(op="samples", run_id=999)
+        assert not missing["ok"] and "no run 999" in missing["error"]
+    finally:
+        d.stop()
+        sim.stop()
+    con = sqlite3.connect(d.db)
+    rows = con.execute("SELECT device_s, q_W_per_m FROM samples WHERE run_id = ? ORDER BY n", [rid]).fetchall()
+    t0 = con.execute("SELECT heat_start_device_s FROM runs WHERE id = ?", [rid]).fetchone()[0]
+    assert arr["device_s"] == pytest.approx([r[0] for r in rows], abs=1e-4)
+    t = [r[0] - t0 for r in rows]
+    assert arr["time_s"] == pytest.approx(t, abs=1e-4)
+    # power moved to the interval it was delivered in (recorded readings describe the interval before them)
+    held = power_held_from_each_sample(np.asarray(t), np.asarray([r[1] or 0.0 for r in rows]))
+    assert arr["q_W_per_m"] == pytest.approx(list(held), abs=1e-4)
+    assert max(arr["q_W_per_m"]) == pytest.approx(FAST_PLAN.get("power_W_per_m", 5.0), rel=0.02)
+    assert set(arr["phase"]) >= {"settling", "heating", "recovering"}
+    for name, temps in arr["temps_C"].items():
+        assert len(temps) == len(rows), name
+    # the profile the daemon stored for its probe reads back as that probe
+    active = probes["active"]["serial"]
+    row = next(p for p in probes["probes"] if p["serial"] == active)
+    assert stored_profile(row["profile_toml"], "stored").serial == active

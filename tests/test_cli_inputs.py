@@ -251,7 +251,7 @@ def test_qualify_list_on_a_database_without_qualifications(tmp_path: Path,
 def test_profile_dict_round_trip_keeps_every_field() -> None:
     """The daemon stores dataclass fields; every field of a profile must survive the reader."""
     prof = load_probe_profile(ROOT / "hardware" / "probes" / "dual-needle.toml")
-    from daemon.report.sources import stored_profile
+    from daemon.probe import stored_profile
 
     assert stored_profile(json.dumps(asdict(prof)), "probe test") == prof
 

@@ -167,3 +167,35 @@ async def test_the_link_comes_back_after_the_daemon_restarts(daemon: Daemon) -> 
         assert "NO DAEMON" in text_of(screen.query_one(RunBar))
         daemon.start()
         await until(pilot, lambda: app.live.connected and app.live.frontend_up, "the link to come back")
+
+
+async def test_run_detail_gets_samples_and_probe_from_the_daemon(daemon: Daemon,
+                                                                  monkeypatch: pytest.MonkeyPatch) -> None:
+    """The run detail over the socket alone (the UI may run on another machine than the database): the local
+    file fallback is made to fail, so the samples can only come from the daemon's ``samples`` reply, and the
+    probe's geometry from the profile the daemon stored."""
+    from tui.screens import history
+    from tui.screens.rereduce import SamplesUnavailable
+
+    def no_local_file(*args: object) -> None:
+        raise SamplesUnavailable("this UI has no access to the daemon's database")
+
+    monkeypatch.setattr(history, "read_samples_from_db", no_local_file)
+    async with Client(daemon.socket) as client:
+        await client.request("subscribe")
+        rid = (await client.request("start", heat_s=120, recover_s=60, baseline_s=20))["run_id"]
+        async with asyncio.timeout(60):
+            async for ev in client.events():
+                if ev["event"] == "run_finished" and ev["run_id"] == rid:
+                    break
+        active = (await client.request("status"))["probe"]["serial"]
+    app = LinerigApp(daemon.socket)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await until(pilot, lambda: app.live.connected, "the daemon")
+        screen = history.RunDetailScreen(rid)
+        await app.push_screen(screen)
+        await until(pilot, lambda: not screen.samples_note.startswith("loading"), "the samples")
+        assert screen.data is not None, screen.samples_note
+        assert screen.probe is not None and screen.probe.serial == active
+        heating = screen.data.time_s > 0
+        assert heating.sum() >= 100 and max(screen.data.q_W_per_m) == pytest.approx(5.0, rel=0.02)

@@ -27,7 +27,8 @@ class Client:
 
     async def connect(self) -> Client:
         try:
-            self._reader, self._writer = await asyncio.open_unix_connection(str(self.path), limit=1 << 22)
+            # a day of samples at 8 channels is one reply line of about 10 MB
+            self._reader, self._writer = await asyncio.open_unix_connection(str(self.path), limit=1 << 26)
         except (FileNotFoundError, ConnectionRefusedError) as exc:
             raise DaemonError(f"cannot reach linerigd at {self.path}: is it running? ({exc.strerror})") from exc
         except PermissionError as exc:

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import sqlite_utils
 
-from daemon.probe import ProbeProfile, ProbeProfileError, profile_from_dict
+from daemon.probe import ProbeProfile, stored_profile
 from daemon.reduction.api import RunReduction, reduce_run
 from daemon.reduction.data import ReductionError, RunData
 from daemon.store.queries import run_arrays, run_detail
@@ -65,21 +65,6 @@ def probe_profiles(db: sqlite_utils.Database) -> dict[str, ProbeProfile]:
         except (tomllib.TOMLDecodeError, ValueError, TypeError):  # ProbeProfileError is a ValueError
             continue
     return out
-
-
-def stored_profile(text: str, source: str) -> ProbeProfile:
-    """A profile from the probes table: TOML (``[probe]`` and ``[[sensor]]``) or the daemon's flat JSON."""
-    if not text.lstrip().startswith("{"):
-        return profile_from_dict(tomllib.loads(text), source)
-    flat = json.loads(text)
-    if not isinstance(flat, dict):
-        raise ProbeProfileError(f"{source}: stored profile is not a table")
-    sensors = flat.pop("sensors", None) or [{"name": "heater"}]
-    probe = {k: v for k, v in flat.items() if v is not None}
-    if not isinstance(sensors, list):
-        raise ProbeProfileError(f"{source}: stored sensors are not a list")
-    return profile_from_dict({"probe": probe, "sensor": [{k: v for k, v in s.items() if v is not None}
-                                                         for s in sensors if isinstance(s, dict)]}, source)
 
 
 def calibration_history(db: sqlite_utils.Database, probe_serial: str) -> list[dict[str, Any]]:

@@ -19,7 +19,7 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Input, Label, Select, Static, TabbedContent, TabPane
 
 from daemon.paths import default_db_path
-from daemon.probe import ProbeProfile, ProbeProfileError, profile_from_dict
+from daemon.probe import ProbeProfile, stored_profile
 from daemon.reduction.data import ReductionError, RunData
 from tui.client import DaemonError
 from tui.screens.live_state import STATE_SYMBOLS, RunTrace
@@ -233,8 +233,8 @@ class RunDetailScreen(Screen[None]):
         for p in reply.get("probes") or []:
             if p.get("serial") == detail.get("probe_serial") and p.get("profile_toml"):
                 try:
-                    return profile_from_dict(tomllib.loads(p["profile_toml"]), f"probe {p['serial']}")
-                except (tomllib.TOMLDecodeError, ProbeProfileError):
+                    return stored_profile(p["profile_toml"], f"probe {p['serial']}")
+                except (tomllib.TOMLDecodeError, ValueError, TypeError):  # ProbeProfileError is a ValueError
                     return None
         return None
 

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import sqlite_utils
 
 from daemon.probe import ProbeProfile
 from daemon.reduction.data import ReductionError, RunData
@@ -22,6 +23,7 @@ from daemon.reduction.drift import fit_baseline, no_baseline
 from daemon.reduction.linesource import choose_window, fit_window
 from daemon.reduction.live import replay
 from daemon.reduction.superposition import log_time_regressor, power_steps
+from daemon.store.queries import run_arrays
 
 METHODS = {
     "auto": "late-time line, automatic window",
@@ -42,7 +44,8 @@ def run_data_from_arrays(arrays: dict[str, Any]) -> RunData:
 
 
 def read_samples_from_db(db_path: Path, run_id: int, created_utc: str | None) -> RunData:
-    """Read-only fallback: the run's samples straight from the daemon's SQLite file (WAL readers never block it).
+    """Read-only fallback: the run's samples straight from the daemon's SQLite file (WAL readers never block it),
+    with power moved to the interval it was delivered in, as the daemon's own ``samples`` reply has it.
 
     ``created_utc`` guards against reading the same run number from another database.
     """
@@ -50,22 +53,15 @@ def read_samples_from_db(db_path: Path, run_id: int, created_utc: str | None) ->
         raise SamplesUnavailable(f"no database at {db_path}")
     con = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True, timeout=2.0)
     try:
-        row = con.execute("SELECT heat_start_device_s, sensor_names, created_utc FROM runs WHERE id = ?",
-                          [run_id]).fetchone()
-        if row is None or (created_utc and row[2] != created_utc):
+        row = con.execute("SELECT created_utc FROM runs WHERE id = ?", [run_id]).fetchone()
+        if row is None or (created_utc and row[0] != created_utc):
             raise SamplesUnavailable(f"run {run_id} in {db_path} is not the run the daemon reported")
-        rows = con.execute("SELECT device_s, q_W_per_m, temps_C FROM samples WHERE run_id = ? ORDER BY n",
-                           [run_id]).fetchall()
-    except sqlite3.Error as exc:
+        arr = run_arrays(sqlite_utils.Database(con), run_id)
+    except (sqlite3.Error, KeyError) as exc:
         raise SamplesUnavailable(f"cannot read {db_path}: {exc}") from exc
     finally:
         con.close()
-    names = json.loads(row[1] or "[]")
-    t0 = row[0] or 0.0
-    temps = np.array([[math.nan if v is None else v for v in json.loads(r[2])] for r in rows], dtype=float)
-    temps = temps.reshape(len(rows), -1)
-    return RunData(np.array([r[0] for r in rows], dtype=float) - t0, np.array([r[1] or 0.0 for r in rows]),
-                   {n: temps[:, i] for i, n in enumerate(names) if i < temps.shape[1]})
+    return RunData(arr["time_s"], arr["q_W_per_m"], dict(arr["temps_C"]))
 
 
 def _regressors(data: RunData, sensor: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list[str]]:
