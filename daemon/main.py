@@ -34,6 +34,7 @@ from daemon.paths import default_db_path, default_socket_path
 from daemon.probe import ProbeProfile
 from daemon.rig.scpi import ScpiError, SupplyLimits
 from daemon.service import DaemonSettings, RigService
+from daemon.sim.speed import speed_factor
 from daemon.store import queries
 from daemon.store.writer import Store
 
@@ -48,7 +49,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help=f"rig configuration TOML (default {DEFAULT_CONFIG_PATH}; not read with --simulate)")
     p.add_argument("--simulate", nargs="?", const="", default=None, metavar="MATERIAL",
                    help="start a simulated rig (linerig-sim) and use it; MATERIAL from `linerig-sim --list`")
-    p.add_argument("--speed", type=float, default=1.0, help="simulator time-scale factor (with --simulate)")
+    p.add_argument("--speed", type=speed_factor, default=1.0,
+                   help="simulator time-scale factor (with --simulate), above 0 and up to 1000")
     p.add_argument("--supply", action="store_true",
                    help="with --simulate: heat through the simulator's SCPI bench supply, not the front end")
     p.add_argument("--firmware", action="store_true",
@@ -235,7 +237,11 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
                               frontend_baud=cfg.devices.frontend_baud, supply_url=supply_url,
                               supply_baud=cfg.devices.supply_baud, supply_limits=supply_limits(cfg, probe))
     db_path = args.db or cfg.daemon.database or default_db_path()
-    store = Store(db_path, cfg.daemon.max_database_MB)
+    try:
+        store = Store(db_path, cfg.daemon.max_database_MB)
+    except (sqlite3.Error, OSError) as exc:  # nothing is armed yet: say which file and stop
+        print(f"linerigd: cannot open the database {db_path}: {exc}", file=sys.stderr)
+        return 2
     hub = Hub()
     svc = RigService(settings, store, hub)
     api = ApiServer(args.socket or cfg.daemon.socket or default_socket_path(), handlers(svc, store), hub,
@@ -399,6 +405,14 @@ def main(argv: list[str] | None = None) -> int:
         except KeyError as exc:
             print(f"linerigd: {exc.args[0]}", file=sys.stderr)
             return 2
+        if args.probe is not None:  # checked here, so a bad file is one clear line and not the simulator's trace
+            from daemon.probe import ProbeProfileError, load_probe_profile
+
+            try:
+                load_probe_profile(args.probe)
+            except ProbeProfileError as exc:
+                print(f"linerigd: {exc}", file=sys.stderr)
+                return 2
         sim, info = start_simulator(args, args.probe)
         frontend_url = info["frontend"]
         supply_url = info.get("supply")

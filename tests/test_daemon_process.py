@@ -383,3 +383,26 @@ async def test_an_unhandled_error_turns_the_heater_off_and_stops_the_daemon(tmp_
         sim.stop()
     con = sqlite3.connect(tmp_path / "r.db")
     assert con.execute("SELECT state FROM runs WHERE id = ?", [rid]).fetchone()[0] == "faulted"
+
+
+@pytest.mark.parametrize("program", ["daemon.main", "daemon.sim.main"])
+@pytest.mark.parametrize("speed", ["0", "-5", "nan", "5000"])
+def test_a_speed_the_simulator_cannot_keep_is_refused(program: str, speed: str) -> None:
+    extra = ["--simulate"] if program == "daemon.main" else []
+    done = subprocess.run([sys.executable, "-m", program, *extra, "--speed", speed], capture_output=True, text=True,
+                          cwd=ROOT, timeout=30)
+    assert done.returncode == 2 and "--speed" in done.stderr and "Traceback" not in done.stderr, done.stderr
+
+
+def test_start_up_errors_are_one_clear_line(tmp_path: Path) -> None:
+    bad_probe = tmp_path / "bad.toml"
+    bad_probe.write_text("[probe]\nname = 'x'\nradius_m = -1\n")
+    cases = [(["--simulate", "--probe", str(bad_probe), "--db", str(tmp_path / "r.db")], str(bad_probe)),
+             (["--simulate", "--db", "/proc/linerig/r.db", "--socket", str(tmp_path / "s.sock")],
+              "cannot open the database /proc/linerig/r.db")]
+    for argv, says in cases:
+        done = subprocess.run([sys.executable, "-m", "daemon.main", *argv], capture_output=True, text=True, cwd=ROOT,
+                              timeout=60)
+        assert done.returncode == 2, (argv, done.stderr)
+        assert says in done.stderr and "Traceback" not in done.stderr, done.stderr
+    assert not (tmp_path / "r.db").exists()  # nothing was started for the bad probe

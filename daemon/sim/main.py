@@ -21,13 +21,15 @@ from daemon.sim.frontend_sim import FrontEndEmulator
 from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, get_material
 from daemon.sim.rig_model import ProbeSpec, SimulatedRig
 from daemon.sim.server import SimServer
+from daemon.sim.speed import speed_factor
 
 
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="linerig-sim", description="Simulated line-source rig on pseudo-terminals.")
     p.add_argument("material", nargs="?", default=DEFAULT_MATERIAL_KEY, help="demo material (see --list)")
     p.add_argument("--list", action="store_true", help="list the demo materials and exit")
-    p.add_argument("--speed", type=float, default=1.0, help="time-scale factor (simulated seconds per second)")
+    p.add_argument("--speed", type=speed_factor, default=1.0,
+                   help="time-scale factor (simulated seconds per second), above 0 and up to 1000")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--probe", type=Path, help="probe profile TOML (default: a 100 mm lab needle)")
     p.add_argument("--link-dir", type=Path, help="folder for the stable device names (symlinks)")
