@@ -34,6 +34,20 @@ log = logging.getLogger("linerigd")
 RUN_METADATA_KEYS = ("site", "location", "depth_m", "sample", "material", "moisture_pct",
                      "dry_density_kg_per_m3", "notes", "operator")
 NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
+# Physical bounds of the numeric metadata (lowest, highest, what to give), wide enough for any ground a probe goes
+# into and narrow enough to catch a sign slip or a wrong unit:
+# - moisture is gravimetric (% of dry mass), so it can exceed 100 %: peats hold many times their dry mass of water;
+#   from memory, the geotechnical literature reports up to about 2000 % for fibrous peat.
+# - a dry density cannot exceed the density of the solids, about 2650 kg/m³ for quartz and up to about 2800 for
+#   common soil minerals (handbook values, from memory); peat can be below 100 kg/m³. Below 10 it is a unit slip.
+# - depth is that of the probe tip below ground; the upper bound only catches millimetres typed as metres (common
+#   practice, no source).
+METADATA_RANGES: dict[str, tuple[float, float, str]] = {
+    "depth_m": (0.0, 1000.0, "a depth of the probe tip below ground from 0 to 1000 m"),
+    "moisture_pct": (0.0, 2000.0, "a gravimetric water content from 0 to 2000 % of dry mass (peat can exceed "
+                                  "100 %)"),
+    "dry_density_kg_per_m3": (10.0, 3000.0, "a dry density from 10 to 3000 kg/m³"),
+}
 
 
 @dataclass
@@ -47,7 +61,7 @@ class Series:
 
 
 def check_metadata(metadata: Any) -> dict[str, Any]:
-    """The run's metadata as stored: known keys only, numbers where numbers belong, empty values dropped."""
+    """The run's metadata as stored: known keys only, numbers within physical bounds, empty values dropped."""
     if not isinstance(metadata, dict):
         raise RequestError("metadata must be an object")
     unknown = sorted(set(metadata) - set(RUN_METADATA_KEYS))
@@ -60,6 +74,11 @@ def check_metadata(metadata: Any) -> dict[str, Any]:
         if k in NUMERIC_METADATA:
             if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
                 raise RequestError(f"metadata {k} must be a number, got {str(v)[:60]!r}")
+            lo, hi, what = METADATA_RANGES[k]
+            if not lo <= v <= hi:
+                hint = (f" (that looks like g/cm³: {v:g} g/cm³ is {v * 1000:g} kg/m³)"
+                        if k == "dry_density_kg_per_m3" and 0 < v < lo else "")
+                raise RequestError(f"metadata {k} must be {what}, got {v:g}{hint}")
         elif not isinstance(v, str) or len(v) > 4000:
             raise RequestError(f"metadata {k} must be text of at most 4000 characters")
         out[k] = v
