@@ -140,12 +140,55 @@ def test_settling_waits_for_the_drift_then_times_out_flagged() -> None:
 
 def test_reequilibration_adds_its_wait_before_the_baseline_of_a_later_cycle() -> None:
     rec = Recorder()
-    plan = PLAN.with_changes({"reequilibrate_s": 30})
+    plan = PLAN.with_changes({"reequilibrate_s": 30, "min_rest_ratio": 0})
     c = RunController(2, plan, rec, cycle=2, reequilibrate=True)
     feed(c, 0, 49, 12.0)
     assert c.state == RunState.SETTLING
     feed(c, 49, 52, 12.0)
     assert c.state == RunState.HEATING and c.arm_device_s == 50.0
+
+
+def test_a_later_cycle_heats_only_after_resting_min_rest_ratio_heating_times() -> None:
+    """Heater off → recovery 50 s → rest → baseline 20 s → heat: 4 × 100 s in all, so the rest is 330 s."""
+    rec = Recorder()
+    c = RunController(2, PLAN, rec, cycle=2, reequilibrate=True)
+    assert c.rest_before_baseline_s() == 330.0
+    feed(c, 0, 349, 12.0)
+    assert c.state == RunState.SETTLING
+    feed(c, 349, 352, 12.0)
+    assert c.state == RunState.HEATING and c.arm_device_s == 350.0
+    # a longer explicit wait wins
+    assert RunController(2, PLAN.with_changes({"reequilibrate_s": 900}), Recorder()).rest_before_baseline_s() == 900
+
+
+def test_the_rest_ratio_keeps_the_previous_cycles_residual_under_one_percent_of_k() -> None:
+    """The reason for the default: two heatings of a line source (superposed exponential integrals, scipy's exp1
+    as the reference for E1; Carslaw & Jaeger §10.4 for the solution), a straight baseline fitted over the last
+    60 s before the second heating and removed, k from the late-time slope. Numbers: moist sand, 5 W/m, 600 s."""
+    from scipy.special import exp1
+
+    k, alpha, q, r, th = 1.45, 0.7e-6, 5.0, 0.635e-3, 600.0
+
+    def rise(t: np.ndarray) -> np.ndarray:
+        out = np.zeros_like(t)
+        on = t > 0
+        out[on] = q / (4 * np.pi * k) * exp1(r * r / (4 * alpha * t[on]))
+        return out
+
+    def k_read(rest_ratio: float) -> float:
+        gap = rest_ratio * th  # from the first switch-off to the second switch-on
+        base_t, heat_t = np.arange(-60.0, 0.0), np.arange(1.0, th + 1)
+
+        def before(t: np.ndarray) -> np.ndarray:
+            return rise(t + gap + th) - rise(t + gap)
+
+        line = np.polyfit(base_t, before(base_t), 1)
+        y = rise(heat_t) + before(heat_t) - np.polyval(line, heat_t)
+        late = heat_t >= 0.3 * th
+        return q / (4 * np.pi * np.polyfit(np.log(heat_t[late]), y[late], 1)[0])
+
+    assert k_read(1.1) / k - 1 < -0.10  # what a cycle right after the last recovery reads
+    assert abs(k_read(RunPlan().min_rest_ratio) / k - 1) < 0.01
 
 
 def test_operator_stop_is_acted_on_at_the_next_sample_and_says_whether_it_was_stable() -> None:

@@ -25,6 +25,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.add_argument("--reequilibrate-s", type=float, metavar="S",
                    help="with --cycles: extra wait before each later cycle's baseline, s (the ground must cool back; "
                         "several times the heating time is usual)")
+    p.add_argument("--min-rest-ratio", type=float, metavar="N",
+                   help="with --cycles: a later cycle heats only N heating times after the last switch-off "
+                        "(default 4, which keeps the earlier heating's residual under 1 %% of k; 0 for no minimum)")
     p.add_argument("--max-drift", type=float, dest="max_drift_K_per_min", metavar="K_PER_MIN",
                    help="baseline drift that counts as settled, K/min")
     p.add_argument("--settle-timeout-s", type=float, metavar="S",
@@ -39,7 +42,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.set_defaults(func=run)
 
 
-PLAN_OPTIONS = ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles", "reequilibrate_s",
+PLAN_OPTIONS = ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles", "reequilibrate_s", "min_rest_ratio",
                 "max_drift_K_per_min", "settle_timeout_s", "sensor", "preset")
 
 
