@@ -327,7 +327,9 @@ class LiveState:
             return None, False
         p = self.plan
         heat, rec, base = float(p.get("heat_s", 0)), float(p.get("recover_s", 0)), float(p.get("baseline_s", 0))
-        reeq = float(p.get("reequilibrate_s", 0) or 0)
+        # the daemon's rest before a later cycle (RunController.rest_before_baseline_s)
+        ratio = float(p.get("min_rest_ratio", 0) or 0)
+        reeq = max(float(p.get("reequilibrate_s", 0) or 0), ratio * heat - rec - base)
         later = max(0, int(p.get("cycles", 1) or 1) - self.cycle) * (base + reeq + heat + rec)
         el = self.phase_elapsed_s or 0.0
         st = self.run_state
