@@ -10,6 +10,7 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+from daemon.run_keeper import METADATA_RANGES
 from tui.screens.live_state import LiveState
 
 # Presets: plain starting points, each editable after choosing it. The heating times follow the usual
@@ -31,12 +32,7 @@ DEFAULT_PRESET = "standard"
 
 PLAN_FIELDS = ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles")
 META_TEXT = ("site", "location", "sample", "material", "notes", "operator")
-META_NUMBERS: dict[str, tuple[float, float, str]] = {
-    # field: (lowest, highest, what the range means)
-    "depth_m": (0.0, 1000.0, "a depth below ground in metres, 0 to 1000"),
-    "moisture_pct": (0.0, 500.0, "a water content in %, 0 to 500 (peat can exceed 100 %)"),
-    "dry_density_kg_per_m3": (100.0, 3000.0, "a dry density in kg/m³, 100 to 3000"),
-}
+META_NUMBERS = METADATA_RANGES  # (lowest, highest, what is expected): the daemon's own limits
 MAX_TEXT = 200
 
 
