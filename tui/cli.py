@@ -17,15 +17,40 @@ from pathlib import Path
 import tui.commands
 
 
-def build_parser() -> argparse.ArgumentParser:
+def command_modules() -> list[str]:
+    """Subcommand module names; the command is the name with ``-`` for ``_`` (``stop_heating`` → ``stop-heating``)."""
+    return sorted(info.name for info in pkgutil.iter_modules(tui.commands.__path__))
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The whole parser, or with ``only`` just that subcommand's: some commands pull in the reduction and the
+    report code, seconds of imports on a small board that ``linerig status`` should not pay for."""
     p = argparse.ArgumentParser(prog="linerig", description="linerig: line-source thermal probe rig.")
     p.add_argument("--socket", type=Path, default=None, help="the daemon's control socket")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
-    for info in sorted(pkgutil.iter_modules(tui.commands.__path__), key=lambda i: i.name):
-        mod = importlib.import_module(f"tui.commands.{info.name}")
+    for name in command_modules():
+        if only is not None and name != only:
+            continue
+        mod = importlib.import_module(f"tui.commands.{name}")
         if hasattr(mod, "add_parser"):
             mod.add_parser(sub)
     return p
+
+
+def _command_asked(argv: list[str] | None) -> str | None:
+    """The module of the subcommand on the command line when it names one; "" for none (the screen); None
+    otherwise, and then all are loaded so that help and a mistyped name read as usual."""
+    pre = argparse.ArgumentParser(add_help=False)
+    pre.add_argument("--socket")
+    pre.add_argument("command", nargs="?")
+    try:
+        known, _ = pre.parse_known_args(argv)
+    except SystemExit:  # argparse's own message follows from the full parser
+        return None
+    if known.command is None:  # the operator's screen, unless help was asked for
+        return None if {"-h", "--help"} & set(sys.argv[1:] if argv is None else argv) else ""
+    name = known.command.replace("-", "_")
+    return name if name in command_modules() else None
 
 
 # what a shell reports for a program that a closed pipe ended (128 + SIGPIPE), as `yes | head -1` shows
@@ -63,7 +88,7 @@ def _stdout_closed() -> bool:
 
 
 def _main(argv: list[str] | None) -> int:
-    parser = build_parser()
+    parser = build_parser(_command_asked(argv))
     args = parser.parse_args(argv)
     if args.command is None:
         from tui.app import run_app
