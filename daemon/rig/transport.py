@@ -57,9 +57,12 @@ class SerialTransport:
         while True:
             try:
                 data = port.read(max(1, port.in_waiting))
-            except (serial.SerialException, OSError, TypeError) as exc:
+            except (serial.SerialException, OSError) as exc:
                 self.close()
                 raise LinkError(f"{self.url}: {exc}") from exc
+            except TypeError as exc:  # pyserial selecting on a descriptor that another side already closed
+                self.close()
+                raise LinkError(f"{self.url}: the port went away (device unplugged or its process ended)") from exc
             if data:
                 # Yield once even when bytes were waiting: a front end that never pauses (a fast rate, or one
                 # babbling) must not starve the lease renewals, the watchdog and the API on the same loop.
