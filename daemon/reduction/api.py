@@ -13,10 +13,10 @@ import numpy as np
 from ..probe import ProbeProfile
 from . import units
 from . import window as win
-from .cooling import CoolingFit, fit_joint, fit_recovery, recovery_window
+from .cooling import CoolingFit, RecoveryWindow, choose_recovery_window, fit_joint, fit_recovery, recovery_candidates
 from .data import ReductionError, RunData
 from .drift import Baseline, fit_baseline, no_baseline
-from .linesource import LateTimeFit, choose_window, fit_window
+from .linesource import ALPHA_MAX, ALPHA_MIN, LateTimeFit, choose_window, fit_window
 from .live import DEFAULT_POWER_U_REL, NOISE_HIGH_FRACTION, replay
 from .probe_model import ModelFit, fit_probe_model
 from .radial import PulseCheck, pulse_check
@@ -338,25 +338,25 @@ def _reduce_sensor(name: str, data: RunData, probe: ProbeProfile | None, method:
 
     # --- cooling -----------------------------------------------------------------------------------------
     if t_off is not None and on_heater and res.window_s is not None:
-        t_ax = (win.axial_end_s(length_m, res.alpha_m2_per_s, 0.01, axial_m)
-                if length_m and res.alpha_m2_per_s else math.inf)
         heat_start = line.window_s[0] if line is not None else res.window_s[0]
         after = np.nonzero((t > t_off) & (data.q_W_per_m > 0))[0]
         t_last = float(t[after[0] - 1]) if after.size else float(t[-1])
-        cw = recovery_window(t_off, heat_start, t_last, t_ax)
+        cand = recovery_candidates(t, Q, t_off, t_last)
+        # without a baseline the zero of ΔT is the first heating sample: keep a free offset, judge the slope
+        free = not baseline.present
+        step_models = _step_models(model, line, a_m, probe_C, length_m, axial_m)
         try:
-            res.recovery = fit_recovery(t, dT, X, Q, *cw, drift_rate_u_K_per_s=baseline.rate_u_K_per_s)
+            cw = _recovery_window(t[cand], t_off, heat_start, steps_t, steps_dq, step_models, free)
+            kw = {"free_offset": free, "level_u_K": baseline.offset_u_K, "window_u_rel": cw.window_u_rel}
+            res.recovery = fit_recovery(t, dT, X, Q, cw.t_start, cw.t_end, baseline.rate_u_K_per_s, **kw)
             hw = line.window_s if line is not None else res.window_s
-            res.joint = fit_joint(t, dT, X, Q, hw, cw, baseline.rate_u_K_per_s)
+            res.joint = fit_joint(t, dT, X, Q, hw, (cw.t_start, cw.t_end), baseline.rate_u_K_per_s, **kw)
         except ValueError as e:
             if np.count_nonzero(t > t_off) > 0:
                 notes.append(f"recovery not analysed: {e}")
-        if res.recovery is not None:
-            kc, uc = res.recovery.k_W_per_mK, res.recovery.k_u_stat_W_per_mK
-            diff = abs(kc - k_raw)
-            u_heat = k_raw * math.hypot(budget["statistical"], budget["drift"])
-            if diff > max(2.0 * math.hypot(uc, u_heat), HEAT_COOL_REL * k_raw):
-                flags.append("heat_cool_disagree")
+        if res.recovery is not None and _heat_cool_disagree(res.recovery, k_raw, budget["statistical"],
+                                                            budget["drift"], line, baseline.rate_u_K_per_s):
+            flags.append("heat_cool_disagree")
 
     # --- drift, rise -------------------------------------------------------------------------------------
     flags = baseline.flags(rise, heating_s) + flags
@@ -374,6 +374,65 @@ def _reduce_sensor(name: str, data: RunData, probe: ProbeProfile | None, method:
         res.stable_at_s = ests[-1].stable_at_s if ests else None
     res.flags = list(dict.fromkeys(flags))
     return res
+
+
+def _recovery_window(t_rec: np.ndarray, t_off: float, heat_start: float, steps_t: np.ndarray,
+                     steps_dq: np.ndarray, step_models: list[win.StepModel], free: bool) -> RecoveryWindow:
+    """The recovery window from the first step model that gives one (see ``cooling.choose_recovery_window``)."""
+    if not step_models or t_rec.size == 0:
+        return choose_recovery_window(t_rec, None, t_off, heat_start)
+    st, sdq = compress_steps(steps_t[steps_t <= t_off], steps_dq[steps_t <= t_off])
+    failed: list[ValueError] = []
+    for m in step_models:
+        level_err, slope_err = win.recovery_errors(t_rec, st, sdq, m)
+        try:
+            return choose_recovery_window(t_rec, slope_err if free else level_err, t_off, heat_start)
+        except ValueError as e:
+            failed.append(e)
+    raise failed[0]
+
+
+def _heat_cool_disagree(rec: CoolingFit, k_heat: float, u_stat_rel: float, u_drift_rel: float,
+                        line: LateTimeFit | None, drift_u_K_per_s: float) -> bool:
+    """Recovery and heating k differ by more than 3 % and twice the standard uncertainty of their difference.
+
+    A baseline-slope error moves both the same way (heating and recovery both read too warm), so the difference
+    carries only the difference of their sensitivities; everything else is independent.
+    """
+    kc = rec.k_W_per_mK
+    rec_drift = kc * drift_u_K_per_s * rec.drift_coef_rel
+    rec_other2 = max(rec.k_u_stat_W_per_mK**2 - rec_drift**2, 0.0) + (kc * rec.window_u_rel) ** 2
+    if line is not None:
+        drift_diff = drift_u_K_per_s * abs(kc * rec.drift_coef_rel - k_heat * line.drift_coef_rel)
+    else:
+        drift_diff = math.hypot(rec_drift, k_heat * u_drift_rel)
+    u_diff = math.sqrt(rec_other2 + (k_heat * u_stat_rel) ** 2 + drift_diff**2)
+    return abs(kc - k_heat) > max(2.0 * u_diff, HEAT_COOL_REL * k_heat)
+
+
+def _step_models(model: ModelFit | None, line: LateTimeFit | None, a_m: float | None, probe_C: float | None,
+                 length_m: float | None, axial_m: float | None) -> list[win.StepModel]:
+    """Probe and medium for the recovery window, from the same sources as the heating window's rule, in order.
+
+    The probe-model fit when it converged (α, h; α_J from its k/α). The line's intercept α with h = 0 when there
+    is no model, or as a second choice when the model and the line disagree by more than 3 %: a heating the two
+    read differently (a power log that was wrong for a while) can leave the model an α far off, and the recovery
+    is what should show the disagreement. A Blackwell cylinder when the probe's heat capacity is known, an ideal
+    line at the radius otherwise.
+    """
+    if a_m is None:
+        return []
+    sources: list[tuple[float, float, float]] = []
+    if model is not None and model.success and model.alpha_m2_per_s > 0:
+        sources.append((model.alpha_m2_per_s, model.h, model.k_W_per_mK))
+    if line is not None and line.alpha_m2_per_s and (
+            not sources or abs(sources[0][2] / line.k_W_per_mK - 1) > MODEL_LINE_REL):
+        sources.append((line.alpha_m2_per_s, 0.0, line.k_W_per_mK))
+    out = []
+    for alpha, h, k in sources:
+        alpha = min(max(alpha, ALPHA_MIN), ALPHA_MAX)
+        out.append(win.StepModel(alpha, a_m, 2.0 * (k / alpha) / probe_C if probe_C else None, h, length_m, axial_m))
+    return out
 
 
 def _fit_model(th: np.ndarray, dTh: np.ndarray, steps_t: np.ndarray, steps_dq: np.ndarray, a_m: float,

@@ -2,8 +2,13 @@
 
 After the heater goes off at t_h the late-time superposition gives ΔT ≈ q/(4πk)·ln(t/(t − t_h)) (Carslaw &
 Jaeger 1959 §10.4; ASTM D5334 uses the recovery to reduce drift effects). With the measured power steps this is
-ΔT = X/(4πk) with X = Σ Δq_j·ln(t − t_j): the constant term of the heating (probe radius, contact) cancels.
-The recovery fit keeps a free offset, so a residual baseline error does not bias its slope.
+ΔT = X/(4πk) with X = Σ Δq_j·ln(t − t_j): the constant term of the heating (probe radius, contact) cancels, so
+the line goes through the origin and its level carries k. The fit keeps no offset when a baseline fixed the
+zero of ΔT, and a free one when none was recorded (then only the shape of the recovery carries k).
+
+Where that line holds is not where the heating's does: the recovery at t mixes the step response at t (axial
+loss has had all of t to grow) and at t − t_h (probe heat capacity and contact still fading). The window is
+where the probe model (``window.StepModel``) predicts the error to be small (METHODS.md, "Recovery").
 """
 
 from __future__ import annotations
@@ -15,69 +20,166 @@ import numpy as np
 
 from .stats import ar1_inflation, fit_line, lag1_autocorrelation
 
+RECOVERY_TOLS = (0.01, 0.02, 0.03, 0.05)  # predicted error allowed in the window, tried in turn (no source)
+MIN_RECOVERY_SAMPLES = 20                 # as for the heating window's "short" (common practice, no source)
+RECOVERY_END_FACTOR = 3.0                 # the recovery is not used past 3·t_h (common practice, no source)
+
 
 @dataclass(frozen=True)
 class CoolingFit:
     kind: str                      # "recovery" or "joint"
     k_W_per_mK: float
-    k_u_stat_W_per_mK: float
-    window_s: tuple[float, float]
+    k_u_stat_W_per_mK: float       # noise, baseline slope and level carried through
+    window_s: tuple[float, float]  # recovery samples used (joint: first heating to last recovery sample)
     n: int
     resid_rms_K: float
     rho1: float
+    window_u_rel: float = 0.0      # relative standard uncertainty of the window: predicted error max/√3
+    free_offset: bool = False
+    drift_coef_rel: float = 0.0    # relative change of k per K/s of error in the removed baseline slope (signed)
+
+    @property
+    def k_u_W_per_mK(self) -> float:
+        """Standard uncertainty, statistical and window terms combined."""
+        return math.hypot(self.k_u_stat_W_per_mK, self.k_W_per_mK * self.window_u_rel)
 
     def to_dict(self) -> dict[str, object]:
-        return {"kind": self.kind, "k_W_per_mK": self.k_W_per_mK, "k_u_W_per_mK": self.k_u_stat_W_per_mK,
-                "window_s": list(self.window_s), "n": self.n, "residual_rms_K": self.resid_rms_K}
+        return {"kind": self.kind, "k_W_per_mK": self.k_W_per_mK, "k_u_W_per_mK": self.k_u_W_per_mK,
+                "k_u_stat_W_per_mK": self.k_u_stat_W_per_mK, "window_u_rel": self.window_u_rel,
+                "window_s": list(self.window_s), "n": self.n, "residual_rms_K": self.resid_rms_K,
+                "free_offset": self.free_offset}
 
 
-def recovery_window(t_off: float, heat_start_s: float, t_last: float, t_axial_s: float = math.inf
-                    ) -> tuple[float, float]:
-    """From t_h plus the heating window's start (the early recovery mirrors the early heating) to the end of the
-    record, at most 3·t_h and not past the axial-loss limit."""
-    return t_off + heat_start_s, min(t_last, 3.0 * t_off, max(t_axial_s, t_off + 2 * heat_start_s))
+@dataclass(frozen=True)
+class RecoveryWindow:
+    t_start: float
+    t_end: float
+    max_error_rel: float   # largest predicted |error| in the window (nan when no model was available)
+    tol: float | None      # the tolerance it met (None: no model, fallback rule)
+    reason: str
+
+    @property
+    def window_u_rel(self) -> float:
+        """The predicted error as a rectangular distribution of half-width max|e|: u = max|e|/√3 (JCGM 100 §4.3.7)."""
+        return self.max_error_rel / math.sqrt(3.0) if math.isfinite(self.max_error_rel) else 0.0
+
+
+def recovery_candidates(t: np.ndarray, Q: np.ndarray, t_off: float, t_last: float) -> np.ndarray:
+    """Recovery samples that may be used: heater off, after t_h, before the next heating and before 3·t_h."""
+    return (t > t_off) & (Q == 0) & (t <= min(t_last, RECOVERY_END_FACTOR * t_off))
+
+
+def choose_recovery_window(t_rec: np.ndarray, err_rel: np.ndarray | None, t_off: float,
+                           heat_start_s: float) -> RecoveryWindow:
+    """Where the recovery line is fitted (METHODS.md, "Recovery").
+
+    The longest run of recovery samples whose predicted error ``err_rel`` (level error for a fit through the
+    origin, slope error with a free offset) stays within the first tolerance of ``RECOVERY_TOLS`` that leaves
+    ``MIN_RECOVERY_SAMPLES`` (or all samples, if fewer). Without a model (``err_rel`` None) the window starts
+    the heating window's start after t_h and runs to the last candidate.
+    Raises ValueError when no tolerance leaves enough samples.
+    """
+    t_rec = np.asarray(t_rec, dtype=float)
+    if t_rec.size < 5:
+        raise ValueError(f"only {t_rec.size} recovery samples; at least 5 are needed")
+    if err_rel is None:
+        sel = t_rec >= t_off + heat_start_s
+        if np.count_nonzero(sel) < 5:
+            raise ValueError("fewer than 5 recovery samples after the heating window's start")
+        return RecoveryWindow(float(t_rec[sel][0]), float(t_rec[sel][-1]), math.nan, None,
+                              "no probe or medium model: start t_h + heating start")
+    err = np.abs(np.asarray(err_rel, dtype=float))
+    need = max(min(MIN_RECOVERY_SAMPLES, t_rec.size), 5)
+    for tol in RECOVERY_TOLS:
+        i0, i1 = _longest_run(err <= tol)
+        if i1 - i0 >= need:
+            return RecoveryWindow(float(t_rec[i0]), float(t_rec[i1 - 1]), float(np.max(err[i0:i1])), tol,
+                                  f"predicted error ≤ {100 * tol:.0f} % from t − t_h = {t_rec[i0] - t_off:.3g} s "
+                                  f"to {t_rec[i1 - 1] - t_off:.3g} s")
+    raise ValueError(f"no {need} recovery samples in a row are within {100 * RECOVERY_TOLS[-1]:.0f} % of the "
+                     f"line-source recovery (best {100 * float(np.min(err)):.1f} %): probe heat capacity and "
+                     "axial loss bend it everywhere; heat for less than the axial-loss time L²/(53α) or use a "
+                     "longer probe")
+
+
+def _longest_run(ok: np.ndarray) -> tuple[int, int]:
+    """[i0, i1) of the longest run of True."""
+    best, start, i0, i1 = 0, None, 0, 0
+    for i, v in enumerate(np.append(ok, False)):
+        if v and start is None:
+            start = i
+        elif not v and start is not None:
+            if i - start > best:
+                best, i0, i1 = i - start, start, i
+            start = None
+    return i0, i1
 
 
 def fit_recovery(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, t0: float, t1: float,
-                 drift_rate_u_K_per_s: float = 0.0) -> CoolingFit:
-    """ΔT = X/(4πk) + c over recovery samples (heater off, Q = 0) with t0 <= t <= t1.
+                 drift_rate_u_K_per_s: float = 0.0, *, free_offset: bool = False, level_u_K: float = 0.0,
+                 window_u_rel: float = 0.0) -> CoolingFit:
+    """ΔT = X/(4πk) (+ c with ``free_offset``) over recovery samples (heater off, Q = 0) with t0 <= t <= t1.
 
-    The uncertainty includes the baseline-slope uncertainty carried through: δ·cov(t, X)/var(X) on the slope.
+    The uncertainty carries the baseline: a slope error δ tilts the fit by δ·(A⁺t) and, without an offset, a
+    level error ``level_u_K`` shifts it by u·(A⁺1) (A the design matrix).
     """
     sel = (t >= t0) & (t <= t1) & (Q == 0)
     if np.count_nonzero(sel) < 5:
         raise ValueError("fewer than 5 recovery samples in the window")
-    lf = fit_line(X[sel], dT[sel])
-    if lf.slope <= 0:
+    ts, xs, ys = t[sel], X[sel], dT[sel]
+    if free_offset:
+        lf = fit_line(xs, ys)
+        slope, slope_u, rms, rho = lf.slope, lf.slope_u, lf.resid_rms, lf.rho1
+        dx = xs - xs.mean()
+        tilt = float(dx @ ts) / float(dx @ dx)   # slope change per K/s of drift
+        level_u = 0.0
+    else:
+        sxx = float(xs @ xs)
+        slope = float(xs @ ys) / sxx
+        resid = ys - slope * xs
+        rho = lag1_autocorrelation(resid)
+        s2 = float(resid @ resid) / (xs.size - 1)
+        slope_u = math.sqrt(s2 / sxx * ar1_inflation(rho))
+        rms = math.sqrt(float(resid @ resid) / xs.size)
+        tilt = float(xs @ ts) / sxx
+        level_u = abs(level_u_K * float(xs.sum()) / sxx)
+    if slope <= 0:
         raise ValueError("the recovery does not decay as the line-source model says")
-    k = 1.0 / (4.0 * math.pi * lf.slope)
-    ts = t[sel]
-    dx = X[sel] - X[sel].mean()
-    drift_u = abs(drift_rate_u_K_per_s * float(dx @ ts) / float(dx @ dx))
-    return CoolingFit("recovery", k, k * math.hypot(lf.slope_u, drift_u) / lf.slope,
-                      (float(ts[0]), float(ts[-1])), int(ts.size), lf.resid_rms, lf.rho1)
+    drift_u = abs(drift_rate_u_K_per_s * tilt)
+    k = 1.0 / (4.0 * math.pi * slope)
+    u = k * math.sqrt(slope_u**2 + drift_u**2 + level_u**2) / slope
+    return CoolingFit("recovery", k, u, (float(ts[0]), float(ts[-1])), int(ts.size), rms, rho, window_u_rel,
+                      free_offset, -tilt / slope)
 
 
 def fit_joint(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, heat_window: tuple[float, float],
-              cool_window: tuple[float, float], drift_rate_u_K_per_s: float = 0.0) -> CoolingFit:
-    """ΔT = X/(4πk) + b·Q over the heating window and the recovery window together (one k)."""
-    sel = (((t >= heat_window[0]) & (t <= heat_window[1]) & (Q > 0))
-           | ((t >= cool_window[0]) & (t <= cool_window[1]) & (Q == 0)))
-    if np.count_nonzero(sel) < 8:
+              cool_window: tuple[float, float], drift_rate_u_K_per_s: float = 0.0, *, free_offset: bool = False,
+              level_u_K: float = 0.0, window_u_rel: float = 0.0) -> CoolingFit:
+    """ΔT = X/(4πk) + b·Q (+ c in the recovery with ``free_offset``) over both windows together (one k)."""
+    heat = (t >= heat_window[0]) & (t <= heat_window[1]) & (Q > 0)
+    cool = (t >= cool_window[0]) & (t <= cool_window[1]) & (Q == 0)
+    sel = heat | cool
+    if np.count_nonzero(heat) < 3 or np.count_nonzero(cool) < 3:
         raise ValueError("too few samples for a joint heating and recovery fit")
-    A = np.column_stack([X[sel], Q[sel]])
+    cols = [X[sel], Q[sel]] + ([cool[sel].astype(float)] if free_offset else [])
+    A = np.column_stack(cols)
     coef, *_ = np.linalg.lstsq(A, dT[sel], rcond=None)
     resid = dT[sel] - A @ coef
     n = resid.size
-    s2 = float(resid @ resid) / (n - 2)
+    s2 = float(resid @ resid) / (n - A.shape[1])
     rho = lag1_autocorrelation(resid)
     AtA_inv = np.linalg.inv(A.T @ A)
+    pinv_row = (AtA_inv @ A.T)[0]
     cov = AtA_inv * s2 * ar1_inflation(rho)
     a = float(coef[0])
-    drift_u = abs(drift_rate_u_K_per_s * float((AtA_inv @ A.T @ t[sel])[0]))
     if a <= 0:
         raise ValueError("joint fit found no heating signal")
+    tilt = float(pinv_row @ t[sel])
+    drift_u = abs(drift_rate_u_K_per_s * tilt)
+    # a baseline level error shifts every ΔT, heating and recovery alike
+    level_u = 0.0 if free_offset else abs(level_u_K * float(pinv_row.sum()))
     k = 1.0 / (4.0 * math.pi * a)
     ts = t[sel]
-    return CoolingFit("joint", k, k * math.hypot(math.sqrt(cov[0, 0]), drift_u) / a, (float(ts[0]), float(ts[-1])), n,
-                      math.sqrt(float(resid @ resid) / n), rho)
+    return CoolingFit("joint", k, k * math.sqrt(cov[0, 0] + drift_u**2 + level_u**2) / a,
+                      (float(ts[0]), float(ts[-1])), n, math.sqrt(float(resid @ resid) / n), rho, window_u_rel,
+                      free_offset, -tilt / a)

@@ -40,6 +40,7 @@ class Baseline:
     quad_K_per_s2: float = 0.0
     quad_z: float = 0.0
     fitted_rate_K_per_s: float | None = None  # the slope found, whether or not it was removed
+    offset_u_K: float = 0.0  # standard uncertainty of the level at t = 0 (what a fit through ΔT = 0 relies on)
 
     @property
     def present(self) -> bool:
@@ -105,11 +106,13 @@ def fit_baseline(t: np.ndarray, temp_C: np.ndarray) -> Baseline:
         quad = float(cq[2]) / scale**2
         quad_z = abs(float(cq[2])) / math.sqrt(covq[2, 2]) if covq[2, 2] > 0 else math.inf
     rate, rate_u = float(coef[1]), math.sqrt(max(cov[1, 1], 0.0))
-    offset = float(coef[0])
+    offset, offset_u = float(coef[0]), math.sqrt(max(cov[0, 0], 0.0))
     if abs(rate) <= REMOVE_Z * rate_u:
         # level, not an extrapolated line; the slope left in is as uncertain as the slope found plus its noise
         offset, applied, applied_u = float(y.mean()), 0.0, math.hypot(rate, rate_u)
+        r0 = y - offset
+        offset_u = math.sqrt(float(r0 @ r0) / (n - 1) / n * ar1_inflation(lag1_autocorrelation(r0)))
     else:
         applied, applied_u = rate, rate_u
     return Baseline(offset, applied, applied_u, n, float(t.max() - t.min()), math.sqrt(float(resid @ resid) / n),
-                    quad, quad_z, fitted_rate_K_per_s=rate)
+                    quad, quad_z, fitted_rate_K_per_s=rate, offset_u_K=offset_u)

@@ -46,6 +46,7 @@ class LateTimeFit:
     trend_z: float
     line: LineFit
     drift_u_rel: float = 0.0
+    drift_coef_rel: float = 0.0   # relative change of k per K/s of error in the removed baseline slope (signed)
 
     @property
     def span_ln(self) -> float:
@@ -86,10 +87,10 @@ def fit_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, t_sta
         alpha_u = math.sqrt(max(var, 0.0) + (2 * r_u_m / r_m) ** 2)
     rel, z, _ = quadratic_curvature(us, ys)
     du = us - us.mean()
-    drift_rel = abs(drift_rate_u_K_per_s * float(du @ (ts / qs)) / float(du @ du)) / a
+    tilt = float(du @ (ts / qs)) / float(du @ du)   # slope change per K/s of drift
     return LateTimeFit(k, k * lf.slope_u / a, a * q_mean, b * q_mean, (float(ts[0]), float(ts[-1])), ts.size,
                        float(np.sqrt(np.mean((resid * qs) ** 2))), lf.rho1, q_mean, alpha, alpha_u, rel, z, lf,
-                       drift_rel)
+                       abs(drift_rate_u_K_per_s * tilt) / a, -tilt / a)
 
 
 def _thirds_slopes(t: np.ndarray, u: np.ndarray, y: np.ndarray, t0: float, t1: float) -> tuple[float, ...]:

@@ -6,14 +6,21 @@ expansion of the Blackwell (1954) / Jaeger (1956) solution (Carslaw & Jaeger 195
 capacity the ideal line at radius r is used: local slope = exp(−r²/4αt), i.e. 1 % at t = 24.9·r²/α (Carslaw &
 Jaeger §10.4). End (finite heater length L, sensor at axial position z): the local slope is
 ½[erf(z/2√(αt)) + erf((L−z)/2√(αt))] of the ideal; at mid-length 1 % is reached at t = L²/(53.1·α).
+
+The recovery has no window of its own in those terms: each power step keeps its own age, so the recovery at t
+mixes the step response at t and at t − t_h. ``StepModel`` gives the departure of one step's response from the
+late-time line (probe, contact, axial loss) and ``recovery_errors`` superposes it over the measured power steps.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import erf, erfinv
+from scipy.special import erf, erfinv, exp1
+
+from .probe_model import response_stehfest
 
 EULER_GAMMA = 0.57721566490153286
 EXP_GAMMA = math.exp(EULER_GAMMA)
@@ -78,3 +85,81 @@ def axial_end_s(length_m: float, alpha_m2_per_s: float, tol: float = 0.01,
 def alpha_from_intercept(r_m: float, ln_t0: float) -> float:
     """Single-probe diffusivity from the time-axis intercept t0 of the fitted line: α = r²·e^γ/(4·t0)."""
     return r_m**2 * EXP_GAMMA / 4.0 * math.exp(min(max(-ln_t0, -700.0), 700.0))
+
+
+_PER_DECADE = 64
+
+
+@dataclass(frozen=True)
+class StepModel:
+    """What the window rules know of probe and medium: enough to say how far a step's response is from the line.
+
+    ``alpha_J`` = 2ρc/(ρc)_probe with the probe's heat capacity (Blackwell cylinder of radius ``radius_m`` with
+    contact parameter h); None is an ideal line source read at ``radius_m``. ``length_m``/``axial_m``: heater
+    length and the sensor's distance from its tip (None: infinitely long, or at mid-length).
+    """
+
+    alpha_m2_per_s: float
+    radius_m: float
+    alpha_J: float | None = None
+    h: float = 0.0
+    length_m: float | None = None
+    axial_m: float | None = None
+
+    def deviation(self, ages: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(G, g) at each age t > 0: G = 4πk·ΔT/q of a unit step minus its late-time line ln t + c, g = dG/d ln t.
+
+        c is the infinite-line constant, so the probe part of G vanishes late and the axial part is −∫δ d ln t
+        with δ = 1 − (axial slope factor); g is the local slope error of the step (the heating rule's ε, and −δ).
+        """
+        ages = np.asarray(ages, dtype=float)
+        if ages.size == 0:
+            return np.zeros(0), np.zeros(0)
+        a, al = self.radius_m, self.alpha_m2_per_s
+        lo, hi = float(np.min(ages)), float(np.max(ages))
+        if self.length_m:
+            z = self.length_m / 2 if self.axial_m is None else self.axial_m
+            z_near = max(min(z, self.length_m - z), 1e-6)
+            lo = min(lo, z_near**2 / (100.0 * al))  # erfc(5) ≈ 1.5e-12: axial loss has not started
+        pad = 2.0 / _PER_DECADE  # two nodes beyond the ages, so the slope there is a central difference
+        n = max(math.ceil(math.log10(hi / lo) * _PER_DECADE) + 5, 5)
+        grid = np.logspace(math.log10(lo) - pad, math.log10(hi) + pad, n)
+        lng = np.log(grid)
+        if self.alpha_J is not None:
+            tau = al * grid / a**2
+            f = response_stehfest(tau, self.alpha_J, self.h) - (np.log(4.0 * tau / EXP_GAMMA) + 2.0 * self.h)
+        else:
+            x = a**2 / (4.0 * al * grid)
+            f = exp1(x) + np.log(x) + EULER_GAMMA
+        g = np.gradient(f, lng)
+        if self.length_m:
+            d = 1.0 - axial_slope_factor(grid, self.length_m, al, self.axial_m)
+            cum = np.concatenate(([0.0], np.cumsum(0.5 * (d[1:] + d[:-1]) * np.diff(lng))))
+            f, g = f - cum, g - d
+        la = np.log(ages)
+        return np.interp(la, lng, f), np.interp(la, lng, g)
+
+
+def recovery_errors(t: np.ndarray, steps_t: np.ndarray, steps_dq: np.ndarray, model: StepModel
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Predicted relative errors of the recovery's line at times ``t`` (all after the last step): (level, slope).
+
+    With X = Σ Δq_j·ln(t − t_j) the line says 4πk·ΔT = X after the heater is off. The model says
+    4πk·ΔT = X + Σ Δq_j·G(t − t_j). Level error: Σ Δq_j·G/X, what a fit through the origin sees. Slope error:
+    d(Σ Δq_j·G)/dX = Σ Δq_j·g/(t − t_j) / Σ Δq_j/(t − t_j), what a fit with a free offset sees. For one step of
+    q at 0 and its end at t_h the slope error is [(t − t_h)·g(t) − t·g(t − t_h)]/t_h: the early part of the
+    step that ended (probe, contact) weighs t/t_h, the axial loss of both steps enters.
+    """
+    t = np.asarray(t, dtype=float)
+    ages = t[:, None] - np.asarray(steps_t, dtype=float)[None, :]
+    if ages.size == 0 or np.any(ages <= 0):
+        raise ValueError("recovery times must follow every power step")
+    G, g = model.deviation(ages.ravel())
+    G, g = G.reshape(ages.shape), g.reshape(ages.shape)
+    dq = np.asarray(steps_dq, dtype=float)
+    X = np.log(ages) @ dq
+    dX = (1.0 / ages) @ dq
+    with np.errstate(divide="ignore", invalid="ignore"):
+        level = np.where(X > 0, (G @ dq) / X, np.inf)
+        slope = np.where(dX != 0, ((g / ages) @ dq) / dX, np.inf)
+    return level, slope
