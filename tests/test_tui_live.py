@@ -70,6 +70,15 @@ async def until(pilot: Pilot, cond: Callable[[], bool], what: str, timeout: floa
         await pilot.pause(0.02)
 
 
+async def front_end_linked(client: Client) -> None:
+    """Return once the daemon has its front end (a subscribed client hears the link event)."""
+    if not (await client.request("status"))["link_up"]:
+        async with asyncio.timeout(30):
+            async for ev in client.events():
+                if ev["event"] == "link" and ev["up"]:
+                    return
+
+
 def text_of(widget: object) -> str:
     return str(widget.render())  # type: ignore[attr-defined]
 
@@ -127,11 +136,7 @@ async def test_start_see_estimate_stop_when_steady_then_abort(daemon: Daemon) ->
 async def test_closing_and_reopening_the_ui_leaves_the_run_alone(daemon: Daemon) -> None:
     async with Client(daemon.socket) as client:
         await client.request("subscribe")
-        if not (await client.request("status"))["link_up"]:
-            async with asyncio.timeout(30):
-                async for ev in client.events():  # the daemon announces its front end with a link event
-                    if ev["event"] == "link" and ev["up"]:
-                        break
+        await front_end_linked(client)
         run_id = (await client.request("start", heat_s=3000, baseline_s=20, metadata={"site": "bench"}))["run_id"]
 
     app = LinerigApp(daemon.socket)
@@ -183,6 +188,7 @@ async def test_run_detail_gets_samples_and_probe_from_the_daemon(daemon: Daemon,
     monkeypatch.setattr(history, "read_samples_from_db", no_local_file)
     async with Client(daemon.socket) as client:
         await client.request("subscribe")
+        await front_end_linked(client)
         rid = (await client.request("start", heat_s=120, recover_s=60, baseline_s=20))["run_id"]
         async with asyncio.timeout(60):
             async for ev in client.events():
