@@ -26,6 +26,7 @@ from daemon.reduction.data import ReductionError, RunData
 from daemon.reduction.synthetic import Medium, make_run
 from daemon.sim.materials import get_material
 from daemon.sim.physics import RadialModel
+from daemon.sim.records import recorded_run
 from daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -37,20 +38,7 @@ def sim_run(material: str, heat_s: float, recover_s: float, seed: int, *, axial:
             baseline_s: float = 120.0, q: float = 10.0) -> RunData:
     """The default needle in a simulated medium at 1 Hz: baseline, heating at q, recovery."""
     rig = SimulatedRig(get_material(material), ProbeSpec.default_needle(), seed=seed, axial_loss=axial)
-    ts, qs, temps = [], [], []
-    n = round(baseline_s + heat_s + recover_s)
-    for i in range(n + 1):
-        t = i - baseline_s
-        if t == 0:
-            rig.set_heater(True, q)
-        elif t == heat_s:
-            rig.set_heater(False)
-        s = rig.sample()
-        ts.append(t)
-        qs.append(s.delivered_W_per_m)
-        temps.append(s.channels[0].temp_C)
-        rig.advance(1.0)
-    return RunData(np.array(ts), np.array(qs), {"heater": np.array(temps)})
+    return recorded_run(rig, baseline_s=baseline_s, heat_s=heat_s, recover_s=recover_s, q_W_per_m=q)
 
 
 def drying_run(heat_s: float, recover_s: float, seed: int, k_fraction: float = 0.7) -> RunData:

@@ -29,6 +29,7 @@ from daemon.reduction.data import RunData
 from daemon.reduction.synthetic import Medium, make_run
 from daemon.sim.materials import get_material
 from daemon.sim.physics import RadialModel
+from daemon.sim.records import recorded_run
 from daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -49,19 +50,7 @@ def _ideal_recovery(k: float, alpha: float, q: float, r: float, t: np.ndarray, t
 def _needle_in_moist_sand(heat_s: float = 300.0, recover_s: float = 300.0, seed: int = 3) -> RunData:
     """The default needle in the simulator's moist sand, axial loss solved, 10 W/m, 1 Hz, 120 s of baseline."""
     rig = SimulatedRig(SAND, ProbeSpec.default_needle(), seed=seed, axial_loss=True)
-    ts, qs, temps = [], [], []
-    for i in range(round(120 + heat_s + recover_s) + 1):
-        t = i - 120.0
-        if t == 0:
-            rig.set_heater(True, 10.0)
-        elif t == heat_s:
-            rig.set_heater(False)
-        s = rig.sample()
-        ts.append(t)
-        qs.append(s.delivered_W_per_m)
-        temps.append(s.channels[0].temp_C)
-        rig.advance(1.0)
-    return RunData(np.array(ts), np.array(qs), {"heater": np.array(temps)})
+    return recorded_run(rig, baseline_s=120.0, heat_s=heat_s, recover_s=recover_s, q_W_per_m=10.0)
 
 
 # --- the predicted departure from the line ------------------------------------------------------------------

@@ -1,0 +1,27 @@
+"""A whole run recorded straight from the simulated rig, no serial link: for benches and reduction tests."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from daemon.reduction.data import RunData
+from daemon.sim.rig_model import SimulatedRig
+
+
+def recorded_run(rig: SimulatedRig, *, baseline_s: float, heat_s: float, recover_s: float, q_W_per_m: float,
+                 dt_s: float = 1.0) -> RunData:
+    """Baseline, heating at ``q_W_per_m`` from t = 0, recovery; the heater sensor's record and the power the rig
+    delivered over each step (held from each sample on, as the reduction takes it)."""
+    ts, qs, temps = [], [], []
+    for i in range(round((baseline_s + heat_s + recover_s) / dt_s) + 1):
+        t = i * dt_s - baseline_s
+        if abs(t) < dt_s / 2:
+            rig.set_heater(True, q_W_per_m)
+        elif abs(t - heat_s) < dt_s / 2:
+            rig.set_heater(False)
+        s = rig.sample()
+        ts.append(t)
+        qs.append(s.delivered_W_per_m)
+        temps.append(s.channels[0].temp_C)
+        rig.advance(dt_s)
+    return RunData(np.array(ts), np.array(qs), {"heater": np.array(temps)})
