@@ -108,7 +108,7 @@ class RunKeeper:
         except PlanError as exc:
             raise RequestError(f"bad run plan: {exc}") from exc
 
-    def _check_can_start(self, plan: RunPlan) -> list[str]:
+    def _check_can_start(self, plan: RunPlan) -> None:
         rig = self.rig
         if self.run is not None and self.run.active:
             raise RequestError(f"run {self.run.run_id} is still {self.run.state}; stop or abort it first")
@@ -125,7 +125,6 @@ class RunKeeper:
         names = [x.name for x in rig.s.probe.sensors]
         if plan.sensor not in names:
             raise RequestError(f"sensor {plan.sensor!r} is not on probe {rig.s.probe.name!r} ({', '.join(names)})")
-        return names
 
     def start_run(self, plan: RunPlan, metadata: dict[str, Any], peer: Peer | None = None) -> dict[str, Any]:
         rig = self.rig
