@@ -53,3 +53,18 @@ def test_slope_lost_in_noise_is_reported_not_extrapolated() -> None:
     drifting = fit_baseline(t, 20.0 + t / 3600.0 + 0.005 * rng.standard_normal(t.size))
     assert drifting.rate_K_per_s == drifting.fitted_rate_K_per_s
     assert abs(drifting.rate_K_per_s * 3600.0 - 1.0) < 0.3
+
+
+def test_a_slope_that_is_only_noise_is_seldom_extrapolated() -> None:
+    """Removing a noise slope extrapolates it over a heating several times longer than the baseline. With the
+    3σ rule a white-noise baseline loses its level only in the normal tail, 2·Φ(−3) = 0.27 % (scipy.stats.norm
+    as the reference), a little more for the t distribution of a fitted slope; a real 10σ drift is removed."""
+    from scipy.stats import norm
+
+    t = np.arange(-120.0, 0.0)
+    rng = np.random.default_rng(11)
+    removed = [fit_baseline(t, 12.0 + rng.normal(0, 0.01, t.size)).rate_K_per_s != 0.0 for _ in range(400)]
+    assert np.mean(removed) <= 4 * 2 * norm.sf(3.0)  # ≈ 1 %; a 2σ rule would remove ≈ 5 %
+    slope_u = 0.01 / np.sqrt(np.sum((t - t.mean()) ** 2))  # the least-squares slope's standard error
+    drifting = 12.0 + 10 * slope_u * t + rng.normal(0, 0.01, t.size)
+    assert fit_baseline(t, drifting).rate_K_per_s == pytest.approx(10 * slope_u, rel=0.4)

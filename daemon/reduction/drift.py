@@ -21,10 +21,10 @@ MIN_BASELINE_SAMPLES = 5
 DRIFT_FLAG_FRACTION = 0.01
 NOT_SETTLED_FRACTION = 0.10
 CURVATURE_FRACTION = 0.02
-# A fitted slope is removed only when it stands out of the noise (|b| > 2u, about 95 %): extrapolating a slope
+# A fitted slope is removed only when it stands out of the noise (|b| > 3u): extrapolating a slope
 # that is mostly noise over a heating several times longer than the baseline adds more error than it removes.
 # Either way its uncertainty stays in the budget.
-REMOVE_Z = 2.0
+REMOVE_Z = 3.0
 
 
 @dataclass(frozen=True)
