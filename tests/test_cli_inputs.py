@@ -20,6 +20,7 @@ from daemon.reduction.synthetic import Medium, make_run
 from daemon.report.sources import open_db, probe_profiles
 from daemon.store.writer import Store
 from daemon.workflows.cycles import CycleValue, summarise_cycles
+from tests.test_qualify import FAST_SETTINGS  # the short procedure the qualification tests run
 from tui.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -198,16 +199,6 @@ def test_cycle_summary_keeps_result_flags_without_changing_the_statistics() -> N
     assert flagged.mean == plain.mean and flagged.sd == plain.sd
     assert flagged.flags_by_cycle == {2: ("drift",)} and plain.flags_by_cycle == {}
     assert "cycle_result_flagged" in flagged.flags and "cycle_result_flagged" not in plain.flags
-
-
-FAST_SETTINGS = """
-[procedure]
-repeats = 2
-baseline_s = 120.0
-heat_s = 700.0
-bath_log_s = 40.0
-heater_check_s = 20.0
-"""
 
 
 def test_qualify_checks_where_results_go_first_and_reports_carry_cautions(
