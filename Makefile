@@ -12,7 +12,7 @@ $(STAMP): pyproject.toml
 	@touch $(STAMP)
 
 demo: $(STAMP)
-	$(VENV)/bin/python -m tui.demo
+	$(VENV)/bin/python -m linerig.tui.demo
 
 test: $(STAMP)
 	$(VENV)/bin/ruff check .

@@ -80,8 +80,8 @@ class LineSourceRig:
     K, ALPHA = 1.5, 0.9e-6
 
     def __init__(self, probe_path: Path) -> None:
-        from daemon.probe import load_probe_profile
-        from daemon.sim.rig_model import ProbeSpec
+        from linerig.daemon.probe import load_probe_profile
+        from linerig.daemon.sim.rig_model import ProbeSpec
 
         self.probe = ProbeSpec.from_profile(load_probe_profile(probe_path))
         self.radii = [max(s.radial_m, self.probe.radius_m) for s in self.probe.sensors]
@@ -104,7 +104,7 @@ class LineSourceRig:
     def sample(self) -> Any:  # a rig_model.RigSample
         from scipy.special import exp1
 
-        from daemon.sim.rig_model import ChannelReading, RigSample
+        from linerig.daemon.sim.rig_model import ChannelReading, RigSample
 
         t = self.t_s - self.on_since if self.on_since is not None else 0.0
         chans = []
@@ -122,9 +122,9 @@ def serve_fast_sim(argv: list[str]) -> int:
     """linerig-sim's command line, with the line-source rig: for section 1 only."""
     import asyncio
 
-    from daemon.sim.frontend_sim import FrontEndEmulator
-    from daemon.sim.main import build_parser
-    from daemon.sim.server import SimServer
+    from linerig.daemon.sim.frontend_sim import FrontEndEmulator
+    from linerig.daemon.sim.main import build_parser
+    from linerig.daemon.sim.server import SimServer
 
     args = build_parser().parse_args(argv)
 
@@ -313,7 +313,7 @@ def kills(repeats: int) -> None:
 WRITER = """
 import sys
 from pathlib import Path
-from daemon.store.writer import Store
+from linerig.daemon.store.writer import Store
 s = Store(Path(sys.argv[1]))
 rid = s.create_run({"state": "heating", "sensor_names": '["heater"]'})
 n = 0

@@ -20,14 +20,14 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from daemon.probe import ProbeProfile, load_probe_profile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import ReductionError, RunData
-from daemon.reduction.synthetic import Medium, make_run
-from daemon.sim.materials import get_material
-from daemon.sim.physics import RadialModel
-from daemon.sim.records import recorded_run
-from daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from linerig.daemon.probe import ProbeProfile, load_probe_profile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.physics import RadialModel
+from linerig.daemon.sim.records import recorded_run
+from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 ROOT = Path(__file__).resolve().parents[1]
 NEEDLE = load_probe_profile(ROOT / "daemon" / "profiles" / "default-needle.toml")

@@ -20,11 +20,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import ReductionError, RunData
-from daemon.reduction.live import LiveReducer, replay
-from daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.reduction.live import LiveReducer, replay
+from linerig.daemon.reduction.synthetic import Medium, make_run
 
 HEAT_S = 1000.0
 DT_S = 0.5  # 2,000 heating samples

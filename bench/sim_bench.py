@@ -12,9 +12,9 @@ import time
 
 import mpmath as mp
 
-from daemon.sim.materials import get_material
-from daemon.sim.physics import AxialRadialModel, RadialModel
-from daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.physics import AxialRadialModel, RadialModel
+from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 
 def rate(fn, min_s: float = 0.5) -> float:  # type: ignore[no-untyped-def]

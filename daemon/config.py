@@ -40,10 +40,10 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-from daemon.controller import PLAN_HELP, PlanError, RunPlan
-from daemon.errors import ConfigError
-from daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
-from daemon.safety import LIMIT_HELP, Limits, check_plan, limit_problem
+from linerig.daemon.controller import PLAN_HELP, PlanError, RunPlan
+from linerig.daemon.errors import ConfigError
+from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
+from linerig.daemon.safety import LIMIT_HELP, Limits, check_plan, limit_problem
 
 DEFAULT_CONFIG_PATH = Path("/etc/linerig/rig.toml")
 DEFAULT_PROBE_PATH = Path(__file__).parent / "profiles" / "default-needle.toml"

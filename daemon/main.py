@@ -25,18 +25,18 @@ from typing import Any
 
 import sqlite_utils
 
-from daemon import sdnotify
-from daemon.api import ApiServer, Handler, Hub, Peer, RequestError
-from daemon.config import DEFAULT_CONFIG_PATH, RigConfig, load_config
-from daemon.controller import RunPlan
-from daemon.errors import ConfigError, RigError
-from daemon.paths import default_db_path, default_socket_path
-from daemon.probe import ProbeProfile
-from daemon.rig.scpi import ScpiError, SupplyLimits
-from daemon.service import DaemonSettings, RigService
-from daemon.sim.speed import speed_factor
-from daemon.store import queries
-from daemon.store.writer import Store
+from linerig.daemon import sdnotify
+from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError
+from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, load_config
+from linerig.daemon.controller import RunPlan
+from linerig.daemon.errors import ConfigError, RigError
+from linerig.daemon.paths import default_db_path, default_socket_path
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
+from linerig.daemon.service import DaemonSettings, RigService
+from linerig.daemon.sim.speed import speed_factor
+from linerig.daemon.store import queries
+from linerig.daemon.store.writer import Store
 
 log = logging.getLogger("linerigd")
 EXIT_INTERNAL = 70
@@ -73,7 +73,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 # -- the simulator, when asked for ---------------------------------------------
 def start_simulator(args: argparse.Namespace, probe_path: Path | None) -> tuple[subprocess.Popen[str], dict[str, Any]]:
-    cmd = [sys.executable, "-m", "daemon.sim.main", "--speed", str(args.speed), "--parent-pid", str(os.getpid())]
+    cmd = [sys.executable, "-m", "linerig.daemon.sim.main", "--speed", str(args.speed),
+           "--parent-pid", str(os.getpid())]
     if args.simulate:
         cmd.insert(3, args.simulate)
     if probe_path is not None:
@@ -225,7 +226,7 @@ def supply_limits(cfg: RigConfig, probe: ProbeProfile) -> SupplyLimits:
 
 async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None,
                 supply_url: str | None = None) -> int:
-    from daemon.probe import load_probe_profile
+    from linerig.daemon.probe import load_probe_profile
 
     probe = load_probe_profile(args.probe) if args.probe else cfg.probe
     plan = cfg.plan
@@ -285,8 +286,8 @@ def safe_off(frontend: str | None, supply: str | None, frontend_baud: int = 1152
     """
     import serial
 
-    from daemon.rig import messages as m
-    from daemon.rig.framing import FrameDecoder, encode_frame
+    from linerig.daemon.rig import messages as m
+    from linerig.daemon.rig.framing import FrameDecoder, encode_frame
 
     ok = True
     notes: list[str] = []
@@ -398,7 +399,7 @@ def main(argv: list[str] | None = None) -> int:
               file=sys.stderr)
         return 2
     if args.simulate is not None:
-        from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+        from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
         try:
             material = get_material(args.simulate or DEFAULT_MATERIAL_KEY).key
@@ -406,7 +407,7 @@ def main(argv: list[str] | None = None) -> int:
             print(f"linerigd: {exc.args[0]}", file=sys.stderr)
             return 2
         if args.probe is not None:  # checked here, so a bad file is one clear line and not the simulator's trace
-            from daemon.probe import ProbeProfileError, load_probe_profile
+            from linerig.daemon.probe import ProbeProfileError, load_probe_profile
 
             try:
                 load_probe_profile(args.probe)

@@ -18,16 +18,16 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from daemon import sdnotify
-from daemon.api import Peer, RequestError
-from daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
-from daemon.reduction.alignment import power_held_from_each_sample
-from daemon.safety import check_plan
-from daemon.store.writer import StoreError, utc_now
-from daemon.threads import in_daemon_thread
+from linerig.daemon import sdnotify
+from linerig.daemon.api import Peer, RequestError
+from linerig.daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
+from linerig.daemon.reduction.alignment import power_held_from_each_sample
+from linerig.daemon.safety import check_plan
+from linerig.daemon.store.writer import StoreError, utc_now
+from linerig.daemon.threads import in_daemon_thread
 
 if TYPE_CHECKING:
-    from daemon.service import RigService
+    from linerig.daemon.service import RigService
 
 log = logging.getLogger("linerigd")
 
@@ -149,7 +149,7 @@ class RunKeeper:
         return {"run_id": run_id, "series_id": series_id}
 
     def resume_series(self, series_id: int, peer: Peer | None = None) -> dict[str, Any]:
-        from daemon.store.queries import series_detail
+        from linerig.daemon.store.queries import series_detail
 
         rig = self.rig
         detail = series_detail(rig.store.reader, series_id)
@@ -230,8 +230,8 @@ class RunKeeper:
     async def final_reduction(self, run: RunController, arr: dict[str, list[Any]]) -> dict[str, Any]:
         if run.heat_start_s is None or len(arr.get("device_s", [])) < 10:
             return {}
-        from daemon.reduction.api import reduce_run
-        from daemon.reduction.data import RunData
+        from linerig.daemon.reduction.api import reduce_run
+        from linerig.daemon.reduction.data import RunData
 
         rig = self.rig
         t = np.asarray(arr["device_s"]) - run.heat_start_s

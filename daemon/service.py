@@ -28,18 +28,18 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from daemon import sdnotify
-from daemon.api import Hub, Peer
-from daemon.controller import RunController, RunPlan, RunState
-from daemon.errors import RigError
-from daemon.probe import ProbeProfile
-from daemon.rig import messages as m
-from daemon.rig.frontend import FrontEnd, FrontEndHandlers
-from daemon.rig.heater import ScpiHeater, open_scpi_heater
-from daemon.rig.scpi import ScpiError, SupplyLimits
-from daemon.rig.transport import SerialTransport
-from daemon.run_keeper import RunKeeper
-from daemon.safety import (
+from linerig.daemon import sdnotify
+from linerig.daemon.api import Hub, Peer
+from linerig.daemon.controller import RunController, RunPlan, RunState
+from linerig.daemon.errors import RigError
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.rig import messages as m
+from linerig.daemon.rig.frontend import FrontEnd, FrontEndHandlers
+from linerig.daemon.rig.heater import ScpiHeater, open_scpi_heater
+from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
+from linerig.daemon.rig.transport import SerialTransport
+from linerig.daemon.run_keeper import RunKeeper
+from linerig.daemon.safety import (
     FrameLossWindow,
     Limits,
     SampleView,
@@ -48,7 +48,7 @@ from daemon.safety import (
     check_precheck,
     check_sample,
 )
-from daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
+from linerig.daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
 
 log = logging.getLogger("linerigd")
 
@@ -120,8 +120,8 @@ class RigService:
     # -- life cycle ---------------------------------------------------------
     async def start(self) -> None:
         # imported now, not in the middle of the first run, where it would hold the loop up
-        import daemon.reduction.api
-        import daemon.reduction.live  # noqa: F401
+        import linerig.daemon.reduction.api
+        import linerig.daemon.reduction.live  # noqa: F401
 
         if self.s.supply_url:
             self.supply = await self._open_supply(self.s.supply_url)
@@ -613,7 +613,7 @@ class RigService:
 
     def reducer_factory(self, sensor: str) -> Any:
         """The live reducer for one sensor of this rig's probe, within its temperature-rise limit."""
-        from daemon.reduction.live import LiveReducer
+        from linerig.daemon.reduction.live import LiveReducer
 
         probe = self.s.probe
         lim = self.s.limits.max_rise_K
@@ -627,6 +627,6 @@ def _profile_dict(p: ProbeProfile) -> dict[str, Any]:
 
 
 def load_default_probe() -> ProbeProfile:
-    from daemon.probe import load_probe_profile
+    from linerig.daemon.probe import load_probe_profile
 
     return load_probe_profile(Path(__file__).parent / "profiles" / "default-needle.toml")

@@ -21,15 +21,15 @@ from pathlib import Path
 
 import numpy as np
 
-from daemon.probe import ProbeProfile, SensorPosition
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import RunData
-from daemon.reduction.synthetic import Medium, make_run
-from daemon.runcsv import write_run_csv
-from daemon.store.writer import Store
-from daemon.workflows import cylinder as cyl
-from daemon.workflows.calibration import Measurement, evaluate_calibration, reference_value
-from daemon.workflows.dryout import Material, ModelParams, conductivity
+from linerig.daemon.probe import ProbeProfile, SensorPosition
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.runcsv import write_run_csv
+from linerig.daemon.store.writer import Store
+from linerig.daemon.workflows import cylinder as cyl
+from linerig.daemon.workflows.calibration import Measurement, evaluate_calibration, reference_value
+from linerig.daemon.workflows.dryout import Material, ModelParams, conductivity
 
 SITE = "Harrowgate Fen substation"
 HERE = Path(__file__).resolve().parent / "harrowgate-fen"
@@ -133,7 +133,7 @@ def build_demo_db(path: Path) -> dict[str, object]:
         for rid in cal_ids:
             j = json.loads(next(iter(store.db.query("SELECT data FROM results WHERE run_id = ?", [rid])))["data"])
             cal_meas.append(Measurement(j["k_W_per_mK"], j["k_u_W_per_mK"], rid, tuple(j["flags"])))
-        from daemon.report.sources import record_calibration
+        from linerig.daemon.report.sources import record_calibration
         out = evaluate_calibration("FN-0412", reference_value("agar-water", 20.0), cal_meas)
         cal_id = record_calibration(store.db, out, {"bath_C": 20.0})
         factor = out.factor

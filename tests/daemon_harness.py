@@ -105,7 +105,7 @@ class Sim:
     """A `linerig-sim` process with its control socket and heater log."""
 
     def __init__(self, tmp: Path, speed: float = 50.0, material: str | None = None, probe: Path | None = None,
-                 extra: tuple[str, ...] = (), program: tuple[str, ...] = ("-m", "daemon.sim.main")) -> None:
+                 extra: tuple[str, ...] = (), program: tuple[str, ...] = ("-m", "linerig.daemon.sim.main")) -> None:
         self.dir = tmp / "sim"
         self.dir.mkdir(parents=True, exist_ok=True)
         self.control_path = self.dir / "control.sock"
@@ -163,7 +163,7 @@ class Daemon:
         self.socket = socket_path or tmp / "linerigd.sock"
         self.db = db or tmp / "runs.db"
         self.err_path = tmp / f"linerigd-{Daemon._count}.err"
-        cmd = [sys.executable, "-m", "daemon.main", "--frontend", frontend, "--socket", str(self.socket),
+        cmd = [sys.executable, "-m", "linerig.daemon.main", "--frontend", frontend, "--socket", str(self.socket),
                "--db", str(self.db), *(["--config", str(config)] if config else []), *extra]
         self._err = self.err_path.open("w")
         self.proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=self._err, text=True, cwd=ROOT,

@@ -19,9 +19,9 @@ if str(FW_DIR) not in sys.path:
 
 from probefw.device import FrontEnd  # noqa: E402
 
-from daemon.rig import its90  # noqa: E402
-from daemon.rig.framing import FrameDecoder, encode_frame  # noqa: E402
-from daemon.rig.messages import Message, parse_message  # noqa: E402
+from linerig.daemon.rig import its90  # noqa: E402
+from linerig.daemon.rig.framing import FrameDecoder, encode_frame  # noqa: E402
+from linerig.daemon.rig.messages import Message, parse_message  # noqa: E402
 
 
 @dataclass

@@ -15,8 +15,8 @@ from typing import Any
 def simulated_daemon(tmp_path: Path, speed: float, *extra: str) -> Iterator[dict[str, Any]]:
     sock, db, hlog = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl"
     proc = subprocess.Popen(
-        [sys.executable, "-m", "daemon.main", "--simulate", *extra, "--speed", str(speed), "--socket", str(sock),
-         "--db", str(db), "--sim-heater-log", str(hlog)],
+        [sys.executable, "-m", "linerig.daemon.main", "--simulate", *extra, "--speed", str(speed),
+         "--socket", str(sock), "--db", str(db), "--sim-heater-log", str(hlog)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         assert proc.stdout is not None

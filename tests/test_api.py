@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from daemon.api import (
+from linerig.daemon.api import (
     MAX_CLIENTS,
     MAX_LINE,
     QUEUE_DEPTH,
@@ -28,8 +28,8 @@ from daemon.api import (
     RequestError,
     peer_allowed,
 )
-from daemon.main import handlers
-from daemon.store.writer import Store
+from linerig.daemon.main import handlers
+from linerig.daemon.store.writer import Store
 from tests.daemon_harness import (
     FAST_PLAN,
     Daemon,
@@ -285,7 +285,7 @@ def test_the_client_in_use_by_the_ui_still_works(tmp_path: Path) -> None:
     d = Daemon(tmp_path, sim.frontend)
     try:
         d.wait_link()
-        done = subprocess.run([sys.executable, "-m", "tui.cli", "--socket", str(d.socket), "status", "--json"],
+        done = subprocess.run([sys.executable, "-m", "linerig.tui.cli", "--socket", str(d.socket), "status", "--json"],
                               capture_output=True, text=True, timeout=30, cwd=ROOT)
         assert done.returncode == 0, done.stderr
         assert json.loads(done.stdout)["link_up"] is True
@@ -296,8 +296,8 @@ def test_the_client_in_use_by_the_ui_still_works(tmp_path: Path) -> None:
 
 def test_a_client_gets_a_runs_samples_and_its_probe_profile(tmp_path: Path) -> None:
     """What the UI's run detail and reconnect use: the samples as the reduction takes them, and the profile."""
-    from daemon.probe import stored_profile
-    from daemon.reduction.alignment import power_held_from_each_sample
+    from linerig.daemon.probe import stored_profile
+    from linerig.daemon.reduction.alignment import power_held_from_each_sample
 
     sim = Sim(tmp_path, speed=50)
     d = Daemon(tmp_path, sim.frontend)

@@ -14,14 +14,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from daemon.probe import load_probe_profile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.synthetic import Medium, make_run
-from daemon.report.sources import open_db, probe_profiles
-from daemon.store.writer import Store
-from daemon.workflows.cycles import CycleValue, summarise_cycles
+from linerig.daemon.probe import load_probe_profile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.report.sources import open_db, probe_profiles
+from linerig.daemon.store.writer import Store
+from linerig.daemon.workflows.cycles import CycleValue, summarise_cycles
+from linerig.tui.cli import main
 from tests.test_qualify import FAST_SETTINGS  # the short procedure the qualification tests run
-from tui.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLES = ROOT / "examples" / "harrowgate-fen"
@@ -60,7 +60,7 @@ def test_a_file_that_is_not_a_database_is_refused_and_left_alone(tmp_path: Path,
 
 
 def test_profiles_the_daemon_stores_are_read_back(tmp_path: Path) -> None:
-    from daemon.service import _profile_dict
+    from linerig.daemon.service import _profile_dict
 
     needle = load_probe_profile(NEEDLE)
     rod = load_probe_profile(ROOT / "hardware" / "probes" / "field-rod.toml")
@@ -142,7 +142,7 @@ def test_history_refuses_a_day_that_does_not_exist(capsys: pytest.CaptureFixture
 def test_start_options_reach_the_request_and_bad_metadata_is_exit_2(capsys: pytest.CaptureFixture[str]) -> None:
     import argparse
 
-    from tui.commands import start
+    from linerig.tui.commands import start
 
     parser = argparse.ArgumentParser()
     start.add_parser(parser.add_subparsers())
@@ -242,7 +242,7 @@ def test_qualify_list_on_a_database_without_qualifications(tmp_path: Path,
 def test_profile_dict_round_trip_keeps_every_field() -> None:
     """The daemon stores dataclass fields; every field of a profile must survive the reader."""
     prof = load_probe_profile(ROOT / "hardware" / "probes" / "dual-needle.toml")
-    from daemon.probe import stored_profile
+    from linerig.daemon.probe import stored_profile
 
     assert stored_profile(json.dumps(asdict(prof)), "probe test") == prof
 

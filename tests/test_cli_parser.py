@@ -10,9 +10,9 @@ ROOT = Path(__file__).resolve().parent.parent
 
 PROBE = """
 import sys
-from tui.cli import _command_asked, build_parser
+from linerig.tui.cli import _command_asked, build_parser
 args = build_parser(_command_asked({argv!r})).parse_args({argv!r})
-print(args.command, "daemon.reduction.api" in sys.modules, "daemon.report.pdf" in sys.modules)
+print(args.command, "linerig.daemon.reduction.api" in sys.modules, "linerig.daemon.report.pdf" in sys.modules)
 """
 
 
@@ -31,9 +31,9 @@ def test_a_light_command_does_not_load_the_reduction_or_the_reports() -> None:
 
 def test_help_and_a_mistyped_command_still_list_every_command() -> None:
     commands = [p.stem.replace("_", "-") for p in (ROOT / "tui" / "commands").glob("*.py") if p.stem != "__init__"]
-    helped = subprocess.run([sys.executable, "-m", "tui.cli", "--help"], capture_output=True, text=True, cwd=ROOT,
-                            timeout=60)
+    helped = subprocess.run([sys.executable, "-m", "linerig.tui.cli", "--help"], capture_output=True, text=True,
+                            cwd=ROOT, timeout=60)
     assert helped.returncode == 0 and all(c in helped.stdout for c in commands)
-    typo = subprocess.run([sys.executable, "-m", "tui.cli", "statuz"], capture_output=True, text=True, cwd=ROOT,
+    typo = subprocess.run([sys.executable, "-m", "linerig.tui.cli", "statuz"], capture_output=True, text=True, cwd=ROOT,
                           timeout=60)
     assert typo.returncode == 2 and "invalid choice: 'statuz'" in typo.stderr and "stop-heating" in typo.stderr

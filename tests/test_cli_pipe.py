@@ -10,10 +10,10 @@ from pathlib import Path
 
 import pytest
 
-from daemon.workflows.calibration import MEDIA
+from linerig.daemon.workflows.calibration import MEDIA
 
 ROOT = Path(__file__).resolve().parents[1]
-CLI = [sys.executable, "-m", "tui.cli"]
+CLI = [sys.executable, "-m", "linerig.tui.cli"]
 # an offline command that needs neither daemon nor database and prints several lines
 COMMAND = ["calibrate", "--media"]
 
@@ -44,7 +44,7 @@ def test_piped_into_head_the_first_line_arrives_and_nothing_is_said_on_stderr(tm
 
 def test_only_a_pipe_whose_reader_has_gone_counts_as_closed(monkeypatch: pytest.MonkeyPatch) -> None:
     """A broken pipe elsewhere (the daemon's socket) must not pass for `| head` and be hidden."""
-    from tui.cli import _stdout_closed
+    from linerig.tui.cli import _stdout_closed
 
     r, w = os.pipe()
     with os.fdopen(w, "w") as out:

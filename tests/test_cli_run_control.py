@@ -11,6 +11,7 @@ from pathlib import Path
 
 import pytest
 
+from linerig.tui.cli import main
 from tests.daemon_harness import (
     FAST_PLAN,
     Daemon,
@@ -18,7 +19,6 @@ from tests.daemon_harness import (
     reap,  # noqa: F401  (kills what a test started)
     wait_for,
 )
-from tui.cli import main
 
 pytestmark = pytest.mark.timeout(90)
 LONG = {**FAST_PLAN, "heat_s": 3000}  # heats until told otherwise

@@ -8,8 +8,8 @@ from pathlib import Path
 
 import pytest
 
-from daemon.config import RigConfig, key_line, load_config, parse_config
-from daemon.errors import ConfigError
+from linerig.daemon.config import RigConfig, key_line, load_config, parse_config
+from linerig.daemon.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parent.parent
 PROFILE = ROOT / "daemon" / "profiles" / "default-needle.toml"
@@ -132,24 +132,24 @@ def test_unknown_group_and_missing_file(tmp_path: Path) -> None:
 def test_check_config_command_and_exit_code_2_on_a_bad_file(tmp_path: Path) -> None:
     good = tmp_path / "rig.toml"
     good.write_text(GOOD)
-    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(good), "--check-config"],
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--config", str(good), "--check-config"],
                           capture_output=True, text=True, timeout=30, cwd=ROOT)
     assert done.returncode == 0, done.stderr
     assert "presets: long soak, quick" in done.stdout
     good.write_text(GOOD.replace("max_rise_K = 8.5", "max_rise_K = 0"))
-    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(good), "--check-config"],
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--config", str(good), "--check-config"],
                           capture_output=True, text=True, timeout=30, cwd=ROOT)
     assert done.returncode == 2
     assert f"ConfigError: {good} line 18: limits.max_rise_K: expected a number > 0" in done.stderr
 
 
 def test_without_config_or_front_end_the_daemon_says_what_to_do(tmp_path: Path) -> None:
-    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(tmp_path / "none.toml")],
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--config", str(tmp_path / "none.toml")],
                           capture_output=True, text=True, timeout=30, cwd=ROOT)
     assert done.returncode == 2 and "no such file" in done.stderr
     empty = tmp_path / "empty.toml"
     empty.write_text("")
-    done = subprocess.run([sys.executable, "-m", "daemon.main", "--config", str(empty)],
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--config", str(empty)],
                           capture_output=True, text=True, timeout=30, cwd=ROOT)
     assert done.returncode == 2 and "give --frontend PORT" in done.stderr
 

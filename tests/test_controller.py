@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.controller import (
+from linerig.daemon.controller import (
     ALLOWED,
     FINAL,
     CycleSchedule,
@@ -20,8 +20,8 @@ from daemon.controller import (
     RunState,
     TransitionError,
 )
-from daemon.probe import ProbeProfile, SensorPosition
-from daemon.reduction.live import LiveReducer
+from linerig.daemon.probe import ProbeProfile, SensorPosition
+from linerig.daemon.reduction.live import LiveReducer
 
 
 class Recorder:

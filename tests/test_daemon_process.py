@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 import serial
 
-from daemon.rig import messages as m
-from daemon.rig.framing import encode_frame
+from linerig.daemon.rig import messages as m
+from linerig.daemon.rig.framing import encode_frame
 from tests.daemon_harness import (
     FAST_PLAN,
     ROOT,
@@ -249,7 +249,7 @@ def test_safe_off_turns_a_held_heater_off_by_command(tmp_path: Path) -> None:
         host.send(m.CMD_CONFIGURE, "1", "T", "T", "100.0")
         host.send(m.CMD_POWER, "5.0", "1000")
         wait_for(lambda: sim.state()["heater_on"], 5, "the test's own heater-on")
-        proc = subprocess.Popen([sys.executable, "-m", "daemon.main", "--safe-off", "--frontend", sim.frontend],
+        proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--safe-off", "--frontend", sim.frontend],
                                 stderr=subprocess.PIPE, text=True, cwd=ROOT)
         while proc.poll() is None:  # the test keeps renewing: only a command can turn the heater off
             host.send(m.CMD_LEASE, "1000")
@@ -262,8 +262,8 @@ def test_safe_off_turns_a_held_heater_off_by_command(tmp_path: Path) -> None:
     finally:
         host.close()
         sim.stop()
-    done = subprocess.run([sys.executable, "-m", "daemon.main", "--safe-off", "--frontend", "/dev/no-such-port"],
-                          capture_output=True, text=True, timeout=20, cwd=ROOT)
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--safe-off",
+                           "--frontend", "/dev/no-such-port"], capture_output=True, text=True, timeout=20, cwd=ROOT)
     assert done.returncode == 1 and "cannot open" in done.stderr
 
 
@@ -294,7 +294,7 @@ def test_a_new_daemon_turns_off_a_heater_it_finds_on(tmp_path: Path) -> None:
 
 
 def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
-    proc = subprocess.Popen([sys.executable, "-m", "daemon.main", "--simulate", "--speed", "50", "--socket",
+    proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--speed", "50", "--socket",
                              str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")], stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, cwd=ROOT)
     try:
@@ -313,7 +313,7 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
 
 def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) -> None:
     """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware."""
-    proc = subprocess.Popen([sys.executable, "-m", "daemon.main", "--simulate", "--firmware", "--speed", "20",
+    proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--firmware", "--speed", "20",
                              "--socket", str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
     try:
@@ -334,7 +334,7 @@ def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) 
 
 
 def test_firmware_without_simulate_is_refused(tmp_path: Path) -> None:
-    done = subprocess.run([sys.executable, "-m", "daemon.main", "--firmware", "--db", str(tmp_path / "r.db")],
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--firmware", "--db", str(tmp_path / "r.db")],
                           capture_output=True, text=True, cwd=ROOT, timeout=30)
     assert done.returncode == 2 and "--firmware goes with --simulate" in done.stderr
     assert not (tmp_path / "r.db").exists()
@@ -351,10 +351,10 @@ class ExplodingReducer:
 async def test_an_unhandled_error_turns_the_heater_off_and_stops_the_daemon(tmp_path: Path) -> None:
     import asyncio
 
-    from daemon.api import Hub
-    from daemon.controller import RunPlan
-    from daemon.service import DaemonSettings, RigService, load_default_probe
-    from daemon.store.writer import Store
+    from linerig.daemon.api import Hub
+    from linerig.daemon.controller import RunPlan
+    from linerig.daemon.service import DaemonSettings, RigService, load_default_probe
+    from linerig.daemon.store.writer import Store
 
     sim = Sim(tmp_path, speed=20)
     store = Store(tmp_path / "r.db")
@@ -385,10 +385,10 @@ async def test_an_unhandled_error_turns_the_heater_off_and_stops_the_daemon(tmp_
     assert con.execute("SELECT state FROM runs WHERE id = ?", [rid]).fetchone()[0] == "faulted"
 
 
-@pytest.mark.parametrize("program", ["daemon.main", "daemon.sim.main"])
+@pytest.mark.parametrize("program", ["linerig.daemon.main", "linerig.daemon.sim.main"])
 @pytest.mark.parametrize("speed", ["0", "-5", "nan", "5000"])
 def test_a_speed_the_simulator_cannot_keep_is_refused(program: str, speed: str) -> None:
-    extra = ["--simulate"] if program == "daemon.main" else []
+    extra = ["--simulate"] if program == "linerig.daemon.main" else []
     done = subprocess.run([sys.executable, "-m", program, *extra, "--speed", speed], capture_output=True, text=True,
                           cwd=ROOT, timeout=30)
     assert done.returncode == 2 and "--speed" in done.stderr and "Traceback" not in done.stderr, done.stderr
@@ -401,8 +401,8 @@ def test_start_up_errors_are_one_clear_line(tmp_path: Path) -> None:
              (["--simulate", "--db", "/proc/linerig/r.db", "--socket", str(tmp_path / "s.sock")],
               "cannot open the database /proc/linerig/r.db")]
     for argv, says in cases:
-        done = subprocess.run([sys.executable, "-m", "daemon.main", *argv], capture_output=True, text=True, cwd=ROOT,
-                              timeout=60)
+        done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", *argv], capture_output=True, text=True,
+                              cwd=ROOT, timeout=60)
         assert done.returncode == 2, (argv, done.stderr)
         assert says in done.stderr and "Traceback" not in done.stderr, done.stderr
     assert not (tmp_path / "r.db").exists()  # nothing was started for the bad probe

@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 from simulated_daemon import simulated_daemon
 
-from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -39,7 +39,7 @@ BASELINE_S = "300"
 
 
 def test_simulated_run_end_to_end(daemon: dict) -> None:
-    cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
+    cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
            "--recover-s", "200", "--baseline-s", BASELINE_S, "--wait", "--json"]
     done = subprocess.run(cmd, capture_output=True, text=True, timeout=100, env={**os.environ})
     assert done.returncode == 0, done.stderr
@@ -75,7 +75,7 @@ def test_simulated_run_end_to_end(daemon: dict) -> None:
 
 
 def test_repeat_cycles_are_followed_to_the_end_of_the_series(daemon: dict) -> None:
-    cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "120",
+    cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "120",
            "--recover-s", "120", "--baseline-s", "60", "--cycles", "2", "--wait", "--json"]
     done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
     assert done.returncode == 0, done.stderr
@@ -94,18 +94,18 @@ def test_time_zero_is_the_firmwares_own_switch_on(tmp_path: Path) -> None:
     """The simulator hosting the real firmware switches the heater on when the command arrives, between samples,
     as hardware does; the daemon's time zero must be that instant (the firmware's reply says it), or k is biased."""
     hlog = tmp_path / "heater.jsonl"
-    sim = subprocess.Popen([sys.executable, "-m", "daemon.sim.main", "--firmware", "--speed", "100",
+    sim = subprocess.Popen([sys.executable, "-m", "linerig.daemon.sim.main", "--firmware", "--speed", "100",
                             "--link-dir", str(tmp_path / "dev"), "--heater-log", str(hlog)],
                            stdout=subprocess.PIPE, text=True)
     assert sim.stdout is not None
     info = json.loads(sim.stdout.readline())
     sock, db = tmp_path / "d.sock", tmp_path / "runs.db"
-    daemon = subprocess.Popen([sys.executable, "-m", "daemon.main", "--frontend", info["frontend"], "--socket",
+    daemon = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--frontend", info["frontend"], "--socket",
                                str(sock), "--db", str(db)], stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
                               text=True)
     try:
         assert daemon.stdout is not None and json.loads(daemon.stdout.readline()).get("ready")
-        cmd = [sys.executable, "-m", "tui.cli", "--socket", str(sock), "start", "--heat-s", "300",
+        cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(sock), "start", "--heat-s", "300",
                "--recover-s", "200", "--baseline-s", BASELINE_S, "--wait", "--json"]
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
         assert done.returncode == 0, done.stderr

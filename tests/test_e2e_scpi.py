@@ -17,7 +17,7 @@ from pathlib import Path
 import pytest
 from simulated_daemon import simulated_daemon
 
-from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -31,7 +31,7 @@ def daemon(tmp_path: Path) -> Iterator[dict]:
 
 
 def test_run_heated_through_the_scpi_supply(daemon: dict) -> None:
-    cmd = [sys.executable, "-m", "tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
+    cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(daemon["socket"]), "start", "--heat-s", "300",
            "--recover-s", "100", "--baseline-s", "120", "--wait", "--json"]
     done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)
     assert done.returncode == 0, done.stderr

@@ -9,7 +9,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from probefw import codec
 
-from daemon.rig import framing
+from linerig.daemon.rig import framing
 
 
 def test_crc_check_value() -> None:

@@ -9,8 +9,8 @@ from pathlib import Path
 import pytest
 from firmware_path import FW_DIR, FakeRig, Harness
 
-from daemon.probe import load_probe_profile
-from daemon.rig.messages import Ack, Boot, Identity, Sample, Status
+from linerig.daemon.probe import load_probe_profile
+from linerig.daemon.rig.messages import Ack, Boot, Identity, Sample, Status
 
 
 def test_boot_frame_first_and_heater_off() -> None:

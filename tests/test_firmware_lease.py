@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from firmware_path import FakeRig, Harness
 
-from daemon.rig.messages import Ack, Fault, Sample
+from linerig.daemon.rig.messages import Ack, Fault, Sample
 
 
 def _armed(h: Harness, power: float = 5.0, lease_ms: int = 1000) -> int:

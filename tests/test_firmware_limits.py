@@ -8,8 +8,8 @@ import pytest
 from firmware_path import FakeRig, Harness
 from probefw import limits
 
-from daemon.rig import its90
-from daemon.rig.messages import Ack, Fault, Sample
+from linerig.daemon.rig import its90
+from linerig.daemon.rig.messages import Ack, Fault, Sample
 
 
 def _faults(h: Harness) -> list[str]:

@@ -10,7 +10,7 @@ import pytest
 from firmware_path import FakeRig, Harness
 from probefw.regulator import PowerRegulator
 
-from daemon.rig.messages import Fault, Sample
+from linerig.daemon.rig.messages import Fault, Sample
 
 
 def _true_power_trace(h: Harness, ms: int) -> list[float]:

@@ -3,7 +3,7 @@
 from hypothesis import given
 from hypothesis import strategies as st
 
-from daemon.rig.framing import FrameDecoder, crc32, decode_line, encode_frame
+from linerig.daemon.rig.framing import FrameDecoder, crc32, decode_line, encode_frame
 
 
 def test_crc_check_value() -> None:

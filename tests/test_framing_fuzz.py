@@ -12,8 +12,8 @@ import contextlib
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon.rig.framing import FrameDecoder, decode_line, encode_frame
-from daemon.rig.messages import ChannelValue, MessageError, Sample, parse_message, sample_fields
+from linerig.daemon.rig.framing import FrameDecoder, decode_line, encode_frame
+from linerig.daemon.rig.messages import ChannelValue, MessageError, Sample, parse_message, sample_fields
 
 FIELD = st.text(alphabet=st.characters(min_codepoint=32, max_codepoint=126, blacklist_characters="$*,"), max_size=10)
 

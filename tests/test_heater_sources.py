@@ -20,17 +20,17 @@ from typing import Any
 import pytest
 from waiting import Changed
 
-from daemon.rig.frontend import FrontEnd, FrontEndHandlers
-from daemon.rig.heater import FrontEndHeater, HeaterNotArmed, HeaterSource, ScpiHeater, open_scpi_heater
-from daemon.rig.messages import Fault, Sample
-from daemon.rig.scpi import ScpiError, SupplyLimits
-from daemon.rig.transport import SerialTransport
-from daemon.sim.firmware_host import FirmwareFrontEnd
-from daemon.sim.materials import get_material
-from daemon.sim.rig_model import ProbeSpec, SensorSpec, SimulatedRig
-from daemon.sim.scpi_sim import ScpiSupplySim
-from daemon.sim.server import PtyPort
-from daemon.sim.supply_link import RigLoad, ScpiPort, make_supply
+from linerig.daemon.rig.frontend import FrontEnd, FrontEndHandlers
+from linerig.daemon.rig.heater import FrontEndHeater, HeaterNotArmed, HeaterSource, ScpiHeater, open_scpi_heater
+from linerig.daemon.rig.messages import Fault, Sample
+from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
+from linerig.daemon.rig.transport import SerialTransport
+from linerig.daemon.sim.firmware_host import FirmwareFrontEnd
+from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.rig_model import ProbeSpec, SensorSpec, SimulatedRig
+from linerig.daemon.sim.scpi_sim import ScpiSupplySim
+from linerig.daemon.sim.server import PtyPort
+from linerig.daemon.sim.supply_link import RigLoad, ScpiPort, make_supply
 
 TICK_S = 0.005
 LENGTH_M = 0.1

@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from daemon.rig import its90
+from linerig.daemon.rig import its90
 
 # (type, °C, mV as printed in the M175 tables). 100 °C values are well-known table entries (from memory,
 # and they agree with the coefficients to the printed digit); the others are further M175 table entries

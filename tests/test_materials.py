@@ -8,7 +8,7 @@ import re
 import iapws
 import pytest
 
-from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, Material, get_material, soil_at_moisture
+from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, Material, get_material, soil_at_moisture
 
 
 def test_keys_are_kebab_case_and_match_their_entries() -> None:

@@ -4,7 +4,7 @@ from pathlib import Path
 
 import pytest
 
-from daemon.probe import ProbeProfileError, load_probe_profile
+from linerig.daemon.probe import ProbeProfileError, load_probe_profile
 
 GOOD = """
 [probe]

@@ -12,8 +12,8 @@ from probefw import device as fw_device
 from probefw import limits as fw_limits
 from probefw.device import FrontEnd
 
-from daemon.rig import its90, messages
-from daemon.rig.framing import Frame, crc32, decode_line
+from linerig.daemon.rig import its90, messages
+from linerig.daemon.rig.framing import Frame, crc32, decode_line
 
 DOC = Path(__file__).resolve().parents[1] / "hardware" / "PROTOCOL.md"
 COMMAND_FIELDS = {"I": 0, "C": 4, "P": 2, "O": 0, "L": 1, "Q": 0}

@@ -20,21 +20,21 @@ import numpy as np
 import pytest
 from scipy.special import erf, erfinv
 
-from daemon.probe import ProbeProfile, profile_from_dict
-from daemon.qualify import analysis as an
-from daemon.qualify.config import (
+from linerig.daemon.probe import ProbeProfile, profile_from_dict
+from linerig.daemon.qualify import analysis as an
+from linerig.daemon.qualify.config import (
     CRITERION_IDS,
     QualificationConfigError,
     config_from_toml,
     load_config,
 )
-from daemon.qualify.criteria import evaluate
-from daemon.qualify.procedure import Measurements, ScriptedOperator, run_sync
-from daemon.qualify.report import write_report
-from daemon.qualify.result import Qualification, judge
-from daemon.qualify.simrig import SimSetup, SimulatedQualificationRig
-from daemon.qualify.store import list_qualifications, load_qualification, open_store, save_qualification
-from tui.cli import main as cli_main
+from linerig.daemon.qualify.criteria import evaluate
+from linerig.daemon.qualify.procedure import Measurements, ScriptedOperator, run_sync
+from linerig.daemon.qualify.report import write_report
+from linerig.daemon.qualify.result import Qualification, judge
+from linerig.daemon.qualify.simrig import SimSetup, SimulatedQualificationRig
+from linerig.daemon.qualify.store import list_qualifications, load_qualification, open_store, save_qualification
+from linerig.tui.cli import main as cli_main
 
 GOOD_INSULATION = {"insulation_MOhm": 2000.0}
 FAST = 1.6  # simulation sample spacing (s): one physics step per sample

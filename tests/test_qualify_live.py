@@ -14,13 +14,13 @@ from pathlib import Path
 
 import pytest
 
-from daemon.qualify.config import load_config
-from daemon.qualify.liverig import DaemonQualificationRig
-from daemon.qualify.procedure import run_async
-from daemon.qualify.requests import AskNumber
-from daemon.service import load_default_probe
-from daemon.sim.materials import get_material
-from tui.client import Client
+from linerig.daemon.qualify.config import load_config
+from linerig.daemon.qualify.liverig import DaemonQualificationRig
+from linerig.daemon.qualify.procedure import run_async
+from linerig.daemon.qualify.requests import AskNumber
+from linerig.daemon.service import load_default_probe
+from linerig.daemon.sim.materials import get_material
+from linerig.tui.client import Client
 
 pytestmark = [pytest.mark.timeout(120), pytest.mark.slow]
 
@@ -49,7 +49,7 @@ class BenchOperator:
 @pytest.fixture
 def daemon(tmp_path: Path):
     sock, db = tmp_path / "d.sock", tmp_path / "runs.db"
-    proc = subprocess.Popen([sys.executable, "-m", "daemon.main", "--simulate", "agar-gel", "--speed", "100",
+    proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "agar-gel", "--speed", "100",
                              "--socket", str(sock), "--db", str(db)],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     assert proc.stdout is not None

@@ -9,10 +9,10 @@ from pathlib import Path
 from textual.app import App
 from textual.widgets import DataTable, Input, Static
 
-from daemon.qualify.config import CRITERION_IDS
-from daemon.qualify.simrig import SimSetup
-from daemon.qualify.store import list_qualifications, open_store
-from tui.screens.qualify import QualifyScreen
+from linerig.daemon.qualify.config import CRITERION_IDS
+from linerig.daemon.qualify.simrig import SimSetup
+from linerig.daemon.qualify.store import list_qualifications, open_store
+from linerig.tui.screens.qualify import QualifyScreen
 
 PROFILE = """
 [probe]

@@ -8,8 +8,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from daemon.reduction.synthetic import Medium, make_run
-from daemon.runcsv import write_run_csv
+from linerig.daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.runcsv import write_run_csv
 
 ROOT = Path(__file__).resolve().parents[1]
 PROFILE = """[probe]
@@ -25,7 +25,7 @@ radial_mm = 0.0
 
 
 def _cli(*args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "tui.cli", "reduce", *args], capture_output=True, text=True,
+    return subprocess.run([sys.executable, "-m", "linerig.tui.cli", "reduce", *args], capture_output=True, text=True,
                           cwd=ROOT, timeout=60)
 
 

@@ -10,9 +10,9 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import exp1
 
-from daemon.reduction import reduce_run
-from daemon.reduction.alignment import power_held_from_each_sample
-from daemon.reduction.data import RunData
+from linerig.daemon.reduction import reduce_run
+from linerig.daemon.reduction.alignment import power_held_from_each_sample
+from linerig.daemon.reduction.data import RunData
 
 
 def _record(phase: float, t_off: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -4,12 +4,12 @@ import numpy as np
 import pytest
 from iapws import IAPWS95
 
-from daemon.probe import ProbeProfile
-from daemon.reduction import units
-from daemon.reduction.api import reduce_run
-from daemon.reduction.calibration import apply_factor, calibrate, probe_factor
-from daemon.reduction.data import RunData
-from daemon.reduction.synthetic import line_source_run
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction import units
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.calibration import apply_factor, calibrate, probe_factor
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.reduction.synthetic import line_source_run
 
 
 def _water_k(temp_C: float) -> tuple[float, float]:

@@ -7,10 +7,10 @@ sd ≈ 1.5 % at n = 200, so 90–99 % is accepted).
 
 import numpy as np
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import RunData
-from daemon.reduction.synthetic import line_source_run
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.reduction.synthetic import line_source_run
 
 
 def test_expanded_interval_covers_about_95_percent() -> None:

@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.drift import fit_baseline
-from daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.drift import fit_baseline
+from linerig.daemon.reduction.synthetic import Medium, make_run
 
 PROBE = ProbeProfile(name="lab needle", radius_mm=0.635, heater_length_mm=1e4, heat_capacity_MJ_per_m3K=2.5)
 

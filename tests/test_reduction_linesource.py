@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.probe import ProbeProfile
-from daemon.reduction import window as win
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import RunData
-from daemon.reduction.synthetic import line_source_run
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction import window as win
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.reduction.synthetic import line_source_run
 
 # Synthetic records from the exact line-source solution ΔT = q/(4πk)·E1(r²/4αt) (Carslaw & Jaeger 1959 §10.4),
 # cases A–C of the project's check values (water from IAPWS; dry sand and moist soil from de Vries 1963).
@@ -67,7 +67,7 @@ def test_window_criteria_match_published_numbers() -> None:
 def test_probe_slope_error_matches_long_time_expansion() -> None:
     # Relative error of the local slope [(2 − α_J)·ln(4τ/C) + 4h − 2]/(2α_J·τ) (Blackwell 1954 long-time form):
     # numerically differentiate the full model and compare at τ = 2000
-    from daemon.reduction.probe_model import response_talbot
+    from linerig.daemon.reduction.probe_model import response_talbot
 
     tau = 2000.0
     for aj, h in [(2.0, 0.0), (1.0, 0.5), (0.5, 2.0)]:
@@ -90,7 +90,7 @@ def test_recovery_and_joint_fit_on_exact_record() -> None:
 
 
 def test_rejects_record_without_heating() -> None:
-    from daemon.reduction.data import ReductionError
+    from linerig.daemon.reduction.data import ReductionError
 
     t = np.arange(-10.0, 100.0)
     with pytest.raises(ReductionError, match="no heating"):

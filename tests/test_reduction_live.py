@@ -6,11 +6,11 @@ import math
 import numpy as np
 import pytest
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.live import LiveReducer, replay
-from daemon.reduction.stats import fit_line
-from daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.live import LiveReducer, replay
+from linerig.daemon.reduction.stats import fit_line
+from linerig.daemon.reduction.synthetic import Medium, make_run
 
 PROBE = ProbeProfile(name="lab needle", radius_mm=0.635, heater_length_mm=100.0, heat_capacity_MJ_per_m3K=2.5)
 

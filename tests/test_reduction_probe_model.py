@@ -6,7 +6,7 @@ import mpmath
 import numpy as np
 import pytest
 
-from daemon.reduction.probe_model import long_time_response, response_stehfest, response_talbot
+from linerig.daemon.reduction.probe_model import long_time_response, response_stehfest, response_talbot
 
 # 4πk·ΔT/q of the Blackwell (1954) probe model at τ = 1, 10, 100, 1000, computed with mpmath.invertlaplace
 # (Talbot and de Hoog agreeing to 8+ digits) in the project's check-value notes. Model: Blackwell 1954,

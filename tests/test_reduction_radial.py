@@ -3,11 +3,11 @@
 import numpy as np
 import pytest
 
-from daemon.probe import ProbeProfile, SensorPosition
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import RunData
-from daemon.reduction.radial import peak, pulse_check, pulse_forward, pulse_inverse
-from daemon.reduction.synthetic import line_source_run
+from linerig.daemon.probe import ProbeProfile, SensorPosition
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.reduction.radial import peak, pulse_check, pulse_forward, pulse_inverse
+from linerig.daemon.reduction.synthetic import line_source_run
 
 # Finite-pulse dual-probe values, r = 6 mm, q = 60 W/m, t0 = 8 s (Kluitenberg, Ham & Bristow 1993 model;
 # Bristow et al. 1994), as computed in the project's check-value notes.

@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.reduction import window as win
-from daemon.reduction.synthetic import line_source_run
+from linerig.daemon.reduction import window as win
+from linerig.daemon.reduction.synthetic import line_source_run
 
 # Abramowitz & Stegun (1964), Table 5.1, reproduced to 12 digits with mpmath (30-digit e1); values as tabulated
 # with mpmath in the project's check-value notes (original sources: A&S Table 5.1, mpmath.e1).

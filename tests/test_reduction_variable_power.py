@@ -6,12 +6,12 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import RunData
-from daemon.reduction.live import replay
-from daemon.reduction.stats import fit_line
-from daemon.reduction.superposition import compress_steps, power_steps
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.reduction.live import replay
+from linerig.daemon.reduction.stats import fit_line
+from linerig.daemon.reduction.superposition import compress_steps, power_steps
 
 
 def _sagging(k: float = 1.2, rho_c: float = 2.2e6, q0: float = 6.0, sag: float = 0.15, r: float = 0.635e-3):

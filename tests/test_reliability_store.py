@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from daemon.store.writer import Store
+from linerig.daemon.store.writer import Store
 from tests.daemon_harness import (
     Daemon,
     Sim,

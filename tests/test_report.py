@@ -7,12 +7,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from daemon.reduction.synthetic import Medium, make_run
-from daemon.report.html import render_html
-from daemon.report.model import Bullets, Heading, Para, Report, Table
-from daemon.report.pdf import render_pdf
-from daemon.runcsv import write_run_csv
-from tui.cli import main
+from linerig.daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.report.html import render_html
+from linerig.daemon.report.model import Bullets, Heading, Para, Report, Table
+from linerig.daemon.report.pdf import render_pdf
+from linerig.daemon.runcsv import write_run_csv
+from linerig.tui.cli import main
 
 
 @pytest.fixture()

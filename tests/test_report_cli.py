@@ -13,8 +13,8 @@ from typing import Any
 
 import pytest
 
-from daemon.runcsv import read_run_csv
-from tui.cli import main
+from linerig.daemon.runcsv import read_run_csv
+from linerig.tui.cli import main
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "harrowgate_fen.py"
 SITE = "Harrowgate Fen substation"
@@ -197,8 +197,8 @@ def test_calibrate_from_a_csv_in_glycerol(demo: tuple[Path, dict[str, Any]], tmp
                                           capsys: pytest.CaptureFixture[str]) -> None:
     import numpy as np
 
-    from daemon.reduction.synthetic import Medium, make_run
-    from daemon.runcsv import write_run_csv
+    from linerig.daemon.reduction.synthetic import Medium, make_run
+    from linerig.daemon.runcsv import write_run_csv
 
     db, _ = demo
     # glycerol ≈ 0.285 W/(m·K), ρc ≈ 3.05 MJ/(m³·K) (handbook values, from memory); a probe reading 5 % low

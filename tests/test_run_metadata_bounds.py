@@ -9,14 +9,14 @@ from pathlib import Path
 
 import pytest
 
-from daemon.run_keeper import METADATA_RANGES
+from linerig.daemon.run_keeper import METADATA_RANGES
+from linerig.tui.cli import main
 from tests.daemon_harness import (
     FAST_PLAN,
     Daemon,
     Sim,
     reap,  # noqa: F401  (kills what a test started)
 )
-from tui.cli import main
 
 pytestmark = pytest.mark.timeout(90)
 LONG = {**FAST_PLAN, "heat_s": 3000}

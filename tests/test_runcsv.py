@@ -5,8 +5,8 @@ import io
 import numpy as np
 import pytest
 
-from daemon.reduction.data import RunData
-from daemon.runcsv import RunCsvError, read_run_csv, write_run_csv
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.runcsv import RunCsvError, read_run_csv, write_run_csv
 
 HEAD = "# invented run, test site\ntime_s,q_W_per_m,T_heater_C,T_far_C\n"
 

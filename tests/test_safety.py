@@ -7,7 +7,7 @@ from dataclasses import replace
 
 import pytest
 
-from daemon.safety import (
+from linerig.daemon.safety import (
     FrameLossWindow,
     Limits,
     SampleView,

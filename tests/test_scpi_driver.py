@@ -17,7 +17,7 @@ from collections.abc import AsyncIterator
 import pytest
 import serial
 
-from daemon.rig.scpi import (
+from linerig.daemon.rig.scpi import (
     ESR_PON,
     ConstantPowerLoop,
     PowerLimitExceeded,
@@ -29,7 +29,7 @@ from daemon.rig.scpi import (
     SupplyLimits,
     voltage_setpoint,
 )
-from daemon.sim.scpi_sim import ScpiSupplySim
+from linerig.daemon.sim.scpi_sim import ScpiSupplySim
 
 LIMITS = SupplyLimits(v_max=30.0, i_max=3.0, p_max_W=20.0)
 

@@ -11,7 +11,7 @@ import math
 
 import pytest
 
-from daemon.sim.scpi_sim import ESR_CME, ESR_EXE, ESR_PON, QUEUE_DEPTH, ScpiSupplySim
+from linerig.daemon.sim.scpi_sim import ESR_CME, ESR_EXE, ESR_PON, QUEUE_DEPTH, ScpiSupplySim
 
 
 def ask(sim: ScpiSupplySim, cmd: str) -> str:

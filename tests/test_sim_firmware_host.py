@@ -22,14 +22,14 @@ from typing import Any
 import pytest
 from waiting import Changed
 
-from daemon.rig import its90
-from daemon.rig.framing import Frame, FrameDecoder, decode_line, encode_frame
-from daemon.rig.messages import Sample, parse_message
-from daemon.rig.transport import SerialTransport
-from daemon.sim.firmware_host import _LINK_FIELDS, MAX_CYCLES_PER_CALL, FirmwareFrontEnd, firmware_modules
-from daemon.sim.materials import get_material
-from daemon.sim.rig_model import ProbeSpec, SensorSpec, SimulatedRig
-from daemon.sim.server import PtyPort
+from linerig.daemon.rig import its90
+from linerig.daemon.rig.framing import Frame, FrameDecoder, decode_line, encode_frame
+from linerig.daemon.rig.messages import Sample, parse_message
+from linerig.daemon.rig.transport import SerialTransport
+from linerig.daemon.sim.firmware_host import _LINK_FIELDS, MAX_CYCLES_PER_CALL, FirmwareFrontEnd, firmware_modules
+from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.rig_model import ProbeSpec, SensorSpec, SimulatedRig
+from linerig.daemon.sim.server import PtyPort
 
 DOC = Path(__file__).resolve().parents[1] / "hardware" / "PROTOCOL.md"
 TICK_S = 0.005

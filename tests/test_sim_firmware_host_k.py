@@ -12,9 +12,9 @@ import math
 
 import numpy as np
 
-from daemon.sim.firmware_host import FirmwareFrontEnd, firmware_modules
-from daemon.sim.materials import get_material
-from daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from linerig.daemon.sim.firmware_host import FirmwareFrontEnd, firmware_modules
+from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 RATE_HZ = 1.0
 STEP_S = 0.5  # host loop period: one lease renewal per step keeps the 1 s lease alive

@@ -12,11 +12,11 @@ from __future__ import annotations
 import itertools
 from typing import Any
 
-from daemon.rig import messages as m
-from daemon.rig.framing import FrameDecoder, encode_frame
-from daemon.sim.frontend_sim import FrontEndEmulator
-from daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
-from daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from linerig.daemon.rig import messages as m
+from linerig.daemon.rig.framing import FrameDecoder, encode_frame
+from linerig.daemon.sim.frontend_sim import FrontEndEmulator
+from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 SPEED = 50.0  # the end-to-end tests' time scale: one wall second is 50 samples at 1 Hz
 SEED = 7

@@ -15,7 +15,7 @@ import pytest
 from scipy.integrate import quad
 from scipy.special import erf, exp1, j0, j1, jn_zeros
 
-from daemon.sim.physics import AxialRadialModel, ModelConfigError, RadialModel
+from linerig.daemon.sim.physics import AxialRadialModel, ModelConfigError, RadialModel
 
 EULER_GAMMA = 0.57721566490153286
 

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.sim.materials import MATERIALS, get_material
-from daemon.sim.physics import ModelConfigError, RadialModel
-from daemon.sim.rig_model import (
+from linerig.daemon.sim.materials import MATERIALS, get_material
+from linerig.daemon.sim.physics import ModelConfigError, RadialModel
+from linerig.daemon.sim.rig_model import (
     FAULT_CJ,
     FAULT_NAMES,
     FAULT_OPEN,
@@ -348,7 +348,7 @@ def test_from_profile_reads_millimetre_and_si_attributes() -> None:
 def test_from_profile_accepts_the_daemons_default_profile() -> None:
     from pathlib import Path
 
-    from daemon.probe import load_probe_profile
+    from linerig.daemon.probe import load_probe_profile
 
     path = Path(__file__).resolve().parent.parent / "daemon" / "profiles" / "default-needle.toml"
     p = ProbeSpec.from_profile(load_probe_profile(path))

@@ -16,18 +16,18 @@ from pathlib import Path
 
 import pytest
 
-from daemon.rig.frontend import FrontEnd, FrontEndHandlers
-from daemon.rig.heater import open_scpi_heater
-from daemon.rig.scpi import SupplyLimits
-from daemon.rig.transport import SerialTransport
-from daemon.sim.materials import get_material
+from linerig.daemon.rig.frontend import FrontEnd, FrontEndHandlers
+from linerig.daemon.rig.heater import open_scpi_heater
+from linerig.daemon.rig.scpi import SupplyLimits
+from linerig.daemon.rig.transport import SerialTransport
+from linerig.daemon.sim.materials import get_material
 
 pytestmark = pytest.mark.timeout(60)
 
 
 async def test_scpi_supply_heats_the_simulated_probe(tmp_path: Path) -> None:
     hlog = tmp_path / "heater.jsonl"
-    sim = subprocess.Popen([sys.executable, "-m", "daemon.sim.main", "glycerol", "--supply", "--speed", "20",
+    sim = subprocess.Popen([sys.executable, "-m", "linerig.daemon.sim.main", "glycerol", "--supply", "--speed", "20",
                             "--link-dir", str(tmp_path / "dev"), "--heater-log", str(hlog)],
                            stdout=subprocess.PIPE, text=True)
     try:

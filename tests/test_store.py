@@ -15,9 +15,9 @@ from pathlib import Path
 import pytest
 import sqlite_utils
 
-from daemon.store.queries import run_arrays, series_detail
-from daemon.store.schema import MIGRATIONS, SCHEMA_VERSION, migrate
-from daemon.store.writer import SAMPLE_COLUMNS, Store, StoreError, to_json
+from linerig.daemon.store.queries import run_arrays, series_detail
+from linerig.daemon.store.schema import MIGRATIONS, SCHEMA_VERSION, migrate
+from linerig.daemon.store.writer import SAMPLE_COLUMNS, Store, StoreError, to_json
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -119,7 +119,7 @@ def test_interrupted_runs_and_series_are_closed_with_their_samples(tmp_path: Pat
 WRITER = textwrap.dedent("""
     import sys, json
     from pathlib import Path
-    from daemon.store.writer import Store, SAMPLE_COLUMNS
+    from linerig.daemon.store.writer import Store, SAMPLE_COLUMNS
     s = Store(Path(sys.argv[1]))
     rid = s.create_run({"state": "heating", "sensor_names": '["heater"]'})
     n = 0

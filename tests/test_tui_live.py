@@ -18,12 +18,12 @@ from pathlib import Path
 import pytest
 from textual.pilot import Pilot
 
-from tui.app import LinerigApp
-from tui.client import Client
-from tui.screens.confirm import Confirm
-from tui.screens.live import LiveScreen
-from tui.screens.start import StartScreen
-from tui.widgets.readouts import EstimateReadout, RunBar, StopPrompt
+from linerig.tui.app import LinerigApp
+from linerig.tui.client import Client
+from linerig.tui.screens.confirm import Confirm
+from linerig.tui.screens.live import LiveScreen
+from linerig.tui.screens.start import StartScreen
+from linerig.tui.widgets.readouts import EstimateReadout, RunBar, StopPrompt
 
 pytestmark = pytest.mark.timeout(90)
 
@@ -36,7 +36,7 @@ class Daemon:
 
     def start(self) -> None:
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "daemon.main", "--simulate", "glycerol", "--speed", "200",
+            [sys.executable, "-m", "linerig.daemon.main", "--simulate", "glycerol", "--speed", "200",
              "--socket", str(self.socket), "--db", str(self.db)],
             stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
         assert self.proc.stdout is not None
@@ -179,8 +179,8 @@ async def test_run_detail_gets_samples_and_probe_from_the_daemon(daemon: Daemon,
     """The run detail over the socket alone (the UI may run on another machine than the database): the local
     file fallback is made to fail, so the samples can only come from the daemon's ``samples`` reply, and the
     probe's geometry from the profile the daemon stored."""
-    from tui.screens import history
-    from tui.screens.rereduce import SamplesUnavailable
+    from linerig.tui.screens import history
+    from linerig.tui.screens.rereduce import SamplesUnavailable
 
     def no_local_file(*args: object) -> None:
         raise SamplesUnavailable("this UI has no access to the daemon's database")

@@ -18,16 +18,16 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.reduction.data import RunData
-from daemon.safety import Limits, SampleView, check_sample
-from tui.screens.history import filter_runs, trace_from_data
-from tui.screens.live_state import LiveState, RunTrace
-from tui.screens.rereduce import export_run, rereduce, run_data_from_arrays
-from tui.screens.run_form import PRESETS, can_arm, check_form, precheck
-from tui.widgets.advice import fault_advice, flag_words
-from tui.widgets.headroom import headroom_rows
-from tui.widgets.readouts import k_spread
-from tui.widgets.run_plot import PlotView, auto_view, build_spec, log_ticks, next_choice
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.safety import Limits, SampleView, check_sample
+from linerig.tui.screens.history import filter_runs, trace_from_data
+from linerig.tui.screens.live_state import LiveState, RunTrace
+from linerig.tui.screens.rereduce import export_run, rereduce, run_data_from_arrays
+from linerig.tui.screens.run_form import PRESETS, can_arm, check_form, precheck
+from linerig.tui.widgets.advice import fault_advice, flag_words
+from linerig.tui.widgets.headroom import headroom_rows
+from linerig.tui.widgets.readouts import k_spread
+from linerig.tui.widgets.run_plot import PlotView, auto_view, build_spec, log_ticks, next_choice
 
 REPLAY = json.loads((Path(__file__).parent / "snapshots" / "replay_rod.json").read_text())
 # the fixture's invented medium and rod (see tests/snapshots/make_replay.py)
@@ -193,7 +193,7 @@ def test_headroom_rows_and_verdicts() -> None:
 
 
 def test_k_spread_over_the_latest_stretch() -> None:
-    from daemon.reduction.stability import STRETCH_LN
+    from linerig.daemon.reduction.stability import STRETCH_LN
 
     step_t = 40
     ests = [(t, 1.0 + (0.02 if t < step_t else 0.0), 0.01, False) for t in range(10, 101)]
@@ -314,7 +314,7 @@ def test_stored_run_becomes_a_plottable_trace() -> None:
 
 
 def test_settling_drift_is_the_slope_over_the_baseline_span() -> None:
-    from tui.widgets.readouts import baseline_drift_K_per_min
+    from linerig.tui.widgets.readouts import baseline_drift_K_per_min
 
     tr = RunTrace(3, ["heater"], 0, baseline_s=60.0)
     tr.device_s = [float(i) for i in range(200)]

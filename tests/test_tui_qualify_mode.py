@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from tui.app import LinerigApp
-from tui.screens.qualify import QualifyScreen
+from linerig.tui.app import LinerigApp
+from linerig.tui.screens.qualify import QualifyScreen
 
 
 async def test_f6_opens_the_qualification_screen(tmp_path: Path) -> None:

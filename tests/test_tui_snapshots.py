@@ -23,12 +23,12 @@ import pytest
 from textual.pilot import Pilot
 from textual.widgets import DataTable
 
-from tui.app import LinerigApp
-from tui.screens.history import HistoryScreen, RunDetailScreen
-from tui.screens.live import LiveScreen
-from tui.screens.probes import ProbesScreen
-from tui.screens.start import StartScreen
-from tui.units import DisplayUnit
+from linerig.tui.app import LinerigApp
+from linerig.tui.screens.history import HistoryScreen, RunDetailScreen
+from linerig.tui.screens.live import LiveScreen
+from linerig.tui.screens.probes import ProbesScreen
+from linerig.tui.screens.start import StartScreen
+from linerig.tui.units import DisplayUnit
 
 DOC = json.loads((Path(__file__).parent / "snapshots" / "replay_rod.json").read_text())
 SIZES = [(80, 24), (160, 48)]
@@ -226,7 +226,7 @@ def test_probes_screen(replay: Callable[..., LinerigApp], snap_compare: Any, siz
 
 # -- the CLI twins of the history and probes screens, against the same replayed daemon -------------------------
 def test_history_and_probes_commands(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    from tui.cli import main
+    from linerig.tui.cli import main
 
     with ReplayServer(tmp_path / "cli.sock", DOC["events"]) as srv:
         assert main(["--socket", str(srv.path), "history", "--site", "KESTREL", "--json"]) == 0

@@ -7,7 +7,7 @@ import math
 import mpmath
 import pytest
 
-from tui.units import DisplayUnit, convert, duration, parse_unit, show
+from linerig.tui.units import DisplayUnit, convert, duration, parse_unit, show
 
 
 def test_trade_unit_is_one_hundred_times_si() -> None:

@@ -7,7 +7,7 @@ import datetime as dt
 
 import pytest
 
-from daemon.workflows.calibration import (
+from linerig.daemon.workflows.calibration import (
     MAX_REPEAT_CV,
     CalibrationError,
     Measurement,

@@ -8,9 +8,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from daemon.workflows.cylinder import SurfaceSteps, model_centre_C
-from daemon.workflows.dryout import Material, conductivity
-from tui.cli import main
+from linerig.daemon.workflows.cylinder import SurfaceSteps, model_centre_C
+from linerig.daemon.workflows.dryout import Material, conductivity
+from linerig.tui.cli import main
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "harrowgate-fen"
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from daemon.workflows.cycles import (
+from linerig.daemon.workflows.cycles import (
     REPEATABILITY_FACTOR,
     CycleDataError,
     CycleValue,

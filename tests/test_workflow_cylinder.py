@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy.special import j1, jn_zeros
 
-from daemon.workflows.cylinder import (
+from linerig.daemon.workflows.cylinder import (
     CylinderTestError,
     SurfaceSteps,
     centre_response,

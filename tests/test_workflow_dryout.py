@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from daemon.workflows.dryout import (
+from linerig.daemon.workflows.dryout import (
     DESIGN_CAUTION,
     DryoutError,
     DryoutPoint,

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from daemon.probe import ProbeProfile, SensorPosition
-from daemon.workflows.profiles import group_profiles, points_from_runs, sensor_depth_m, summarise_depths
+from linerig.daemon.probe import ProbeProfile, SensorPosition
+from linerig.daemon.workflows.profiles import group_profiles, points_from_runs, sensor_depth_m, summarise_depths
 
 ROD = ProbeProfile(name="rod", radius_mm=4.0, heater_length_mm=1500.0, kind="rod", serial="ROD-1",
                    sensors=(SensorPosition("s1", 0.0, 250.0), SensorPosition("s2", 0.0, 750.0),

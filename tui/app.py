@@ -16,8 +16,8 @@ from textual.app import App
 from textual.binding import Binding, BindingType
 from textual.screen import Screen
 
-from tui.client import Client, DaemonError
-from tui.messages import (
+from linerig.tui.client import Client, DaemonError
+from linerig.tui.messages import (
     DaemonConnected,
     DaemonLost,
     FaultRaised,
@@ -26,8 +26,8 @@ from tui.messages import (
     RunFinished,
     RunStateChanged,
 )
-from tui.screens.live_state import LiveState
-from tui.units import DisplayUnit, parse_unit
+from linerig.tui.screens.live_state import LiveState
+from linerig.tui.units import DisplayUnit, parse_unit
 
 BACKOFF_FIRST_S = 0.25
 BACKOFF_MAX_S = 5.0
@@ -36,31 +36,31 @@ AUTOSTART_METADATA = {"site": "demo bench", "sample": "demo sample", "notes": "s
 
 
 def _live_screen() -> Screen[Any]:
-    from tui.screens.live import LiveScreen
+    from linerig.tui.screens.live import LiveScreen
 
     return LiveScreen()
 
 
 def _start_screen() -> Screen[Any]:
-    from tui.screens.start import StartScreen
+    from linerig.tui.screens.start import StartScreen
 
     return StartScreen()
 
 
 def _history_screen() -> Screen[Any]:
-    from tui.screens.history import HistoryScreen
+    from linerig.tui.screens.history import HistoryScreen
 
     return HistoryScreen()
 
 
 def _probes_screen() -> Screen[Any]:
-    from tui.screens.probes import ProbesScreen
+    from linerig.tui.screens.probes import ProbesScreen
 
     return ProbesScreen()
 
 
 def _qualify_screen() -> Screen[Any]:
-    from tui.screens.qualify import QualifyScreen
+    from linerig.tui.screens.qualify import QualifyScreen
 
     return QualifyScreen()
 
@@ -227,8 +227,8 @@ class LinerigApp(App[int]):
                         severity="warning", timeout=6)
 
     def on_fault_raised(self, msg: FaultRaised) -> None:
-        from tui.screens.live import LiveScreen
-        from tui.widgets.advice import fault_advice
+        from linerig.tui.screens.live import LiveScreen
+        from linerig.tui.widgets.advice import fault_advice
 
         if isinstance(self.screen, LiveScreen):
             return  # the live screen's own banner says it, with what to do

@@ -14,12 +14,12 @@ import signal
 import sys
 from pathlib import Path
 
-import tui.commands
+from linerig.tui import commands
 
 
 def command_modules() -> list[str]:
     """Subcommand module names; the command is the name with ``-`` for ``_`` (``stop_heating`` → ``stop-heating``)."""
-    return sorted(info.name for info in pkgutil.iter_modules(tui.commands.__path__))
+    return sorted(info.name for info in pkgutil.iter_modules(commands.__path__))
 
 
 def build_parser(only: str | None = None) -> argparse.ArgumentParser:
@@ -31,7 +31,7 @@ def build_parser(only: str | None = None) -> argparse.ArgumentParser:
     for name in command_modules():
         if only is not None and name != only:
             continue
-        mod = importlib.import_module(f"tui.commands.{name}")
+        mod = importlib.import_module(f"linerig.tui.commands.{name}")
         if hasattr(mod, "add_parser"):
             mod.add_parser(sub)
     return p
@@ -91,7 +91,7 @@ def _main(argv: list[str] | None) -> int:
     parser = build_parser(_command_asked(argv))
     args = parser.parse_args(argv)
     if args.command is None:
-        from tui.app import run_app
+        from linerig.tui.app import run_app
 
         return run_app(args.socket)
     return int(args.func(args))

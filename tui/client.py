@@ -8,7 +8,7 @@ from collections.abc import AsyncIterator
 from pathlib import Path
 from typing import Any
 
-from daemon.paths import default_socket_path
+from linerig.daemon.paths import default_socket_path
 
 
 class DaemonError(RuntimeError):

@@ -15,14 +15,14 @@ from pathlib import Path
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m tui.demo", description="linerig on a simulated rig")
+    p = argparse.ArgumentParser(prog="python -m linerig.tui.demo", description="linerig on a simulated rig")
     p.add_argument("material", nargs="?", default="", help="demo material (linerig-sim --list)")
     p.add_argument("--speed", type=float, default=10.0, help="simulated seconds per second (default 10)")
     p.add_argument("--no-autostart", action="store_true", help="open the UI without starting a run")
     args = p.parse_args(argv)
     work = Path(tempfile.mkdtemp(prefix="linerig-demo-"))
     sock, db = work / "linerigd.sock", work / "demo.db"
-    cmd = [sys.executable, "-m", "daemon.main", "--simulate", *([args.material] if args.material else []),
+    cmd = [sys.executable, "-m", "linerig.daemon.main", "--simulate", *([args.material] if args.material else []),
            "--speed", str(args.speed), "--socket", str(sock), "--db", str(db)]
     log = (work / "linerigd.log").open("w")
     daemon = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=log, text=True)
@@ -32,7 +32,7 @@ def main(argv: list[str] | None = None) -> int:
         print(f"the daemon did not start; see {work / 'linerigd.log'}", file=sys.stderr)
         return 1
     try:
-        from tui.app import run_app
+        from linerig.tui.app import run_app
 
         code = run_app(sock, autostart=not args.no_autostart)
     finally:

@@ -17,14 +17,14 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import least_squares
 
-from daemon.probe import ProbeProfile
-from daemon.reduction import window as win
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import ReductionError, RunData
-from daemon.reduction.drift import Baseline, fit_baseline
-from daemon.reduction.probe_model import ResponseTable, response_stehfest, superpose
-from daemon.reduction.superposition import compress_steps, power_steps
-from daemon.workflows.calibration import CalibrationError, reference_value
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction import window as win
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.reduction.drift import Baseline, fit_baseline
+from linerig.daemon.reduction.probe_model import ResponseTable, response_stehfest, superpose
+from linerig.daemon.reduction.superposition import compress_steps, power_steps
+from linerig.daemon.workflows.calibration import CalibrationError, reference_value
 
 from .config import IntendedUse, ReferenceMedium
 from .requests import Recording

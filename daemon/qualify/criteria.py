@@ -7,7 +7,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from daemon.probe import ProbeProfile
+from linerig.daemon.probe import ProbeProfile
 
 from .config import CRITERION_IDS, Criterion, QualificationConfig
 from .procedure import Measurements

@@ -23,7 +23,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from daemon.probe import ProbeProfile
+from linerig.daemon.probe import ProbeProfile
 
 from .requests import AskNumber, PlaceInBath, PlaceInMedium, Record, Recording
 

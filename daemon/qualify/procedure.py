@@ -22,7 +22,7 @@ from collections.abc import Callable, Generator
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
-from daemon.probe import ProbeProfile
+from linerig.daemon.probe import ProbeProfile
 
 from . import analysis as an
 from .config import QualificationConfig

@@ -15,11 +15,11 @@ from typing import Any
 import numpy as np
 from matplotlib.figure import Figure
 
-from daemon.reduction import window as win
-from daemon.reduction.probe_model import response_stehfest
-from daemon.report import model as rm
-from daemon.report.html import render_html
-from daemon.report.pdf import render_pdf
+from linerig.daemon.reduction import window as win
+from linerig.daemon.reduction.probe_model import response_stehfest
+from linerig.daemon.report import model as rm
+from linerig.daemon.report.html import render_html
+from linerig.daemon.report.pdf import render_pdf
 
 STATUS_WORDS = {"pass": "PASS", "fail": "FAIL", "warn": "WARN", "not_measured": "NOT MEASURED",
                 "not_applicable": "n/a"}

@@ -11,7 +11,7 @@ from dataclasses import asdict, dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
-from daemon.probe import ProbeProfile
+from linerig.daemon.probe import ProbeProfile
 
 from .config import QualificationConfig
 from .criteria import CriterionResult, evaluate, overall_passed

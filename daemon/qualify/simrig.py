@@ -16,9 +16,9 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from daemon.probe import ProbeProfile
-from daemon.sim.materials import get_material
-from daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
 from .requests import PlaceInBath, PlaceInMedium, Record, Recording
 

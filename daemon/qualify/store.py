@@ -8,7 +8,7 @@ from typing import Any
 
 import sqlite_utils
 
-from daemon.store.writer import Store
+from linerig.daemon.store.writer import Store
 
 from .result import Qualification
 

@@ -8,11 +8,11 @@ import math
 from collections.abc import Sequence
 from typing import Any
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import RunReduction
-from daemon.reduction.data import RunData
-from daemon.workflows.calibration import CalibrationStatus
-from daemon.workflows.profiles import ProfilePoint, group_profiles, summarise_depths
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import RunReduction
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.workflows.calibration import CalibrationStatus
+from linerig.daemon.workflows.profiles import ProfilePoint, group_profiles, summarise_depths
 
 from . import plots
 from .model import Bullets, Figure, Heading, Para, Report, Table

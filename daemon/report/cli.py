@@ -6,7 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from daemon.paths import default_db_path
+from linerig.daemon.paths import default_db_path
 
 from .html import render_html
 from .model import Report

@@ -11,7 +11,7 @@ from typing import Any
 
 import sqlite_utils
 
-from daemon.runcsv import write_run_csv
+from linerig.daemon.runcsv import write_run_csv
 
 from .sources import RunRecord
 

@@ -13,9 +13,9 @@ import matplotlib.pyplot as plt
 import numpy as np
 from matplotlib.figure import Figure
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.api import SensorResult
-from daemon.reduction.data import RunData
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.api import SensorResult
+from linerig.daemon.reduction.data import RunData
 
 DPI = 110
 
@@ -63,7 +63,7 @@ def heating_fit(data: RunData, r: SensorResult) -> bytes:
 
 def estimate_history(data: RunData, r: SensorResult, probe: ProbeProfile | None) -> bytes | None:
     """The live estimate against time, as the operator saw it (the live rule replayed), with its ±U band."""
-    from daemon.reduction.live import replay
+    from linerig.daemon.reduction.live import replay
 
     _, ests = replay(data.time_s, data.temps_C[r.name], data.q_W_per_m, probe, r.name,
                      calibration_factor=r.calibration_factor)

@@ -18,12 +18,12 @@ from typing import Any
 import numpy as np
 import sqlite_utils
 
-from daemon.probe import ProbeProfile, stored_profile
-from daemon.reduction.api import RunReduction, reduce_run
-from daemon.reduction.data import ReductionError, RunData
-from daemon.store.queries import run_arrays, run_detail
-from daemon.workflows.calibration import CalibrationOutcome, CalibrationStatus, calibration_status
-from daemon.workflows.cycles import split_cycles
+from linerig.daemon.probe import ProbeProfile, stored_profile
+from linerig.daemon.reduction.api import RunReduction, reduce_run
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.store.queries import run_arrays, run_detail
+from linerig.daemon.workflows.calibration import CalibrationOutcome, CalibrationStatus, calibration_status
+from linerig.daemon.workflows.cycles import split_cycles
 
 
 class SourceError(ValueError):

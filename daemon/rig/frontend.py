@@ -7,10 +7,10 @@ import contextlib
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from daemon.errors import DeviceRejected, DeviceTimeout, LinkError
-from daemon.rig import messages as m
-from daemon.rig.framing import FrameDecoder, encode_frame
-from daemon.rig.transport import SerialTransport
+from linerig.daemon.errors import DeviceRejected, DeviceTimeout, LinkError
+from linerig.daemon.rig import messages as m
+from linerig.daemon.rig.framing import FrameDecoder, encode_frame
+from linerig.daemon.rig.transport import SerialTransport
 
 ACK_TIMEOUT_S = 0.5
 RETRIES = 2

@@ -17,11 +17,11 @@ import logging
 import math
 from typing import Protocol, runtime_checkable
 
-from daemon.errors import DeviceRejected, RigError
-from daemon.rig import messages as m
-from daemon.rig.frontend import FrontEnd
-from daemon.rig.scpi import ConstantPowerLoop, Reading, ScpiSupply, SupplyLimits
-from daemon.rig.transport import SerialTransport
+from linerig.daemon.errors import DeviceRejected, RigError
+from linerig.daemon.rig import messages as m
+from linerig.daemon.rig.frontend import FrontEnd
+from linerig.daemon.rig.scpi import ConstantPowerLoop, Reading, ScpiSupply, SupplyLimits
+from linerig.daemon.rig.transport import SerialTransport
 
 __all__ = [
     "OFF_TIMEOUT_S",

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from daemon.rig.framing import Frame
+from linerig.daemon.rig.framing import Frame
 
 PROTOCOL_VERSION = 1
 

@@ -12,7 +12,7 @@ import contextlib
 
 import serial
 
-from daemon.errors import LinkError
+from linerig.daemon.errors import LinkError
 
 POLL_S = 0.005
 

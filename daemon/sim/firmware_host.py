@@ -51,9 +51,9 @@ from pathlib import Path
 from types import ModuleType
 from typing import Any
 
-from daemon.rig import its90
-from daemon.sim.frontend_sim import WireFaults
-from daemon.sim.rig_model import FAULT_OPEN, FAULT_RANGE, SimulatedRig
+from linerig.daemon.rig import its90
+from linerig.daemon.sim.frontend_sim import WireFaults
+from linerig.daemon.sim.rig_model import FAULT_OPEN, FAULT_RANGE, SimulatedRig
 
 __all__ = [
     "FIRMWARE_DIR",

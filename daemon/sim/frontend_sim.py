@@ -15,8 +15,8 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from daemon.rig import messages as m
-from daemon.rig.framing import FrameDecoder, encode_frame
+from linerig.daemon.rig import messages as m
+from linerig.daemon.rig.framing import FrameDecoder, encode_frame
 
 FIRMWARE = "sim-1.0"
 MAX_LEASE_MS = 1000

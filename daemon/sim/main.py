@@ -17,11 +17,11 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from daemon.sim.frontend_sim import FrontEndEmulator
-from daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, get_material
-from daemon.sim.rig_model import ProbeSpec, SimulatedRig
-from daemon.sim.server import SimServer
-from daemon.sim.speed import speed_factor
+from linerig.daemon.sim.frontend_sim import FrontEndEmulator
+from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, get_material
+from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
+from linerig.daemon.sim.server import SimServer
+from linerig.daemon.sim.speed import speed_factor
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -70,7 +70,7 @@ async def _watch_parent(pid: int, server: SimServer) -> None:
 
 def _probe(path: Path | None) -> ProbeSpec:
     """The same profile the daemon assumes by default, so both sides agree on sensors and heater."""
-    from daemon.probe import load_probe_profile
+    from linerig.daemon.probe import load_probe_profile
 
     path = path or Path(__file__).resolve().parent.parent / "profiles" / "default-needle.toml"
     return ProbeSpec.from_profile(load_probe_profile(path))
@@ -81,7 +81,7 @@ async def _run(args: argparse.Namespace) -> int:
     kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
     rig = SimulatedRig(material, _probe(args.probe), seed=args.seed, **kwargs)
     if args.firmware:
-        from daemon.sim.firmware_host import FirmwareFrontEnd
+        from linerig.daemon.sim.firmware_host import FirmwareFrontEnd
 
         frontend: Any = FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed)
     else:

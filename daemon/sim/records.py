@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from daemon.reduction.data import RunData
-from daemon.sim.rig_model import SimulatedRig
+from linerig.daemon.reduction.data import RunData
+from linerig.daemon.sim.rig_model import SimulatedRig
 
 
 def recorded_run(rig: SimulatedRig, *, baseline_s: float, heat_s: float, recover_s: float, q_W_per_m: float,

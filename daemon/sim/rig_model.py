@@ -22,8 +22,8 @@ from typing import Any
 
 import numpy as np
 
-from daemon.sim.materials import Material
-from daemon.sim.physics import AxialRadialModel, ModelConfigError, RadialModel
+from linerig.daemon.sim.materials import Material
+from linerig.daemon.sim.physics import AxialRadialModel, ModelConfigError, RadialModel
 
 __all__ = [
     "FAULT_CJ",

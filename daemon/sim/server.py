@@ -17,7 +17,7 @@ import tty
 from pathlib import Path
 from typing import Any
 
-from daemon.sim.frontend_sim import FrontEndEmulator
+from linerig.daemon.sim.frontend_sim import FrontEndEmulator
 
 TICK_S = 0.01
 OUT_CAP = 1 << 20  # bytes held for a host that reads late
@@ -110,7 +110,7 @@ class SimServer:
 
     def offer_supply(self) -> Path:
         """Put a SCPI bench supply on its own pty, its output wired to the simulated heater."""
-        from daemon.sim.supply_link import ScpiPort, make_supply
+        from linerig.daemon.sim.supply_link import ScpiPort, make_supply
 
         supply, load = make_supply(self.frontend.rig)
         self.supply = (ScpiPort(supply), load, PtyPort(self.link_dir / "supply"))

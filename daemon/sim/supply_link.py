@@ -18,8 +18,8 @@ from __future__ import annotations
 
 import math
 
-from daemon.sim.rig_model import SimulatedRig
-from daemon.sim.scpi_sim import ScpiSupplySim
+from linerig.daemon.sim.rig_model import SimulatedRig
+from linerig.daemon.sim.scpi_sim import ScpiSupplySim
 
 __all__ = ["MAX_LINE_BYTES", "SHORT_OHM", "RigLoad", "ScpiPort", "make_supply"]
 

@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 import sqlite_utils
 
-from daemon.reduction.alignment import power_held_from_each_sample
+from linerig.daemon.reduction.alignment import power_held_from_each_sample
 
 
 def list_runs(db: sqlite_utils.Database, limit: int = 100, site: str | None = None) -> list[dict[str, Any]]:

@@ -31,7 +31,7 @@ from typing import Any, TypeVar
 
 import sqlite_utils
 
-from daemon.store.schema import migrate
+from linerig.daemon.store.schema import migrate
 
 log = logging.getLogger("linerigd.store")
 

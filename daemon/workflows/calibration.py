@@ -14,7 +14,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from daemon.reduction.calibration import probe_factor
+from linerig.daemon.reduction.calibration import probe_factor
 
 # --- acceptance and expiry -----------------------------------------------------------------------------------
 FACTOR_LIMITS = (0.90, 1.10)        # beyond ±10 % means a probe or set-up fault (common practice, no source)

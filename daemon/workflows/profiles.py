@@ -16,7 +16,7 @@ from collections import defaultdict
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 
-from daemon.probe import ProbeProfile
+from linerig.daemon.probe import ProbeProfile
 
 NEAR_SURFACE_M = 0.3   # the daily temperature wave and a loosened surface layer (common practice, no source)
 

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 from scipy.special import exp1
 
-from daemon.reduction.live import LiveReducer
+from linerig.daemon.reduction.live import LiveReducer
 
 K, RHO_C, Q, T0 = 1.20, 2.0e6, 5.0, 11.80
 ALPHA = K / RHO_C

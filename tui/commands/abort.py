@@ -7,7 +7,7 @@ import asyncio
 import json
 import sys
 
-from tui.client import Client, DaemonError
+from linerig.tui.client import Client, DaemonError
 
 MAX_REASON = 500  # the daemon keeps this much of a reason
 DEFAULT_REASON = "aborted from the command line"

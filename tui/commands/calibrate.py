@@ -18,13 +18,13 @@ from pathlib import Path
 
 import numpy as np
 
-from daemon.probe import ProbeProfileError, load_probe_profile
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import ReductionError, RunData
-from daemon.report.cli import add_db_option, db_path, fail
-from daemon.report.sources import SourceError, calibration_history, load_run, open_db, record_calibration
-from daemon.runcsv import RunCsvError, read_run_csv
-from daemon.workflows.calibration import (
+from linerig.daemon.probe import ProbeProfileError, load_probe_profile
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.report.cli import add_db_option, db_path, fail
+from linerig.daemon.report.sources import SourceError, calibration_history, load_run, open_db, record_calibration
+from linerig.daemon.runcsv import RunCsvError, read_run_csv
+from linerig.daemon.workflows.calibration import (
     FACTOR_LIMITS,
     MAX_FACTOR_U_REL,
     MAX_REPEAT_CV,
@@ -134,7 +134,7 @@ def run(args: argparse.Namespace) -> int:
         if args.csv:
             probe = load_probe_profile(args.probe_profile) if args.probe_profile else None
             if probe is None:
-                from daemon.report.sources import probe_profiles
+                from linerig.daemon.report.sources import probe_profiles
 
                 probe = probe_profiles(db).get(args.probe)
             if probe is None:

@@ -14,13 +14,19 @@ from pathlib import Path
 
 import numpy as np
 
-from daemon.reduction.data import ReductionError
-from daemon.report import plots
-from daemon.report.build import f, now_utc, workflow_tail
-from daemon.report.cli import add_db_option, db_path, fail, write_report
-from daemon.report.model import Bullets, Figure, Heading, Para, Report, Table
-from daemon.report.sources import RunRecord, SourceError, cycle_data, load_run, open_db, series_runs
-from daemon.workflows.cycles import REPEATABILITY_FACTOR, CycleDataError, CycleSummary, CycleValue, summarise_cycles
+from linerig.daemon.reduction.data import ReductionError
+from linerig.daemon.report import plots
+from linerig.daemon.report.build import f, now_utc, workflow_tail
+from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
+from linerig.daemon.report.model import Bullets, Figure, Heading, Para, Report, Table
+from linerig.daemon.report.sources import RunRecord, SourceError, cycle_data, load_run, open_db, series_runs
+from linerig.daemon.workflows.cycles import (
+    REPEATABILITY_FACTOR,
+    CycleDataError,
+    CycleSummary,
+    CycleValue,
+    summarise_cycles,
+)
 
 CMD = "cycles"
 
@@ -68,7 +74,7 @@ def collect(db_file: Path, run_id: int, sensor: str | None) -> tuple[list[CycleV
     if len(parts) < 2:
         raise CycleDataError(f"run {run_id} holds {len(parts)} heating cycle(s) and belongs to no series: "
                              "nothing to compare (plan the run with several cycles)")
-    from daemon.report.sources import reduce_record
+    from linerig.daemon.report.sources import reduce_record
 
     vals = []
     first_base: float | None = None

@@ -16,11 +16,11 @@ from pathlib import Path
 
 import numpy as np
 
-from daemon.report import plots
-from daemon.report.build import f, now_utc, workflow_tail
-from daemon.report.cli import add_db_option, fail, write_report
-from daemon.report.model import Figure, Heading, Para, Report, Table
-from daemon.workflows.cylinder import (
+from linerig.daemon.report import plots
+from linerig.daemon.report.build import f, now_utc, workflow_tail
+from linerig.daemon.report.cli import add_db_option, fail, write_report
+from linerig.daemon.report.model import Figure, Heading, Para, Report, Table
+from linerig.daemon.workflows.cylinder import (
     CylinderFit,
     CylinderTestError,
     SurfaceSteps,

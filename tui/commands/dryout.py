@@ -16,13 +16,13 @@ from pathlib import Path
 
 import numpy as np
 
-from daemon.report import plots
-from daemon.report.build import f, now_utc, workflow_tail
-from daemon.report.cli import add_db_option, db_path, fail, write_report
-from daemon.report.model import Figure, Heading, Para, Report, Table
-from daemon.report.sources import SourceError, open_db
-from daemon.store.queries import run_detail
-from daemon.workflows.dryout import (
+from linerig.daemon.report import plots
+from linerig.daemon.report.build import f, now_utc, workflow_tail
+from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
+from linerig.daemon.report.model import Figure, Heading, Para, Report, Table
+from linerig.daemon.report.sources import SourceError, open_db
+from linerig.daemon.store.queries import run_detail
+from linerig.daemon.workflows.dryout import (
     CK_DRY,
     CK_KAPPA_UNFROZEN,
     DESIGN_CAUTION,

@@ -5,10 +5,10 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from daemon.report.cli import add_db_option, db_path, fail, write_text
-from daemon.report.export import results_csv, results_json, run_json, samples_raw_csv, samples_run_csv
-from daemon.report.sources import SourceError, load_run, open_db, series_runs, site_runs
-from daemon.store.queries import list_runs, run_detail
+from linerig.daemon.report.cli import add_db_option, db_path, fail, write_text
+from linerig.daemon.report.export import results_csv, results_json, run_json, samples_raw_csv, samples_run_csv
+from linerig.daemon.report.sources import SourceError, load_run, open_db, series_runs, site_runs
+from linerig.daemon.store.queries import list_runs, run_detail
 
 CMD = "export"
 

@@ -9,7 +9,7 @@ import json
 import sys
 from typing import Any
 
-from tui.client import Client, DaemonError
+from linerig.tui.client import Client, DaemonError
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
@@ -24,7 +24,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
 
 
 async def _run(args: argparse.Namespace) -> int:
-    from tui.screens.history import DATE, filter_runs
+    from linerig.tui.screens.history import DATE, filter_runs
 
     for day in (args.since, args.until):
         if day and not (DATE.match(day) and _is_date(day)):

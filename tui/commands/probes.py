@@ -7,7 +7,7 @@ import asyncio
 import json
 import sys
 
-from tui.client import Client, DaemonError
+from linerig.tui.client import Client, DaemonError
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
@@ -17,7 +17,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
 
 
 async def _run(args: argparse.Namespace) -> int:
-    from tui.screens.probes import factor_rows
+    from linerig.tui.screens.probes import factor_rows
 
     async with Client(args.socket) as client:
         reply = await client.request("probes")

@@ -11,11 +11,11 @@ import json
 import math
 from pathlib import Path
 
-from daemon.report import plots
-from daemon.report.build import f
-from daemon.report.cli import add_db_option, db_path, fail
-from daemon.report.sources import SourceError, list_sites, open_db, probe_profiles, site_runs
-from daemon.workflows.profiles import group_profiles, points_from_runs, summarise_depths
+from linerig.daemon.report import plots
+from linerig.daemon.report.build import f
+from linerig.daemon.report.cli import add_db_option, db_path, fail
+from linerig.daemon.report.sources import SourceError, list_sites, open_db, probe_profiles, site_runs
+from linerig.daemon.workflows.profiles import group_profiles, points_from_runs, summarise_depths
 
 CMD = "profile"
 

@@ -19,23 +19,23 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from daemon.paths import default_db_path
-from daemon.probe import ProbeProfileError, load_probe_profile
-from daemon.qualify.config import DEFAULT_CRITERIA_PATH, QualificationConfigError, load_config
-from daemon.qualify.procedure import run_async, run_sync
-from daemon.qualify.report import write_report
-from daemon.qualify.requests import AskNumber, Progress
-from daemon.qualify.result import Qualification, judge
-from daemon.qualify.simrig import SimSetup, SimulatedQualificationRig
-from daemon.qualify.store import (
+from linerig.daemon.paths import default_db_path
+from linerig.daemon.probe import ProbeProfileError, load_probe_profile
+from linerig.daemon.qualify.config import DEFAULT_CRITERIA_PATH, QualificationConfigError, load_config
+from linerig.daemon.qualify.procedure import run_async, run_sync
+from linerig.daemon.qualify.report import write_report
+from linerig.daemon.qualify.requests import AskNumber, Progress
+from linerig.daemon.qualify.result import Qualification, judge
+from linerig.daemon.qualify.simrig import SimSetup, SimulatedQualificationRig
+from linerig.daemon.qualify.store import (
     QualificationNotFound,
     list_qualifications,
     load_qualification,
     open_store,
     save_qualification,
 )
-from daemon.report.sources import SourceError, open_db
-from daemon.sim.rig_model import FAULT_NAMES
+from linerig.daemon.report.sources import SourceError, open_db
+from linerig.daemon.sim.rig_model import FAULT_NAMES
 
 CMD = "qualify"
 EXIT_NOT_QUALIFIED = 1
@@ -196,9 +196,9 @@ def _progress(args: argparse.Namespace) -> Any:
 
 
 async def _live(args: argparse.Namespace, profile: Any, config: Any, operator: _PromptOperator) -> Any:
-    from daemon.qualify.analysis import primary_sensor
-    from daemon.qualify.liverig import DaemonQualificationRig
-    from tui.client import Client
+    from linerig.daemon.qualify.analysis import primary_sensor
+    from linerig.daemon.qualify.liverig import DaemonQualificationRig
+    from linerig.tui.client import Client
 
     prompts = _AsyncPromptOperator(operator)
     async with Client(args.socket) as client:
@@ -210,9 +210,9 @@ async def _live(args: argparse.Namespace, profile: Any, config: Any, operator: _
 
 
 def _run(args: argparse.Namespace) -> int:
-    from daemon.qualify.analysis import QualificationDataError
-    from daemon.qualify.liverig import LiveRigError
-    from tui.client import DaemonError
+    from linerig.daemon.qualify.analysis import QualificationDataError
+    from linerig.daemon.qualify.liverig import LiveRigError
+    from linerig.tui.client import DaemonError
 
     problem = _output_problem(args)
     if problem:

@@ -11,10 +11,10 @@ import math
 import sys
 from pathlib import Path
 
-from daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
-from daemon.reduction.api import METHODS, RunReduction, reduce_run
-from daemon.reduction.data import ReductionError, RunData
-from daemon.runcsv import RunCsvError, read_run_csv
+from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
+from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.runcsv import RunCsvError, read_run_csv
 
 EXIT_BAD_INPUT = 2
 
@@ -172,7 +172,7 @@ def plot(red: RunReduction, data: RunData, probe: ProbeProfile | None, path: Pat
     import matplotlib.pyplot as plt
     import numpy as np
 
-    from daemon.reduction.live import replay
+    from linerig.daemon.reduction.live import replay
 
     names = list(red.sensors)
     fig, axes = plt.subplots(3, len(names), figsize=(5.5 * len(names), 9), squeeze=False)

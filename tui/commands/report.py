@@ -10,14 +10,14 @@ import argparse
 import math
 from pathlib import Path
 
-from daemon.probe import ProbeProfileError
-from daemon.reduction.api import reduce_run
-from daemon.reduction.data import ReductionError
-from daemon.report import plots
-from daemon.report.build import run_report, site_report
-from daemon.report.cli import add_db_option, db_path, fail, write_report
-from daemon.report.model import Para
-from daemon.report.sources import (
+from linerig.daemon.probe import ProbeProfileError
+from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.data import ReductionError
+from linerig.daemon.report import plots
+from linerig.daemon.report.build import run_report, site_report
+from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
+from linerig.daemon.report.model import Para
+from linerig.daemon.report.sources import (
     RunRecord,
     SourceError,
     calibration_history,
@@ -29,8 +29,8 @@ from daemon.report.sources import (
     reduce_record,
     site_runs,
 )
-from daemon.runcsv import RunCsvError, read_run_csv
-from daemon.workflows.profiles import points_from_runs
+from linerig.daemon.runcsv import RunCsvError, read_run_csv
+from linerig.daemon.workflows.profiles import points_from_runs
 
 CMD = "report"
 
@@ -81,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _csv_report(args: argparse.Namespace) -> tuple[object, str]:
-    from daemon.probe import load_probe_profile
+    from linerig.daemon.probe import load_probe_profile
 
     probe = load_probe_profile(args.probe) if args.probe else None
     data = read_run_csv(Path(args.csv))

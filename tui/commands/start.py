@@ -8,7 +8,7 @@ import json
 import sys
 from typing import Any
 
-from tui.client import Client, DaemonError
+from linerig.tui.client import Client, DaemonError
 
 METADATA = ("site", "location", "depth_m", "sample", "material", "moisture_pct", "dry_density_kg_per_m3", "notes",
             "operator")

@@ -7,7 +7,7 @@ import asyncio
 import json
 import sys
 
-from tui.client import Client, DaemonError
+from linerig.tui.client import Client, DaemonError
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]

@@ -18,12 +18,12 @@ from textual.containers import Grid, Horizontal, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Input, Label, Select, Static, TabbedContent, TabPane
 
-from daemon.paths import default_db_path
-from daemon.probe import ProbeProfile, stored_profile
-from daemon.reduction.data import ReductionError, RunData
-from tui.client import DaemonError
-from tui.screens.live_state import STATE_SYMBOLS, RunTrace
-from tui.screens.rereduce import (
+from linerig.daemon.paths import default_db_path
+from linerig.daemon.probe import ProbeProfile, stored_profile
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.tui.client import DaemonError
+from linerig.tui.screens.live_state import STATE_SYMBOLS, RunTrace
+from linerig.tui.screens.rereduce import (
     METHODS,
     SamplesUnavailable,
     export_run,
@@ -31,12 +31,12 @@ from tui.screens.rereduce import (
     rereduce,
     run_data_from_arrays,
 )
-from tui.units import DisplayUnit, companion, show
-from tui.widgets.advice import flag_words
-from tui.widgets.run_plot import PlotView, RunPlot, build_spec, next_choice
+from linerig.tui.units import DisplayUnit, companion, show
+from linerig.tui.widgets.advice import flag_words
+from linerig.tui.widgets.run_plot import PlotView, RunPlot, build_spec, next_choice
 
 if TYPE_CHECKING:
-    from tui.app import LinerigApp
+    from linerig.tui.app import LinerigApp
 
 RUNS_LIMIT = 2000
 DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")

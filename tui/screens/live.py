@@ -14,10 +14,10 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer
 
-from tui.client import DaemonError
-from tui.screens.confirm import Confirm
-from tui.widgets.headroom import HeadroomReadout
-from tui.widgets.readouts import (
+from linerig.tui.client import DaemonError
+from linerig.tui.screens.confirm import Confirm
+from linerig.tui.widgets.headroom import HeadroomReadout
+from linerig.tui.widgets.readouts import (
     EstimateReadout,
     FaultBanner,
     PowerReadout,
@@ -26,10 +26,10 @@ from tui.widgets.readouts import (
     StopPrompt,
     VerdictReadout,
 )
-from tui.widgets.run_plot import EstimatePlot, PlotView, RunPlot, auto_view, build_spec, next_choice
+from linerig.tui.widgets.run_plot import EstimatePlot, PlotView, RunPlot, auto_view, build_spec, next_choice
 
 if TYPE_CHECKING:
-    from tui.app import LinerigApp
+    from linerig.tui.app import LinerigApp
 
 REDRAW_S = 0.25  # at most four redraws a second, however fast samples come
 

@@ -13,10 +13,10 @@ from textual.screen import ModalScreen, Screen
 from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual_plotext import PlotextPlot
 
-from tui.client import DaemonError
+from linerig.tui.client import DaemonError
 
 if TYPE_CHECKING:
-    from tui.app import LinerigApp
+    from linerig.tui.app import LinerigApp
 
 REFERENCE_HINT = "e.g. glycerol, agar-gelled water"
 

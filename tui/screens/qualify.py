@@ -21,16 +21,16 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Button, Checkbox, DataTable, Footer, Input, Label, Log, Static
 
-from daemon.paths import default_db_path
-from daemon.probe import ProbeProfileError, load_probe_profile
-from daemon.qualify.analysis import QualificationDataError, primary_sensor
-from daemon.qualify.config import QualificationConfigError, load_config
-from daemon.qualify.procedure import run_async
-from daemon.qualify.report import write_report
-from daemon.qualify.requests import AskNumber, Progress
-from daemon.qualify.result import Qualification, judge
-from daemon.qualify.simrig import SimSetup, SimulatedQualificationRig
-from daemon.qualify.store import open_store, save_qualification
+from linerig.daemon.paths import default_db_path
+from linerig.daemon.probe import ProbeProfileError, load_probe_profile
+from linerig.daemon.qualify.analysis import QualificationDataError, primary_sensor
+from linerig.daemon.qualify.config import QualificationConfigError, load_config
+from linerig.daemon.qualify.procedure import run_async
+from linerig.daemon.qualify.report import write_report
+from linerig.daemon.qualify.requests import AskNumber, Progress
+from linerig.daemon.qualify.result import Qualification, judge
+from linerig.daemon.qualify.simrig import SimSetup, SimulatedQualificationRig
+from linerig.daemon.qualify.store import open_store, save_qualification
 
 STATUS_STYLE = {"pass": ("PASS", "bold green"), "fail": ("FAIL", "bold red"), "warn": ("WARN", "bold yellow"),
                 "not_measured": ("NOT MEASURED", "bold magenta"), "not_applicable": ("n/a", "dim")}
@@ -171,8 +171,8 @@ class QualifyScreen(Screen[None]):
             rig: Any = SimulatedQualificationRig(profile, self._sim_setup)
             m = await run_async(profile, config, rig, self, self._on_progress)
         else:
-            from daemon.qualify.liverig import DaemonQualificationRig
-            from tui.client import Client
+            from linerig.daemon.qualify.liverig import DaemonQualificationRig
+            from linerig.tui.client import Client
 
             async with Client(self._socket_path) as client:
                 rig = DaemonQualificationRig(client, profile, self, primary_sensor(profile, config.procedure.sensor),

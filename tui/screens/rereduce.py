@@ -17,13 +17,13 @@ from typing import Any
 import numpy as np
 import sqlite_utils
 
-from daemon.probe import ProbeProfile
-from daemon.reduction.data import ReductionError, RunData
-from daemon.reduction.drift import fit_baseline, no_baseline
-from daemon.reduction.linesource import choose_window, fit_window
-from daemon.reduction.live import replay
-from daemon.reduction.superposition import log_time_regressor, power_steps
-from daemon.store.queries import run_arrays
+from linerig.daemon.probe import ProbeProfile
+from linerig.daemon.reduction.data import ReductionError, RunData
+from linerig.daemon.reduction.drift import fit_baseline, no_baseline
+from linerig.daemon.reduction.linesource import choose_window, fit_window
+from linerig.daemon.reduction.live import replay
+from linerig.daemon.reduction.superposition import log_time_regressor, power_steps
+from linerig.daemon.store.queries import run_arrays
 
 METHODS = {
     "auto": "late-time line, automatic window",

@@ -10,8 +10,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from daemon.run_keeper import METADATA_RANGES
-from tui.screens.live_state import LiveState
+from linerig.daemon.run_keeper import METADATA_RANGES
+from linerig.tui.screens.live_state import LiveState
 
 # Presets: plain starting points, each editable after choosing it. The heating times follow the usual
 # minutes-long needle-probe tests on soil; a lower power on dry soil keeps the needle from drying it

@@ -12,12 +12,12 @@ from textual.containers import Grid, Horizontal, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Checkbox, Footer, Input, Label, Select, Static
 
-from tui.client import DaemonError
-from tui.screens.confirm import Confirm
-from tui.screens.run_form import DEFAULT_PRESET, PRESETS, FormResult, can_arm, check_form, precheck
+from linerig.tui.client import DaemonError
+from linerig.tui.screens.confirm import Confirm
+from linerig.tui.screens.run_form import DEFAULT_PRESET, PRESETS, FormResult, can_arm, check_form, precheck
 
 if TYPE_CHECKING:
-    from tui.app import LinerigApp
+    from linerig.tui.app import LinerigApp
 
 # (field, label, placeholder) in the order the Tab key visits them
 PLAN_INPUTS = (("heat_s", "Heat, s", "600"), ("recover_s", "Cooling, s", "600"),

@@ -12,7 +12,7 @@ import numpy as np
 from rich.text import Text
 from textual.widgets import Static
 
-from tui.screens.live_state import LiveState
+from linerig.tui.screens.live_state import LiveState
 
 NEAR_FRACTION = 0.8  # a limit counts as "near" at 80 % of the way there (common practice, no source)
 VERDICT = {"ok": ("✓", "ok", "green"), "near": ("!", "near", "yellow"), "over": ("✗", "OVER", "bold red"),

@@ -13,10 +13,10 @@ import numpy as np
 from rich.text import Text
 from textual.widgets import Static
 
-from daemon.reduction.stability import STRETCH_LN
-from tui.screens.live_state import STATE_SYMBOLS, STATE_WORDS, LiveState, RunTrace
-from tui.units import DisplayUnit, companion, duration, show
-from tui.widgets.advice import fault_advice, flag_words
+from linerig.daemon.reduction.stability import STRETCH_LN
+from linerig.tui.screens.live_state import STATE_SYMBOLS, STATE_WORDS, LiveState, RunTrace
+from linerig.tui.units import DisplayUnit, companion, duration, show
+from linerig.tui.widgets.advice import fault_advice, flag_words
 
 HEADING = "bold underline"
 STALE_FIT_S = 10.0  # heating seconds without a new estimate before the readout says so

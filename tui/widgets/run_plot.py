@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 from textual_plotext import PlotextPlot
 
-from tui.screens.live_state import RunTrace
+from linerig.tui.screens.live_state import RunTrace
 
 MAX_POINTS = 400  # per series; more than a terminal can show, few enough to redraw quickly
 SENSOR_MARKERS = ("•", "+", "x", "o", "*", "=")
