@@ -21,6 +21,11 @@ import time
 
 from wall_link import WallLink, catch_up, heater_reason, missing_link_field
 
+CATCH_UP_CYCLES = 20
+"""Cycles served before the host's bytes are read again: each costs a board round trip (about 1 ms), so a
+process that fell behind (a loaded machine) skips the rest as a stalled board would, rather than leave the
+host's commands unanswered for longer than the lease."""
+
 
 class BoardLink:
     """The hal probefw.device expects, over the board pipes; ``now_ms`` is set before every call into the firmware."""
@@ -130,7 +135,7 @@ def main(argv: list) -> None:
         at = wall()
         now = round(at * 1000.0 * speed)
         data = uart.read(MAX_READ_BYTES)
-        catch_up(fe, now, lambda t, at=at: call(lambda: fe.tick(t), t, at, "firmware"))
+        catch_up(fe, now, lambda t, at=at: call(lambda: fe.tick(t), t, at, "firmware"), None, CATCH_UP_CYCLES)
         if data:
             call(lambda data=data, now=now: fe.receive(data, now), now, at, "host command")
         wait = max(0, int((fe.control.next_ms - now) / speed))

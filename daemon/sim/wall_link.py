@@ -73,14 +73,14 @@ MAX_CYCLES_PER_CALL = 600
 is about 60 ms of CPU in the simulator's process; at its 10 ms tick this allows speeds up to ~6000)."""
 
 
-def catch_up(fw: object, target: int, call: object, advance: object = None) -> None:
+def catch_up(fw: object, target: int, call: object, advance: object = None, limit: int = MAX_CYCLES_PER_CALL) -> None:
     """Run the firmware to device ms ``target``: every control cycle due, one at a time (``call(t)`` runs
     ``fw.tick(t)``; ``advance(t)`` moves the physics first, when the host owns them), then a last tick at
-    ``target`` for the lease and fault repeat between cycles. A backlog beyond MAX_CYCLES_PER_CALL is served as
-    the board serves a stalled loop: one late cycle, the missed slots skipped and counted."""
+    ``target`` for the lease and fault repeat between cycles. A backlog beyond ``limit`` cycles is served as the
+    board serves a stalled loop: one late cycle, the missed slots skipped and counted."""
     served = 0
     while fw.control.next_ms <= target:
-        t = fw.control.next_ms if served < MAX_CYCLES_PER_CALL else target
+        t = fw.control.next_ms if served < limit else target
         if advance is not None:
             advance(t)
         call(t)
