@@ -63,15 +63,20 @@ def test_open_thermocouple_on_another_channel_does_not_stop_heating() -> None:
     assert h.faults() == [] and rig.duty > 0
 
 
-def test_open_heater_trips() -> None:
+def _fault_while_heating(name: str, before_ms: int, after_ms: int) -> list:
+    """Heat, switch the board's fault ``name`` on, carry on heating; the fault codes the firmware sent."""
     rig = FakeRig()
     h = Harness(rig=rig)
     _arm(h)
-    h.run(1000, renew_every_ms=200)
-    rig.heater_open = True
-    h.run(1000, renew_every_ms=200)
-    assert h.faults() == ["HEATER_OPEN"]
+    h.run(before_ms, renew_every_ms=200)
+    setattr(rig, name, True)
+    h.run(after_ms, renew_every_ms=200)
     assert rig.duty == 0.0
+    return h.faults()
+
+
+def test_open_heater_trips() -> None:
+    assert _fault_while_heating("heater_open", 1000, 1000) == ["HEATER_OPEN"]
 
 
 def test_shorted_heater_trips_on_the_first_measurement() -> None:
@@ -134,14 +139,7 @@ def test_low_battery_trips() -> None:
 
 
 def test_dead_converter_bus_turns_heater_off() -> None:
-    rig = FakeRig()
-    h = Harness(rig=rig)
-    _arm(h)
-    h.run(500, renew_every_ms=200)
-    rig.bus_dead = True
-    h.run(300, renew_every_ms=200)
-    assert h.faults() == ["BUS"]
-    assert rig.duty == 0.0
+    assert _fault_while_heating("bus_dead", 500, 300) == ["BUS"]
 
 
 def test_requests_above_the_flashed_limits_are_refused() -> None:
