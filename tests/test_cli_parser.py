@@ -27,10 +27,12 @@ def test_a_light_command_does_not_load_the_reduction_or_the_reports() -> None:
     assert loaded(["--socket", "/tmp/x.sock", "status", "--json"]) == "status False False"
     assert loaded(["stop-heating"]) == "stop-heating False False"
     assert loaded(["reduce", "run.csv"]).startswith("reduce True")
+    assert loaded(["import", "log.txt", "-o", "run.csv"]).startswith("import ")  # import_.py: a keyword
 
 
 def test_help_and_a_mistyped_command_still_list_every_command() -> None:
-    commands = [p.stem.replace("_", "-") for p in (ROOT / "tui" / "commands").glob("*.py") if p.stem != "__init__"]
+    commands = [p.stem.rstrip("_").replace("_", "-") for p in (ROOT / "tui" / "commands").glob("*.py")
+                if p.stem != "__init__"]
     helped = subprocess.run([sys.executable, "-m", "linerig.tui.cli", "--help"], capture_output=True, text=True,
                             cwd=ROOT, timeout=60)
     assert helped.returncode == 0 and all(c in helped.stdout for c in commands)

@@ -18,8 +18,13 @@ from linerig.tui import commands
 
 
 def command_modules() -> list[str]:
-    """Subcommand module names; the command is the name with ``-`` for ``_`` (``stop_heating`` → ``stop-heating``)."""
+    """Subcommand module names; the command is the name with ``-`` for ``_`` (``stop_heating`` → ``stop-heating``)
+    and a trailing ``_`` dropped (``import_`` → ``import``, a Python keyword)."""
     return sorted(info.name for info in pkgutil.iter_modules(commands.__path__))
+
+
+def command_name(module: str) -> str:
+    return module.rstrip("_").replace("_", "-")
 
 
 def build_parser(only: str | None = None) -> argparse.ArgumentParser:
@@ -49,8 +54,7 @@ def _command_asked(argv: list[str] | None) -> str | None:
         return None
     if known.command is None:  # the operator's screen, unless help was asked for
         return None if {"-h", "--help"} & set(sys.argv[1:] if argv is None else argv) else ""
-    name = known.command.replace("-", "_")
-    return name if name in command_modules() else None
+    return next((m for m in command_modules() if command_name(m) == known.command), None)
 
 
 # what a shell reports for a program that a closed pipe ended (128 + SIGPIPE), as `yes | head -1` shows

@@ -11,6 +11,7 @@ import math
 import sys
 from pathlib import Path
 
+from linerig.daemon.logger_import import LoggerImportError
 from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
 from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
@@ -23,7 +24,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p = subparsers.add_parser("reduce", help="thermal conductivity (and more) from a run CSV",
                               description="Reduce a run CSV (time_s, q_W_per_m, T_<sensor>_C ...) to thermal "
                                           "conductivity, resistivity, diffusivity and heat capacity per sensor.")
-    p.add_argument("file", metavar="FILE.csv", type=Path, help="run record")
+    p.add_argument("file", metavar="FILE.csv", type=Path, help="run record (or a logger's export, with --map)")
+    p.add_argument("--map", metavar="MAP.toml", type=Path,
+                   help="FILE is a data logger's export: read it as `linerig import` does with this map")
     p.add_argument("--json", action="store_true", help="print JSON for machines instead of a table")
     p.add_argument("--probe", metavar="PROFILE.toml", type=Path, help="probe profile (geometry, heat capacity)")
     p.add_argument("--radius-mm", type=float, help="heated needle radius (overrides the profile)")
@@ -91,8 +94,8 @@ def run(args: argparse.Namespace) -> int:
     except ProbeProfileError as e:
         return _fail(str(e))
     try:
-        data = read_run_csv(Path(args.file))
-    except RunCsvError as e:
+        data = read_run_csv(Path(args.file)) if args.map is None else read_logger_file(args)
+    except (RunCsvError, LoggerImportError, ProbeProfileError) as e:
         return _fail(str(e))
     problem = option_problem(args)
     if problem:
@@ -114,6 +117,20 @@ def run(args: argparse.Namespace) -> int:
         except (OSError, ValueError) as e:  # ValueError: matplotlib knows no format for the file's suffix
             return _fail(f"cannot write plot {args.plot}: {e}")
     return 0
+
+
+def read_logger_file(args: argparse.Namespace) -> RunData:
+    """The run in a logger export (``--map``), its choices said on stderr so --json stays clean. The heater length
+    is the map's, else --length-mm, else the probe profile's."""
+    from linerig.daemon.logger_import import import_file, read_map
+
+    length, said = args.length_mm, "--length-mm"
+    if length is None and args.probe is not None:
+        length, said = load_probe_profile(args.probe).heater_length_mm, f"the probe profile {args.probe}"
+    imported = import_file(Path(args.file), read_map(args.map), length_mm=length, length_from=said)
+    for c in imported.choices:
+        print(f"linerig reduce: {c.text()}", file=sys.stderr)
+    return imported.data
 
 
 def option_problem(args: argparse.Namespace) -> str | None:
