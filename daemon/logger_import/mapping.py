@@ -81,7 +81,8 @@ class LoggerMap:
 
     def where(self, *dotted: str) -> str:
         """``map.toml line 7: [columns] time`` for a message (the line when it can be found)."""
-        line = key_line(self.text, list(dotted)) if self.text else None
+        # the key itself, else the nearest table holding it (a key inside an inline table has no line of its own)
+        line = next((n for i in range(len(dotted), 0, -1) if (n := key_line(self.text, list(dotted[:i])))), None)
         key = f"[{dotted[0]}] {'.'.join(dotted[1:])}" if len(dotted) > 1 else f"[{dotted[0]}]"
         return f"{self.source}{f' line {line}' if line else ''}: {key}"
 

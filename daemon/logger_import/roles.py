@@ -15,7 +15,7 @@ import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from .clock import CLOCK_KIND, DATE_KIND, STAMP_KIND, kind_of
+from .clock import CLOCK_KIND, DATE_KIND, STAMP_KIND, kind_of, mostly
 from .errors import Choice, LoggerImportError, MapError
 from .mapping import ColumnRef, LoggerMap
 from .numbers import looks_numeric
@@ -81,7 +81,8 @@ def describe_columns(names: Sequence[str], units_row: Sequence[str] | None, unit
         elif from_name is not None:
             unit_text, unit_from = from_name, "its name"
         cells = [r[i] for r in sample]
-        kind = kind_of(cells) or (NUMBER if all(looks_numeric(c) for c in cells if c) else TEXT)
+        filled = [c for c in cells if c]
+        kind = kind_of(filled) or (NUMBER if mostly(looks_numeric(c) for c in filled) else TEXT)
         if not any(cells):
             kind = EMPTY
         cols.append(Column(i, name, base or name, parse_unit(unit_text) if unit_text else None, unit_text,
