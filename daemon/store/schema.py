@@ -70,7 +70,54 @@ def _v3(db: sqlite_utils.Database) -> None:
     db["runs"].add_column("q_timing", str)
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3]
+# One row per sample and sensor, for anyone with an SQLite browser: the temperatures of a sample are a JSON array
+# in the order of runs.sensor_names. time_s is from heater-on (null for a run that never heated); q_W_per_m is the
+# power as the sample recorded it: runs.q_timing says whether that is the mean over the interval ending at the
+# sample ("reading": linerigd) or the power held from it to the next ("held" or null: imports, demo data).
+SENSOR_READINGS = """
+CREATE VIEW sensor_readings AS
+SELECT s.run_id AS run_id, r.site AS site, r.location AS location, r.depth_m AS depth_m, r.sample AS sample,
+       r.probe_serial AS probe_serial, r.created_utc AS run_created_utc,
+       json_extract(r.sensor_names, '$[' || t.key || ']') AS sensor, s.n AS n, s.phase AS phase,
+       s.device_s AS device_s, s.device_s - r.heat_start_device_s AS time_s, t.value AS temperature_C,
+       s.heater_on AS heater_on, s.q_W_per_m AS q_W_per_m, r.q_timing AS q_timing
+FROM samples AS s JOIN runs AS r ON r.id = s.run_id, json_each(s.temps_C) AS t
+"""
+
+# One row per stored result and sensor with the main figures as columns (the JSON in results.data keeps the rest);
+# latest is 1 for the newest result of its run and sensor, the one reports and exports use.
+SENSOR_RESULTS = """
+CREATE VIEW sensor_results AS
+SELECT x.id AS result_id, x.run_id AS run_id, r.site AS site, r.location AS location, r.depth_m AS depth_m,
+       r.sample AS sample, r.material AS material, r.probe_serial AS probe_serial,
+       r.created_utc AS run_created_utc, x.sensor AS sensor, x.created_utc AS created_utc, x.source AS source,
+       x.id = (SELECT max(y.id) FROM results AS y WHERE y.run_id = x.run_id AND y.sensor = x.sensor) AS latest,
+       x.method AS method, x.k_W_per_mK AS k_W_per_mK, x.k_u_W_per_mK AS k_u_W_per_mK,
+       json_extract(x.data, '$.k_U_W_per_mK') AS k_U_W_per_mK,
+       json_extract(x.data, '$.resistivity_mK_per_W') AS resistivity_mK_per_W,
+       json_extract(x.data, '$.resistivity_Ccm_per_W') AS resistivity_Ccm_per_W,
+       json_extract(x.data, '$.alpha_mm2_per_s') AS alpha_mm2_per_s,
+       json_extract(x.data, '$.rho_c_MJ_per_m3K') AS rho_c_MJ_per_m3K,
+       json_extract(x.data, '$.window_s[0]') AS window_start_s,
+       json_extract(x.data, '$.window_s[1]') AS window_end_s,
+       json_extract(x.data, '$.stable_at_s') AS stable_at_s,
+       json_extract(x.data, '$.heating_s') AS heating_s,
+       json_extract(x.data, '$.q_mean_W_per_m') AS q_mean_W_per_m,
+       json_extract(x.data, '$.rise_K') AS rise_K,
+       json_extract(x.data, '$.calibration_factor') AS calibration_factor,
+       (SELECT group_concat(f.value, ';') FROM json_each(x.flags) AS f) AS flags
+FROM results AS x LEFT JOIN runs AS r ON r.id = x.run_id
+"""
+
+
+def _v4(db: sqlite_utils.Database) -> None:
+    """Views a person can query in any SQLite browser without parsing JSON (docs/store.md). A later migration that
+    rebuilds runs, samples or results (sqlite-utils transform) drops and recreates them around it."""
+    db.conn.execute(SENSOR_READINGS)
+    db.conn.execute(SENSOR_RESULTS)
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
