@@ -18,7 +18,10 @@ import numpy as np
 import pytest
 import sqlite_utils
 
+from linerig.daemon.controller import estimate_dict
+from linerig.daemon.probe import ProbeProfile, SensorPosition
 from linerig.daemon.reduction.api import reduce_run
+from linerig.daemon.reduction.live import replay
 from linerig.daemon.reduction.synthetic import Medium, make_run
 from linerig.daemon.report.export import result_rows
 from linerig.daemon.store.queries import run_arrays, run_detail
@@ -45,10 +48,11 @@ def _add_run(store: Store, *, site: str, probe: str, timing: str | None, heat_st
                "temps_C": json.dumps(temps), "faults": "[0,0]"}
         store.add_sample(tuple(row[c] for c in SAMPLE_COLUMNS))
     store.flush(wait=True)
-    red = reduce_run(data)
-    store.add_result(run_id, "needle", {**red.sensors["needle"].to_json(), "flags": ["drift", "short window"]},
-                     source="live")
-    store.add_result(run_id, "needle", red.sensors["needle"].to_json(), source="final")
+    needle = ProbeProfile(name="invented needle", radius_mm=0.635, sensors=(SensorPosition("needle"),))
+    _, live = replay(data.time_s, data.temps_C["needle"], data.q_W_per_m, needle, "needle")
+    store.add_result(run_id, "needle", {**estimate_dict(live[-1]), "flags": ["drift", "short window"]},
+                     source="live")  # as linerigd keeps the live estimate at heater-off
+    store.add_result(run_id, "needle", reduce_run(data).sensors["needle"].to_json(), source="final")
     return run_id
 
 
@@ -100,7 +104,13 @@ def test_results_have_the_figures_as_columns_matching_the_results_export(store: 
     db = s.reader
     rows = list(db.query("SELECT * FROM sensor_results WHERE run_id = ? ORDER BY result_id", [rec]))
     assert [(r["source"], r["latest"]) for r in rows] == [("live", 0), ("final", 1)]
-    assert rows[0]["flags"] == "drift;short window"
+    live = rows[0]
+    assert live["flags"] == "drift;short window" and live["method"] is None
+    stored = json.loads(next(iter(db.query("SELECT data FROM results WHERE id = ?", [live["result_id"]])))["data"])
+    assert live["k_W_per_mK"] == stored["k_W_per_mK"] and live["resistivity_mK_per_W"] == pytest.approx(
+        1 / stored["k_W_per_mK"])
+    assert live["alpha_mm2_per_s"] == pytest.approx(stored["alpha_m2_per_s"] * 1e6)
+    assert [live["window_start_s"], live["window_end_s"]] == stored["window_s"]
     latest = rows[1]
     export = result_rows([run_detail(db, rec)])  # the export reads the JSON; the view must agree with it
     assert len(export) == 1

@@ -166,7 +166,7 @@ def _heating_choices(h: Heating, layout: Layout, roles: Roles, t: np.ndarray, q:
     on_line, on_cells = layout.rows[h.on]
     stamp = " ".join(on_cells[c.index] for c in roles.time)
     out = [Choice("heater on", f"line {on_line} (logger time {stamp}), taken as t = 0",
-                  RULE.format(f=m.on_fraction) + f": plateau {h.plateau:.4g} {unit}", "[heater] on_fraction"),
+                  RULE.format(f=m.on_fraction, plateau=f"{h.plateau:.4g} {unit}"), "[heater] on_fraction"),
            Choice("baseline", f"{h.on} rows, {-t[0]:g} s before heating", "the rows before the heater came on")]
     heating_rows = q[h.on:h.off]
     if h.off is not None:

@@ -16,8 +16,8 @@ import numpy as np
 
 from .errors import LoggerImportError
 
-RULE = ("the first row whose power reaches {f:.0%} of the heating plateau (the median of the readings above half "
-        "the largest)")
+RULE = ("the first row at {f:.0%} or more of the heating plateau, {plateau}, the median of the readings above half "
+        "the largest")
 
 
 @dataclass(frozen=True)

@@ -85,7 +85,9 @@ FROM samples AS s JOIN runs AS r ON r.id = s.run_id, json_each(s.temps_C) AS t
 """
 
 # One row per stored result and sensor with the main figures as columns (the JSON in results.data keeps the rest);
-# latest is 1 for the newest result of its run and sensor, the one reports and exports use.
+# latest is 1 for the newest result of its run and sensor, the one reports and exports use. A live estimate (source
+# "live": the running line fit at heater-off) stores k and α in its own keys and no method or resistivity; the
+# view gives its resistivity from k and its α in mm²/s, and leaves the method null.
 SENSOR_RESULTS = """
 CREATE VIEW sensor_results AS
 SELECT x.id AS result_id, x.run_id AS run_id, r.site AS site, r.location AS location, r.depth_m AS depth_m,
@@ -94,9 +96,10 @@ SELECT x.id AS result_id, x.run_id AS run_id, r.site AS site, r.location AS loca
        x.id = (SELECT max(y.id) FROM results AS y WHERE y.run_id = x.run_id AND y.sensor = x.sensor) AS latest,
        x.method AS method, x.k_W_per_mK AS k_W_per_mK, x.k_u_W_per_mK AS k_u_W_per_mK,
        json_extract(x.data, '$.k_U_W_per_mK') AS k_U_W_per_mK,
-       json_extract(x.data, '$.resistivity_mK_per_W') AS resistivity_mK_per_W,
-       json_extract(x.data, '$.resistivity_Ccm_per_W') AS resistivity_Ccm_per_W,
-       json_extract(x.data, '$.alpha_mm2_per_s') AS alpha_mm2_per_s,
+       coalesce(json_extract(x.data, '$.resistivity_mK_per_W'), 1.0 / x.k_W_per_mK) AS resistivity_mK_per_W,
+       coalesce(json_extract(x.data, '$.resistivity_Ccm_per_W'), 100.0 / x.k_W_per_mK) AS resistivity_Ccm_per_W,
+       coalesce(json_extract(x.data, '$.alpha_mm2_per_s'), json_extract(x.data, '$.alpha_m2_per_s') * 1e6)
+           AS alpha_mm2_per_s,
        json_extract(x.data, '$.rho_c_MJ_per_m3K') AS rho_c_MJ_per_m3K,
        json_extract(x.data, '$.window_s[0]') AS window_start_s,
        json_extract(x.data, '$.window_s[1]') AS window_end_s,
