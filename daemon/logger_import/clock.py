@@ -58,26 +58,39 @@ class Where:
         return f"{self.name}: line {self.line}, column {self.column}: {self.text!r}"
 
 
-def _match(pattern: re.Pattern[str], w: Where, what: str) -> re.Match[str]:
-    m = pattern.match(w.text.strip())
-    if m is None:
-        raise LoggerImportError(f"{w}: not a {what} like the rows above it")
-    return m
+@dataclass(frozen=True)
+class Cells:
+    """One column's cells (stripped) with their file lines; a Where is made only for a message."""
+
+    name: str
+    column: str
+    lines: Sequence[int]
+    texts: Sequence[str]
+
+    def at(self, i: int) -> Where:
+        return Where(self.name, self.lines[i], self.column, self.texts[i])
+
+    def matches(self, pattern: re.Pattern[str], what: str) -> list[re.Match[str]]:
+        found = [pattern.match(t) for t in self.texts]
+        for i, m in enumerate(found):
+            if m is None:
+                raise LoggerImportError(f"{self.at(i)}: not a {what} like the rows above it")
+        return found  # type: ignore[return-value]
 
 
-def _clock_seconds(m: re.Match[str], w: Where) -> tuple[int, float, int | None]:
+def _clock_seconds(m: re.Match[str], cells: Cells, i: int) -> tuple[int, float, int | None]:
     """Whole seconds since midnight, the fraction, and the zone offset in minutes (None: local time)."""
-    h, mi, s = int(m["H"]), int(m["M"]), int(m["S"] or 0)
-    if m["P"]:
+    hh, mm, ss, ff, ampm, z = m.group("H", "M", "S", "F", "P", "Z")
+    h, mi, s = int(hh), int(mm), int(ss or 0)
+    if ampm:
         if not 1 <= h <= 12:
-            raise LoggerImportError(f"{w}: hour {h} with AM/PM")
-        h = h % 12 + (12 if m["P"][0] in "Pp" else 0)
+            raise LoggerImportError(f"{cells.at(i)}: hour {h} with AM/PM")
+        h = h % 12 + (12 if ampm[0] in "Pp" else 0)
     if h > 23 or mi > 59 or s > 59:
-        raise LoggerImportError(f"{w}: not a time of day")
-    frac = float("0." + m["F"]) if m["F"] else 0.0
+        raise LoggerImportError(f"{cells.at(i)}: not a time of day")
+    frac = float("0." + ff) if ff else 0.0
     zone = None
-    if m["Z"]:
-        z = m["Z"]
+    if z:
         if z in ("Z", "UTC"):
             zone = 0
         else:
@@ -86,53 +99,63 @@ def _clock_seconds(m: re.Match[str], w: Where) -> tuple[int, float, int | None]:
     return h * 3600 + mi * 60 + s, frac, zone
 
 
-def date_order(cells: Sequence[Where], pattern: re.Pattern[str], given: str | None) -> tuple[str, Choice]:
+def date_order(cells: Cells, found: Sequence[re.Match[str]], given: str | None) -> tuple[str, Choice]:
     """Year-first, day-first or month-first for a whole column, from its own values where they decide it."""
-    found = [(w, _match(pattern, w, "date")) for w in cells]
-    year_first = [w for w, m in found if len(m["a"]) == 4]
-    if year_first:
-        other = next((w for w, m in found if len(m["a"]) != 4), None)
-        if other is not None:
-            raise LoggerImportError(f"{other}: the date is not year-first like {year_first[0].text!r} on line "
-                                    f"{year_first[0].line}")
+    year_first = [len(m["a"]) == 4 for m in found]
+    if any(year_first):
+        first = year_first.index(True)
+        if not all(year_first):
+            raise LoggerImportError(f"{cells.at(year_first.index(False))}: the date is not year-first like "
+                                    f"{cells.texts[first]!r} on line {cells.lines[first]}")
         if given not in (None, "year-first"):
-            raise LoggerImportError(f"{year_first[0]}: the date starts with the year, but {ORDER_KEY} = {given!r}")
+            raise LoggerImportError(f"{cells.at(first)}: the date starts with the year, but {ORDER_KEY} = {given!r}")
         return "year-first", Choice("date order", "year-first", "the year comes first")
-    day = next((w for w, m in found if int(m["a"]) > 12), None)
-    month = next((w for w, m in found if int(m["b"]) > 12), None)
-    if day and month:
-        raise LoggerImportError(f"{day} puts the day first and line {month.line}: {month.text!r} the month; "
-                                "correct the file")
-    told = "day-first" if day else "month-first" if month else None
+    day = next((i for i, m in enumerate(found) if int(m["a"]) > 12), None)
+    month = next((i for i, m in enumerate(found) if int(m["b"]) > 12), None)
+    if day is not None and month is not None:
+        raise LoggerImportError(f"{cells.at(day)} puts the day first and line {cells.lines[month]}: "
+                                f"{cells.texts[month]!r} the month; correct the file")
+    told = "day-first" if day is not None else "month-first" if month is not None else None
+    evidence = day if day is not None else month
     if given is not None:
         if told is not None and told != given:
-            raise LoggerImportError(f"{day or month} is {told}, but {ORDER_KEY} = {given!r}")
+            raise LoggerImportError(f"{cells.at(evidence)} is {told}, but {ORDER_KEY} = {given!r}")  # type: ignore[arg-type]
         return given, Choice("date order", given, "from the map")
-    if told is None:
-        w, m = found[0]
+    if told is None or evidence is None:
+        m = found[0]
         raise LoggerImportError(
-            f"{w}: the day/month order cannot be told (no day above 12 in the column): {m['a']}{m['sep']}{m['b']} "
-            f"could be day {m['a']} of month {m['b']} or the reverse; set {ORDER_KEY} = \"day-first\" or "
+            f"{cells.at(0)}: the day/month order cannot be told (no day above 12 in the column): {m['a']}{m['sep']}"
+            f"{m['b']} could be day {m['a']} of month {m['b']} or the reverse; set {ORDER_KEY} = \"day-first\" or "
             "\"month-first\" in the map")
-    evidence = day or month
-    assert evidence is not None
-    return told, Choice("date order", told, f"line {evidence.line}: {evidence.text!r} can only be read so",
-                        ORDER_KEY)
+    return told, Choice("date order", told, f"line {cells.lines[evidence]}: {cells.texts[evidence]!r} can only be "
+                        "read so", ORDER_KEY)
 
 
-def _day_number(m: re.Match[str], order: str, w: Where) -> int:
-    a, b, c = int(m["a"]), int(m["b"]), int(m["c"])
+def _day_numbers(cells: Cells, found: Sequence[re.Match[str]], order: str) -> list[int]:
+    """Date ordinals (each distinct date worked out once)."""
+    known: dict[tuple[str, str, str], int] = {}
+    out = []
+    for i, m in enumerate(found):
+        key = (m["a"], m["b"], m["c"])
+        if key not in known:
+            known[key] = _day_number(key, order, cells, i)
+        out.append(known[key])
+    return out
+
+
+def _day_number(abc: tuple[str, str, str], order: str, cells: Cells, i: int) -> int:
+    a, b, c = (int(x) for x in abc)
     if order == "year-first":
         y, mo, d = a, b, c
     else:
-        if len(m["c"]) not in (2, 4):
-            raise LoggerImportError(f"{w}: the year must have two or four digits")
-        y = c + 2000 if len(m["c"]) == 2 else c
+        if len(abc[2]) not in (2, 4):
+            raise LoggerImportError(f"{cells.at(i)}: the year must have two or four digits")
+        y = c + 2000 if len(abc[2]) == 2 else c
         d, mo = (a, b) if order == "day-first" else (b, a)
     try:
         return dt.date(y, mo, d).toordinal()
     except ValueError as e:
-        raise LoggerImportError(f"{w}: not a date ({e}) when read {order}") from e
+        raise LoggerImportError(f"{cells.at(i)}: not a date ({e}) when read {order}") from e
 
 
 @dataclass(frozen=True)
@@ -143,47 +166,49 @@ class WallTime:
     notes: list[Choice]
 
 
-def from_timestamps(stamps: Sequence[Where], order: str) -> WallTime:
-    """A timestamp column (date and time in one cell)."""
-    matches = [_match(STAMP, w, "timestamp") for w in stamps]
-    return _wall(stamps, [_day_number(m, order, w) for w, m in zip(stamps, matches, strict=True)], matches)
+def from_timestamps(stamps: Cells, given_order: str | None) -> tuple[WallTime, Choice]:
+    """A timestamp column (date and time in one cell), and how its date order was settled."""
+    found = stamps.matches(STAMP, "timestamp")
+    order, how = date_order(stamps, found, given_order)
+    return _wall(stamps, _day_numbers(stamps, found, order), found), how
 
 
-def from_date_and_clock(dates: Sequence[Where], clocks: Sequence[Where], order: str) -> WallTime:
+def from_date_and_clock(dates: Cells, clocks: Cells, given_order: str | None) -> tuple[WallTime, Choice]:
     """A date column and a clock column read together."""
-    days = [_day_number(_match(DATE, w, "date"), order, w) for w in dates]
-    return _wall(clocks, days, [_match(CLOCK, w, "clock time") for w in clocks])
+    found = dates.matches(DATE, "date")
+    order, how = date_order(dates, found, given_order)
+    return _wall(clocks, _day_numbers(dates, found, order), clocks.matches(CLOCK, "clock time")), how
 
 
-def from_clock(clocks: Sequence[Where]) -> WallTime:
+def from_clock(clocks: Cells) -> WallTime:
     """Clock times alone; a step back of more than 12 h is taken as midnight passing (and said)."""
-    matches = [_match(CLOCK, w, "clock time") for w in clocks]
+    found = clocks.matches(CLOCK, "clock time")
     days, day, prev = [], 0, None
     notes: list[Choice] = []
-    for w, m in zip(clocks, matches, strict=True):
-        sod = _clock_seconds(m, w)[0]
+    for i, m in enumerate(found):
+        sod = _clock_seconds(m, clocks, i)[0]
         if prev is not None and sod < prev:
             if prev - sod <= 12 * 3600:
-                raise LoggerImportError(f"{w}: the clock goes back from line {w.line - 1}'s; rows must be in time "
-                                        "order")
+                raise LoggerImportError(f"{clocks.at(i)}: the clock goes back from line {clocks.lines[i - 1]}'s; "
+                                        "rows must be in time order")
             day += 1
-            notes.append(Choice("midnight", f"passed before line {w.line}", "the clock time went back by over 12 h"))
+            notes.append(Choice("midnight", f"passed before line {clocks.lines[i]}",
+                                "the clock time went back by over 12 h"))
         prev = sod
         days.append(day)
-    wall = _wall(clocks, days, matches)
-    return WallTime(wall.seconds, notes)
+    return WallTime(_wall(clocks, days, found).seconds, notes)
 
 
-def _wall(cells: Sequence[Where], days: Sequence[int], matches: Sequence[re.Match[str]]) -> WallTime:
+def _wall(cells: Cells, days: Sequence[int], found: Sequence[re.Match[str]]) -> WallTime:
     """``days``: date ordinals, or whole days since the first row for clock times alone."""
     whole: list[int] = []
     fracs: list[float] = []
     zoned: set[bool] = set()
-    for w, day, m in zip(cells, days, matches, strict=True):
-        sod, frac, zone = _clock_seconds(m, w)
+    for i, (day, m) in enumerate(zip(days, found, strict=True)):
+        sod, frac, zone = _clock_seconds(m, cells, i)
         zoned.add(zone is not None)
         if len(zoned) > 1:
-            raise LoggerImportError(f"{w}: some times carry a time zone and others do not")
+            raise LoggerImportError(f"{cells.at(i)}: some times carry a time zone and others do not")
         whole.append(day * 86400 + sod - (zone or 0) * 60)
         fracs.append(frac)
     seconds = (np.asarray(whole, dtype=np.int64) - whole[0]).astype(float) + (np.asarray(fracs) - fracs[0])

@@ -14,7 +14,7 @@ from .errors import Choice, LoggerImportError
 from .heater import RULE, Heating, find_heating, per_metre
 from .layout import Layout, find_layout
 from .mapping import LoggerMap
-from .numbers import decimal_mark, parse_number
+from .numbers import decimal_mark, parse_column, parse_number
 from .roles import NUMBER, Column, Roles, assign_roles, describe_columns
 from .source import decode, lines_of
 from .units import CURRENT, POWER, TEMPERATURE, TIME, VOLTAGE, Q
@@ -54,16 +54,17 @@ def import_logger(raw: bytes, name: str, m: LoggerMap, *, length_mm: float | Non
     cols = describe_columns(layout.names, layout.units, layout.units_line, layout.rows, m)
     roles = assign_roles(cols, m, name)
     choices = [encoding, *layout.choices, *roles.choices]
-    numeric = [*roles.temperatures.values(), *roles.power, *(roles.time if roles.time[0].kind == NUMBER else ())]
-    decimal, how = decimal_mark(((i, c.label, cells[c.index]) for i, cells in layout.rows for c in numeric),
-                                layout.delimiter, name, m.decimal)
+    numeric = sorted({c.index: c for c in (*roles.temperatures.values(), *roles.power,
+                                            *(roles.time if roles.time[0].kind == NUMBER else ()))}.values(),
+                     key=lambda c: c.index)
+    decimal, how = decimal_mark([_cells(layout, c, name) for c in numeric], layout.delimiter, name, m.decimal)
     choices.append(how)
     lines = [i for i, _ in layout.rows]
     seconds = _seconds(layout, roles, decimal, m, name, choices)
     temps = {}
     for sensor, col in roles.temperatures.items():
         unit, said = col.unit_for(TEMPERATURE, name, f"[columns] temperatures.{sensor}")
-        temps[sensor] = np.array([unit.convert(v) for v in _numbers(layout, col, decimal, name)])
+        temps[sensor] = unit.convert(_numbers(layout, col, decimal, name))
         choices.append(Choice(f"unit of {sensor}", unit.symbol, said, f"[units] \"{col.name}\""))
     power, where = _power(layout, roles, decimal, name, choices)
     heating = find_heating(power, m.on_fraction, lines, where, name)
@@ -78,43 +79,40 @@ def import_logger(raw: bytes, name: str, m: LoggerMap, *, length_mm: float | Non
     return Imported(RunData(t, q, temps), name, choices)
 
 
-def _numbers(layout: Layout, col: Column, decimal: str, name: str) -> list[float]:
-    out = []
-    for i, cells in layout.rows:
-        text = cells[col.index]
-        v = parse_number(text, decimal)
-        if v is None:
-            what = "is empty" if not text else f"{text!r} is not a number"
-            raise LoggerImportError(f"{name}: line {i}, column {col.label}: {what}"
-                                    f"{' (decimal mark ' + repr(decimal) + ')' if text else ''}; every row needs "
-                                    "a value: correct the cell or remove the row")
-        out.append(v)
-    return out
+def _numbers(layout: Layout, col: Column, decimal: str, name: str) -> np.ndarray:
+    values = parse_column([cells[col.index].strip() for _, cells in layout.rows], decimal)
+    if values is not None:
+        return values
+    for i, cells in layout.rows:  # the first cell that is not a number, for the message
+        text = cells[col.index].strip()
+        if parse_number(text, decimal) is None:
+            what = "is empty" if not text else f"{text!r} is not a number (decimal mark {decimal!r})"
+            raise LoggerImportError(f"{name}: line {i}, column {col.label}: {what}; every row needs a value: "
+                                    "correct the cell or remove the row")
+    raise AssertionError("parse_column and parse_number disagree")  # pragma: no cover
 
 
-def _cells(layout: Layout, col: Column, name: str) -> list[clock.Where]:
-    return [clock.Where(name, i, col.label, cells[col.index]) for i, cells in layout.rows]
+def _cells(layout: Layout, col: Column, name: str) -> clock.Cells:
+    return clock.Cells(name, col.label, [i for i, _ in layout.rows],
+                       [cells[col.index].strip() for _, cells in layout.rows])
 
 
 def _seconds(layout: Layout, roles: Roles, decimal: str, m: LoggerMap, name: str,
              choices: list[Choice]) -> np.ndarray:
     time = roles.time
     if len(time) == 2:
-        dates, clocks = _cells(layout, time[0], name), _cells(layout, time[1], name)
-        order, how = clock.date_order(dates, clock.DATE, m.date_order)
+        wall, how = clock.from_date_and_clock(_cells(layout, time[0], name), _cells(layout, time[1], name),
+                                              m.date_order)
         choices.append(how)
-        wall = clock.from_date_and_clock(dates, clocks, order)
     elif time[0].kind == clock.STAMP_KIND:
-        stamps = _cells(layout, time[0], name)
-        order, how = clock.date_order(stamps, clock.STAMP, m.date_order)
+        wall, how = clock.from_timestamps(_cells(layout, time[0], name), m.date_order)
         choices.append(how)
-        wall = clock.from_timestamps(stamps, order)
     elif time[0].kind == clock.CLOCK_KIND:
         wall = clock.from_clock(_cells(layout, time[0], name))
     else:
         unit, said = time[0].unit_for(TIME, name, "[columns] time")
         choices.append(Choice("unit of the time", unit.symbol, said, f"[units] \"{time[0].name}\""))
-        wall = clock.WallTime(clock.from_elapsed(np.array(_numbers(layout, time[0], decimal, name)), unit.scale), [])
+        wall = clock.WallTime(clock.from_elapsed(_numbers(layout, time[0], decimal, name), unit.scale), [])
     choices += wall.notes
     s = wall.seconds
     bad = np.flatnonzero(np.diff(s) <= 0)
@@ -123,9 +121,9 @@ def _seconds(layout: Layout, roles: Roles, decimal: str, m: LoggerMap, name: str
         (prev, _), (line, cells) = layout.rows[k - 1], layout.rows[k]
         col = time[-1]
         raise LoggerImportError(
-            f"{name}: line {line}, column {col.label}: {cells[col.index]!r} is not later than line {prev}'s; time "
-            "must increase from row to row (timestamps too coarse for the logging rate? export them with fractions "
-            "of a second, or use an elapsed-time column)")
+            f"{name}: line {line}, column {col.label}: {cells[col.index].strip()!r} is not later than line {prev}'s; "
+            "time must increase from row to row (timestamps too coarse for the logging rate? export them with "
+            "fractions of a second, or use an elapsed-time column)")
     return s
 
 
@@ -138,14 +136,14 @@ def _power(layout: Layout, roles: Roles, decimal: str, name: str,
         a_unit, a_said = a_col.unit_for(CURRENT, name, "[columns] current")
         choices.append(Choice("unit of the volts", v_unit.symbol, v_said, f"[units] \"{v_col.name}\""))
         choices.append(Choice("unit of the amps", a_unit.symbol, a_said, f"[units] \"{a_col.name}\""))
-        volts = np.array([v_unit.convert(x) for x in _numbers(layout, v_col, decimal, name)])
-        amps = np.array([a_unit.convert(x) for x in _numbers(layout, a_col, decimal, name)])
+        volts = v_unit.convert(_numbers(layout, v_col, decimal, name))
+        amps = a_unit.convert(_numbers(layout, a_col, decimal, name))
         return volts * amps, f"{v_col.label} × {a_col.label}"
     col = roles.power[0]
     quantity, key = (Q, "[columns] q") if roles.power_kind == "q" else (POWER, "[columns] power")
     unit, said = col.unit_for(quantity, name, key)
     choices.append(Choice("unit of the power", unit.symbol, said, f"[units] \"{col.name}\""))
-    return np.array([unit.convert(x) for x in _numbers(layout, col, decimal, name)]), col.label
+    return unit.convert(_numbers(layout, col, decimal, name)), col.label
 
 
 def _length(m: LoggerMap, length_mm: float | None, length_from: str, name: str) -> tuple[float, str]:
@@ -164,7 +162,7 @@ def _heating_choices(h: Heating, layout: Layout, roles: Roles, t: np.ndarray, q:
                      power: np.ndarray) -> list[Choice]:
     unit = "W/m" if roles.power_kind == "q" else "W"
     on_line, on_cells = layout.rows[h.on]
-    stamp = " ".join(on_cells[c.index] for c in roles.time)
+    stamp = " ".join(on_cells[c.index].strip() for c in roles.time)
     out = [Choice("heater on", f"line {on_line} (logger time {stamp}), taken as t = 0",
                   RULE.format(f=m.on_fraction, plateau=f"{h.plateau:.4g} {unit}"), "[heater] on_fraction"),
            Choice("baseline", f"{h.on} rows, {-t[0]:g} s before heating", "the rows before the heater came on")]

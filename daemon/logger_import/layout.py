@@ -32,16 +32,17 @@ class Layout:
     names: list[str]
     units_line: int | None
     units: list[str] | None
-    rows: list[tuple[int, list[str]]]  # (line number, cells)
+    rows: list[tuple[int, list[str]]]  # (line number, cells as written: strip before use)
     choices: list[Choice]
 
 
 def split(line: str, delimiter: str, name: str, line_no: int) -> list[str]:
-    """The cells of a line; a quote left open is an error naming the line."""
+    """The cells of a line, unstripped (a data row's cells are stripped when their column is read); a quote left
+    open is an error naming the line."""
     if '"' not in line:
-        return [c.strip() for c in line.split(delimiter)]
+        return line.split(delimiter)
     try:
-        return [c.strip() for c in next(csv.reader([line], delimiter=delimiter, strict=True))]
+        return next(csv.reader([line], delimiter=delimiter, strict=True))
     except csv.Error as e:
         raise LoggerImportError(f"{name}: line {line_no}: a quoted cell is not closed ({e})") from e
 
@@ -98,10 +99,10 @@ def find_layout(lines: list[str], name: str, *, delimiter: str | None = None, he
         units_pos = _units_after(numbered, pos, d, name, units_line)
         choices.append(Choice("header", f"line {header_line}", "from the map"))
     header_at = numbered[pos][0]
-    names = split(numbered[pos][1], d, name, header_at)
+    names = [c.strip() for c in split(numbered[pos][1], d, name, header_at)]
     units = None
     if units_pos is not None:
-        units = split(numbered[units_pos][1], d, name, numbered[units_pos][0])
+        units = [c.strip() for c in split(numbered[units_pos][1], d, name, numbered[units_pos][0])]
         choices.append(Choice("units line", f"line {numbered[units_pos][0]}", "from the map" if units_line else
                               "a line of units under the header", "[file] units_line"))
     if pos > 0:

@@ -80,10 +80,9 @@ def describe_columns(names: Sequence[str], units_row: Sequence[str] | None, unit
             unit_text, unit_from = units_row[i].strip(), f"units line {units_line}"
         elif from_name is not None:
             unit_text, unit_from = from_name, "its name"
-        cells = [r[i] for r in sample]
-        filled = [c for c in cells if c]
+        filled = [c for r in sample if (c := r[i].strip())]
         kind = kind_of(filled) or (NUMBER if mostly(looks_numeric(c) for c in filled) else TEXT)
-        if not any(cells):
+        if not filled:
             kind = EMPTY
         cols.append(Column(i, name, base or name, parse_unit(unit_text) if unit_text else None, unit_text,
                            unit_from, kind))

@@ -9,6 +9,8 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
+import numpy as np
+
 TEMPERATURE, VOLTAGE, CURRENT, POWER, Q, TIME = "temperature", "voltage", "current", "power", "q", "time"
 
 
@@ -21,7 +23,7 @@ class Unit:
     scale: float = 1.0
     offset: float = 0.0
 
-    def convert(self, x: float) -> float:
+    def convert(self, x: np.ndarray) -> np.ndarray:
         return x * self.scale + self.offset
 
 
