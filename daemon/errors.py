@@ -9,7 +9,9 @@ RunRequestError         a start/stop request that cannot be honoured now
 
 Kept beside the code that raises them: StoreError (daemon.store.writer: the database takes no more writes),
 PlanError (daemon.controller: a run plan value, with its key), RequestError (daemon.api: a request refused,
-sent back to the client as its error text), TransitionError (daemon.controller: a bug, never an operator's).
+sent back to the client as its error text), TransitionError (daemon.controller: a bug, never an operator's),
+RunCsvError (daemon.runcsv: a run CSV, by line and column), LoggerImportError and MapError (daemon.logger_import:
+a logger's export by line and column, a mapping file by key and line).
 """
 
 from __future__ import annotations
