@@ -139,6 +139,16 @@ def test_a_second_heating_in_one_file(capsys: pytest.CaptureFixture[str], tmp_pa
             "split the file", "[heater] on_fraction")
 
 
+def test_a_heater_not_quite_off_is_not_written_as_off(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:
+    text = with_cell(lines(), 4, 3, "0,60")  # 12 % of the 5 W/m plateau in the baseline
+    refused(capsys, tmp_path, text, "line 4, column 'q': the heater reads 0.6 with the heater taken as off",
+            "more than 5% of its plateau", "[heater] on_fraction")
+    rc, out, err = run_import(capsys, tmp_path, with_cell(lines(), 4, 3, "0,02"))  # a shunt's offset
+    assert rc == 0, err
+    assert "off readings: up to 0.02 W/m, written as 0" in out
+    assert read_run_csv(tmp_path / "run.csv").q_W_per_m[1] == 0.0
+
+
 def test_watts_without_a_heater_length(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:
     refused(capsys, tmp_path, lines(header="Timestamp;T1;P", units=";°C;W"), "the heater power is in W",
             "set [heater] length_mm")

@@ -75,7 +75,7 @@ def import_logger(raw: bytes, name: str, m: LoggerMap, *, length_mm: float | Non
         choices.append(Choice("heater length", f"{length:g} mm", said))
         q = per_metre(heating.held(power), length)
     t = seconds - seconds[heating.on]
-    choices += _heating_choices(heating, layout, roles, t, q, m, power)
+    choices += _heating_choices(heating, layout, roles, t, q, m)
     return Imported(RunData(t, q, temps), name, choices)
 
 
@@ -158,8 +158,8 @@ def _length(m: LoggerMap, length_mm: float | None, length_from: str, name: str) 
                             "length) to turn it into W/m")
 
 
-def _heating_choices(h: Heating, layout: Layout, roles: Roles, t: np.ndarray, q: np.ndarray, m: LoggerMap,
-                     power: np.ndarray) -> list[Choice]:
+def _heating_choices(h: Heating, layout: Layout, roles: Roles, t: np.ndarray, q: np.ndarray,
+                     m: LoggerMap) -> list[Choice]:
     unit = "W/m" if roles.power_kind == "q" else "W"
     on_line, on_cells = layout.rows[h.on]
     stamp = " ".join(on_cells[c.index].strip() for c in roles.time)

@@ -3,8 +3,8 @@
 The rule: the heating plateau is the median of the readings above half the largest; the heater is on in the rows
 whose power is at least ``on_fraction`` (default one half) of that plateau. Time zero is the first such row, so its
 power is held from t = 0 as the run CSV has it, and the rows before it are the baseline (negative time). Readings
-of the heater while off (offsets, noise) are written as 0. One heating per file: a heater that comes on again
-after going off is an error, never a silent merge.
+of the heater while off (offsets, noise) are written as 0, up to 5 % of the plateau; a larger one is an error.
+One heating per file: a heater that comes on again after going off is an error, never a silent merge.
 """
 
 from __future__ import annotations
@@ -16,6 +16,7 @@ import numpy as np
 
 from .errors import LoggerImportError
 
+OFF_LIMIT = 0.05  # off readings above this fraction of the plateau are not offsets: refused, not zeroed
 RULE = ("the first row at {f:.0%} or more of the heating plateau, {plateau}, the median of the readings above half "
         "the largest")
 
@@ -61,7 +62,16 @@ def find_heating(power: np.ndarray, on_fraction: float, lines: Sequence[int], co
             "power only dipped")
     off_rows = np.ones(p.shape[0], dtype=bool)
     off_rows[first:off] = False
-    largest_off = float(np.max(np.abs(p[off_rows]))) if off_rows.any() else 0.0
+    largest_off = 0.0
+    if off_rows.any():
+        k = int(np.argmax(np.where(off_rows, np.abs(p), -1.0)))
+        largest_off = float(abs(p[k]))
+        if largest_off > OFF_LIMIT * plateau:
+            raise LoggerImportError(
+                f"{name}: line {lines[k]}, column {column}: the heater reads {p[k]:.4g} with the heater taken as off, "
+                f"more than {OFF_LIMIT:.0%} of its plateau ({plateau:.4g}): a pre-heat, a heater not quite off, or "
+                "a second power level cannot be written as off; lower [heater] on_fraction if these rows are heating, "
+                "or cut them from the file")
     return Heating(first, off, plateau, threshold, largest_off)
 
 
