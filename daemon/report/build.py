@@ -12,7 +12,7 @@ from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.reduction.api import RunReduction
 from linerig.daemon.reduction.data import RunData
 from linerig.daemon.workflows.calibration import CalibrationStatus
-from linerig.daemon.workflows.profiles import ProfilePoint, group_profiles, summarise_depths
+from linerig.daemon.workflows.profiles import ProfilePoint, group_profiles, row_label, summarise_depths
 
 from . import plots
 from .model import Bullets, Figure, Heading, Para, Report, Table
@@ -174,7 +174,7 @@ def _factor(red: RunReduction | None, stored: dict[str, dict[str, Any]] | None) 
 
 def site_report(site: str, runs: Sequence[dict[str, Any]], points: Sequence[ProfilePoint],
                 calibrations: Sequence[dict[str, Any]], borehole: str | None = None,
-                run_figures: dict[int, bytes] | None = None) -> Report:
+                run_figures: dict[str, bytes] | None = None) -> Report:
     """A site (or one borehole): every run's result, depth profiles with plots, calibrations used, cautions."""
     what = f"{site}, borehole {borehole}" if borehole else site
     rep = Report(f"Thermal resistivity survey — {what}", f"linerig site report, generated {now_utc()}")
@@ -184,12 +184,12 @@ def site_report(site: str, runs: Sequence[dict[str, Any]], points: Sequence[Prof
         for sensor, res in (r.get("results") or {}).items():
             flags_seen.update(res.get("flags") or [])
             k = res.get("k_W_per_mK")
-            rows.append((str(r["id"]), str(r.get("created_utc") or "")[:16], str(r.get("location") or "—"),
+            rows.append((row_label(r), str(r.get("created_utc") or "")[:16], str(r.get("location") or "—"),
                          f(r.get("depth_m"), 3), str(r.get("sample") or "—"), sensor, f(k),
                          f(2 * res["k_u_W_per_mK"] if res.get("k_u_W_per_mK") else None, 2),
                          f(100 / k if k else None), ", ".join(res.get("flags") or []) or "none"))
         if not r.get("results"):
-            rows.append((str(r["id"]), str(r.get("created_utc") or "")[:16], str(r.get("location") or "—"),
+            rows.append((row_label(r), str(r.get("created_utc") or "")[:16], str(r.get("location") or "—"),
                          f(r.get("depth_m"), 3), str(r.get("sample") or "—"), "—", "—", "—", "—",
                          f"no result ({r.get('state') or '?'})"))
     rep.add(Heading("Runs"), Table(("run", "started", "borehole", "tip depth m", "sample", "sensor", "k W/(m·K)",
@@ -216,7 +216,7 @@ def site_report(site: str, runs: Sequence[dict[str, Any]], points: Sequence[Prof
     rep.add(Heading("Calibrations of the probes used"))
     if calibrations:
         rep.add(Table(("probe", "id", "made", "reference", "factor", "u", "accepted", "valid until"), tuple(
-            (str(c.get("probe_serial")), str(c.get("id")), str(c.get("created_utc") or "")[:10],
+            (str(c.get("probe_serial")), row_label(c), str(c.get("created_utc") or "")[:10],
              str(c.get("reference") or ""), f(c.get("factor"), 5), f(c.get("factor_u"), 2),
              "yes" if c.get("accepted") else "no", str(c.get("expires_utc") or "")[:10]) for c in calibrations)))
     else:
