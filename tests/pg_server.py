@@ -104,3 +104,40 @@ def pg_server() -> Iterator[PgServer]:
                 srv.run(str(bindir / "pg_ctl"), "-D", str(folder / "data"), "-m", "immediate", "-w", "stop")
     finally:
         shutil.rmtree(folder, ignore_errors=True)
+
+
+class CentralDb:
+    """One fresh database on the test server, with the central schema up to ``upto`` (None: none at all) and login
+    roles made for it (role names start with the database's, since roles are shared by the whole server)."""
+
+    _count = 0
+
+    def __init__(self, srv: PgServer, upto: int | None) -> None:
+        import psycopg
+
+        from linerig.daemon.central.schema import migrate
+
+        CentralDb._count += 1
+        self.srv = srv
+        self.name = f"central{CentralDb._count}"
+        with psycopg.connect(srv.url(), autocommit=True) as conn:
+            conn.execute(f"CREATE DATABASE {self.name}")
+        self.admin_url = srv.url(self.name)
+        if upto is not None:
+            with psycopg.connect(self.admin_url) as conn:
+                migrate(conn, upto=upto)
+
+    def role(self, short: str, group: str = "linerig_rig") -> str:
+        """A login role in ``group`` (linerig_rig or linerig_reader, or "" for none); its connection URL."""
+        import psycopg
+
+        name = f"{self.name}_{short}"
+        with psycopg.connect(self.admin_url, autocommit=True) as conn:
+            conn.execute(f'CREATE ROLE "{name}" LOGIN' + (f" IN ROLE {group}" if group else ""))
+        return self.srv.url(self.name, name)
+
+    def query(self, sql: str, params: tuple[object, ...] = ()) -> list[tuple[object, ...]]:
+        import psycopg
+
+        with psycopg.connect(self.admin_url) as conn:
+            return conn.execute(sql, params).fetchall()  # type: ignore[arg-type]

@@ -10,17 +10,19 @@ from __future__ import annotations
 import functools
 import json
 import sqlite3
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import psycopg
 import sqlite_utils
 from psycopg.rows import dict_row
 
 from linerig.daemon.central.schema import READER_NEEDS, require
-from linerig.daemon.probe import ProbeProfile
-from linerig.daemon.report.sources import RunRecord, SourceError, profiles_from_rows, record_of
 from linerig.daemon.store import schema as local_schema
 from linerig.daemon.store.queries import arrays_from_samples, assemble_detail
+
+if TYPE_CHECKING:  # the report's readers pull in the reduction: imported where a run is loaded, not for a listing
+    from linerig.daemon.probe import ProbeProfile
+    from linerig.daemon.report.sources import RunRecord
 
 LIST_COLUMNS = ("id", "created_utc", "ended_utc", "state", "end_reason", "site", "location", "sample", "material",
                 "probe_serial", "series_id", "cycle")
@@ -117,6 +119,8 @@ class CentralRuns:
     def run(self, rig: str, run_id: int) -> dict[str, Any]:
         found = self._details("u.rig = %s AND u.id = %s", (rig, run_id))
         if not found:
+            from linerig.daemon.report.sources import SourceError
+
             raise SourceError(f"no run {run_id} of rig {rig!r} on the central server")
         return found[0]
 
@@ -131,6 +135,8 @@ class CentralRuns:
 
     def probe_profiles(self) -> dict[str, ProbeProfile]:
         """Every rig's probes; a serial on several rigs takes the profile pushed last."""
+        from linerig.daemon.report.sources import profiles_from_rows
+
         return profiles_from_rows(_fetch(self.conn, "SELECT serial, profile_toml FROM linerig.probe_list "
                                                     "ORDER BY pushed_at, rig"))
 
@@ -143,6 +149,8 @@ class CentralRuns:
                       (probe_serial,))
 
     def load_run(self, run: dict[str, Any]) -> RunRecord:
+        from linerig.daemon.report.sources import record_of
+
         detail = run if "results" in run else self.run(str(run["rig"]), int(run["id"]))
         arr = None
         if detail.get("n_samples"):

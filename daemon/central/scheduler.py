@@ -43,6 +43,7 @@ class SyncScheduler:
         self.last_error: str | None = None
         self.last_summary: dict[str, Any] | None = None
         self.progress: dict[str, Any] | None = None
+        self.pushed_since_start: dict[str, int] = {}
         self._next_at: float | None = None
         self._wake = asyncio.Event()
         self._proc: asyncio.subprocess.Process | None = None
@@ -56,7 +57,8 @@ class SyncScheduler:
                 "last_ok_utc": self.last_ok_utc, "last_attempt_utc": self.last_attempt_utc,
                 "last_error": self.last_error, "failures": self.failures,
                 "next_try_in_s": None if left is None else round(left, 1), "progress": self.progress,
-                "last_pushed": last.get("pushed"), "waiting": last.get("waiting")}
+                "last_pushed": last.get("pushed"), "pushed_since_start": dict(self.pushed_since_start),
+                "waiting": last.get("waiting")}
 
     def on_event(self, event: dict[str, Any]) -> None:
         """Hub watcher: a run's results are stored (run_finished comes after the final reduction): push now."""
@@ -88,13 +90,18 @@ class SyncScheduler:
     async def _loop(self) -> None:
         while True:
             self._wake.clear()  # a run that ends during the attempt sets it again: the next one starts at once
-            ok = await self.attempt()
-            delay = self.cfg.interval_s if ok else min(self.cfg.retry_s * 2 ** (self.failures - 1),
-                                                       self.cfg.max_backoff_s)
+            await self.attempt()
+            delay = self.next_delay()
             self._next_at = time.monotonic() + delay
             with contextlib.suppress(TimeoutError):
                 await asyncio.wait_for(self._wake.wait(), delay)
             self._next_at = None
+
+    def next_delay(self) -> float:
+        """interval_s after a good push; after n failures in a row retry_s·2^(n-1), at most max_backoff_s."""
+        if self.failures == 0:
+            return self.cfg.interval_s
+        return min(self.cfg.retry_s * 2 ** (self.failures - 1), self.cfg.max_backoff_s)
 
     async def attempt(self) -> bool:
         """One push as a child process; True when it ended well (or had nothing to push)."""
@@ -121,6 +128,8 @@ class SyncScheduler:
                 self.progress = {k: ev[k] for k in ("runs", "samples", "done", "of", "samples_total") if k in ev}
             elif kind == "done":
                 self.last_summary = ev
+                for table, n in (ev.get("pushed") or {}).items():
+                    self.pushed_since_start[table] = self.pushed_since_start.get(table, 0) + int(n)
             elif kind == "error":
                 error = str(ev.get("message"))
         code = await proc.wait()

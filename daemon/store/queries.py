@@ -8,8 +8,6 @@ from typing import Any
 import numpy as np
 import sqlite_utils
 
-from linerig.daemon.reduction.alignment import power_held_from_each_sample
-
 
 def list_runs(db: sqlite_utils.Database, limit: int = 100, site: str | None = None) -> list[dict[str, Any]]:
     where, params = ("WHERE site = ?", [site]) if site else ("", [])
@@ -72,6 +70,8 @@ def run_arrays(db: sqlite_utils.Database, run_id: int) -> dict[str, Any]:
 def arrays_from_samples(run: dict[str, Any], rows: list[Any]) -> dict[str, Any]:
     """``rows`` (device_s, q_W_per_m, temps_C JSON, phase) in order of n, for the run (heat_start_device_s,
     sensor_names, q_timing) they belong to."""
+    from linerig.daemon.reduction.alignment import power_held_from_each_sample  # the reduction: only when asked
+
     names = json.loads(run["sensor_names"] or "[]")
     t0 = run["heat_start_device_s"] or 0.0
     t = np.array([r[0] for r in rows], dtype=float) - t0

@@ -39,11 +39,11 @@ async def _run(args: argparse.Namespace) -> int:
 def sync_line(sy: dict[str, Any]) -> str:
     """The daemon's push to the central database in one line."""
     where = f"to {sy.get('target')}" + (f" as rig {sy['rig']}" if sy.get("rig") else "")
-    last = f"last pushed {str(sy['last_ok_utc'])[:19].replace('T', ' ')} UTC" if sy.get("last_ok_utc") \
-        else "nothing pushed yet"
-    pushed = sy.get("last_pushed") or {}
+    last = f"in step at {str(sy['last_ok_utc'])[:19].replace('T', ' ')} UTC" if sy.get("last_ok_utc") \
+        else "not yet in step"
+    pushed = sy.get("pushed_since_start") or {}
     if pushed.get("runs") or pushed.get("samples"):
-        last += f" ({pushed.get('runs', 0)} run(s), {pushed.get('samples', 0):,} samples)"
+        last += f" ({pushed.get('runs', 0)} run(s), {pushed.get('samples', 0):,} samples pushed since start)"
     state = sy.get("state")
     if state == "pushing":
         p = sy.get("progress") or {}
