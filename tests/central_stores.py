@@ -6,7 +6,9 @@ session, and copies of it given a new identity, as a second rig's file would hav
 
 from __future__ import annotations
 
+import contextlib
 import importlib.util
+import io
 import json
 import shutil
 import sqlite3
@@ -67,10 +69,22 @@ def add_runs(db: Path, n: int, seed: int, meta: dict[str, Any] | None = None) ->
         store.close()
 
 
-def sync(db: Path, url: str, *extra: str, timeout: float = 120) -> subprocess.CompletedProcess[str]:
-    """`linerig sync` as its own process, as an operator or the daemon runs it."""
-    return subprocess.run([*CLI, "sync", "--db", str(db), "--to", url, *extra], capture_output=True, text=True,
-                          timeout=timeout, cwd=ROOT)
+def cli(*argv: str) -> subprocess.CompletedProcess[str]:
+    """A `linerig` command run in this process (its exit code, what it printed): the tests that kill a push or run
+    two at once start real processes instead."""
+    from linerig.tui.cli import main
+
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        try:
+            code = main(list(argv))
+        except SystemExit as exc:
+            code = exc.code if isinstance(exc.code, int) else 2
+    return subprocess.CompletedProcess(list(argv), code, out.getvalue(), err.getvalue())
+
+
+def sync(db: Path, url: str, *extra: str) -> subprocess.CompletedProcess[str]:
+    return cli("sync", "--db", str(db), "--to", url, *extra)
 
 
 def synced(db: Path, url: str, *extra: str) -> dict[str, Any]:

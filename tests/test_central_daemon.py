@@ -10,12 +10,11 @@ import asyncio
 import html.parser
 import json
 import re
-import subprocess
 from pathlib import Path
 from typing import Any
 
 import pytest
-from central_stores import CLI, ROOT, SITE, as_other_rig, closed_runs, identity, local_snapshot, server_snapshot, synced
+from central_stores import SITE, as_other_rig, cli, closed_runs, identity, local_snapshot, server_snapshot, synced
 from daemon_harness import FAST_PLAN, Daemon, Sim, reap, write_config  # noqa: F401  (reap: an autouse fixture)
 from pg_server import CentralDb
 
@@ -59,8 +58,7 @@ class _Tables(html.parser.HTMLParser):
 
 def _site_tables(tmp: Path, name: str, *source: str) -> dict[str, list[tuple[str, ...]]]:
     out = tmp / f"{name}.html"
-    done = subprocess.run([*CLI, "report", "--site", SITE, *source, "-o", str(out)], capture_output=True, text=True,
-                          cwd=ROOT)
+    done = cli("report", "--site", SITE, *source, "-o", str(out))
     assert done.returncode == 0, done.stderr
     parser = _Tables()
     parser.feed(out.read_text(encoding="utf-8"))
@@ -88,7 +86,7 @@ def test_a_rig_pushes_by_itself_and_the_site_report_from_the_server_matches(
     assert ev["state"] == "idle" and ev["rig"] == "field-b" and ev["failures"] == 0
     assert ev["waiting"] == {"open_runs": 0, "events": 0, "results": 0}
     assert ev["pushed_since_start"]["runs"] == 1 and ev["pushed_since_start"]["samples"] > 80
-    status = subprocess.run([*CLI, "--socket", str(d.socket), "status"], capture_output=True, text=True, cwd=ROOT)
+    status = cli("--socket", str(d.socket), "status")
     # idle, or pushing again if the end of the run came during the push that took it (a later one finds nothing)
     assert re.search(r"^sync: (idle|pushing) to .* as rig field-b; in step at .* \(1 run\(s\), \d+ samples pushed "
                      r"since start\)$", status.stdout, re.M), status.stdout
@@ -120,18 +118,15 @@ def test_a_rig_pushes_by_itself_and_the_site_report_from_the_server_matches(
         assert central_tables[hole] == own[hole], hole
     cal = "Calibrations of the probes used"
     assert set(central_tables[cal]) == _labelled(a_tables[cal], "north", 1)
-    assert len(closed_runs(rig_a)) + 1 == len(json.loads(subprocess.run(
-        [*CLI, "history", "--central", reader, "--json", "--limit", "1000"], capture_output=True, text=True,
-        cwd=ROOT).stdout))
+    listed = cli("history", "--central", reader, "--json", "--limit", "1000")
+    assert len(json.loads(listed.stdout)) == len(closed_runs(rig_a)) + 1
 
     # profile across rigs: every borehole's points, each labelled with its rig
-    done = subprocess.run([*CLI, "profile", "--central", reader, "--site", SITE, "--json"], capture_output=True,
-                          text=True, cwd=ROOT)
+    done = cli("profile", "--central", reader, "--site", SITE, "--json")
     assert done.returncode == 0, done.stderr
     prof = json.loads(done.stdout)["boreholes"]
     assert {p["rig"] for p in prof["BH3"]} == {"field-b"} and {p["rig"] for p in prof["BH1"]} == {"north"}
-    local = subprocess.run([*CLI, "profile", "--db", str(rig_a), "--site", SITE, "--json"], capture_output=True,
-                           text=True, cwd=ROOT)
+    local = cli("profile", "--db", str(rig_a), "--site", SITE, "--json")
     mine = json.loads(local.stdout)["boreholes"]["BH1"]
     assert [{**p, "rig": "north"} for p in mine] == prof["BH1"]
 

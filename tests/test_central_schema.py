@@ -4,7 +4,6 @@ none, a reader only reads), and an upgrade from the previous central version wit
 from __future__ import annotations
 
 import json
-import subprocess
 import uuid
 from pathlib import Path
 from typing import Any
@@ -12,10 +11,9 @@ from typing import Any
 import psycopg
 import pytest
 from central_stores import (
-    CLI,
-    ROOT,
     add_runs,
     as_other_rig,
+    cli,
     closed_runs,
     identity,
     local_snapshot,
@@ -97,15 +95,15 @@ def test_upgrade_from_the_previous_central_version(two_rigs: tuple[Path, Path], 
     reader = old.role("office", "linerig_reader")
     first = synced(north, url_n)  # a push needs nothing newer than version 1
     assert first["central_version"] == CENTRAL_VERSION - 1
-    done = subprocess.run([*CLI, "history", "--central", reader, "--json"], capture_output=True, text=True, cwd=ROOT)
+    done = cli("history", "--central", reader, "--json")
     assert done.returncode == 2 and f"needs {CENTRAL_VERSION}" in done.stderr and "central migrate" in done.stderr
 
     # only the owner migrates: a rig may not
-    done = subprocess.run([*CLI, "central", "migrate", url_n], capture_output=True, text=True, cwd=ROOT)
+    done = cli("central", "migrate", url_n)
     assert done.returncode == 2 and "owner" in done.stderr
-    done = subprocess.run([*CLI, "central", "migrate", old.admin_url], capture_output=True, text=True, cwd=ROOT)
+    done = cli("central", "migrate", old.admin_url)
     assert done.returncode == 0 and f"upgraded from {CENTRAL_VERSION - 1}" in done.stdout, done.stderr
-    done = subprocess.run([*CLI, "central", "migrate", old.admin_url], capture_output=True, text=True, cwd=ROOT)
+    done = cli("central", "migrate", old.admin_url)
     assert done.returncode == 0 and "already at version" in done.stdout
 
     store_n, _ = identity(north)
@@ -114,12 +112,10 @@ def test_upgrade_from_the_previous_central_version(two_rigs: tuple[Path, Path], 
     assert synced(north, url_n)["pushed"]["runs"] == 1
     assert synced(north, url_n)["rows"] == 0
     synced(south, url_s)
-    done = subprocess.run([*CLI, "history", "--central", reader, "--json", "--limit", "1000"], capture_output=True,
-                          text=True, cwd=ROOT)
+    done = cli("history", "--central", reader, "--json", "--limit", "1000")
     assert done.returncode == 0, done.stderr
     assert {(r["rig"]) for r in json.loads(done.stdout)} == {"north", "south"}
-    done = subprocess.run([*CLI, "central", "status", old.admin_url, "--json"], capture_output=True, text=True,
-                          cwd=ROOT)
+    done = cli("central", "status", old.admin_url, "--json")
     status = json.loads(done.stdout)
     assert status["version"] == CENTRAL_VERSION
     assert {r["rig"]: r["runs"] for r in status["rigs"]} == {"north": len(closed_runs(north)),
@@ -134,5 +130,5 @@ def test_a_server_newer_than_this_linerig_is_named(two_rigs: tuple[Path, Path], 
                      (CENTRAL_VERSION + 1, CENTRAL_VERSION + 1))
     done = sync_cli(north, url)
     assert done.returncode == 2 and "upgrade linerig on this rig" in done.stderr
-    done = subprocess.run([*CLI, "central", "migrate", central.admin_url], capture_output=True, text=True, cwd=ROOT)
+    done = cli("central", "migrate", central.admin_url)
     assert done.returncode == 2 and "newer than this linerig" in done.stderr
