@@ -18,6 +18,10 @@ from psycopg.conninfo import conninfo_to_dict, make_conninfo
 from linerig.daemon.central.errors import CentralError, CentralRefused, CentralUnreachable
 
 DEFAULT_CONNECT_TIMEOUT_S = 10
+# a field rig's link can vanish mid-push without a word (a modem drops out): TCP keepalives and a send timeout make
+# a dead connection an error within about a minute instead of a push that waits for ever; a target may override each
+NETWORK_DEFAULTS = {"keepalives": 1, "keepalives_idle": 30, "keepalives_interval": 10, "keepalives_count": 3,
+                    "tcp_user_timeout": 60_000}
 # words in libpq's messages that mean "the server answered and said no", not "no server there"
 _REFUSALS = ("password authentication failed", "does not exist", "no pg_hba.conf entry", "authentication",
              "permission denied", "ssl", "certificate", "no password supplied", "too many connections")
@@ -53,6 +57,7 @@ def connect(target: str, application: str = "linerig", autocommit: bool = False)
         extra["connect_timeout"] = DEFAULT_CONNECT_TIMEOUT_S
     if "application_name" not in parts and "PGAPPNAME" not in os.environ:
         extra["application_name"] = application
+    extra.update({k: v for k, v in NETWORK_DEFAULTS.items() if k not in parts})
     try:
         return psycopg.connect(target, autocommit=autocommit, **extra)
     except psycopg.OperationalError as exc:

@@ -19,7 +19,6 @@ import sqlite_utils
 
 from linerig.daemon.central.errors import LocalStoreError
 from linerig.daemon.store.schema import SCHEMA_VERSION, current_version, migrate
-from linerig.daemon.store.writer import OPEN_RUN_STATES
 
 # what a push carries, in the order it pushes; any other table in the file is named in the summary as not carried
 CARRIED_TABLES = ("probes", "series", "runs", "samples", "events", "results", "calibrations", "qualifications")
@@ -104,12 +103,6 @@ class LocalStore:
              ) -> list[tuple[Any, ...]]:
         cols = ", ".join(f'"{c}"' for c in columns)
         return self.conn.execute(f"SELECT {cols} FROM {table} {where}", params).fetchall()
-
-    def closed_run_ids(self) -> list[int]:
-        """Runs that have ended (a run still checking, settling, heating or recovering is not pushed)."""
-        marks = ",".join("?" * len(OPEN_RUN_STATES))
-        return [int(r[0]) for r in self.conn.execute(
-            f"SELECT id FROM runs WHERE state IS NULL OR state NOT IN ({marks}) ORDER BY id", OPEN_RUN_STATES)]
 
     def sample_counts(self) -> dict[int, int]:
         return {int(r[0]): int(r[1]) for r in self.conn.execute(

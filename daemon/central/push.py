@@ -46,6 +46,7 @@ from linerig.daemon.central.errors import (
 from linerig.daemon.central.local import LocalStore, read_ahead
 from linerig.daemon.central.schema import SCHEMA, WRITER_NEEDS, require
 from linerig.daemon.store.schema import record_rig_name
+from linerig.daemon.store.writer import OPEN_RUN_STATES
 
 Progress = Callable[[dict[str, Any]], None]
 RESERVED = frozenset({"store", "extra", "pushed_at", "fingerprint", "rev", "row"})
@@ -161,8 +162,8 @@ class Pusher:
         held = self._held()
         for table in REVISED:
             pushed[table] += self._push_revised(table, held[table])
-        runs = self._local_rows("runs")
-        closed = set(self.local.closed_run_ids())
+        runs = self._local_rows("runs")  # state and row from one read: a run that ends meanwhile waits for next time
+        closed = {rid for rid, r in runs.items() if r.get("state") is None or r["state"] not in OPEN_RUN_STATES}
         todo = [rid for rid in sorted(closed) if rid not in held["runs"]]
         counts = self.local.sample_counts()
         events = self._local_rows("events")
