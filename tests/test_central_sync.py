@@ -195,6 +195,25 @@ def test_results_after_the_push_are_new_rows_and_the_newest_is_read(rig_a: Path,
     assert json.loads(done.stdout)["results"]["heater"]["k_W_per_mK"] == 0.777
 
 
+def test_calibrations_and_qualifications_made_later_go_once(rig_a: Path, central: CentralDb) -> None:
+    url = central.role("north")
+    synced(rig_a, url)
+    con = sqlite3.connect(rig_a)
+    with con:  # what `linerig calibrate` and `linerig qualify` write in the rig's file, one row each
+        con.execute("INSERT INTO calibrations (probe_serial, run_id, created_utc, reference, factor, factor_u, "
+                    "accepted) VALUES ('FN-0412', 1, '2031-02-01T09:00:00.000+00:00', 'agar-water', 0.97, 0.004, 1)")
+        con.execute("INSERT INTO qualifications (probe_serial, created_utc, criteria_toml, results, passed, notes) "
+                    "VALUES ('FN-0412', '2031-02-02T09:00:00.000+00:00', '[criteria]', '{\"steps\": []}', 1, "
+                    "'bench check')")
+    con.close()
+    out = synced(rig_a, url)
+    assert {k: v for k, v in out["pushed"].items() if v} == {"calibrations": 1, "qualifications": 1}
+    store, _ = identity(rig_a)
+    assert central.query("SELECT probe_serial, passed, notes FROM linerig.qualifications WHERE store = %s",
+                         (store,)) == [("FN-0412", 1, "bench check")]
+    assert synced(rig_a, url)["rows"] == 0
+
+
 def test_a_run_in_progress_waits_with_its_events_then_goes(rig_a: Path, central: CentralDb) -> None:
     url = central.role("north")
     from linerig.daemon.store.writer import Store
