@@ -269,6 +269,27 @@ def test_columns_and_tables_of_a_later_local_schema(rig_a: Path, central: Centra
     assert synced(rig_a, url)["rows"] == 0  # and the new column did not make every run look changed
 
 
+def test_values_sqlite_let_stray_from_their_column_type_are_kept(rig_a: Path, central: CentralDb) -> None:
+    """SQLite keeps text in a number column; the server's column cannot: the value goes in the row's extra, the
+    column is null, the push goes on, and the readers give the value back under its own name."""
+    con = sqlite3.connect(rig_a)
+    with con:
+        con.execute("UPDATE runs SET depth_m = 'about 2 m' WHERE id = 6")
+        con.execute("UPDATE samples SET heater_V = 'n/a' WHERE run_id = 6 AND n = 3")
+    con.close()
+    url = central.role("north")
+    assert synced(rig_a, url)["pushed"]["runs"] == len(closed_runs(rig_a))
+    store, _ = identity(rig_a)
+    assert central.query("SELECT depth_m, extra FROM linerig.runs WHERE store = %s AND id = 6", (store,)) == \
+        [(None, {"depth_m": "about 2 m"})]
+    assert central.query("SELECT heater_v, extra FROM linerig.samples WHERE store = %s AND run_id = 6 AND n = 3",
+                         (store,)) == [(None, {"heater_V": "n/a"})]
+    assert central.query("SELECT count(*) FROM linerig.samples WHERE store = %s AND extra IS NOT NULL",
+                         (store,)) == [(1,)]
+    done = cli("history", "--central", url, "--rig", "north", "--json", "6")
+    assert json.loads(done.stdout)["depth_m"] == "about 2 m"
+
+
 def test_changed_probe_series_and_run_rows_become_revisions(rig_a: Path, central: CentralDb) -> None:
     url = central.role("north")
     from linerig.daemon.store.writer import Store

@@ -46,9 +46,10 @@ def as_local(row: dict[str, Any]) -> dict[str, Any]:
     names = local_names()
     out = {names.get(k, k): v for k, v in row.items() if k not in CENTRAL_ONLY}
     extra = row.get("extra")
-    if extra:
+    if extra:  # local columns the central table lacks, and values its column could not take (stored null)
         for k, v in (json.loads(extra) if isinstance(extra, str) else extra).items():
-            out.setdefault(k, v)
+            if out.get(k) is None:
+                out[k] = v
     if "store" in out:
         out["store"] = str(out["store"])
     return out
