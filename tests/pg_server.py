@@ -21,6 +21,7 @@ from pathlib import Path
 INSTALL_HINT = ("PostgreSQL server binaries (initdb, pg_ctl, postgres) were not found: install them with "
                 "`apt-get install postgresql` (Debian) or set LINERIG_PG_BINDIR to the folder that holds them")
 ADMIN = "linerig_admin"
+PASSWORD_GROUP = "linerig_test_pw"
 TEST_USER = "linerig-pgtest"
 
 
@@ -93,6 +94,9 @@ def pg_server() -> Iterator[PgServer]:
         srv = PgServer(bindir, folder, user)
         srv.run(str(bindir / "initdb"), "-D", str(folder / "data"), "-U", ADMIN, "--auth=trust", "-E", "UTF8",
                 "--no-sync", "--locale=C")
+        # everyone in by the socket without a password, except members of PASSWORD_GROUP (CentralDb.role(password=))
+        hba = folder / "data" / "pg_hba.conf"
+        hba.write_text(f"local all +{PASSWORD_GROUP} scram-sha-256\n" + hba.read_text())
         opts = (f"-c listen_addresses='' -k {folder / 'sock'} -c fsync=off -c synchronous_commit=off "
                 "-c full_page_writes=off -c max_connections=40")
         srv.run(str(bindir / "pg_ctl"), "-D", str(folder / "data"), "-o", opts, "-l", str(folder / "server.log"),
@@ -127,13 +131,20 @@ class CentralDb:
             with psycopg.connect(self.admin_url) as conn:
                 migrate(conn, upto=upto)
 
-    def role(self, short: str, group: str = "linerig_rig") -> str:
-        """A login role in ``group`` (linerig_rig or linerig_reader, or "" for none); its connection URL."""
+    def role(self, short: str, group: str = "linerig_rig", password: str | None = None) -> str:
+        """A login role in ``group`` (linerig_rig or linerig_reader, or "" for none); its connection URL (without
+        the password). With ``password`` the server asks for it (scram-sha-256)."""
         import psycopg
+        from psycopg import sql
 
         name = f"{self.name}_{short}"
+        groups = [g for g in (group, PASSWORD_GROUP if password else "") if g]
         with psycopg.connect(self.admin_url, autocommit=True) as conn:
-            conn.execute(f'CREATE ROLE "{name}" LOGIN' + (f" IN ROLE {group}" if group else ""))
+            if password and not conn.execute("SELECT 1 FROM pg_roles WHERE rolname = %s", (PASSWORD_GROUP,)).fetchone():
+                conn.execute(f"CREATE ROLE {PASSWORD_GROUP} NOLOGIN")
+            conn.execute(sql.SQL("CREATE ROLE {} LOGIN {} {}").format(
+                sql.Identifier(name), sql.SQL("IN ROLE " + ", ".join(groups)) if groups else sql.SQL(""),
+                sql.SQL("PASSWORD {}").format(password) if password else sql.SQL("")))
         return self.srv.url(self.name, name)
 
     def query(self, sql: str, params: tuple[object, ...] = ()) -> list[tuple[object, ...]]:

@@ -330,6 +330,30 @@ def test_a_rig_keeps_its_name_and_its_file(rig_a: Path, tmp_path: Path, central:
     assert renamed["rig"] == "south" and identity(other)[1] == "south"
 
 
+def test_the_connection_by_libpq_service_and_password_files(rig_a: Path, central: CentralDb, tmp_path: Path,
+                                                          monkeypatch: pytest.MonkeyPatch) -> None:
+    """No password in rig.toml or on the command line: the service file names the server and the role, the password
+    file holds the password, as on a rig (PGSERVICEFILE, PGPASSFILE); the server asks for it (scram-sha-256)."""
+    central.role("keyed", password="k3y-in-a-file")
+    user = f"{central.name}_keyed"
+    services = tmp_path / "pg_service.conf"
+    services.write_text(f"[linerig-central]\nhost={central.srv.socket_dir}\ndbname={central.name}\nuser={user}\n")
+    monkeypatch.setenv("PGSERVICEFILE", str(services))
+    monkeypatch.setenv("PGPASSFILE", str(tmp_path / "no-pgpass-yet"))
+    done = sync(rig_a, "service=linerig-central")
+    assert done.returncode == 2 and "refused the connection" in done.stderr and "password" in done.stderr
+    passfile = tmp_path / "pgpass"
+    passfile.write_text(f"*:*:{central.name}:{user}:k3y-in-a-file\n")
+    passfile.chmod(0o600)
+    monkeypatch.setenv("PGPASSFILE", str(passfile))
+    assert synced(rig_a, "service=linerig-central")["pushed"]["runs"] == len(closed_runs(rig_a))
+    # written on the command line it works too, with a word about who can see it, and is never printed back
+    monkeypatch.delenv("PGSERVICEFILE")
+    done = sync(rig_a, f"postgresql://{user}:k3y-in-a-file@/{central.name}?host={central.srv.socket_dir}", "--json")
+    assert done.returncode == 0 and "visible to other users" in done.stderr
+    assert "k3y" not in done.stdout and json.loads(done.stdout)["rows"] == 0
+
+
 @pytest.mark.parametrize(("argv", "code", "words"), [
     (["--to", "postgresql://[bad"], 2, "not a PostgreSQL connection string"),
     (["--to", "host=/nonexistent/socket/dir dbname=x connect_timeout=2"], 3, "cannot reach the server"),
