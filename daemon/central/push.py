@@ -174,36 +174,16 @@ class Pusher:
         runs = self._local_rows("runs")  # state and row from one read: a run that ends meanwhile waits for next time
         closed = {rid for rid, r in runs.items() if r.get("state") is None or r["state"] not in OPEN_RUN_STATES}
         todo = [rid for rid in sorted(closed) if rid not in held["runs"]]
-        counts = self.local.sample_counts()
-        events = self._local_rows("events")
-        results = self._local_rows("results")
-        by_run: dict[str, dict[int | None, list[dict[str, Any]]]] = {"events": {}, "results": {}}
-        for table, rows in (("events", events), ("results", results)):
-            for row in rows.values():
-                if row["id"] not in held[table]:
-                    by_run[table].setdefault(row["run_id"], []).append(row)
-        total_samples = sum(counts.get(r, 0) for r in todo)
-        self.progress({"event": "start", "rig": name, "store": self.store, "runs": len(todo),
-                       "samples": total_samples})
-        samples_done = 0
-        for i, rid in enumerate(todo, start=1):
-            n = self._push_run(runs[rid], by_run["events"].pop(rid, []), by_run["results"].pop(rid, []))
-            samples_done += n["samples"]
-            for k, v in n.items():
-                pushed[k] += v
+        by_run = {t: self._missing_by_run(t, held[t]) for t in ("events", "results")}
+        self._push_runs(name, todo, runs, by_run, pushed, t0)
+        for rid in todo:
             held["runs"][rid] = (1, runs[rid]["_fp"])
-            self.progress({"event": "run", "run_id": rid, "done": i, "of": len(todo), "samples": samples_done,
-                           "samples_total": total_samples, "rows": sum(pushed.values()),
-                           "seconds": time.monotonic() - t0})
         late = {t: [r for rid, rows in by_run[t].items() if rid is None or rid in held["runs"] for r in rows]
-                for t in ("events", "results")}
-        waiting_events = sum(len(rows) for rid, rows in by_run["events"].items()
-                             if rid is not None and rid not in held["runs"])
-        waiting_results = sum(len(rows) for rid, rows in by_run["results"].items() if rid not in held["runs"])
+                for t in by_run}
         if late["events"] or late["results"]:
             with self._tx("events and results of runs already on the server"), self.conn.cursor() as cur:
-                for table in ("events", "results"):
-                    pushed[table] += self._insert(cur, table, late[table])
+                for table, rows in late.items():
+                    pushed[table] += self._insert(cur, table, rows)
         for table in APPENDED:
             rows = [r for r in self._local_rows(table).values() if r["id"] not in held[table]]
             if rows:
@@ -211,11 +191,37 @@ class Pusher:
                     pushed[table] += self._insert(cur, table, rows)
         pushed["run_revisions"] = self._push_run_revisions(runs, closed, held["runs"], set(todo))
         summary.pushed = pushed
-        summary.waiting = {"open_runs": len(runs) - len(closed), "events": waiting_events,
-                           "results": waiting_results}
+        summary.waiting = {"open_runs": len(runs) - len(closed), **{
+            t: sum(len(rows) for rid, rows in by_run[t].items() if rid is not None and rid not in held["runs"])
+            for t in by_run}}
         summary.seconds = time.monotonic() - t0
         self.progress({"event": "done", **summary.to_dict()})
         return summary
+
+    def _missing_by_run(self, table: str, held: dict[Any, tuple[int, str]]) -> dict[int | None, list[dict[str, Any]]]:
+        """The rows of events or results the server lacks, by their run (None: an event of no run)."""
+        out: dict[int | None, list[dict[str, Any]]] = {}
+        for row in self._local_rows(table).values():
+            if row["id"] not in held:
+                out.setdefault(row["run_id"], []).append(row)
+        return out
+
+    def _push_runs(self, rig: str, todo: list[int], runs: dict[int, dict[str, Any]],
+                   by_run: dict[str, dict[int | None, list[dict[str, Any]]]], pushed: dict[str, int],
+                   t0: float) -> None:
+        """Each run the server lacks in its own transaction, with its samples, events and results; progress after
+        each (the rows of the runs pushed are taken out of ``by_run``)."""
+        counts = self.local.sample_counts()
+        total = sum(counts.get(r, 0) for r in todo)
+        self.progress({"event": "start", "rig": rig, "store": self.store, "runs": len(todo), "samples": total})
+        done_samples = 0
+        for i, rid in enumerate(todo, start=1):
+            n = self._push_run(runs[rid], by_run["events"].pop(rid, []), by_run["results"].pop(rid, []))
+            done_samples += n["samples"]
+            for k, v in n.items():
+                pushed[k] += v
+            self.progress({"event": "run", "run_id": rid, "done": i, "of": len(todo), "samples": done_samples,
+                           "samples_total": total, "rows": sum(pushed.values()), "seconds": time.monotonic() - t0})
 
     # -- who we are ---------------------------------------------------------------
     def _lock(self) -> None:
