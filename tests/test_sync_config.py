@@ -51,3 +51,16 @@ def test_the_commented_example_parses_when_uncommented(tmp_path: Path) -> None:
     lines = [re.sub(r"^# ", "", ln) for ln in block.splitlines() if not ln.startswith("#  ")]
     cfg = parse_config("\n".join(lines), str(tmp_path / "rig.toml"), tmp_path).sync
     assert cfg is not None and cfg.to == "service=linerig-central" and cfg.rig == "north-rig"
+
+
+def test_check_config_says_where_the_rig_pushes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from linerig.daemon.main import main
+
+    cfg = tmp_path / "rig.toml"
+    cfg.write_text('[sync]\nto = "host=db.example.org dbname=linerig user=rig_n sslmode=verify-full"\n'
+                   'rig = "north-rig"\ninterval_s = 120\n')
+    assert main(["--config", str(cfg), "--check-config"]) == 0
+    out = capsys.readouterr().out
+    line = next(ln for ln in out.splitlines() if ln.strip().startswith("sync: to "))
+    assert "host=db.example.org" in line and "sslmode=verify-full" in line
+    assert line.endswith("as rig north-rig, every 120 s and after each run")
