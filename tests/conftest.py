@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import pytest
 
@@ -40,10 +40,16 @@ def central(pg_cluster: PgServer) -> CentralDb:
 
 
 @pytest.fixture(scope="session")
-def example_db(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """The invented example site's store (examples/examplemoor.py), built once; copy it before changing it."""
+def example_site(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
+    """The invented example site's store (examples/examplemoor.py), built once per session, and the ids of its runs
+    and calibration; copy the file before changing it."""
     from central_stores import examplemoor
 
     path = tmp_path_factory.mktemp("example") / "examplemoor.db"
-    examplemoor().build_demo_db(path)
-    return path
+    ids = examplemoor().build_demo_db(path)
+    return path, ids
+
+
+@pytest.fixture(scope="session")
+def example_db(example_site: tuple[Path, dict[str, Any]]) -> Path:
+    return example_site[0]

@@ -4,9 +4,9 @@ export, profile, cycles, calibrate and dryout from runs."""
 from __future__ import annotations
 
 import csv
-import importlib.util
 import io
 import json
+import shutil
 import sqlite3
 from pathlib import Path
 from typing import Any
@@ -16,19 +16,16 @@ import pytest
 from linerig.daemon.runcsv import read_run_csv
 from linerig.tui.cli import main
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "examplemoor.py"
 SITE = "Examplemoor substation"
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
-    spec = importlib.util.spec_from_file_location("examplemoor", EXAMPLES)
-    assert spec and spec.loader
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+def demo(example_site: tuple[Path, dict[str, Any]], tmp_path_factory: pytest.TempPathFactory
+         ) -> tuple[Path, dict[str, Any]]:
+    """A copy of the session's example store (conftest.py): these tests write calibrations into it."""
     path = tmp_path_factory.mktemp("db") / "demo.db"
-    ids = mod.build_demo_db(path)
-    return path, ids
+    shutil.copyfile(example_site[0], path)
+    return path, example_site[1]
 
 
 def _cli(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]:
