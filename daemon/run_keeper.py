@@ -247,10 +247,13 @@ class RunKeeper:
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
         red = await in_daemon_thread(reduce_run, data, rig.s.probe, max_rise_K=rig.s.limits.max_rise_K)
         out = {}
+        ended_early = str(run.state) if str(run.state) in ("aborted", "faulted") else None
         for name, res in red.sensors.items():
             j = res.to_json()
             if run.not_settled and "not_settled" not in j["flags"]:
                 j["flags"] = [*j["flags"], "not_settled"]
+            if ended_early and ended_early not in j["flags"]:
+                j["flags"] = [*j["flags"], ended_early]
             rig.store.add_result(run.run_id, name, j, source="final")
             out[name] = j
         return out
