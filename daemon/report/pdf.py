@@ -68,10 +68,8 @@ def _styles() -> dict[str, ParagraphStyle]:
     return {
         "title": ParagraphStyle("title", base, fontName=BOLD, fontSize=16, leading=20, spaceAfter=2),
         "subtitle": ParagraphStyle("subtitle", base, textColor=GREY, spaceAfter=8),
-        "h2": ParagraphStyle("h2", base, fontName=BOLD, fontSize=12, leading=15, spaceBefore=10, spaceAfter=4,
-                             keepWithNext=1),
-        "h3": ParagraphStyle("h3", base, fontName=BOLD, fontSize=10, leading=13, spaceBefore=6, spaceAfter=3,
-                             keepWithNext=1),
+        "h2": ParagraphStyle("h2", base, fontName=BOLD, fontSize=12, leading=15, spaceBefore=10, spaceAfter=4),
+        "h3": ParagraphStyle("h3", base, fontName=BOLD, fontSize=10, leading=13, spaceBefore=6, spaceAfter=3),
         "": base,
         "note": ParagraphStyle("note", base, fontSize=8.5, leading=11, textColor=colors.HexColor("#333333")),
         "small": ParagraphStyle("small", base, fontSize=8, leading=10.5, textColor=GREY),
@@ -212,25 +210,36 @@ def _bullets(b: Bullets, st: dict[str, ParagraphStyle]) -> Flowable:
 
 
 def flowables(rep: Report) -> list[Flowable]:
-    """The report's blocks as ReportLab flowables (title and subtitle first)."""
+    """The report's blocks as ReportLab flowables (title and subtitle first); a heading is kept with what follows."""
     _register_fonts()
     st = _styles()
     out: list[Flowable] = [Paragraph(_breakable(rep.title), st["title"])]
     if rep.subtitle:
         out.append(Paragraph(_breakable(rep.subtitle), st["subtitle"]))
+    heading: Flowable | None = None
     for b in rep.blocks:
+        item: Flowable
         if isinstance(b, Heading):
-            out.append(Paragraph(_breakable(b.text), st["h2" if b.level <= 2 else "h3"]))
-        elif isinstance(b, Para):
-            out.append(Paragraph(_breakable(b.text), st.get(b.style, st[""])))
+            if heading is not None:
+                out.append(heading)
+            heading = Paragraph(_breakable(b.text), st["h2" if b.level <= 2 else "h3"])
+            continue
+        if isinstance(b, Para):
+            item = Paragraph(_breakable(b.text), st.get(b.style, st[""]))
         elif isinstance(b, Bullets):
-            out.append(_bullets(b, st))
+            item = _bullets(b, st)
         elif isinstance(b, Table):
-            out.append(_table(b, st))
+            item = _table(b, st)
         elif isinstance(b, Figure):
-            out.append(_figure(b, st))
-        elif isinstance(b, SignOff):
-            out.append(_signoff(b, st))
+            item = _figure(b, st)
+        else:
+            item = _signoff(b, st)
+        if heading is not None:  # one level of KeepTogether: nested ones push the block to a new page
+            inner = list(item._content) if isinstance(item, KeepTogether) else [item]
+            item, heading = KeepTogether([heading, *inner]), None
+        out.append(item)
+    if heading is not None:
+        out.append(heading)
     return out
 
 

@@ -239,6 +239,7 @@ def cycles(cycle_no: Sequence[int], k: Sequence[float], k_u: Sequence[float | No
     for c in flagged:
         i = list(cycle_no).index(c)
         ax.plot([c], [k[i]], "x", color="black", ms=10)
+    ax.set_xticks(list(cycle_no))
     ax.set_xlabel("cycle")
     ax.set_ylabel("k (W/(m·K))")
     ax.set_title(title)

@@ -155,7 +155,7 @@ def build_report(s: CycleSummary, sensor: str, origin: str, svg: bytes, meta: di
                  "|M| > 3.5 (Iglewicz & Hoaglin 1993).",
                  "A steady trend across cycles suggests moisture driven from the probe by repeated heating "
                  "(ASTM D5334, error sources)."), "small"))
-    flags = set(s.flags) | {fl for v in s.values for fl in v.flags}
+    flags = set(s.flags) | {fl for v in s.values for fl in v.result_flags}
     return workflow_tail(rep, "cycles", flags, cautions="field" if meta.get("site") or meta.get("depth_m") is not None
                          else "lab")
 

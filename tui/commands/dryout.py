@@ -203,7 +203,7 @@ def run(args: argparse.Namespace) -> int:
         for m, ft in fits.items():
             for d in sorted({p.dry_density_kg_per_m3 for p in pts}):
                 curves[f"{m}, ρ_d {d:.0f}"] = (ws, ft.resistivity_mK_per_W(ws, d))
-        fig = plots.dryout(pts, curves, f"Dry-out curve — {name}", crit, dv)
+        fig = plots.dryout(pts, curves, f"Dry-out curve — {Path(name).name if args.csv else name}", crit, dv)
         try:
             if args.plot:
                 plots.save_plot(fig, args.plot)
@@ -216,8 +216,9 @@ def run(args: argparse.Namespace) -> int:
 
 def _report(name: str, pts: list[DryoutPoint], fits: dict[str, DryoutFit], crit: CriticalMoisture | None,
             dv: DesignValue | None, notes: list[str], svg: bytes) -> Report:
-    rep = workflow_report(f"Dry-out curve — {name}", "Thermal resistivity against moisture (dry-out curve)", "dryout",
-                          "D", name, name, (("Points", str(len(pts))),))
+    short = Path(name).name if name.endswith(".csv") else name   # the full path is the source row
+    rep = workflow_report(f"Dry-out curve — {short}", "Thermal resistivity against moisture (dry-out curve)",
+                          "dryout", "D", Path(short).stem, name, (("Points", str(len(pts))),))
     rep.add(Heading("Points"), Table(("moisture %", "ρ_d kg/m³", "k W/(m·K)", "U (k = 2)", "ρ °C·cm/W", "run"), tuple(
         (f(p.moisture_pct, 3), f(p.dry_density_kg_per_m3), f(p.k_W_per_mK),
          f(2 * p.k_u_W_per_mK if p.k_u_W_per_mK is not None else None, 2), f(100 / p.k_W_per_mK),
