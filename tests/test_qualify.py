@@ -311,7 +311,7 @@ def test_store_round_trip_and_report(tmp_path: Path) -> None:
     assert "NOT QUALIFIED" in text and "heater_drift" in text
     for cid in CRITERION_IDS:
         assert cid in text
-    assert text.count("data:image/png;base64,") == 5
+    assert text.count("data:image/svg+xml;base64,") == 5
     assert pdf_path.read_bytes()[:5] == b"%PDF-"
 
 

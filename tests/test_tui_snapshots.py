@@ -237,7 +237,7 @@ def test_history_and_probes_commands(tmp_path: Path, capsys: pytest.CaptureFixtu
         assert main(["--socket", str(srv.path), "history", "--since", "13/05/2031"]) == 2
         assert "YYYY-MM-DD" in capsys.readouterr().err
         assert main(["--socket", str(srv.path), "history", "17"]) == 0
-        assert "heater: k = 1.197 ± 0.014 W/(m·K)" in capsys.readouterr().out
+        assert "heater: k = 1.197 ± 0.028 W/(m·K) (± U, k = 2)" in capsys.readouterr().out
         assert main(["--socket", str(srv.path), "probes"]) == 0
         out = capsys.readouterr().out
         assert "ROD-0003  three-sensor rod  (rod)  in use" in out and "factor 0.9828 ± 0.0061" in out
