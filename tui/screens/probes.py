@@ -10,7 +10,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical
 from textual.screen import ModalScreen, Screen
-from textual.widgets import DataTable, Footer, Input, Label, Static
+from textual.widgets import DataTable, Footer, Input, Static
 from textual_plotext import PlotextPlot
 
 from linerig.tui.client import DaemonError
@@ -36,7 +36,7 @@ def factor_rows(cals: list[dict[str, Any]]) -> list[tuple[str, ...]]:
                     f"{c['reference_k_W_per_mK']:.3f}" if isinstance(c.get("reference_k_W_per_mK"), int | float)
                     else "", f"{c['measured_k_W_per_mK']:.3f}" if isinstance(c.get("measured_k_W_per_mK"),
                                                                               int | float) else "",
-                    (f"{f:.4f}" + (f" ± {fu:.4f}" if isinstance(fu, int | float) else ""))
+                    (f"{f:.4f}" + (f" ± {2 * fu:.4f}" if isinstance(fu, int | float) else ""))
                     if isinstance(f, int | float) else "",
                     "✓ yes" if c.get("accepted") else "✗ no", str(c.get("expires_utc") or "")[:10],
                     str(c.get("run_id") or "")))
@@ -49,8 +49,9 @@ class ReferencePrompt(ModalScreen[str | None]):
     BINDINGS: ClassVar[list[BindingType]] = [Binding("escape", "cancel", "Cancel")]
     DEFAULT_CSS = """
     ReferencePrompt { align: center middle; }
-    ReferencePrompt > Vertical { width: 60; max-width: 95%; height: auto; border: thick $primary; padding: 1 2;
+    ReferencePrompt > Vertical { width: 72; max-width: 95%; height: auto; border: thick $primary; padding: 1 2;
                                  background: $surface; }
+    ReferencePrompt #question { width: 100%; height: auto; }
     """
 
     def __init__(self, serial: str) -> None:
@@ -59,7 +60,7 @@ class ReferencePrompt(ModalScreen[str | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical():
-            yield Label(f"Calibrate probe {self.serial}: which reference medium is it in?")
+            yield Static(f"Calibrate probe {self.serial}: which reference medium is it in?", id="question")
             yield Input(placeholder=REFERENCE_HINT, id="reference")
             yield Static("Enter to continue to the new-run form, Escape to cancel.", classes="hint")
         yield Footer(compact=True)
@@ -78,7 +79,7 @@ class ProbesScreen(Screen[None]):
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("c", "calibrate", "Calibration run"),
-        Binding("f6", "reload", "Reload"),
+        Binding("r", "reload", "Reload"),   # F6 is Qualify everywhere
     ]
 
     def __init__(self) -> None:
@@ -104,7 +105,7 @@ class ProbesScreen(Screen[None]):
 
     def on_mount(self) -> None:
         self.query_one("#probes", DataTable).add_columns("", "Serial", "Name", "Kind", "Added")
-        self.query_one("#cals", DataTable).add_columns("#", "Date", "Reference", "Ref k", "Meas. k", "Factor",
+        self.query_one("#cals", DataTable).add_columns("#", "Date", "Reference", "Ref k", "Meas. k", "Factor ± U (k=2)",
                                                        "Accepted", "Expires", "Run")
         self.query_one("#probes", DataTable).focus()
         self.action_reload()

@@ -210,7 +210,7 @@ class QualifyScreen(Screen[None]):
             verdict = Text(f"NOT QUALIFIED: {', '.join(q.failed_ids)}", style="bold red")
         cal = q.measurements.calibration
         if cal is not None:
-            verdict.append(f"    probe factor F = {cal.factor:.4f} ± {cal.factor_u:.4f}", style="")
+            verdict.append(f"    probe factor F = {cal.factor:.4f} ± {2 * cal.factor_u:.4f} (U, k = 2)", style="")
         self.query_one("#verdict", Static).update(verdict)
 
     # ---- the operator: prompts answered in the prompt line ------------------------------------------------

@@ -264,7 +264,7 @@ class EstimatePlot(PlotextPlot):
     def draw(self, tr: RunTrace | None) -> None:
         plt = self.plt
         plt.clear_figure()
-        plt.title("running estimate k, W/(m·K), ± standard uncertainty")
+        plt.title("running estimate k, W/(m·K), ± U (k = 2)")
         plt.xlabel("time since heater on, s")
         if tr is None or len(tr.estimates) < 2:
             plt.title("running estimate k — none yet")
@@ -272,8 +272,8 @@ class EstimatePlot(PlotextPlot):
             return
         arr = np.asarray([(t, k, u) for t, k, u, _ in tr.estimates], dtype=float)
         keep = thin(arr.shape[0])
-        t, k, u = arr[keep, 0], arr[keep, 1], np.nan_to_num(arr[keep, 2])
+        t, k, u = arr[keep, 0], arr[keep, 1], 2.0 * np.nan_to_num(arr[keep, 2])   # U = 2u
         plt.plot(t.tolist(), k.tolist(), marker="braille", label="k")
-        plt.plot(t.tolist(), (k + u).tolist(), marker="·", label="+u", color="gray")
-        plt.plot(t.tolist(), (k - u).tolist(), marker="·", label="−u", color="gray")
+        plt.plot(t.tolist(), (k + u).tolist(), marker="·", label="+U", color="gray")
+        plt.plot(t.tolist(), (k - u).tolist(), marker="·", label="−U", color="gray")
         self.refresh()
