@@ -107,7 +107,7 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
     db = store.reader
 
     async def status(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
-        return svc.status()
+        return {**svc.status(), "db": str(store.path)}   # clients that write (qualifications) write here
 
     async def ping(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         return {"pong": True, "pid": os.getpid()}

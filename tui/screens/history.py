@@ -35,7 +35,7 @@ from linerig.tui.screens.rereduce import (
 from linerig.tui.units import DisplayUnit, companion, show
 from linerig.tui.widgets.advice import flag_words
 from linerig.tui.widgets.readouts import alpha_identified
-from linerig.tui.widgets.run_plot import PlotView, RunPlot, build_spec, next_choice
+from linerig.tui.widgets.run_plot import PlotView, RunPlot, build_spec, legend_text, next_choice
 
 if TYPE_CHECKING:
     from linerig.tui.app import LinerigApp
@@ -191,6 +191,7 @@ class RunDetailScreen(Screen[None]):
                 yield Static(id="summary")
             with TabPane("Plot", id="tab-plot"):
                 yield RunPlot(id="detail-plot")
+                yield Static(id="detail-legend")
             with TabPane("Events", id="tab-events"):
                 yield DataTable(id="events", cursor_type="row", zebra_stripes=True)
             with TabPane("Re-reduce", id="tab-rereduce"), VerticalScroll():
@@ -325,6 +326,7 @@ class RunDetailScreen(Screen[None]):
         if trace is None:
             spec.note = "no samples to plot"
         plot.draw(spec)
+        self.query_one("#detail-legend", Static).update(legend_text(spec))
         if self.data is not None and not self._sensors_listed:
             self._sensors_listed = True
             self.query_one("#rr-sensor", Select).set_options([(n, n) for n in self.data.temps_C])
