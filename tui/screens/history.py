@@ -98,7 +98,7 @@ class HistoryScreen(Screen[None]):
 
     def on_mount(self) -> None:
         table = self.query_one("#runs", DataTable)
-        table.add_columns("Run", "Started (UTC)", "State", "Site", "Spot", "Tip depth m", "k W/(m·K)", "Sample",
+        table.add_columns("Run", "Started (UTC)", "State", "k W/(m·K)", "Tip depth m", "Site", "Spot", "Sample",
                           "Material")
         table.focus()
         self.action_reload()
@@ -141,9 +141,10 @@ class HistoryScreen(Screen[None]):
             st = str(r.get("state") or "?")
             depth, k = r.get("depth_m"), r.get("k_W_per_mK")
             table.add_row(str(r["id"]), str(r.get("created_utc") or "")[:16].replace("T", " "),
-                          f"{STATE_SYMBOLS.get(st, '?')} {st}", str(r.get("site") or ""), str(r.get("location") or ""),
-                          Text(f"{depth:.2f}" if isinstance(depth, int | float) else "—", justify="right"),
+                          f"{STATE_SYMBOLS.get(st, '?')} {st}",
                           Text(f"{k:.3f}" if isinstance(k, int | float) else "—", justify="right"),
+                          Text(f"{depth:.2f}" if isinstance(depth, int | float) else "—", justify="right"),
+                          str(r.get("site") or ""), str(r.get("location") or ""),
                           str(r.get("sample") or ""), str(r.get("material") or ""), key=str(r["id"]))
 
     def action_open(self) -> None:

@@ -69,7 +69,7 @@ class EstimateReadout(Static):
     def show(self, live: LiveState, unit: DisplayUnit, wide: bool = False) -> None:
         est = live.estimate
         finished = live.finished if live.finished and live.finished.get("run_id") == live.run_id else None
-        text = Text(f"{unit.quantity.upper()} ({unit.symbol})", style=HEADING)
+        text = Text(f"{unit.quantity.upper()} ± U (k = 2)", style=HEADING)
         if est is None and not finished:
             text.append("\n  waiting for a fit", style="dim")
             if live.run_state in ("checking", "settling"):
@@ -84,9 +84,9 @@ class EstimateReadout(Static):
         k, ku = _f(src.get("k_W_per_mK")), _f(src.get("k_u_W_per_mK"))
         main = show(k, ku if math.isfinite(ku) else None, unit)
         other = show(k, ku if math.isfinite(ku) else None, companion(unit))
-        if main.rel_u is not None:
-            text.append(f" ±{100 * main.rel_u:.1f} % (U, k = 2)")
         text.append(f"\n {main.text()}", style="bold")
+        if main.rel_u is not None:
+            text.append(f" ({100 * main.rel_u:.1f} %)")
         text.append(f"\n {other.text()}")
         win = src.get("window_s") or [None, None]
         if win[0] is not None and win[1] is not None:
