@@ -132,9 +132,8 @@ def test_every_kind_of_report(kind: str, demo: tuple[Path, dict[str, Any]], tmp_
         _cli(capsys, "cylinder", str(EX / "cylinder_mould_FB3.csv"), "--radius-mm", "35", "--height-mm", "90",
              "--k", "1.1", "--report", str(out))
     else:
-        from tests.test_qualify import qualified
-
         from linerig.daemon.qualify.report import write_report
+        from tests.test_qualify import qualified
 
         write_report(qualified("good").to_json(), None, out)
     text = check_pages(out)
