@@ -200,13 +200,7 @@ def test_history_screen(replay: Callable[..., LinerigApp], snap_compare: Any, si
 @pytest.mark.parametrize("size", SIZES, ids=lambda s: f"{s[0]}x{s[1]}")
 def test_run_detail_screen(replay: Callable[..., LinerigApp], snap_compare: Any, size: tuple[int, int]) -> None:
     async def run_before(pilot: Pilot) -> None:
-        app = pilot.app
-        await pilot.press("f4")
-        await settle(pilot, lambda: isinstance(app.screen, HistoryScreen)
-                     and app.screen.query_one("#runs", DataTable).row_count == 4, "the run list")
-        await pilot.press("enter")
-        await settle(pilot, lambda: isinstance(app.screen, RunDetailScreen) and not app.screen.samples_note
-                     .startswith("loading"), "the run detail")
+        await _open_detail(pilot)
         await pilot.pause()
 
     assert snap_compare(replay(), terminal_size=size, run_before=run_before)
@@ -271,28 +265,28 @@ def test_rereduce_tab_offers_the_stored_method_in_a_readable_box(replay: Callabl
 
 def test_export_asks_where_to_write(replay: Callable[..., LinerigApp], snap_compare: Any,
                                    monkeypatch: pytest.MonkeyPatch) -> None:
-    from linerig.tui.screens.confirm import FolderPrompt
+    from linerig.tui.screens.confirm import TextPrompt
 
     monkeypatch.setenv("LINERIG_EXPORT_DIR", "/srv/field-data/exports")
 
     async def run_before(pilot: Pilot) -> None:
         await _open_detail(pilot)
         await pilot.press("e")
-        await settle(pilot, lambda: isinstance(pilot.app.screen, FolderPrompt), "the folder question")
+        await settle(pilot, lambda: isinstance(pilot.app.screen, TextPrompt), "the folder question")
         await pilot.pause()
 
     assert snap_compare(replay(), terminal_size=(80, 24), run_before=run_before)
 
 
 def test_calibration_question_is_not_cut(replay: Callable[..., LinerigApp], snap_compare: Any) -> None:
-    from linerig.tui.screens.probes import ReferencePrompt
+    from linerig.tui.screens.confirm import TextPrompt
 
     async def run_before(pilot: Pilot) -> None:
         app = pilot.app
         await pilot.press("f5")
         await settle(pilot, lambda: isinstance(app.screen, ProbesScreen) and app.screen.cals_loaded, "the probes")
         await pilot.press("c")
-        await settle(pilot, lambda: isinstance(app.screen, ReferencePrompt), "the reference question")
+        await settle(pilot, lambda: isinstance(app.screen, TextPrompt), "the reference question")
         await pilot.pause()
 
     assert snap_compare(replay(), terminal_size=(80, 24), run_before=run_before)

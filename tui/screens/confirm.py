@@ -1,4 +1,4 @@
-"""Modal questions: a yes/no that needs a deliberate key press (anything that changes a run), and a folder."""
+"""Modal questions: a yes/no that needs a deliberate key press (anything that changes a run), and a line of text."""
 
 from __future__ import annotations
 
@@ -44,27 +44,30 @@ class Confirm(ModalScreen[bool]):
         self.dismiss(yes)
 
 
-class FolderPrompt(ModalScreen[str | None]):
-    """Ask where to write, with a default filled in: Enter accepts, Escape cancels."""
+class TextPrompt(ModalScreen[str | None]):
+    """Ask for one line of text (a folder, a reference medium), maybe with a default: Enter accepts a non-empty
+    answer, Escape cancels. The question wraps, never cut."""
 
     BINDINGS: ClassVar[list[BindingType]] = [Binding("escape", "cancel", "Cancel")]
     DEFAULT_CSS = """
-    FolderPrompt { align: center middle; }
-    FolderPrompt > Vertical { width: 76; max-width: 95%; height: auto; border: thick $primary; padding: 1 2;
-                              background: $surface; }
-    FolderPrompt #question { width: 100%; height: auto; }
+    TextPrompt { align: center middle; }
+    TextPrompt > Vertical { width: 76; max-width: 95%; height: auto; border: thick $primary; padding: 1 2;
+                            background: $surface; }
+    TextPrompt #question { width: 100%; height: auto; }
     """
 
-    def __init__(self, question: str, default: str) -> None:
+    def __init__(self, question: str, hint: str, *, value: str = "", placeholder: str = "") -> None:
         super().__init__()
         self.question = question
-        self.default = default
+        self.hint = hint
+        self.value = value
+        self.placeholder = placeholder
 
     def compose(self) -> ComposeResult:
         with Vertical():
             yield Static(self.question, id="question")
-            yield Input(value=self.default, id="folder")
-            yield Static("Enter writes there (the folder is made if needed); Escape cancels.", classes="hint")
+            yield Input(value=self.value, placeholder=self.placeholder, id="answer")
+            yield Static(self.hint, classes="hint")
         yield Footer(compact=True)
 
     @on(Input.Submitted)

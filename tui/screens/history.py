@@ -22,7 +22,7 @@ from linerig.daemon.paths import default_db_path
 from linerig.daemon.probe import ProbeProfile, stored_profile
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.tui.client import DaemonError
-from linerig.tui.screens.confirm import FolderPrompt
+from linerig.tui.screens.confirm import TextPrompt
 from linerig.tui.screens.live_state import STATE_SYMBOLS, RunTrace
 from linerig.tui.screens.rereduce import (
     METHODS,
@@ -401,8 +401,9 @@ class RunDetailScreen(Screen[None]):
             if folder:
                 self._export(Path(folder).expanduser())
 
-        self.app.push_screen(FolderPrompt(f"Export run {self.run_id} (run-{self.run_id}.json and .csv) into:",
-                                          str(export_folder())), chosen)
+        self.app.push_screen(TextPrompt(f"Export run {self.run_id} (run-{self.run_id}.json and .csv) into:",
+                                        "Enter writes there (the folder is made if needed); Escape cancels.",
+                                        value=str(export_folder())), chosen)
 
     @work(exclusive=True, group="export")
     async def _export(self, folder: Path) -> None:

@@ -8,12 +8,12 @@ from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Vertical
-from textual.screen import ModalScreen, Screen
-from textual.widgets import DataTable, Footer, Input, Static
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Static
 from textual_plotext import PlotextPlot
 
 from linerig.tui.client import DaemonError
+from linerig.tui.screens.confirm import TextPrompt
 
 if TYPE_CHECKING:
     from linerig.tui.app import LinerigApp
@@ -41,37 +41,6 @@ def factor_rows(cals: list[dict[str, Any]]) -> list[tuple[str, ...]]:
                     "✓ yes" if c.get("accepted") else "✗ no", str(c.get("expires_utc") or "")[:10],
                     str(c.get("run_id") or "")))
     return out
-
-
-class ReferencePrompt(ModalScreen[str | None]):
-    """Ask which reference medium the calibration run uses."""
-
-    BINDINGS: ClassVar[list[BindingType]] = [Binding("escape", "cancel", "Cancel")]
-    DEFAULT_CSS = """
-    ReferencePrompt { align: center middle; }
-    ReferencePrompt > Vertical { width: 72; max-width: 95%; height: auto; border: thick $primary; padding: 1 2;
-                                 background: $surface; }
-    ReferencePrompt #question { width: 100%; height: auto; }
-    """
-
-    def __init__(self, serial: str) -> None:
-        super().__init__()
-        self.serial = serial
-
-    def compose(self) -> ComposeResult:
-        with Vertical():
-            yield Static(f"Calibrate probe {self.serial}: which reference medium is it in?", id="question")
-            yield Input(placeholder=REFERENCE_HINT, id="reference")
-            yield Static("Enter to continue to the new-run form, Escape to cancel.", classes="hint")
-        yield Footer(compact=True)
-
-    @on(Input.Submitted)
-    def _submitted(self, event: Input.Submitted) -> None:
-        if event.value.strip():
-            self.dismiss(event.value.strip())
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)
 
 
 class ProbesScreen(Screen[None]):
@@ -204,4 +173,6 @@ class ProbesScreen(Screen[None]):
             if reference:
                 self.rig.open_new_run("calibration", calibration_metadata(serial, reference))
 
-        self.app.push_screen(ReferencePrompt(serial), chosen)
+        self.app.push_screen(TextPrompt(f"Calibrate probe {serial}: which reference medium is it in?",
+                                        "Enter to continue to the new-run form, Escape to cancel.",
+                                        placeholder=REFERENCE_HINT), chosen)
