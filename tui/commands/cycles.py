@@ -112,11 +112,13 @@ def _start_C(rec: RunRecord, sensor: str) -> float | None:
 
 
 def print_summary(s: CycleSummary, sensor: str, origin: str) -> None:
-    print(f"Repeat cycles, {origin}, sensor {sensor}")
-    print(f"{'cycle':>5}  {'k W/(m·K)':>10}  {'U (k=2)':>8}  {'mod. z':>7}  flags")
-    for v, z in zip(s.values, s.mod_z, strict=True):
-        fl = ", ".join(s.flags_by_cycle.get(v.cycle, ())) or "—"
-        print(f"{v.cycle:>5}  {v.value:>10.4f}  {f(2 * v.u if v.u else None, 2):>8}  {z:>7.2f}  {fl}")
+    from linerig.tui.commands.tables import print_table
+
+    print_table(f"Repeat cycles, {origin}, sensor {sensor}", ("cycle", "run", "k W/(m·K)", "U (k = 2)",
+                                                               "modified z", "flags"),
+                [(str(v.cycle), str(v.run_id or "—"), f"{v.value:.4f}", f(2 * v.u if v.u else None, 2), f"{z:.2f}",
+                  ", ".join(s.flags_by_cycle.get(v.cycle, ())) or "—") for v, z in zip(s.values, s.mod_z, strict=True)],
+                right=(0, 1, 2, 3, 4))
     print(f"n = {s.n}; mean {s.mean:.4f} W/(m·K); s_r {s.sd:.4f} ({100 * s.cv:.2f} %); "
           f"standard error {s.sem:.4f}")
     print(f"repeatability limit r = {REPEATABILITY_FACTOR}·s_r = {s.repeatability_limit:.4f} W/(m·K) "
