@@ -82,7 +82,7 @@ def _raw_measurement(data: RunData, probe: object, sensor: str | None, run_id: i
 
 
 def _print_history(serial: str, hist: list[dict[str, object]]) -> None:
-    from linerig.tui.commands.tables import print_table
+    from linerig.tui.tables import print_table
 
     st = calibration_status(hist)
     print(f"probe {serial}: {st.message}")
@@ -164,7 +164,7 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps({"id": cal_id, **out.to_dict()}, indent=2,
                          default=lambda o: None if isinstance(o, float) and not math.isfinite(o) else str(o)))
     else:
-        from linerig.tui.commands.tables import print_table
+        from linerig.tui.tables import print_table
 
         print(f"probe {args.probe} in {ref.label}: reference k = {ref.k_W_per_mK:.4f} ± {2 * ref.k_u_W_per_mK:.4f} "
               f"W/(m·K) (± U, k = 2)\n  source: {ref.source}")

@@ -112,7 +112,7 @@ def _start_C(rec: RunRecord, sensor: str) -> float | None:
 
 
 def print_summary(s: CycleSummary, sensor: str, origin: str) -> None:
-    from linerig.tui.commands.tables import print_table
+    from linerig.tui.tables import print_table
 
     print_table(f"Repeat cycles, {origin}, sensor {sensor}", ("cycle", "run", "k W/(m·K)", "U (k = 2)",
                                                                "modified z", "flags"),

@@ -39,7 +39,7 @@ def run(args: argparse.Namespace) -> int:
     if args.list:
         import io
 
-        from linerig.tui.commands.tables import print_table
+        from linerig.tui.tables import print_table
 
         rows = list_runs(db, 200, args.site)
         buf = io.StringIO()

@@ -40,7 +40,7 @@ async def _run(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(shown, indent=2))
         return 0
-    from linerig.tui.commands.tables import print_table
+    from linerig.tui.tables import print_table
 
     print_table("", ("run", "started (UTC)", "state", "site", "borehole", "tip depth m", "sample", "k W/(m·K)",
                      "± U (k = 2)"),

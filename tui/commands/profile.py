@@ -15,7 +15,7 @@ from linerig.daemon.report import plots
 from linerig.daemon.report.cli import add_db_option, db_path, fail
 from linerig.daemon.report.sources import SourceError, list_sites, open_db, probe_profiles, site_runs
 from linerig.daemon.workflows.profiles import group_profiles, points_from_runs, summarise_depths
-from linerig.tui.commands.tables import print_table
+from linerig.tui.tables import print_table
 
 CMD = "profile"
 
