@@ -110,7 +110,8 @@ def handlers(svc: RigService, store: Store, sync: SyncScheduler | None = None) -
     db = store.reader
 
     async def status(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
-        return {**svc.status(), "sync": sync.status() if sync is not None else None}
+        return {**svc.status(), "db": str(store.path),   # clients that write (qualifications) write here
+                "sync": sync.status() if sync is not None else None}
 
     async def ping(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         return {"pong": True, "pid": os.getpid()}

@@ -4,6 +4,7 @@ none, a reader only reads), and an upgrade from the previous central version wit
 from __future__ import annotations
 
 import json
+import sqlite3
 import uuid
 from pathlib import Path
 from typing import Any
@@ -23,7 +24,7 @@ from central_stores import (
 from central_stores import sync as sync_cli
 from pg_server import CentralDb
 
-from linerig.daemon.central.schema import CENTRAL_VERSION
+from linerig.daemon.central.schema import CENTRAL_VERSION, READER_NEEDS
 
 pytestmark = pytest.mark.timeout(300)
 
@@ -90,13 +91,18 @@ def test_a_rig_writes_only_its_own_rows_and_changes_none(two_rigs: tuple[Path, P
 
 def test_upgrade_from_the_previous_central_version(two_rigs: tuple[Path, Path], pg_cluster: Any) -> None:
     north, south = two_rigs
+    con = sqlite3.connect(north)
+    with con:  # runs that know their front end (local schema 4): the previous central schema has no columns for it
+        con.execute("UPDATE runs SET frontend_model = 'LR-FE2', frontend_serial = 'FE-0042', "
+                    "frontend_firmware = '1.4.0' WHERE id IN (4, 5)")
+    con.close()
     old = CentralDb(pg_cluster, CENTRAL_VERSION - 1)  # as the previous linerig left it
     url_n, url_s = old.role("north"), old.role("south")
     reader = old.role("office", "linerig_reader")
     first = synced(north, url_n)  # a push needs nothing newer than version 1
     assert first["central_version"] == CENTRAL_VERSION - 1
-    done = cli("history", "--central", reader, "--json")
-    assert done.returncode == 2 and f"needs {CENTRAL_VERSION}" in done.stderr and "central migrate" in done.stderr
+    assert first["in_extra"] == {"runs": ["frontend_model", "frontend_serial", "frontend_firmware"]}
+    store_n, _ = identity(north)
 
     # only the owner migrates: a rig may not
     done = cli("central", "migrate", url_n)
@@ -106,20 +112,33 @@ def test_upgrade_from_the_previous_central_version(two_rigs: tuple[Path, Path], 
     done = cli("central", "migrate", old.admin_url)
     assert done.returncode == 0 and "already at version" in done.stdout
 
-    store_n, _ = identity(north)
-    assert server_snapshot(old.admin_url, store_n) == local_snapshot(north)  # the rows kept through the upgrade
+    # what was carried in extra is in its columns now, and the rows are otherwise as they were
+    assert old.query("SELECT id, frontend_serial, extra FROM linerig.runs WHERE store = %s AND "
+                     "frontend_serial IS NOT NULL ORDER BY id", (store_n,)) == [(4, "FE-0042", None),
+                                                                                 (5, "FE-0042", None)]
+    assert server_snapshot(old.admin_url, store_n) == local_snapshot(north)
+    detail = json.loads(cli("history", "--central", reader, "--rig", "north", "--json", "4").stdout)
+    assert (detail["frontend_model"], detail["frontend_firmware"]) == ("LR-FE2", "1.4.0")
     add_runs(north, 1, seed=3)
-    assert synced(north, url_n)["pushed"]["runs"] == 1
+    again = synced(north, url_n)
+    assert again["pushed"]["runs"] == 1 and again["in_extra"] == {}
     assert synced(north, url_n)["rows"] == 0
     synced(south, url_s)
     done = cli("history", "--central", reader, "--json", "--limit", "1000")
     assert done.returncode == 0, done.stderr
     assert {(r["rig"]) for r in json.loads(done.stdout)} == {"north", "south"}
-    done = cli("central", "status", old.admin_url, "--json")
-    status = json.loads(done.stdout)
+    status = json.loads(cli("central", "status", old.admin_url, "--json").stdout)
     assert status["version"] == CENTRAL_VERSION
     assert {r["rig"]: r["runs"] for r in status["rigs"]} == {"north": len(closed_runs(north)),
                                                             "south": len(closed_runs(south))}
+
+
+def test_the_read_side_asks_for_the_schema_it_needs(two_rigs: tuple[Path, Path], pg_cluster: Any) -> None:
+    north, _ = two_rigs
+    first = CentralDb(pg_cluster, READER_NEEDS - 1)  # pushes go in; the views the readers use are not there yet
+    synced(north, first.role("north"))
+    done = cli("history", "--central", first.role("office", "linerig_reader"), "--json")
+    assert done.returncode == 2 and f"needs {READER_NEEDS}" in done.stderr and "central migrate" in done.stderr
 
 
 def test_a_server_newer_than_this_linerig_is_named(two_rigs: tuple[Path, Path], central: CentralDb) -> None:

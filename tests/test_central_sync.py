@@ -250,22 +250,22 @@ def test_columns_and_tables_of_a_later_local_schema(rig_a: Path, central: Centra
     this linerig does not know is named in the summary and left alone."""
     con = sqlite3.connect(rig_a)
     with con:
-        con.execute("ALTER TABLE runs ADD COLUMN frontend_serial TEXT")
-        con.execute("UPDATE runs SET frontend_serial = 'FE-0042' WHERE id = 4")
+        con.execute("ALTER TABLE runs ADD COLUMN ground_cover TEXT")
+        con.execute("UPDATE runs SET ground_cover = 'rough grass' WHERE id = 4")
         con.execute("CREATE TABLE spacing_checks (id INTEGER PRIMARY KEY, probe_serial TEXT, spacing_mm REAL)")
         con.execute("INSERT INTO spacing_checks (probe_serial, spacing_mm) VALUES ('FN-0412', 8.02)")
     con.close()
     url = central.role("north")
     out = synced(rig_a, url)
-    assert out["in_extra"] == {"runs": ["frontend_serial"]}
+    assert out["in_extra"] == {"runs": ["ground_cover"]}
     assert out["not_carried"] == ["spacing_checks"]
     store, _ = identity(rig_a)
     assert central.query("SELECT extra FROM linerig.runs WHERE store = %s AND id = 4", (store,)) == \
-        [({"frontend_serial": "FE-0042"},)]
+        [({"ground_cover": "rough grass"},)]
     assert central.query("SELECT count(*) FROM linerig.runs WHERE store = %s AND extra IS NOT NULL", (store,)) == \
         [(1,)]  # a column null in the other runs adds nothing to them
     done = cli("history", "--central", url, "--rig", "north", "--json", "4")
-    assert json.loads(done.stdout)["frontend_serial"] == "FE-0042"
+    assert json.loads(done.stdout)["ground_cover"] == "rough grass"
     assert synced(rig_a, url)["rows"] == 0  # and the new column did not make every run look changed
 
 

@@ -24,8 +24,11 @@ if TYPE_CHECKING:  # the report's readers pull in the reduction: imported where 
     from linerig.daemon.probe import ProbeProfile
     from linerig.daemon.report.sources import RunRecord
 
-LIST_COLUMNS = ("id", "created_utc", "ended_utc", "state", "end_reason", "site", "location", "sample", "material",
-                "probe_serial", "series_id", "cycle")
+LIST_COLUMNS = ("id", "created_utc", "ended_utc", "state", "end_reason", "site", "location", "depth_m", "sample",
+                "material", "probe_serial", "series_id", "cycle")
+# the latest result's figures ride along, as in the rig's own list (store.queries.list_runs)
+_LATEST = ("(SELECT x.{col} FROM linerig.results x WHERE x.store = u.store AND x.run_id = u.id "
+           "ORDER BY x.id DESC LIMIT 1)")
 CENTRAL_ONLY = ("fingerprint", "pushed_at", "rev", "extra")
 
 
@@ -64,10 +67,11 @@ def _fetch(conn: psycopg.Connection[Any], query: str, params: tuple[Any, ...] = 
 def list_runs(conn: psycopg.Connection[Any], limit: int = 200, rig: str | None = None) -> list[dict[str, Any]]:
     """The newest runs of every rig (of one with ``rig``), each once, with its rig."""
     require(conn, READER_NEEDS, "reading")
-    cols = ", ".join(LIST_COLUMNS)
-    where, params = ("WHERE rig = %s", (rig,)) if rig else ("", ())
-    return _fetch(conn, f"SELECT rig, {cols} FROM linerig.run_list {where} "
-                        "ORDER BY created_utc DESC NULLS LAST, rig, id DESC LIMIT %s", (*params, limit))
+    cols = ", ".join(f"u.{c}" for c in LIST_COLUMNS)
+    latest = ", ".join(f"{_LATEST.format(col=c)} AS {c}" for c in ("sensor", "k_w_per_mk", "k_u_w_per_mk"))
+    where, params = ("WHERE u.rig = %s", (rig,)) if rig else ("", ())
+    return _fetch(conn, f"SELECT u.rig, {cols}, {latest} FROM linerig.run_list u {where} "
+                        "ORDER BY u.created_utc DESC NULLS LAST, u.rig, u.id DESC LIMIT %s", (*params, limit))
 
 
 def rig_summary(conn: psycopg.Connection[Any]) -> list[dict[str, Any]]:

@@ -105,10 +105,9 @@ CREATE TABLE linerig.qualifications (
     PRIMARY KEY (store, id));
 """
 
-_V2 = """
-CREATE INDEX runs_site ON linerig.runs (site, location);
-CREATE INDEX calibrations_probe ON linerig.calibrations (probe_serial);
--- each run once, as the rig holds it now (its latest revision over the row first pushed), with its rig
+# each run once, as the rig holds it now (its latest revision over the row first pushed), with its rig; made again
+# whenever runs gains columns (a view keeps the columns it was made with)
+_RUN_LIST = """
 CREATE VIEW linerig.run_list AS
 SELECT st.rig, (CASE WHEN v.row IS NULL THEN r ELSE jsonb_populate_record(r, v.row) END).*,
        coalesce(v.rev, 1) AS rev
@@ -116,6 +115,11 @@ FROM linerig.runs r
 JOIN linerig.stores st ON st.store = r.store
 LEFT JOIN LATERAL (SELECT rv.row, rv.rev FROM linerig.run_revisions rv
                    WHERE rv.store = r.store AND rv.id = r.id ORDER BY rv.rev DESC LIMIT 1) v ON true;
+"""
+
+_V2 = _RUN_LIST + """
+CREATE INDEX runs_site ON linerig.runs (site, location);
+CREATE INDEX calibrations_probe ON linerig.calibrations (probe_serial);
 CREATE VIEW linerig.probe_list AS
 SELECT DISTINCT ON (p.store, p.serial) st.rig, p.*
 FROM linerig.probes p JOIN linerig.stores st ON st.store = p.store
@@ -181,10 +185,26 @@ def _v2(cur: psycopg.Cursor[Any]) -> None:
                                                                  sql.Identifier(READER_ROLE)))
 
 
-MIGRATIONS: list[Callable[[psycopg.Cursor[Any]], None]] = [_v1, _v2]
+_FRONTEND = ("frontend_model", "frontend_serial", "frontend_firmware")
+
+
+def _v3(cur: psycopg.Cursor[Any]) -> None:
+    """The front end that made a run (local schema 4) as columns of runs; what rigs pushed before, in each row's
+    extra, moved into them."""
+    cur.execute("ALTER TABLE linerig.runs " + ", ".join(f"ADD COLUMN {c} text" for c in _FRONTEND))
+    cur.execute("UPDATE linerig.runs SET " + ", ".join(f"{c} = extra ->> '{c}'" for c in _FRONTEND)
+                + ", extra = nullif(extra" + "".join(f" - '{c}'" for c in _FRONTEND) + ", '{}'::jsonb) "
+                "WHERE extra ?| array[" + ", ".join(f"'{c}'" for c in _FRONTEND) + "]")
+    cur.execute("DROP VIEW linerig.run_list")
+    cur.execute(_RUN_LIST)
+    cur.execute(sql.SQL("GRANT SELECT ON linerig.run_list TO {}, {}").format(sql.Identifier(RIG_ROLE),
+                                                                             sql.Identifier(READER_ROLE)))
+
+
+MIGRATIONS: list[Callable[[psycopg.Cursor[Any]], None]] = [_v1, _v2, _v3]
 CENTRAL_VERSION = len(MIGRATIONS)
 # the oldest linerig (by its CENTRAL_VERSION) whose pushes a database at each version still accepts
-WRITER_MIN = {1: 1, 2: 1}
+WRITER_MIN = {1: 1, 2: 1, 3: 1}
 
 
 def _read_version(cur: psycopg.Cursor[Any]) -> tuple[int, int] | None:

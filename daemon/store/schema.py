@@ -74,6 +74,12 @@ def _v3(db: sqlite_utils.Database) -> None:
 
 
 def _v4(db: sqlite_utils.Database) -> None:
+    """Which front end made a run (model, serial and firmware from its identity frame), for the test report."""
+    for name in ("frontend_model", "frontend_serial", "frontend_firmware"):
+        db["runs"].add_column(name, str)
+
+
+def _v5(db: sqlite_utils.Database) -> None:
     """Who this file is, for a central copy (daemon/central/): a uuid made once, so rows pushed from two files never
     share a key even when a damaged file is replaced and ids start again at 1, and the rig's name, generated here
     and replaced by [sync] rig when the configuration gives one."""
@@ -90,7 +96,7 @@ def record_rig_name(conn: sqlite3.Connection, name: str) -> None:
     conn.execute("UPDATE store_identity SET rig = ?", [name])
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4]
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4, _v5]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

@@ -43,11 +43,18 @@ def _print_runs(args: argparse.Namespace, runs: list[dict[str, Any]]) -> int:
     if args.json:
         print(json.dumps(shown, indent=2, default=str))
         return 0
-    for r in shown:
-        rig = f"{r['rig']:<16} " if "rig" in r else ""
-        print(f"{rig}{r['id']:>5}  {str(r.get('created_utc') or '')[:16].replace('T', ' ')}  "
-              f"{r.get('state') or '?':<9} {r.get('site') or '':<24} {r.get('location') or '':<10} "
-              f"{r.get('sample') or ''}")
+    from linerig.tui.tables import print_table
+
+    rigs = any("rig" in r for r in shown)  # read from the central database: the rig of each run
+    lead = ("rig",) if rigs else ()
+    print_table("", (*lead, "run", "started (UTC)", "state", "site", "borehole", "tip depth m", "sample",
+                     "k W/(m·K)", "± U (k = 2)"),
+                [(*((str(r.get("rig")),) if rigs else ()), str(r["id"]),
+                  str(r.get("created_utc") or "")[:16].replace("T", " "), str(r.get("state") or "?"),
+                  str(r.get("site") or ""), str(r.get("location") or ""), _num(r.get("depth_m"), ".2f"),
+                  str(r.get("sample") or ""), _num(r.get("k_W_per_mK"), ".3f"),
+                  _num(2 * r["k_u_W_per_mK"] if isinstance(r.get("k_u_W_per_mK"), int | float) else None, ".3f"))
+                 for r in shown], right=tuple(i + len(lead) for i in (0, 5, 7, 8)))
     print(f"{len(shown)} of {len(runs)} runs", file=sys.stderr)
     return 0
 
@@ -71,6 +78,10 @@ def _central(args: argparse.Namespace) -> int:
     return 0
 
 
+def _num(v: Any, spec: str) -> str:
+    return format(v, spec) if isinstance(v, int | float) else "—"
+
+
 def _is_date(day: str) -> bool:
     try:
         dt.date.fromisoformat(day)
@@ -88,7 +99,7 @@ def _detail_text(d: dict[str, Any]) -> str:
         k, ku = r.get("k_W_per_mK"), r.get("k_u_W_per_mK")
         if isinstance(k, int | float):
             flags = ", ".join(r.get("flags") or []) or "none"
-            lines.append(f"  {name}: k = {k:.3f} ± {ku or 0:.3f} W/(m·K), flags: {flags}")
+            lines.append(f"  {name}: k = {k:.3f} ± {2 * (ku or 0):.3f} W/(m·K) (± U, k = 2), flags: {flags}")
     for ev in d.get("events") or []:
         lines.append(f"  {ev.get('wall_utc') or '':<24} {ev.get('kind') or '':<9} {ev.get('reason') or ''}")
     return "\n".join(lines)

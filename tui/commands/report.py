@@ -122,7 +122,7 @@ def _run_report(args: argparse.Namespace) -> tuple[object, str]:
     rep = run_report(rec.detail, rec.data, red, rec.probe, calibration=status, calibration_row=row,
                      stored=rec.stored_results, source=str(db_path(args)))
     if len(parts) > 1:
-        rep.blocks.insert(2, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
+        rep.blocks.insert(0, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
                                   f"below are for the last one. `linerig cycles {args.run_id}` summarises them all "
                                   "(mean, repeatability, outliers).", "caution"))
     return rep, f"run-{args.run_id}.html"
@@ -137,7 +137,8 @@ def _site_report(args: argparse.Namespace, src: RunSource) -> tuple[object, str]
                               f"(its boreholes: {', '.join(holes) or 'none recorded'})")
         known = ", ".join(s["site"] for s in src.list_sites()) or "none"
         raise SourceError(f"no runs for site {args.site!r} (sites on record: {known})")
-    pts = points_from_runs(runs, src.probe_profiles())
+    probes = src.probe_profiles()
+    pts = points_from_runs(runs, probes)  # sensor depths from each run's probe profile
     serials = sorted({str(r.get("probe_serial")) for r in runs if r.get("probe_serial")})
     cals = [c for s in serials for c in src.calibration_history(s)]
     figs: dict[str, bytes] = {}
@@ -151,7 +152,7 @@ def _site_report(args: argparse.Namespace, src: RunSource) -> tuple[object, str]
             except ReductionError:
                 continue
             first = next(iter(red.sensors.values()))
-            figs[row_label(r)] = plots.heating_fit(rec.data, first)
-    rep = site_report(args.site, runs, pts, cals, args.borehole, figs)
+            figs[row_label(r)] = plots.svg_bytes(plots.heating_fit(rec.data, first, rec.probe))
+    rep = site_report(args.site, runs, pts, cals, args.borehole, figs, probes)
     name = _safe(args.site) + (f"-{_safe(args.borehole)}" if args.borehole else "")
     return rep, f"site-{name}.html"
