@@ -4,9 +4,9 @@ export, profile, cycles, calibrate and dryout from runs."""
 from __future__ import annotations
 
 import csv
-import importlib.util
 import io
 import json
+import shutil
 import sqlite3
 from pathlib import Path
 from typing import Any
@@ -16,19 +16,16 @@ import pytest
 from linerig.daemon.runcsv import read_run_csv
 from linerig.tui.cli import main
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "examplemoor.py"
 SITE = "Examplemoor substation"
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
-    spec = importlib.util.spec_from_file_location("examplemoor", EXAMPLES)
-    assert spec and spec.loader
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+def demo(example_site: tuple[Path, dict[str, Any]], tmp_path_factory: pytest.TempPathFactory
+         ) -> tuple[Path, dict[str, Any]]:
+    """A copy of the session's example store (conftest.py): these tests write calibrations into it."""
     path = tmp_path_factory.mktemp("db") / "demo.db"
-    ids = mod.build_demo_db(path)
-    return path, ids
+    shutil.copyfile(example_site[0], path)
+    return path, example_site[1]
 
 
 def _cli(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]:
@@ -44,10 +41,10 @@ def test_run_report_html_is_self_contained(demo: tuple[Path, dict[str, Any]], tm
     rc, _, err = _cli(capsys, "report", str(ids["bh1"][2]), "--db", str(db), "-o", str(out))
     assert rc == 0, err
     html = out.read_text(encoding="utf-8")
-    assert html.count("data:image/png;base64,") >= 3          # fit, estimate history, cooling
+    assert html.count("data:image/svg+xml;base64,") >= 3          # fit, estimate history, cooling: vector
     assert "http://" not in html and "https://" not in html and "<script" not in html
-    for needle in ("Calibration traceability", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
-                   "Blackwell", "U (k=2)", SITE):
+    for needle in ("Calibration", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
+                   "Blackwell", "U (k = 2)", "Report number", "Method statement", "ASTM D5334", "Sign-off", SITE):
         assert needle in html, needle
 
 

@@ -11,9 +11,10 @@ import json
 import math
 import sqlite3
 import tomllib
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 import sqlite_utils
@@ -53,10 +54,15 @@ def probe_profiles(db: sqlite_utils.Database) -> dict[str, ProbeProfile]:
     The column holds the profile TOML, or the flat JSON of the profile's fields that linerigd writes for the
     probes it loads; both are read, so a daemon-made run is reduced again with its probe's geometry.
     """
-    out: dict[str, ProbeProfile] = {}
     if "probes" not in db.table_names():
-        return out
-    for row in db["probes"].rows:
+        return {}
+    return profiles_from_rows(db["probes"].rows)
+
+
+def profiles_from_rows(rows: Iterable[dict[str, Any]]) -> dict[str, ProbeProfile]:
+    """Probe rows (serial, profile_toml) as profiles by serial; a later row for a serial wins."""
+    out: dict[str, ProbeProfile] = {}
+    for row in rows:
         text = row.get("profile_toml")
         if not text:
             continue
@@ -123,18 +129,22 @@ def load_run(db: sqlite_utils.Database, run_id: int) -> RunRecord:
     detail = run_detail(db, run_id)
     if detail is None:
         raise SourceError(f"no run {run_id} in the database (list runs with `linerig export --list`)")
+    arr = run_arrays(db, run_id) if detail.get("n_samples") else None
+    serial = str(detail.get("probe_serial") or "")
+    return record_of(detail, arr, probe_profiles(db).get(serial), calibration_history(db, serial))
+
+
+def record_of(detail: dict[str, Any], arr: dict[str, Any] | None, probe: ProbeProfile | None,
+              calibrations: list[dict[str, Any]]) -> RunRecord:
+    """A run's detail and sample arrays (``store.queries`` shapes) as a RunRecord."""
     data = phase = None
-    if detail.get("n_samples"):
-        arr = run_arrays(db, run_id)
-        temps = {k: v for k, v in arr["temps_C"].items()}
+    if arr is not None:
         try:
-            data = RunData(arr["time_s"], arr["q_W_per_m"], temps)
+            data = RunData(arr["time_s"], arr["q_W_per_m"], dict(arr["temps_C"]))
         except ReductionError:
             data = None
         phase = list(arr["phase"])
-    probe = probe_profiles(db).get(str(detail.get("probe_serial") or ""))
-    return RunRecord(run_id, detail, data, probe, calibration_history(db, str(detail.get("probe_serial") or "")),
-                     phase)
+    return RunRecord(int(detail["id"]), detail, data, probe, calibrations, phase)
 
 
 def reduce_record(rec: RunRecord, **kwargs: Any) -> RunReduction:
@@ -151,7 +161,19 @@ def reduce_record(rec: RunRecord, **kwargs: Any) -> RunReduction:
     rd, w = finite(rec.detail.get("dry_density_kg_per_m3")), finite(rec.detail.get("moisture_pct"))
     if rd and w is not None:
         kwargs.setdefault("bulk_density_kg_per_m3", rd * (1.0 + w / 100.0))
-    return reduce_run(rec.data, rec.probe, **kwargs)
+    return mark_ended_early(reduce_run(rec.data, rec.probe, **kwargs), rec.detail.get("state"))
+
+
+ENDED_EARLY = ("aborted", "faulted")   # final states whose result rests on a shortened record (flag of that name)
+
+
+def mark_ended_early(red: RunReduction, state: Any) -> RunReduction:
+    """An aborted or faulted run's result says so in its flags, wherever it is reduced."""
+    if state in ENDED_EARLY:
+        for r in red.sensors.values():
+            if state not in r.flags:
+                r.flags.append(str(state))
+    return red
 
 
 def cycle_data(rec: RunRecord) -> list[tuple[int, RunData]]:
@@ -186,6 +208,46 @@ def series_runs(db: sqlite_utils.Database, series_id: int) -> list[dict[str, Any
 def list_sites(db: sqlite_utils.Database) -> list[dict[str, Any]]:
     return list(db.query("SELECT site, count(*) AS runs, count(DISTINCT location) AS boreholes FROM runs "
                          "WHERE site IS NOT NULL AND site != '' GROUP BY site ORDER BY site"))
+
+
+class RunSource(Protocol):
+    """Where the site-wide tools (``report --site``, ``profile``) read runs: one rig's file, or the central
+    database of every rig (``daemon.central.read.CentralRuns``, whose rows also carry ``rig``)."""
+
+    where: str
+
+    def site_runs(self, site: str, borehole: str | None = None) -> list[dict[str, Any]]: ...
+
+    def list_sites(self) -> list[dict[str, Any]]: ...
+
+    def probe_profiles(self) -> dict[str, ProbeProfile]: ...
+
+    def calibration_history(self, probe_serial: str) -> list[dict[str, Any]]: ...
+
+    def load_run(self, run: dict[str, Any]) -> RunRecord: ...
+
+
+class LocalRuns:
+    """A RunSource over one rig's SQLite file."""
+
+    def __init__(self, path: Path | str) -> None:
+        self.db = open_db(path)
+        self.where = str(path)
+
+    def site_runs(self, site: str, borehole: str | None = None) -> list[dict[str, Any]]:
+        return site_runs(self.db, site, borehole)
+
+    def list_sites(self) -> list[dict[str, Any]]:
+        return list_sites(self.db)
+
+    def probe_profiles(self) -> dict[str, ProbeProfile]:
+        return probe_profiles(self.db)
+
+    def calibration_history(self, probe_serial: str) -> list[dict[str, Any]]:
+        return calibration_history(self.db, probe_serial)
+
+    def load_run(self, run: dict[str, Any]) -> RunRecord:
+        return load_run(self.db, int(run["id"]))
 
 
 def finite(v: Any) -> float | None:

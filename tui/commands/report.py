@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 from pathlib import Path
 
 from linerig.daemon.probe import ProbeProfileError
@@ -15,22 +16,19 @@ from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.data import ReductionError
 from linerig.daemon.report import plots
 from linerig.daemon.report.build import run_report, site_report
-from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
+from linerig.daemon.report.cli import add_central_option, add_db_option, db_path, fail, run_source, write_report
 from linerig.daemon.report.model import Para
 from linerig.daemon.report.sources import (
     RunRecord,
+    RunSource,
     SourceError,
-    calibration_history,
     cycle_data,
-    list_sites,
     load_run,
     open_db,
-    probe_profiles,
     reduce_record,
-    site_runs,
 )
 from linerig.daemon.runcsv import RunCsvError, read_run_csv
-from linerig.daemon.workflows.profiles import points_from_runs
+from linerig.daemon.workflows.profiles import points_from_runs, row_label
 
 CMD = "report"
 
@@ -45,6 +43,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("--site", help="report on every run of a site")
     p.add_argument("--borehole", help="with --site: one borehole")
     add_db_option(p)
+    add_central_option(p)
     p.add_argument("-o", "--output", type=Path, metavar="FILE.html|FILE.pdf",
                    help="where to write (default: run-<id>.html, <csv name>.html or site-<name>.html)")
     p.add_argument("--probe", type=Path, metavar="PROFILE.toml", help="with --csv: the probe profile")
@@ -59,16 +58,24 @@ def _safe(name: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from linerig.daemon.central.errors import CentralError
+
     chosen = sum(x is not None and x is not False for x in (args.run_id, args.csv, args.site))
     if chosen != 1:
         return fail(CMD, "give exactly one of RUN_ID, --csv FILE.csv or --site SITE")
+    if args.central is not None and not args.site:
+        return fail(CMD, "--central goes with --site (a site across rigs); for one run, give --db of its rig")
     try:
         if args.csv is not None:
             rep, default = _csv_report(args)
         elif args.site:
-            rep, default = _site_report(args)
+            with run_source(args) as src:
+                rep, default = _site_report(args, src)
         else:
             rep, default = _run_report(args)
+    except CentralError as e:
+        print(f"linerig {CMD}: error: {e}", file=sys.stderr)
+        return e.exit_code
     except (SourceError, RunCsvError, ReductionError, ProbeProfileError) as e:
         return fail(CMD, str(e))
     out = args.output or Path(default)
@@ -115,29 +122,29 @@ def _run_report(args: argparse.Namespace) -> tuple[object, str]:
     rep = run_report(rec.detail, rec.data, red, rec.probe, calibration=status, calibration_row=row,
                      stored=rec.stored_results, source=str(db_path(args)))
     if len(parts) > 1:
-        rep.blocks.insert(2, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
+        rep.blocks.insert(0, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
                                   f"below are for the last one. `linerig cycles {args.run_id}` summarises them all "
                                   "(mean, repeatability, outliers).", "caution"))
     return rep, f"run-{args.run_id}.html"
 
 
-def _site_report(args: argparse.Namespace) -> tuple[object, str]:
-    db = open_db(db_path(args))
-    runs = site_runs(db, args.site, args.borehole)
+def _site_report(args: argparse.Namespace, src: RunSource) -> tuple[object, str]:
+    runs = src.site_runs(args.site, args.borehole)
     if not runs:
-        if args.borehole and site_runs(db, args.site):
-            holes = sorted({str(r.get("location")) for r in site_runs(db, args.site) if r.get("location")})
+        if args.borehole and src.site_runs(args.site):
+            holes = sorted({str(r.get("location")) for r in src.site_runs(args.site) if r.get("location")})
             raise SourceError(f"no runs in borehole {args.borehole!r} of site {args.site!r} "
                               f"(its boreholes: {', '.join(holes) or 'none recorded'})")
-        known = ", ".join(s["site"] for s in list_sites(db)) or "none"
+        known = ", ".join(s["site"] for s in src.list_sites()) or "none"
         raise SourceError(f"no runs for site {args.site!r} (sites on record: {known})")
-    pts = points_from_runs(runs, probe_profiles(db))
+    probes = src.probe_profiles()
+    pts = points_from_runs(runs, probes)  # sensor depths from each run's probe profile
     serials = sorted({str(r.get("probe_serial")) for r in runs if r.get("probe_serial")})
-    cals = [c for s in serials for c in calibration_history(db, s)]
-    figs: dict[int, bytes] = {}
+    cals = [c for s in serials for c in src.calibration_history(s)]
+    figs: dict[str, bytes] = {}
     if args.run_plots:
         for r in runs:
-            rec = load_run(db, int(r["id"]))
+            rec = src.load_run(r)
             if rec.data is None:
                 continue
             try:
@@ -145,9 +152,7 @@ def _site_report(args: argparse.Namespace) -> tuple[object, str]:
             except ReductionError:
                 continue
             first = next(iter(red.sensors.values()))
-            figs[rec.run_id] = plots.heating_fit(rec.data, first)
-    rep = site_report(args.site, runs, pts, cals, args.borehole, figs)
+            figs[row_label(r)] = plots.svg_bytes(plots.heating_fit(rec.data, first, rec.probe))
+    rep = site_report(args.site, runs, pts, cals, args.borehole, figs, probes)
     name = _safe(args.site) + (f"-{_safe(args.borehole)}" if args.borehole else "")
     return rep, f"site-{name}.html"
-
-
