@@ -50,6 +50,7 @@ class SensorResult:
     joint: CoolingFit | None = None
     pulse: PulseCheck | None = None
     calibration_factor: float = 1.0
+    calibration_factor_u: float = 0.0
     specific_heat_J_per_kgK: float | None = None
     radial_m: float = 0.0
     notes: list[str] = field(default_factory=list)
@@ -93,6 +94,7 @@ class SensorResult:
             "residual_rms_K": self.residual_rms_K,
             "n_used": self.n_used,
             "calibration_factor": self.calibration_factor,
+            "calibration_factor_u": self.calibration_factor_u,
             "drift_K_per_h": (self.baseline.to_dict()["rate_K_per_h"] if self.baseline and self.baseline.present
                               else None),
             "drift_removed": bool(self.baseline and self.baseline.present and self.baseline.rate_K_per_s != 0.0),

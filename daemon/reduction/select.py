@@ -111,7 +111,8 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
     line = found.converged("line")
     model = found.converged("model") or found.converged("radial")
     res = SensorResult(name=rec.name, method=_label(chosen, opts), method_reason=reason, baseline=rec.baseline,
-                       rise_K=rec.rise_K, heating_s=rec.run.heating_s, calibration_factor=cal, radial_m=g.radial_m)
+                       rise_K=rec.rise_K, heating_s=rec.run.heating_s, calibration_factor=cal,
+                       calibration_factor_u=cal_u, radial_m=g.radial_m)
     res.notes = _notes(rec, found)
     lf: LateTimeFit | None = line.fit if line is not None else None
     res.line = lf
