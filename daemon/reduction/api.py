@@ -48,7 +48,7 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
     """Methods, then the selector, then the live verdict replayed on the same record."""
-    found = run_methods(rec, opts)
+    found, rec = run_methods(rec, opts)
     chosen, reason = choose(rec, opts, found)
     res = sensor_result(rec, opts, found, chosen, reason)
     res.stable_at_s = stable_at(rec, opts) if opts.stable_rule else None

@@ -26,6 +26,7 @@ from .methods import (
     RecoveryMethod,
     combine,
 )
+from .methods.probe import time_zero_bounds
 from .record import SensorRecord
 from .result import SensorResult
 
@@ -43,18 +44,33 @@ CONTACT_H_HIGH = 1.0   # h = k/(aH) > 1: contact drop exceeds q/(2πk) (common p
 MODEL_LINE_REL = 0.03  # probe model and line differ by more than this: a note says so (no source)
 
 
-def run_methods(rec: SensorRecord, opts: Options) -> Found:
-    """Every applicable method's result, by name, in run order."""
+def run_methods(rec: SensorRecord, opts: Options) -> tuple[Found, SensorRecord]:
+    """Every applicable method's result, by name, in run order; and the record as the later methods saw it.
+
+    When the temperature rose before the power column's switch-on (``timezero``), the probe model fits the
+    switch-on within the bound; every later method sees the power moved there (to the middle of the bound when
+    no model fitted it).
+    """
     kind = "heater" if rec.geometry.on_heater else "radial"
     if opts.method == "radial" and kind == "heater":
         raise ReductionError(f"sensor {rec.name!r} is inside the heater; the radial method needs a spacing "
                              "(--spacing or radial_mm in the probe profile)")
     found = Found()
     for m in HEATER_METHODS if kind == "heater" else RADIAL_METHODS:
+        if m.name != "model" and rec.run.shift_s == 0.0 and time_zero_bounds(rec) is not None:
+            rec = rec.shifted(_switch_on(rec, found))
         r = m.fit(rec, opts, found)
         if r is not None:
             found[m.name] = r
-    return found
+    return found, rec
+
+
+def _switch_on(rec: SensorRecord, found: Found) -> float:
+    model = found.converged("model")
+    if model is not None and model.fit.shift_s != 0.0:
+        return float(model.fit.shift_s)
+    assert rec.time_zero is not None
+    return rec.time_zero.mid_s
 
 
 def choose(rec: SensorRecord, opts: Options, found: Found) -> tuple[MethodResult, str]:
@@ -172,6 +188,16 @@ def _notes(rec: SensorRecord, found: Found) -> list[str]:
     notes: list[str] = []
     if rec.geometry.known and not rec.geometry.in_profile:
         notes.append(f"sensor {rec.name!r} not in the probe profile: taken as inside the heated needle")
+    tz = rec.time_zero
+    if tz is not None and rec.run.shift_s != 0.0:
+        model = found.converged("model")
+        fitted = model is not None and model.fit.shift_s == rec.run.shift_s
+        notes.append(tz.note(rec.run.shift_s, "fitted by the probe model" if fitted
+                             else "the middle of the bound; no probe model fitted it"))
+    elif tz is not None:
+        notes.append(f"time zero: ΔT had risen {tz.risen_K:.3g} K at t = {tz.risen_at_s:.4g} s, "
+                     f"{tz.samples:.0f} samples before the power column shows the heater on at "
+                     f"{tz.power_on_s:.4g} s: more than a late power reading; check the record's time axis")
     for r in found.values():
         notes.extend(r.notes)
     model, line = found.converged("model"), found.converged("line")
@@ -187,6 +213,8 @@ def _flags(rec: SensorRecord, opts: Options, found: Found, chosen: MethodResult,
     g = rec.geometry
     line = found.converged("line")
     flags = rec.baseline.flags(rec.rise_K, rec.run.heating_s)
+    if rec.time_zero is not None and rec.run.shift_s == 0.0:
+        flags.append("time_zero_mismatch")
     flags += chosen.flags
     if chosen.name != "line" and g.on_heater and line is not None and "residual_trend" in line.flags:
         flags.append("residual_trend")

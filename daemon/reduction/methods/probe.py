@@ -16,6 +16,7 @@ from ..live import NOISE_HIGH_FRACTION
 from ..probe_model import ModelFit, fit_probe_model
 from ..record import SensorRecord
 from ..superposition import compress_steps
+from ..timezero import MAX_SHIFT_SAMPLES
 from .base import Estimate, Found, MethodResult, Options
 from .line import preliminary_line
 
@@ -50,17 +51,19 @@ class ProbeModelMethod:
 
     def fit(self, rec: SensorRecord, opts: Options, found: Found) -> MethodResult | None:
         g = rec.geometry
-        if not g.on_heater or opts.method not in ("auto", "model"):
+        bounds = time_zero_bounds(rec)
+        # asked for the line, the model still runs where it alone can place a switch-on the power column has late
+        if not g.on_heater or (opts.method not in ("auto", "model") and bounds is None):
             return None
         if g.probe_radius_m is None or g.probe_C_J_per_m3K is None:
             if opts.method == "model":
                 raise ReductionError("the probe model needs the probe radius and heat capacity "
                                      "(--probe, or --radius-mm and --probe-heat-capacity)")
             return None
-        prelim, note = preliminary_line(rec)
+        prelim, note = preliminary_line(rec.shifted(0.5 * (bounds[0] + bounds[1])) if bounds else rec)
         if prelim is None:
             return MethodResult(self.name, None, converged=False, notes=[note] if note else [])
-        fit = _fit_heater(rec, prelim)
+        fit = _fit_heater(rec, prelim, bounds)
         return _result(self.name, rec, fit, "probe model", [])
 
 
@@ -76,8 +79,18 @@ class RadialMethod:
         return _result(self.name, rec, _fit_radial(rec, prelim), "radial fit", [note] if note else [])
 
 
-def _fit_heater(rec: SensorRecord, prelim: LateTimeFit) -> ModelFit | None:
-    """Probe model over the heating, stopping before axial loss; started from the preliminary line fit."""
+def time_zero_bounds(rec: SensorRecord) -> tuple[float, float] | None:
+    """Where the switch-on may be moved, relative to the power column, when the temperature rose first."""
+    tz = rec.time_zero
+    if tz is None or tz.samples > MAX_SHIFT_SAMPLES:
+        return None
+    return tz.lo_s, tz.hi_s
+
+
+def _fit_heater(rec: SensorRecord, prelim: LateTimeFit, shift_bounds: tuple[float, float] | None
+                ) -> ModelFit | None:
+    """Probe model over the heating, stopping before axial loss; started from the preliminary line fit. With
+    ``shift_bounds`` the switch-on is fitted too (``timezero``)."""
     g = rec.geometry
     assert g.probe_radius_m is not None and g.probe_C_J_per_m3K is not None
     th, dTh = rec.th, rec.dTh
@@ -90,7 +103,8 @@ def _fit_heater(rec: SensorRecord, prelim: LateTimeFit) -> ModelFit | None:
         sel = th <= t_end
         try:
             fit = fit_probe_model(th[sel], dTh[sel], st, sdq, g.probe_radius_m, g.probe_C_J_per_m3K,
-                                  k0=prelim.k_W_per_mK, alpha0=alpha0, fit_contact=True, h_fixed=0.5)
+                                  k0=prelim.k_W_per_mK, alpha0=alpha0, fit_contact=True, h_fixed=0.5,
+                                  shift_bounds_s=shift_bounds)
         except (ValueError, np.linalg.LinAlgError, FloatingPointError):
             return None
         if not g.length_m:
