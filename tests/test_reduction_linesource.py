@@ -85,7 +85,10 @@ def test_recovery_and_joint_fit_on_exact_record() -> None:
     # late-time recovery ΔT = q/(4πk)·ln(t/(t − t_h)) (Carslaw & Jaeger §10.4 superposition)
     assert s.recovery is not None and s.joint is not None
     assert s.recovery.k_W_per_mK == pytest.approx(k, rel=0.005)
-    assert s.joint.k_W_per_mK == pytest.approx(k, rel=0.005)
+    # the joint fit frees the drift, which takes up part of the early heating's curvature: within 1 %, and its
+    # expanded uncertainty (with the window term, the predicted departure as a rectangular distribution) holds it
+    assert s.joint.k_W_per_mK == pytest.approx(k, rel=0.01)
+    assert abs(s.joint.k_W_per_mK - k) <= 2 * s.joint.k_u_W_per_mK
     assert "heat_cool_disagree" not in s.flags
 
 

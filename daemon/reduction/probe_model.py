@@ -167,6 +167,7 @@ class ModelFit:
     fitted_contact: bool
     shift_s: float = 0.0     # time shift of the power steps fitted with them (``shift_bounds_s``), else 0
     shift_u_s: float = 0.0
+    drift_coef_rel: float = 0.0  # d ln k per K/s of drift removed from the data in addition (Gauss–Newton)
 
 
 def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.ndarray, radius_m: float,
@@ -224,6 +225,10 @@ def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: 
     except np.linalg.LinAlgError:
         cov = np.full((npar, npar), np.nan)
     u_lnk, u_lna = math.sqrt(max(cov[0, 0], 0)), math.sqrt(max(cov[1, 1], 0))
+    try:  # removing δb·t more from the data moves x by −δb·J⁺t
+        drift_coef = -float((np.linalg.pinv(J) @ t)[0])
+    except np.linalg.LinAlgError:
+        drift_coef = 0.0
     u_h = math.sqrt(max(cov[2, 2], 0)) if fit_contact else 0.0
     u_shift = math.sqrt(max(cov[n_base, n_base], 0)) if shift_bounds_s is not None else 0.0
     var_lnrc = cov[0, 0] + cov[1, 1] - 2 * cov[0, 1]
@@ -233,4 +238,5 @@ def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: 
     del H
     return ModelFit(k, k * u_lnk, alpha, alpha * u_lna, h, u_h, contact, u_contact, k / alpha,
                     k / alpha * math.sqrt(max(var_lnrc, 0.0)), math.sqrt(float(resid @ resid) / n), rho1, n,
-                    (float(t[0]), float(t[-1])), bool(res.success), str(res.message), fit_contact, shift, u_shift)
+                    (float(t[0]), float(t[-1])), bool(res.success), str(res.message), fit_contact, shift, u_shift,
+                    drift_coef)

@@ -152,5 +152,10 @@ class SensorRecord:
         return self.dTh / self.Qh
 
     @property
+    def noise_K(self) -> float | None:
+        """The baseline's residual RMS: what the record's noise is (None without a baseline)."""
+        return self.baseline.resid_rms_K if self.baseline.present and self.baseline.n >= 5 else None
+
+    @property
     def rise_K(self) -> float:
         return float(np.max(self.dTh))
