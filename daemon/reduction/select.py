@@ -43,7 +43,6 @@ AUTO_ORDER = {"heater": ("line", "model"), "radial": ("radial",)}
 
 HEAT_COOL_REL = 0.03   # heating and recovery k differ by > 3 % and > 2 combined u: heat_cool_disagree (no source)
 CONTACT_H_HIGH = 1.0   # h = k/(aH) > 1: contact drop exceeds q/(2πk) (common practice, no source)
-MODEL_LINE_REL = 0.03  # probe model and line differ by more than this: a note says so (no source)
 
 
 def run_methods(rec: SensorRecord, opts: Options) -> tuple[Found, SensorRecord]:
@@ -179,6 +178,9 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
         res.contact_m2K_per_W, res.contact_u_m2K_per_W = model.contact.value, model.contact.u
 
     res.flags = list(dict.fromkeys(_flags(rec, opts, found, chosen, budget)))
+    disagree = line_disagreement(chosen, found, opts)
+    if disagree is not None:
+        res.notes.append(disagree)
     res.methods = {name: _summary(r, opts) for name, r in found.items() if r.k is not None}
     return res
 
@@ -226,12 +228,24 @@ def _notes(rec: SensorRecord, found: Found) -> list[str]:
                      f"{tz.power_on_s:.4g} s: more than a late power reading; check the record's time axis")
     for r in found.values():
         notes.extend(r.notes)
-    model, line = found.credible("model"), found.converged("line")
-    if model is not None and line is not None and rec.geometry.on_heater:
-        d = model.k.value / line.k.value - 1 if model.k and line.k else 0.0
-        if abs(d) > MODEL_LINE_REL:
-            notes.append(f"probe model and late-time line differ by {100 * d:+.1f} %")
     return notes
+
+
+def line_disagreement(chosen: MethodResult, found: Found, opts: Options) -> str | None:
+    """When the result that stands is not the late-time line and differs from it by more than twice the standard
+    uncertainty of the difference (each method's own terms; power and probe factor move both alike): a note that
+    names both values. None when they agree or there is no line to compare with."""
+    line = found.converged("line")
+    if line is None or line is chosen or line.k is None or chosen.k is None:
+        return None
+    own = [{k: v for k, v in e.budget.items() if k not in ("power", "calibration")} for e in (chosen.k, line.k)]
+    u_diff = math.hypot(chosen.k.value * combine(own[0]), line.k.value * combine(own[1]))
+    if abs(chosen.k.value - line.k.value) <= 2.0 * u_diff:
+        return None
+    f = opts.calibration_factor
+    return (f"{chosen.name} k = {f * chosen.k.value:.4g} ± {2 * f * chosen.k.value * combine(own[0]):.2g} and the "
+            f"late-time line k = {f * line.k.value:.4g} ± {2 * f * line.k.value * combine(own[1]):.2g} W/(m·K) "
+            f"(U, k = 2, own terms) disagree")
 
 
 def _flags(rec: SensorRecord, opts: Options, found: Found, chosen: MethodResult,
@@ -252,6 +266,8 @@ def _flags(rec: SensorRecord, opts: Options, found: Found, chosen: MethodResult,
         flags.append("heat_cool_disagree")
     if opts.max_rise_K is not None and rec.rise_K > opts.max_rise_K:
         flags.append("rise_above_limit")
+    if line_disagreement(chosen, found, opts) is not None:
+        flags.append("line_disagree")
     return flags
 
 
