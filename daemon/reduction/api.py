@@ -42,7 +42,19 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
     if not names:
         raise ReductionError("the run has no temperature columns (T_<sensor>_C)")
     run = HeatingRecord.of(data)
-    out = {name: reduce_sensor(SensorRecord.of(data, run, name, probe), opts) for name in names}
+    out: dict[str, SensorResult] = {}
+    failed: list[ReductionError] = []
+    for name in names:
+        try:
+            out[name] = reduce_sensor(SensorRecord.of(data, run, name, probe), opts)
+        except ReductionError as e:  # one sensor that cannot give a result does not take the others with it
+            failed.append(e)
+            out[name] = SensorResult(name=name, method="none", method_reason=str(e), heating_s=run.heating_s,
+                                     calibration_factor=opts.calibration_factor,
+                                     calibration_factor_u=opts.calibration_factor_u, flags=["no_result"],
+                                     notes=[str(e)])
+    if len(failed) == len(names):
+        raise failed[0]
     return RunReduction(out, run.heating_s)
 
 

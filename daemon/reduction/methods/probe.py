@@ -15,6 +15,7 @@ from ..data import ReductionError
 from ..linesource import LateTimeFit
 from ..live import NOISE_HIGH_FRACTION
 from ..probe_model import ModelFit, fit_probe_model
+from ..radial import pulse_check
 from ..record import SensorRecord
 from ..superposition import compress_steps
 from ..timezero import MAX_SHIFT_SAMPLES
@@ -86,13 +87,7 @@ class ProbeModelMethod:
         res = _result(self.name, rec, fit, "probe model", [])
         if not res.converged or fit is None:
             return res
-        noise = rec.noise_K if rec.noise_K is not None else prelim.resid_rms_K
-        allowed = CREDIBLE_NOISE * noise + CREDIBLE_RISE * rec.rise_K
-        if fit.resid_rms_K > allowed:
-            res.credible = False
-            res.notes.append(f"the probe model does not describe this record (residual {1e3 * fit.resid_rms_K:.3g} mK "
-                             f"against {1e3 * allowed:.3g} mK of noise and tolerance): its k, α, ρc and contact are "
-                             "not used")
+        if not _describes(rec, res, fit, prelim.resid_rms_K):
             return res
         refit = _fit_heater(rec, prelim, bounds, skip=REFIT_SKIP)
         _add_model_error(res, fit, refit)
@@ -100,6 +95,18 @@ class ProbeModelMethod:
             drift = abs(fit.drift_coef_rel) * rec.baseline.rate_u_K_per_s
             res.k = replace(res.k, budget={**res.k.budget, "drift": drift})
         return res
+
+
+def _describes(rec: SensorRecord, res: MethodResult, fit: ModelFit, fallback_noise_K: float) -> bool:
+    """Whether the fit's residual is within the noise (and a little of the rise); if not, mark it and say so."""
+    noise = rec.noise_K if rec.noise_K is not None else fallback_noise_K
+    allowed = CREDIBLE_NOISE * noise + CREDIBLE_RISE * rec.rise_K
+    if fit.resid_rms_K <= allowed:
+        return True
+    res.credible = False
+    res.notes.append(f"the {res.name} fit does not describe this record (residual {1e3 * fit.resid_rms_K:.3g} mK "
+                     f"against {1e3 * allowed:.3g} mK of noise and tolerance): its values are not used")
+    return False
 
 
 def _add_model_error(res: MethodResult, fit: ModelFit, refit: ModelFit | None) -> None:
@@ -137,7 +144,14 @@ class RadialMethod:
         if rec.geometry.on_heater:
             return None
         prelim, note = preliminary_line(rec)
-        return _result(self.name, rec, _fit_radial(rec, prelim), "radial fit", [note] if note else [])
+        fit = _fit_radial(rec, prelim)
+        res = _result(self.name, rec, fit, "radial fit", [note] if note else [])
+        if not res.converged or fit is None:
+            return res
+        if not _describes(rec, res, fit, prelim.resid_rms_K if prelim is not None else fit.resid_rms_K):
+            return res
+        _add_model_error(res, fit, _fit_radial(rec, prelim, skip=REFIT_SKIP))
+        return res
 
 
 def time_zero_bounds(rec: SensorRecord) -> tuple[float, float] | None:
@@ -182,11 +196,22 @@ def _fit_heater(rec: SensorRecord, prelim: LateTimeFit, shift_bounds: tuple[floa
     return fit
 
 
-def _fit_radial(rec: SensorRecord, prelim: LateTimeFit | None) -> ModelFit | None:
-    """k and α from a sensor at r: probe model evaluated in the medium (line source for a thin heater)."""
+def _fit_radial(rec: SensorRecord, prelim: LateTimeFit | None, skip: float = 0.0) -> ModelFit | None:
+    """k and α from a sensor at r: probe model evaluated in the medium (line source for a thin heater).
+
+    The whole record from switch-on is fitted, the recovery with it (the model superposes the switch-off like any
+    step): after a short pulse the medium's response is almost all in the recovery, and its peak fixes α.
+    """
     g = rec.geometry
-    th, dTh = rec.th, rec.dTh
-    steps_t, steps_dq = rec.run.steps_t, rec.run.steps_dq
+    run = rec.run
+    keep = run.t > 0
+    if run.t_off is not None:  # up to any later heating (cycles in one record are reduced one at a time)
+        later = np.nonzero((run.t > run.t_off) & (run.q > 0))[0]
+        keep &= run.t < (run.t[later[0]] if later.size else np.inf)
+    th, dTh = run.t[keep], rec.dT[keep]
+    if skip > 0:  # the model-error refit leaves out the first part of the record
+        th, dTh = th[th >= skip * float(th[-1])], dTh[th >= skip * float(th[-1])]
+    steps_t, steps_dq = run.steps_t, run.steps_dq
     st, sdq = compress_steps(steps_t[steps_t < th[-1]], steps_dq[steps_t < th[-1]])
     r_m, a_m, probe_C = g.sensor_radius_m, g.probe_radius_m, g.probe_C_J_per_m3K
     # With the heater's heat capacity known, the heater is the Blackwell cylinder; without it, an ideal line
@@ -199,8 +224,14 @@ def _fit_radial(rec: SensorRecord, prelim: LateTimeFit | None) -> ModelFit | Non
     else:
         k0, alpha0 = 1.0, 5e-7
     alpha0 = min(max(alpha0, 1e-8), 1e-5)
+    starts = [alpha0, 1.5e-7, 5e-7, 1.5e-6]
+    if run.t_off is not None:  # a pulse's peak gives κ directly (Kluitenberg et al. 1993): the best start
+        pc = pulse_check(run.t[run.t > 0], rec.dT[run.t > 0], r_m, float(np.mean(rec.Qh)), run.t_off)
+        if pc is not None and 1e-8 < pc.alpha_m2_per_s < 1e-5:
+            starts.insert(0, pc.alpha_m2_per_s)
+            k0 = pc.k_W_per_mK if 0.01 < pc.k_W_per_mK < 20 else k0
     best: ModelFit | None = None
-    for a0 in (alpha0, 1.5e-7, 5e-7, 1.5e-6):
+    for a0 in starts:
         try:
             f = fit_probe_model(th, dTh, st, sdq, a, cap, r_sensor_m=r_m, k0=k0, alpha0=a0, fit_contact=False)
         except (ValueError, np.linalg.LinAlgError, FloatingPointError):
