@@ -312,13 +312,15 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
 
 
 def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) -> None:
-    """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware."""
+    """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware, in its
+    own MicroPython process (the dev extra installs the interpreter), and the start-up line says so."""
     proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--firmware", "--speed", "20",
                              "--socket", str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
     try:
         assert proc.stdout is not None
-        assert json.loads(proc.stdout.readline())["ready"]
+        ready = json.loads(proc.stdout.readline())
+        assert ready["ready"] and ready["firmware"] == "micropython"
 
         def identity() -> dict | None:
             with socket.socket(socket.AF_UNIX) as s:
