@@ -80,12 +80,15 @@ def test_the_run_csv_example_reduces_to_the_figures_the_page_states(tmp_path: Pa
     printed = run_page("run-csv.md", tmp_path)
     assert "needle" in printed[0] and "line" in printed[0]
     text = (DOCS / "run-csv.md").read_text(encoding="utf-8")
-    stated = re.search(r"reads it back: k = ([\d.]+) W/\(m·K\) .*resistivity ([\d.]+) °C·cm/W", text)
+    stated = re.search(r"k = ([\d.]+) W/\(m·K\) by the late-time line .*\nresistivity ([\d.]+) °C·cm/W", text)
     assert stated is not None
-    k = k_of(tmp_path, "needle-in-sand.csv")
+    done = linerig("linerig reduce needle-in-sand.csv --json", tmp_path)
+    assert "applying the probe factor 1.02 ± 0.01 from needle-in-sand.csv (probe LN-0042)" in done.stderr
+    k = json.loads(done.stdout)["sensors"]["needle"]["k_W_per_mK"]
     assert f"{k:.2f}" == stated[1] and f"{100 / k:.1f}" == stated[2]
-    # the example is the exact line source for k = 1.5 (Carslaw & Jaeger 1959, §10.4): its late-time slope q/4πk
-    assert k == pytest.approx(1.5, rel=0.005)
+    # the example is the exact line source for k = 1.5 (Carslaw & Jaeger 1959, §10.4), its late-time slope q/4πk,
+    # reported with the header's factor 1.02
+    assert k == pytest.approx(1.5 * 1.02, rel=0.005)
 
 
 def test_the_logger_import_example_imports_as_shown_and_reduces_to_its_k(tmp_path: Path) -> None:

@@ -18,7 +18,7 @@ from psycopg.rows import dict_row
 
 from linerig.daemon.central.schema import READER_NEEDS, require
 from linerig.daemon.store import schema as local_schema
-from linerig.daemon.store.queries import arrays_from_samples, assemble_detail
+from linerig.daemon.store.queries import arrays_from_samples, assemble_detail, heater_off_from_events
 
 if TYPE_CHECKING:  # the report's readers pull in the reduction: imported where a run is loaded, not for a listing
     from linerig.daemon.probe import ProbeProfile
@@ -162,6 +162,6 @@ class CentralRuns:
             with self.conn.cursor() as cur:
                 cur.execute("SELECT device_s, q_w_per_m, temps_c, phase FROM linerig.samples "
                             "WHERE store = %s AND run_id = %s ORDER BY n", (detail["store"], detail["id"]))
-                arr = arrays_from_samples(detail, cur.fetchall())
+                arr = arrays_from_samples(detail, cur.fetchall(), heater_off_from_events(detail.get("events", [])))
         serial = str(detail.get("probe_serial") or "")
         return record_of(detail, arr, self.probe_profiles().get(serial), self.calibration_history(serial))

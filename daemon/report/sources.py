@@ -22,7 +22,7 @@ import sqlite_utils
 from linerig.daemon.probe import ProbeProfile, stored_profile
 from linerig.daemon.reduction.api import RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
-from linerig.daemon.store.queries import run_arrays, run_detail
+from linerig.daemon.store.queries import calibrations_of, run_arrays, run_detail
 from linerig.daemon.workflows.calibration import CalibrationOutcome, CalibrationStatus, calibration_status
 from linerig.daemon.workflows.cycles import split_cycles
 
@@ -74,10 +74,7 @@ def profiles_from_rows(rows: Iterable[dict[str, Any]]) -> dict[str, ProbeProfile
 
 
 def calibration_history(db: sqlite_utils.Database, probe_serial: str) -> list[dict[str, Any]]:
-    if "calibrations" not in db.table_names() or not probe_serial:
-        return []
-    return list(db.query("SELECT * FROM calibrations WHERE probe_serial = ? ORDER BY created_utc, id",
-                         [probe_serial]))
+    return calibrations_of(db, probe_serial)
 
 
 def record_calibration(db: sqlite_utils.Database, out: CalibrationOutcome, notes: dict[str, Any]) -> int:
@@ -95,6 +92,15 @@ def record_calibration(db: sqlite_utils.Database, out: CalibrationOutcome, notes
     }
     with db.conn:
         return int(db["calibrations"].insert(row).last_pk)  # type: ignore[arg-type]
+
+
+@dataclass(frozen=True)
+class AppliedCalibration:
+    """The probe factor a run's results carry, its standard uncertainty, and in words where it comes from."""
+
+    factor: float
+    factor_u: float
+    source: str
 
 
 @dataclass
@@ -124,6 +130,21 @@ class RunRecord:
         before = [c for c in self.calibrations if not now or str(c.get("created_utc") or "") <= now.isoformat()]
         return calibration_status(before, now)
 
+    def applied_calibration(self) -> AppliedCalibration:
+        """The factor the run's stored results carry (with its u), else the calibration current at the run."""
+        st = self.calibration_at_run()
+        stored = next(iter(self.stored_results.values()), None)
+        if stored and stored.get("calibration_factor"):
+            f = float(stored["calibration_factor"])
+            fu = stored.get("calibration_factor_u")
+            if fu is None:  # stored before results carried the factor's u: the calibration's own, if it is it
+                fu = st.factor_u if st.factor is not None and abs(st.factor - f) <= 1e-12 else 0.0
+            return AppliedCalibration(f, float(fu or 0.0), "the factor applied to the stored result")
+        if st.factor:
+            return AppliedCalibration(st.factor, st.factor_u or 0.0,
+                                      f"calibration {st.calibration_id} current at the run: {st.message}")
+        return AppliedCalibration(1.0, 0.0, st.message)
+
 
 def load_run(db: sqlite_utils.Database, run_id: int) -> RunRecord:
     detail = run_detail(db, run_id)
@@ -148,16 +169,12 @@ def record_of(detail: dict[str, Any], arr: dict[str, Any] | None, probe: ProbePr
 
 
 def reduce_record(rec: RunRecord, **kwargs: Any) -> RunReduction:
-    """Reduce the run's samples again (same code as the daemon) with the calibration current at the run."""
+    """Reduce the run's samples again (same code as the daemon) with the calibration its result was given."""
     if rec.data is None:
         raise SourceError(f"run {rec.run_id} has no samples to reduce")
-    st = rec.calibration_at_run()
-    f, fu = (st.factor or 1.0), (st.factor_u or 0.0)
-    stored = next(iter(rec.stored_results.values()), None)
-    if stored and stored.get("calibration_factor") and abs(float(stored["calibration_factor"]) - f) > 1e-12:
-        f, fu = float(stored["calibration_factor"]), 0.0  # what the daemon applied wins; its u is not stored
-    kwargs.setdefault("calibration_factor", f)
-    kwargs.setdefault("calibration_factor_u", fu)
+    cal = rec.applied_calibration()
+    kwargs.setdefault("calibration_factor", cal.factor)
+    kwargs.setdefault("calibration_factor_u", cal.factor_u)
     rd, w = finite(rec.detail.get("dry_density_kg_per_m3")), finite(rec.detail.get("moisture_pct"))
     if rd and w is not None:
         kwargs.setdefault("bulk_density_kg_per_m3", rd * (1.0 + w / 100.0))

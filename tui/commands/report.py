@@ -27,7 +27,7 @@ from linerig.daemon.report.sources import (
     open_db,
     reduce_record,
 )
-from linerig.daemon.runcsv import RunCsvError, read_run_csv
+from linerig.daemon.runcsv import PROBE_PROFILE, RunCsvError, read_run_file
 from linerig.daemon.workflows.profiles import points_from_runs, row_label
 
 CMD = "report"
@@ -47,8 +47,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("-o", "--output", type=Path, metavar="FILE.html|FILE.pdf",
                    help="where to write (default: run-<id>.html, <csv name>.html or site-<name>.html)")
     p.add_argument("--probe", type=Path, metavar="PROFILE.toml", help="with --csv: the probe profile")
-    p.add_argument("--calibration-factor", type=float, default=1.0, help="with --csv: probe factor to apply")
-    p.add_argument("--calibration-factor-u", type=float, default=0.0, help="with --csv: its standard uncertainty")
+    p.add_argument("--calibration-factor", type=float,
+                   help="with --csv: probe factor to apply (default: the file's calibration_factor, else 1)")
+    p.add_argument("--calibration-factor-u", type=float,
+                   help="with --csv: its standard uncertainty (default: the file's, else 0)")
     p.add_argument("--run-plots", action="store_true", help="with --site: add each run's fit plot")
     p.set_defaults(func=run)
 
@@ -89,17 +91,19 @@ def run(args: argparse.Namespace) -> int:
 
 def _csv_report(args: argparse.Namespace) -> tuple[object, str]:
     from linerig.daemon.probe import load_probe_profile
+    from linerig.tui.commands.reduce import calibration_to_apply, file_probe
 
-    probe = load_probe_profile(args.probe) if args.probe else None
-    data = read_run_csv(Path(args.csv))
-    if not args.calibration_factor > 0:
+    data, header = read_run_file(Path(args.csv))
+    probe = load_probe_profile(args.probe) if args.probe else file_probe(header, str(args.csv))
+    if args.calibration_factor is not None and not args.calibration_factor > 0:
         raise ReductionError(f"--calibration-factor must be > 0, got {args.calibration_factor}")
-    if not (args.calibration_factor_u >= 0 and math.isfinite(args.calibration_factor_u)):
-        raise ReductionError(f"--calibration-factor-u must be a finite number >= 0, got {args.calibration_factor_u}")
-    red = reduce_run(data, probe, calibration_factor=args.calibration_factor,
-                     calibration_factor_u=args.calibration_factor_u)
+    fu = args.calibration_factor_u
+    if fu is not None and not (fu >= 0 and math.isfinite(fu)):
+        raise ReductionError(f"--calibration-factor-u must be a finite number >= 0, got {fu}")
+    factor, factor_u = calibration_to_apply(args, header, str(args.csv), probe, CMD)
+    red = reduce_run(data, probe, calibration_factor=factor, calibration_factor_u=factor_u)
     comments = [ln[1:].strip() for ln in Path(args.csv).read_text(encoding="utf-8").splitlines()
-                if ln.startswith("#")]
+                if ln.startswith("#") and PROBE_PROFILE not in ln]
     meta = {"notes": " / ".join(comments)} if comments else {}
     rep = run_report(meta, data, red, probe, source=str(args.csv))
     return rep, f"{Path(args.csv).stem}.html"
