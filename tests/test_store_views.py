@@ -109,7 +109,8 @@ def test_results_have_the_figures_as_columns_matching_the_results_export(store: 
     stored = json.loads(next(iter(db.query("SELECT data FROM results WHERE id = ?", [live["result_id"]])))["data"])
     assert live["k_W_per_mK"] == stored["k_W_per_mK"] and live["resistivity_mK_per_W"] == pytest.approx(
         1 / stored["k_W_per_mK"])
-    assert live["alpha_mm2_per_s"] == pytest.approx(stored["alpha_m2_per_s"] * 1e6)
+    alpha = stored.get("alpha_m2_per_s")  # the live estimate no longer carries α; older files' rows do (below)
+    assert live["alpha_mm2_per_s"] == (None if alpha is None else pytest.approx(alpha * 1e6))
     assert [live["window_start_s"], live["window_end_s"]] == stored["window_s"]
     latest = rows[1]
     export = result_rows([run_detail(db, rec)])  # the export reads the JSON; the view must agree with it
@@ -139,6 +140,8 @@ def test_an_older_file_gets_the_views_over_the_data_it_already_holds(tmp_path: P
     db["runs"].insert({"id": 1, "site": "Old Quarry", "sensor_names": '["tip"]', "heat_start_device_s": 10.0})
     db["samples"].insert_all([{"run_id": 1, "n": n, "device_s": 8.0 + n, "q_W_per_m": 0.0 if n < 2 else 9.5,
                                "temps_C": f"[{14.0 + n / 10}]"} for n in range(5)])
+    db["results"].insert({"run_id": 1, "sensor": "tip", "k_W_per_mK": 0.95, "flags": "[]", "source": "live",
+                          "data": json.dumps({"k_W_per_mK": 0.95, "alpha_m2_per_s": 1.1e-7, "window_s": [20, 150]})})
     db["results"].insert({"run_id": 1, "sensor": "tip", "method": "line", "k_W_per_mK": 0.9, "flags": "[]",
                           "data": json.dumps({"k_W_per_mK": 0.9, "window_s": [20, 200]}), "source": "final"})
     conn.close()
@@ -148,9 +151,13 @@ def test_an_older_file_gets_the_views_over_the_data_it_already_holds(tmp_path: P
         rows = list(s.reader.query("SELECT time_s, temperature_C, q_W_per_m FROM sensor_readings ORDER BY n"))
         assert [r["time_s"] for r in rows] == [-2.0, -1.0, 0.0, 1.0, 2.0]
         assert rows[4]["temperature_C"] == pytest.approx(14.4) and rows[2]["q_W_per_m"] == 9.5
-        res = next(iter(s.reader.query("SELECT * FROM sensor_results")))
+        live, res = list(s.reader.query("SELECT * FROM sensor_results ORDER BY result_id"))
         assert (res["site"], res["k_W_per_mK"], res["window_end_s"], res["flags"], res["latest"]) == (
             "Old Quarry", 0.9, 200, None, 1)
+        # a live estimate of an earlier linerig: α in m²/s and no resistivity, shown in the view's units
+        assert (live["source"], live["latest"], live["method"]) == ("live", 0, None)
+        assert live["alpha_mm2_per_s"] == pytest.approx(0.11) and live["resistivity_mK_per_W"] == pytest.approx(
+            1 / 0.95)
     finally:
         s.close()
 

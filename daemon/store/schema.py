@@ -113,8 +113,8 @@ FROM samples AS s JOIN runs AS r ON r.id = s.run_id, json_each(s.temps_C) AS t
 
 # One row per stored result and sensor with the main figures as columns (the JSON in results.data keeps the rest);
 # latest is 1 for the newest result of its run and sensor, the one reports and exports use. A live estimate (source
-# "live": the running line fit at heater-off) stores k and α in its own keys and no method or resistivity; the
-# view gives its resistivity from k and its α in mm²/s, and leaves the method null.
+# "live": the running line fit at heater-off) stores no method or resistivity (and, from earlier linerigs, α in
+# m²/s); the view gives its resistivity from k and its α in mm²/s, and leaves the method null.
 SENSOR_RESULTS = """
 CREATE VIEW sensor_results AS
 SELECT x.id AS result_id, x.run_id AS run_id, r.site AS site, r.location AS location, r.depth_m AS depth_m,
