@@ -11,7 +11,7 @@ import math
 import sys
 from pathlib import Path
 
-from linerig.daemon.logger_import import LoggerImportError
+from linerig.daemon.logger_import import LoggerImportError, import_file, read_map
 from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, stored_profile
 from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
@@ -173,8 +173,6 @@ def run(args: argparse.Namespace) -> int:
 def read_logger_file(args: argparse.Namespace) -> RunData:
     """The run in a logger export (``--map``), its choices said on stderr so --json stays clean. The heater length
     is the map's, else --length-mm, else the probe profile's."""
-    from linerig.daemon.logger_import import import_file, read_map
-
     length, said = args.length_mm, "--length-mm"
     if length is None and args.probe is not None:
         length, said = load_probe_profile(args.probe).heater_length_mm, f"the probe profile {args.probe}"
