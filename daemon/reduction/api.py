@@ -14,7 +14,7 @@ from ..probe import ProbeProfile
 from . import units
 from . import window as win
 from .cooling import CoolingFit, RecoveryWindow, choose_recovery_window, fit_joint, fit_recovery, recovery_candidates
-from .data import ReductionError, RunData
+from .data import ImplausibleRun, ReductionError, RunData, contiguous
 from .drift import Baseline, fit_baseline, no_baseline
 from .linesource import ALPHA_MAX, ALPHA_MIN, LateTimeFit, choose_window, fit_window
 from .live import DEFAULT_POWER_U_REL, NOISE_HIGH_FRACTION, replay
@@ -164,11 +164,15 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
     names = sensors if sensors is not None else data.sensor_names
     if not names:
         raise ReductionError("the run has no temperature columns (T_<sensor>_C)")
+    for problem in (data.heating_signal_problem(n) for n in names if n in data.temps_C):
+        if problem:
+            raise ImplausibleRun(problem)
     steps_t, steps_dq = power_steps(t, data.q_W_per_m)
     X, Q = log_time_regressor(t, steps_t, steps_dq)
     heat = (t > 0) & (Q > 0) & (np.arange(t.size) < i1)
     if np.count_nonzero(heat) < 10:
         raise ReductionError(f"only {np.count_nonzero(heat)} heating samples; at least 10 are needed")
+    heat = contiguous(heat)  # a slice: the heating arrays below are views, not copies of a long record
     heating_s = (t_off if t_off is not None else float(t[heat][-1]))
     out: dict[str, SensorResult] = {}
     for name in names:
@@ -183,7 +187,7 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
 def _reduce_sensor(name: str, data: RunData, probe: ProbeProfile | None, method: str, cal: float, cal_u: float,
                    window_s: tuple[float, float] | None, max_rise_K: float | None, bulk_density: float | None,
                    power_u_rel: float, steps_t: np.ndarray, steps_dq: np.ndarray, X: np.ndarray, Q: np.ndarray,
-                   heat: np.ndarray, i1: int, t_off: float | None, heating_s: float,
+                   heat: slice | np.ndarray, i1: int, t_off: float | None, heating_s: float,
                    stable_rule: bool) -> SensorResult:
     t = data.time_s
     T = data.temps_C[name]

@@ -92,7 +92,7 @@ def run(args: argparse.Namespace) -> int:
         return _fail(str(e))
     try:
         data = read_run_csv(Path(args.file))
-    except RunCsvError as e:
+    except (RunCsvError, ReductionError) as e:  # ReductionError: values outside physical bounds
         return _fail(str(e))
     problem = option_problem(args)
     if problem:
