@@ -15,10 +15,12 @@ import logging
 import math
 import os
 import random
+import shutil
 import signal
 import sqlite3
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 from typing import Any
@@ -437,6 +439,16 @@ def main(argv: list[str] | None = None) -> int:
                 sim.wait(5)
             if sim.poll() is None:
                 sim.kill()
+                sim.wait(5)
+            _remove_sim_folder(Path(info["frontend"]).parent)
+
+
+def _remove_sim_folder(folder: Path) -> None:
+    """The simulator removes its own temporary folder; this covers a simulator that was killed first."""
+    from linerig.daemon.sim.main import SIM_DIR_PREFIX
+
+    if folder.name.startswith(SIM_DIR_PREFIX) and folder.parent == Path(tempfile.gettempdir()):
+        shutil.rmtree(folder, ignore_errors=True)
 
 
 if __name__ == "__main__":

@@ -311,6 +311,42 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
         assert proc.wait(15) == 0
 
 
+def _simulate(tmp_path: Path, env: dict[str, str]) -> subprocess.Popen[str]:
+    proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--speed", "50", "--socket",
+                             str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")], stdout=subprocess.PIPE,
+                            stderr=subprocess.DEVNULL, text=True, cwd=ROOT, env=env)
+    assert proc.stdout is not None and json.loads(proc.stdout.readline())["ready"]
+    return proc
+
+
+def test_simulate_leaves_no_temporary_folder_behind(tmp_path: Path) -> None:
+    """Each `--simulate` used to leave a /tmp/linerig-sim-* folder (its pty links and control socket)."""
+    import os
+
+    tmp = tmp_path / "tmp"
+    tmp.mkdir()
+    env = {**os.environ, "TMPDIR": str(tmp)}
+    proc = _simulate(tmp_path, env)
+    assert [p.name.startswith("linerig-sim-") for p in tmp.iterdir()] == [True]  # while it runs, it is there
+    proc.terminate()
+    assert proc.wait(15) == 0
+    assert list(tmp.iterdir()) == []
+    # the simulator on its own, stopped as a service manager stops it
+    sim = subprocess.Popen([sys.executable, "-m", "linerig.daemon.sim.main", "--speed", "50"], stdout=subprocess.PIPE,
+                           text=True, cwd=ROOT, env=env)
+    assert sim.stdout is not None and json.loads(sim.stdout.readline())["frontend"]
+    sim.terminate()
+    assert sim.wait(15) == 0 and list(tmp.iterdir()) == []
+    # a simulator killed outright cannot tidy up: the daemon that started it does
+    proc = _simulate(tmp_path, env)
+    children = Path(f"/proc/{proc.pid}/task/{proc.pid}/children").read_text().split()
+    assert len(children) == 1
+    os.kill(int(children[0]), signal.SIGKILL)
+    proc.terminate()
+    proc.wait(15)
+    assert list(tmp.iterdir()) == []
+
+
 def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) -> None:
     """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware."""
     proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--firmware", "--speed", "20",

@@ -11,6 +11,7 @@ import argparse
 import asyncio
 import json
 import os
+import shutil
 import signal
 import sys
 import tempfile
@@ -47,6 +48,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 PARENT_GRACE_S = 5.0
+SIM_DIR_PREFIX = "linerig-sim-"
 
 
 def _alive(pid: int) -> bool:
@@ -86,8 +88,17 @@ async def _run(args: argparse.Namespace) -> int:
         frontend: Any = FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed)
     else:
         frontend = FrontEndEmulator(rig, speed=args.speed, seed=args.seed)
-    link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix="linerig-sim-"))
+    own_dir = args.link_dir is None  # a folder made here is removed here, however the run ends
+    link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix=SIM_DIR_PREFIX))
     link_dir.mkdir(parents=True, exist_ok=True)
+    try:
+        return await _serve(args, material, frontend, link_dir)
+    finally:
+        if own_dir:
+            shutil.rmtree(link_dir, ignore_errors=True)
+
+
+async def _serve(args: argparse.Namespace, material: Any, frontend: Any, link_dir: Path) -> int:
     server = SimServer(frontend, link_dir, args.heater_log)
     control = args.control or link_dir / "control.sock"
     supply_path = server.offer_supply() if args.supply else None
