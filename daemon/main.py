@@ -429,7 +429,11 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return asyncio.run(serve(args, cfg, frontend_url, material, supply_url))
     except BaseException:
-        # the loop itself died: whatever happened, the heater goes off before the process ends
+        # the loop itself died: whatever happened, the heater goes off before the process ends (the ports are
+        # closed first: held exclusively, they would refuse this second open)
+        from linerig.daemon.rig.transport import close_all
+
+        close_all()
         safe_off(frontend_url, supply_url, cfg.devices.frontend_baud, cfg.devices.supply_baud, timeout_s=0.5)
         raise
     finally:

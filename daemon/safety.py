@@ -97,7 +97,8 @@ def check_sample(s: SampleView, lim: Limits, nominal_ohm: float | None) -> str |
     if finite and max(finite) > lim.max_probe_C:
         return f"probe temperature {max(finite):.1f} °C is above the limit {lim.max_probe_C:.1f} °C"
     if s.heater_on and not (s.heating or s.off_pending):
-        return "the front end reports the heater on when it should be off"
+        return ("the front end reports the heater on when it should be off (another program on its port, or a "
+                "front-end fault): heater forced off")
     if s.heater_on:
         if not (math.isfinite(s.power_W_per_m) and (s.heater_ohm is None or math.isfinite(s.heater_ohm))):
             return "the front end's heater voltage or current reading is not a number (sensor fault?)"

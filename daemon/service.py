@@ -53,6 +53,7 @@ from linerig.daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
 log = logging.getLogger("linerigd")
 
 WATCH_PERIOD_S = 0.1
+FORCE_OFF_HOLD_S = 10.0  # OFF is repeated this long after a heater-on nobody here asked for (no source)
 
 
 @dataclass
@@ -82,7 +83,7 @@ class RigService:
         self.frontend = FrontEnd(self.transport, FrontEndHandlers(
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
             on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why),
-            on_heater_switch=self._on_heater_switch))
+            on_heater_switch=self._on_heater_switch, on_foreign_ack=self._on_foreign_ack))
         self.runs = RunKeeper(self)  # the current run and series
         self.link_up = False
         self.armed_power: float | None = None
@@ -90,6 +91,7 @@ class RigService:
         self._heater_confirmed = False
         self._last_power_set = 0.0
         self._off_pending_until: float | None = None
+        self._force_off_until: float | None = None  # OFF every lease period until then (a heater nobody armed)
         self._arm_task: asyncio.Task[None] | None = None
         self._last_lease_ack = 0.0
         self._off_sent = -1.0
@@ -291,6 +293,9 @@ class RigService:
                 self.transport.open()
             except RigError as exc:
                 self._note_link(False, str(exc))
+                if str(exc) != self._link_note:
+                    log.warning("%s", exc)
+                    self._link_note = str(exc)
                 await asyncio.sleep(0.5)
                 continue
             reader = asyncio.create_task(self.frontend.read_forever())
@@ -361,6 +366,19 @@ class RigService:
             self.trip(why)
         else:
             self.record_event(None, "device", None, why)
+
+    def _on_foreign_ack(self, ack: m.Ack) -> None:
+        """Someone else's command was answered: whoever else writes to the front end can switch its heater on."""
+        if not self.link_up:  # bytes left over from before this daemon opened the port
+            log.debug("acknowledgement of command %s before the link came up: ignored", ack.cmd_seq)
+            return
+        self.force_off(f"the front end acknowledged command {ack.cmd_seq}, which this daemon did not send: another "
+                       f"program is writing to {self.s.frontend_url}; heater forced off")
+
+    def force_off(self, reason: str) -> None:
+        """Trip, then keep sending OFF every lease period for FORCE_OFF_HOLD_S (extended while it goes on)."""
+        self._force_off_until = time.monotonic() + FORCE_OFF_HOLD_S
+        self.trip(reason)
 
     # -- samples ------------------------------------------------------------
     def _on_heater_switch(self, kind: str, device_ms: int) -> None:
@@ -439,7 +457,9 @@ class RigService:
                           run_active=active and run is not None and run.state != RunState.CHECKING,
                           off_pending=self._off_pending_until is not None)
         reason = check_sample(view, self.s.limits, probe.heater_resistance_ohm)
-        if reason and (active or heater_on or self.armed_power is not None):
+        if reason and heater_on and self.armed_power is None and self._off_pending_until is None:
+            self.force_off(reason)  # a heater nobody here armed
+        elif reason and (active or heater_on or self.armed_power is not None):
             self.trip(reason)
         if active and run is not None and run.active:
             if run.state == RunState.CHECKING:
@@ -463,6 +483,11 @@ class RigService:
         period = lease / 4
         while True:
             await asyncio.sleep(period)
+            if self._force_off_until is not None and self.armed_power is None and self.link_up:
+                if time.monotonic() < self._force_off_until:
+                    await self.frontend.heater_off_best_effort()
+                else:
+                    self._force_off_until = None
             if self.armed_power is None or not self.link_up:
                 continue
             sent = time.monotonic()
@@ -557,6 +582,7 @@ class RigService:
         run = self.run
         return {
             "link_up": self.link_up,
+            "link_problem": None if self.link_up else self._link_note,
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
             "heater_armed": self.armed_power is not None,
             "heat_source": "scpi" if self.supply is not None else "frontend",

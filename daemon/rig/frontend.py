@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -14,6 +15,7 @@ from linerig.daemon.rig.transport import SerialTransport
 
 ACK_TIMEOUT_S = 0.5
 RETRIES = 2
+SENT_MEMORY = 256  # sequence numbers of our own commands remembered, to tell their acks from anyone else's
 
 
 @dataclass
@@ -28,6 +30,8 @@ class FrontEndHandlers:
     # the device's own time (ms) at which its heater went on ("P") or off ("O"), from its acknowledgement;
     # delivered in frame order, before any later sample, so time zero is known when the first hot sample arrives
     on_heater_switch: Callable[[str, int], None] = lambda kind, device_ms: None
+    # an acknowledgement of a command this host never sent: another program is writing to the front end
+    on_foreign_ack: Callable[[m.Ack], None] = lambda ack: None
 
 
 class FrontEnd:
@@ -40,6 +44,7 @@ class FrontEnd:
         self._seq = 0
         self._acks: dict[int, asyncio.Future[m.Ack]] = {}
         self._sent_kinds: dict[int, str] = {}
+        self._sent_seqs: deque[int] = deque(maxlen=SENT_MEMORY)  # kept after the ack: a retry is acked again
         self._lock = asyncio.Lock()
         self._identity_wait: asyncio.Future[m.Identity] | None = None
         self._status_wait: asyncio.Future[m.Status] | None = None
@@ -66,6 +71,9 @@ class FrontEnd:
         if isinstance(msg, m.Sample):
             self.handlers.on_sample(msg)
         elif isinstance(msg, m.Ack):
+            if msg.cmd_seq not in self._sent_seqs:
+                self.handlers.on_foreign_ack(msg)
+                return
             kind = self._sent_kinds.pop(msg.cmd_seq, None)
             switched = _device_ms(msg.detail) if msg.ok else None
             if kind in (m.CMD_POWER, m.CMD_OFF) and switched is not None:
@@ -117,6 +125,7 @@ class FrontEnd:
                 self._acks.pop(seq, None)
 
     def _note_sent(self, seq: int, kind: str) -> None:
+        self._sent_seqs.append(seq)
         self._sent_kinds[seq] = kind
         if len(self._sent_kinds) > 64:  # acknowledgements that never came: forget the oldest
             self._sent_kinds.pop(next(iter(self._sent_kinds)))
