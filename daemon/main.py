@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import asyncio
 import contextlib
+import grp
 import json
 import logging
 import math
@@ -29,7 +30,7 @@ import sqlite_utils
 
 from linerig.daemon import sdnotify
 from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError
-from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, load_config
+from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, devices_anyway, load_config
 from linerig.daemon.controller import RunPlan
 from linerig.daemon.errors import ConfigError, RigError
 from linerig.daemon.paths import default_db_path, default_socket_path
@@ -372,10 +373,27 @@ def _describe(cfg: RigConfig) -> str:
     return "\n".join(lines)
 
 
+def _safe_off_command(args: argparse.Namespace) -> int:
+    """``--safe-off``: heater off even when the rest of the configuration is wrong (ExecStopPost relies on it)."""
+    try:
+        devices = _load_config(args).devices
+    except ConfigError as exc:
+        devices = devices_anyway(args.config or DEFAULT_CONFIG_PATH)
+        print(f"linerigd --safe-off: ConfigError: {exc}; switching off the devices it names all the same",
+              file=sys.stderr)
+    ok, notes = safe_off(args.frontend or devices.frontend, devices.supply, devices.frontend_baud,
+                         devices.supply_baud)
+    for note in notes:
+        print(f"linerigd --safe-off: {note}", file=sys.stderr)
+    return 0 if ok else 1
+
+
 def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     logging.basicConfig(level=logging.DEBUG if args.verbose else logging.INFO, stream=sys.stderr,
                         format="%(asctime)s %(name)s %(levelname)s %(message)s")
+    if args.safe_off:
+        return _safe_off_command(args)
     try:
         cfg = _load_config(args)
     except ConfigError as exc:
@@ -384,12 +402,13 @@ def main(argv: list[str] | None = None) -> int:
     if args.check_config:
         print(_describe(cfg))
         return 0
-    if args.safe_off:
-        ok, notes = safe_off(args.frontend or cfg.devices.frontend, cfg.devices.supply,
-                             cfg.devices.frontend_baud, cfg.devices.supply_baud)
-        for note in notes:
-            print(f"linerigd --safe-off: {note}", file=sys.stderr)
-        return 0 if ok else 1
+    if args.group is not None:
+        try:
+            grp.getgrnam(args.group)
+        except KeyError:
+            print(f"linerigd: --group {args.group}: no such group on this machine; create it (see "
+                  "systemd/README.md) or leave --group out", file=sys.stderr)
+            return 2
     sim: subprocess.Popen[str] | None = None
     material = None
     if args.supply and args.simulate is None:

@@ -12,7 +12,14 @@ import math
 from collections import deque
 from dataclasses import dataclass, fields
 
-FRONT_END_MAX_LEASE_S = 1.0  # hardware/PROTOCOL.md: the front end caps a lease at 1000 ms
+# The front end's flashed hard limits (hardware/firmware/probefw/limits.py, PROTOCOL.md §11). The daemon's own
+# limits must sit inside them; tests/test_safety.py checks these copies against the firmware's file.
+FRONT_END_MAX_LEASE_S = 1.0  # LEASE_MAX_MS: the front end caps a lease at 1000 ms
+FRONT_END_MAX_PROBE_C = 95.0  # T_PROBE_MAX_C
+FRONT_END_MAX_POWER_W_PER_M = 60.0  # POWER_MAX_W_PER_M
+FRONT_END_MAX_POWER_W = 45.0  # POWER_MAX_W, the whole heater
+FRONT_END_MAX_ON_S = 3600.0  # ON_TIME_MAX_MS
+FRONT_END_MIN_SUPPLY_V = 9.0  # SUPPLY_MIN_V
 
 LIMIT_HELP: dict[str, str] = {
     "max_power_W_per_m": "heater power per metre of heater, W/m",
@@ -57,18 +64,53 @@ class Limits:
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
+_FW = "the front end's flashed limit"
+# name: (lowest, highest, unit, why not lower, why not higher). Beyond these a limit defeats itself (a lease
+# too short to renew, data stale for ever, a margin no probe meets) or sits above the firmware's own.
+LIMIT_RANGE: dict[str, tuple[float, float, str, str, str]] = {
+    "max_power_W_per_m": (0.1, FRONT_END_MAX_POWER_W_PER_M, " W/m", "no usable heating", _FW),
+    "power_tolerance": (0.01, 0.5, "", "meter noise alone would trip it", "it would hide a regulator fault"),
+    "max_rise_K": (0.1, 30.0, " K", "no usable heating",
+                   "soil dries and moisture migrates long before (ASTM D5334-14 §1.2)"),
+    "max_probe_C": (-40.0, FRONT_END_MAX_PROBE_C, " °C", "below any ground a probe is pushed into", _FW),
+    "max_heating_s": (1.0, FRONT_END_MAX_ON_S, " s", "no usable heating", _FW),
+    "heater_ohm_tolerance": (0.01, 0.5, "", "the heater's own temperature coefficient would trip it",
+                             "it would miss a short or an open"),
+    "min_supply_V": (FRONT_END_MIN_SUPPLY_V, 30.0, " V", _FW + " is higher", "above any 12 V or 24 V pack"),
+    "max_frame_loss": (0.001, 0.5, "", "one lost frame would trip it", "half the data could be missing"),
+    "frame_window": (5, 1000, " frames", "too few to judge a loss rate", "a burst would be diluted away"),
+    "stale_after_s": (0.1, 10.0, " s", "shorter than the link's own jitter",
+                      "the heater would run blind that long"),
+    "lease_s": (0.2, FRONT_END_MAX_LEASE_S, " s", "renewals every lease/4 would flood the link",
+                "the front end caps its lease there"),
+    "precheck_margin_K": (0.5, 20.0, " K", "a probe at the limit could start heating",
+                          "no probe in warm ground could start"),
+    "heater_on_within_s": (0.2, 10.0, " s", "shorter than one command and its sample",
+                           "an unanswered arm would wait that long"),
+}
+
+
 def limit_problem(name: str, value: object) -> str | None:
     """What a value of limit ``name`` must be, when it is not; None when it is fine."""
     if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
         return "a finite number"
-    if name == "frame_window":
-        return None if isinstance(value, int) and value >= 5 else "a whole number ≥ 5"
-    if value <= 0:
-        return "a number > 0"
-    if name in ("power_tolerance", "heater_ohm_tolerance", "max_frame_loss") and value >= 1:
-        return "a fraction between 0 and 1"
-    if name == "lease_s" and value > FRONT_END_MAX_LEASE_S:
-        return f"at most {FRONT_END_MAX_LEASE_S:g} s (the front end caps its lease there)"
+    lo, hi, unit, why_lo, why_hi = LIMIT_RANGE[name]
+    if name == "frame_window" and not isinstance(value, int):
+        return f"a whole number from {lo:g} to {hi:g}"
+    if value > hi:
+        return f"at most {hi:g}{unit} ({why_hi})"
+    if value < lo:
+        return f"at least {lo:g}{unit} ({why_lo})"
+    return None
+
+
+def plan_power_problem(max_power_W_per_m: float, heater_length_m: float) -> str | None:
+    """The power limit over the whole heater against the front end's total-power limit, or None."""
+    total = max_power_W_per_m * heater_length_m
+    if total > FRONT_END_MAX_POWER_W:
+        return (f"{max_power_W_per_m:g} W/m over the {heater_length_m:g} m heater is {total:.1f} W, above "
+                f"{FRONT_END_MAX_POWER_W:g} W ({_FW}); at most {FRONT_END_MAX_POWER_W / heater_length_m:.4g} W/m "
+                "for this probe")
     return None
 
 

@@ -267,6 +267,34 @@ def test_safe_off_turns_a_held_heater_off_by_command(tmp_path: Path) -> None:
     assert done.returncode == 1 and "cannot open" in done.stderr
 
 
+def test_safe_off_reaches_the_front_end_even_when_the_configuration_is_wrong(tmp_path: Path) -> None:
+    """ExecStopPost runs `linerigd --safe-off --config ...`: a wrong limit, broken TOML or a stray byte elsewhere in
+    the file must not stop it from switching the heater off (they ended it with exit 2 before)."""
+    sim = Sim(tmp_path, speed=10)
+    host = HostPort(sim.frontend)
+    devices = f'[devices]\nfrontend = "{sim.frontend}"\n'
+    bad = {"a limit out of range": (devices + "[limits]\nlease_s = 0.001\n").encode(),
+           "broken TOML": (devices + "[limits]\nmax_rise_K = = 3\n").encode(),
+           "not UTF-8": devices.encode() + b"[run]\n# 5 \xb0C\nheat_s = 60\n"}
+    try:
+        host.send(m.CMD_CONFIGURE, "1", "T", "T", "100.0")
+        for name, text in bad.items():
+            host.send(m.CMD_POWER, "5.0", "1000")
+            wait_for(lambda: sim.state()["heater_on"], 5, "the test's own heater-on")
+            config = tmp_path / "rig.toml"
+            config.write_bytes(text)
+            with host.holding():  # only a command can end it
+                done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--safe-off", "--config",
+                                       str(config)], capture_output=True, text=True, cwd=ROOT, timeout=30)
+            assert done.returncode == 0, (name, done.stderr)
+            assert "ConfigError" in done.stderr and "heater off acknowledged" in done.stderr, (name, done.stderr)
+            off = sim.heater_events()[-1]
+            assert (off["heater_on"], off["reason"]) == (False, "host command"), name
+    finally:
+        host.close()
+        sim.stop()
+
+
 def test_a_new_daemon_turns_off_a_heater_it_finds_on(tmp_path: Path) -> None:
     sim = Sim(tmp_path, speed=10)
     host = HostPort(sim.frontend)

@@ -8,6 +8,7 @@ from dataclasses import replace
 import pytest
 
 from linerig.daemon.safety import (
+    LIMIT_RANGE,
     FrameLossWindow,
     Limits,
     SampleView,
@@ -111,9 +112,30 @@ def test_frame_loss_window_counts_losses_among_the_last_frames() -> None:
 
 def test_limits_refuse_nonsense() -> None:
     assert limit_problem("max_rise_K", True) == "a finite number"
-    assert limit_problem("max_rise_K", -1) == "a number > 0"
-    assert limit_problem("frame_window", 2.5) == "a whole number ≥ 5"
+    assert limit_problem("max_rise_K", -1) == "at least 0.1 K (no usable heating)"
+    assert limit_problem("frame_window", 2.5) == "a whole number from 5 to 1000"
     assert "at most 1 s" in (limit_problem("lease_s", 1.5) or "")
-    assert "fraction" in (limit_problem("max_frame_loss", 1.0) or "")
+    assert "at most 0.5" in (limit_problem("max_frame_loss", 1.0) or "")
+    for name, default in Limits().to_dict().items():  # every limit has a range, and its default is inside it
+        assert name in LIMIT_RANGE and limit_problem(name, default) is None, name
     with pytest.raises(ValueError, match="max_probe_C"):
         Limits(max_probe_C=math.inf)
+
+
+def test_the_daemons_copies_of_the_flashed_limits_are_the_firmwares() -> None:
+    """The daemon refuses limits above the front end's own; its copies must be the firmware's values."""
+    import importlib.util
+
+    from linerig.daemon import safety
+    from linerig.daemon.sim.firmware_host import FIRMWARE_DIR
+
+    spec = importlib.util.spec_from_file_location("probefw_limits", FIRMWARE_DIR / "probefw" / "limits.py")
+    assert spec is not None and spec.loader is not None
+    fw = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(fw)
+    assert safety.FRONT_END_MAX_LEASE_S == fw.LEASE_MAX_MS / 1000
+    assert safety.FRONT_END_MAX_PROBE_C == fw.T_PROBE_MAX_C
+    assert safety.FRONT_END_MAX_POWER_W_PER_M == fw.POWER_MAX_W_PER_M
+    assert safety.FRONT_END_MAX_POWER_W == fw.POWER_MAX_W
+    assert safety.FRONT_END_MAX_ON_S == fw.ON_TIME_MAX_MS / 1000
+    assert safety.FRONT_END_MIN_SUPPLY_V == fw.SUPPLY_MIN_V
