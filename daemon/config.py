@@ -299,19 +299,12 @@ def _check_plan(src: _Src, plan: RunPlan, path: list[str], limits: Limits, probe
                                            f"got {plan.sensor!r}")
 
 
-def _check_limits_against(src: _Src, written: dict[str, Any], limits: Limits, probe: ProbeProfile,
-                          devices: DeviceConfig) -> None:
-    """Limits that are fine alone but not with this probe and front end."""
+def _check_limits_against(src: _Src, written: dict[str, Any], limits: Limits, probe: ProbeProfile) -> None:
+    """Limits that are fine alone but not with this probe's heater."""
     if "max_power_W_per_m" in written:
         problem = plan_power_problem(limits.max_power_W_per_m, probe.length_m or 0.1)
         if problem:
             raise src.error(["limits", "max_power_W_per_m"], problem)
-    interval = 1.0 / devices.rate_hz
-    if limits.stale_after_s <= 1.5 * interval:
-        key = ["limits", "stale_after_s"] if "stale_after_s" in written else ["devices", "rate_hz"]
-        raise src.error(key, f"samples every {interval:g} s (devices.rate_hz = {devices.rate_hz:g}) need "
-                             f"limits.stale_after_s above {1.5 * interval:g} s, not {limits.stale_after_s:g} s: "
-                             "every run would fault as stale")
 
 
 def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None) -> RigConfig:
@@ -334,7 +327,7 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
             and plan.sensor not in [s.name for s in probe.sensors]:
         plan = plan.with_changes({"sensor": probe.sensors[0].name})  # the default follows the probe
     _check_plan(src, plan, ["run"], limits, probe)
-    _check_limits_against(src, _table(src, doc, "limits"), limits, probe, devices)
+    _check_limits_against(src, _table(src, doc, "limits"), limits, probe)
     presets: dict[str, RunPlan] = {}
     for name, table in _table(src, doc, "presets").items():
         if not isinstance(table, dict):

@@ -29,7 +29,8 @@ LIMIT_HELP: dict[str, str] = {
     "max_heating_s": "heating time of one run, s (device clock or the daemon's own clock, whichever is longer)",
     "heater_ohm_tolerance": "fraction either side of the probe's nominal heater resistance (0.25 = ±25 %)",
     "min_supply_V": "supply (battery) voltage at the front end, V",
-    "max_frame_loss": "fraction of frames lost or corrupted among the last frame_window frames",
+    "max_frame_loss": "fraction of the front end's frames (samples, acknowledgements ...) lost or corrupted among "
+                      "the last frame_window of them",
     "frame_window": "number of frames the loss fraction is taken over (a whole number)",
     "stale_after_s": "seconds of silence from the front end before its data count as stale",
     "lease_s": "heater lease given to the front end, s (at most 1 s; renewed every quarter of it)",
@@ -199,9 +200,11 @@ def check_plan(power_W_per_m: float, heat_s: float, lim: Limits) -> list[str]:
 def check_link(lost_in_window: int, frames_in_window: int, silent_for_s: float, lim: Limits) -> str | None:
     if silent_for_s > lim.stale_after_s:
         return f"no data from the front end for {silent_for_s:.1f} s (cable, power or firmware?)"
-    total = lost_in_window + frames_in_window
+    # among the last frame_window frames: until that many have come (a new run, a reconnect) the ones not yet
+    # seen count as received, so two lost acknowledgements in the first second are not a 13 % loss
+    total = max(lost_in_window + frames_in_window, lim.frame_window)
     # one lost frame is tolerated whatever the window; a burst is not
-    if lost_in_window >= 2 and total and lost_in_window / total > lim.max_frame_loss:
+    if lost_in_window >= 2 and lost_in_window / total > lim.max_frame_loss:
         return (f"{lost_in_window} of the last {total} frames were lost or corrupted "
                 f"(limit {lim.max_frame_loss:.0%}; electrical noise or a bad cable?)")
     return None
@@ -214,22 +217,28 @@ def check_arming(armed_for_s: float, confirmed: bool, lim: Limits) -> str | None
 
 
 class FrameLossWindow:
-    """Frames lost or corrupted among the last ``size`` good frames, from the decoder's running totals."""
+    """Frames lost among the last ``size`` frames the front end sent, of every kind (samples, acknowledgements,
+    faults), from the decoder's running totals: PROTOCOL.md §5 counts a sequence step of n as n − 1 lost frames,
+    so a corrupted frame counts once, by the gap it leaves. At 1 Hz the lease's acknowledgements outnumber the
+    samples five to one: counted against samples alone, 3 % of lost frames read as 15 %."""
 
     def __init__(self, size: int) -> None:
-        self._marks: deque[int] = deque(maxlen=size + 1)
+        self.size = size
+        self._marks: deque[tuple[int, int]] = deque()  # (good frames, lost frames) so far, one mark per call
 
     def reset(self) -> None:
         self._marks.clear()
 
-    def add(self, lost_total: int) -> None:
-        """Call once per good frame with the running count of lost + corrupted frames."""
-        self._marks.append(lost_total)
+    def add(self, good_total: int, lost_total: int) -> None:
+        """Call with the decoder's running counts (any time; once per sample is enough)."""
+        self._marks.append((good_total, lost_total))
+        while len(self._marks) > 2 and good_total - self._marks[1][0] >= self.size:
+            self._marks.popleft()  # the window still holds at least ``size`` frames without the oldest mark
 
     @property
     def lost(self) -> int:
-        return self._marks[-1] - self._marks[0] if len(self._marks) > 1 else 0
+        return self._marks[-1][1] - self._marks[0][1] if len(self._marks) > 1 else 0
 
     @property
     def frames(self) -> int:
-        return max(len(self._marks) - 1, 0)
+        return self._marks[-1][0] - self._marks[0][0] if len(self._marks) > 1 else 0

@@ -409,7 +409,7 @@ class RigService:
         self.last_sample_wall = now
         self.samples_seen += 1
         c = self.frontend.decoder.counters
-        self._loss.add(c.bad_frames + c.lost_frames)
+        self._loss.add(c.frames, c.lost_frames)
         self.device_s = self._device_seconds(s.device_ms)
         probe = self.s.probe
         temps = tuple(float("nan") if ch.fault else ch.value for ch in s.channels)
@@ -503,9 +503,11 @@ class RigService:
                 self._last_lease_ack = max(self._last_lease_ack, sent)
                 continue
             with contextlib.suppress(RigError, TimeoutError, OSError):
-                # a lost ack must not hold up the next renewal for long; the device extended the lease when
-                # the frame arrived, which was after ``sent``: that is what an ack proves
-                await asyncio.wait_for(self.frontend.renew_lease(lease), lease / 2)
+                # PROTOCOL.md §6: a renewal every period, so that the lease survives lost ones. A renewal whose
+                # ack is lost is sent again, the identical frame, one period later (§5: the device applies it
+                # only if the first never arrived); the watch trips only when no renewal at all was acknowledged
+                # for the whole lease. An ack proves the device extended the lease after ``sent``.
+                await self.frontend.renew_lease(lease, ack_timeout_s=period)
                 self._last_lease_ack = max(self._last_lease_ack, sent)
 
     def _check_timers(self, now: float) -> str | None:

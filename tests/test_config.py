@@ -92,8 +92,6 @@ def test_key_line_finds_tables_dotted_and_quoted_keys() -> None:
     ("lease_s = 0.5", "precheck_margin_K = 1000", 19, "limits.precheck_margin_K: expected at most 20 K"),
     ("lease_s = 0.5", "min_supply_V = 5", 19, "limits.min_supply_V: expected at least 9 V"),
     ("lease_s = 0.5", "frame_window = 1e6", 19, "limits.frame_window: expected a whole number from 5 to 1000"),
-    ("rate_hz = 2", "rate_hz = 0.5", 5, "devices.rate_hz: samples every 2 s (devices.rate_hz = 0.5) need "
-                                       "limits.stale_after_s above 3 s"),
     ("heat_s = 900", "heat_s = 0", 22, "run.heat_s: expected a number > 0"),
     ("heat_s = 900", "heat_s = 4000", 22, "run.heat_s: heating time 4000 s is above the limit 3600 s"),
     ("auto_stop = true", 'auto_stop = "yes"', 27, "presets.quick.auto_stop: expected true or false"),

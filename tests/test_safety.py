@@ -98,13 +98,13 @@ def test_stale_data_and_frame_loss() -> None:
 
 def test_frame_loss_window_counts_losses_among_the_last_frames() -> None:
     w = FrameLossWindow(10)
-    for _ in range(20):
-        w.add(0)
+    for i in range(1, 21):
+        w.add(i, 0)  # one good frame at a time
     assert (w.lost, w.frames) == (0, 10)
-    w.add(3)  # three frames lost before this good one
+    w.add(21, 3)  # three frames lost before this good one
     assert (w.lost, w.frames) == (3, 10)
-    for _ in range(10):
-        w.add(3)
+    for i in range(22, 32):
+        w.add(i, 3)
     assert w.lost == 0  # the burst has left the window
     w.reset()
     assert (w.lost, w.frames) == (0, 0)

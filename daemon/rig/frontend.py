@@ -148,8 +148,9 @@ class FrontEnd:
         ack = await self.command(m.CMD_POWER, [f"{power_W_per_m:.4f}", str(int(lease_s * 1000))])
         return _device_ms(ack.detail)
 
-    async def renew_lease(self, lease_s: float) -> None:
-        await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))])
+    async def renew_lease(self, lease_s: float, ack_timeout_s: float = ACK_TIMEOUT_S) -> None:
+        """Renew; a lost acknowledgement is retried (the identical frame) after ``ack_timeout_s``."""
+        await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))], timeout=ack_timeout_s)
 
     async def heater_off(self) -> int | None:
         """Heater off; returns the device ms at which it went off when it had been on."""

@@ -224,6 +224,7 @@ class SimServer:
                     "lease_left_s": max(fe.lease_deadline - wall, 0.0) if fe.heater_on else 0.0,
                     "samples_sent": fe.samples_sent, "rig_faults": sorted(fe.rig.active_faults),
                     "overpower": fe.overpower, "clock_stuck": fe.clock_stuck_ms is not None,
+                    "acks_to_drop": fe.faults.drop_acks,
                     "inject_wall": self.inject_wall, "first_sample_after_inject": self.first_sample_after_inject}
         if op == "inject":
             fault, on = str(req["fault"]), bool(req.get("on", True))
@@ -233,8 +234,14 @@ class SimServer:
                 wf.silent = on
             elif fault == "garbage":
                 wf.garbage_bytes = int(req.get("bytes", 64))
+            elif fault == "drop_acks":
+                wf.drop_acks = int(req.get("count", 1)) if on else 0
+            elif fault == "drop" and "every" in req:
+                wf.drop_every = int(req["every"]) if on else 0
             elif fault in ("drop", "corrupt", "duplicate"):
                 setattr(wf, f"{fault}_fraction", float(req.get("fraction", 0.2)) if on else 0.0)
+                if fault == "drop" and not on:
+                    wf.drop_every = 0
             elif fault == "reset":
                 fe.reset()
             elif fault == "unplug":
