@@ -216,6 +216,81 @@ def check_arming(armed_for_s: float, confirmed: bool, lim: Limits) -> str | None
     return None
 
 
+CLOCK_STUCK_SAMPLES = 3  # consecutive samples whose device time did not advance (one may be a glitch; no source)
+RESPONSE_AFTER_S = 60.0  # heating after which every sensor on the heater must have warmed (common practice, no source)
+RESPONSE_K_MAX = 10.0
+"""W/(m·K), above any ground a probe meets: quartz, the most conductive common rock-forming mineral, is about 7.7
+(Clauser & Huenges 1995, value from memory), and soils and rocks lie below their minerals."""
+SHORTFALL_SAMPLES = 3  # consecutive samples short of the asked power (the first after arming is a partial period)
+
+
+class DeviceClockWatch:
+    """The front end's sample clock must advance (PROTOCOL.md §4.3: a counter that does not wrap). Stopped, it
+    stops the heating time, the run's plan and its time axis with it: a heating ran three times its plan."""
+
+    def __init__(self) -> None:
+        self._last: float | None = None
+        self._stuck = 0
+
+    def reset(self) -> None:
+        """After a restart of the front end: its clock starts again from zero."""
+        self._last = None
+        self._stuck = 0
+
+    def add(self, device_s: float, period_s: float) -> str | None:
+        """One sample's device time; the reason to trip, or None."""
+        last, self._last = self._last, device_s
+        if last is None:
+            return None
+        step = device_s - last
+        if step < -period_s:
+            return f"the front end's clock went back {-step:.3f} s without a restart (its timing cannot be trusted)"
+        self._stuck = self._stuck + 1 if step < 0.5 * period_s else 0
+        if self._stuck >= CLOCK_STUCK_SAMPLES:
+            return (f"the front end's clock has stopped: device time stayed at {device_s:.3f} s over "
+                    f"{self._stuck + 1} samples (heating time and the run's time axis cannot be trusted)")
+        return None
+
+
+def check_heater_response(rises_K: dict[str, float], heating_s: float, power_W_per_m: float) -> str | None:
+    """Every sensor on the heater must warm. After RESPONSE_AFTER_S of heating at q, a line source in the most
+    conductive ground (RESPONSE_K_MAX) has risen by more than q/(4πk), one unit of ln t of its late-time slope
+    (Carslaw & Jaeger 1959 §10.4), and a probe's own heat capacity and contact only add to it. A sensor that rose
+    less reads something else (shorted at its plug it reads the plug; pulled out, the air), so every
+    temperature limit on it is blind and its k any number."""
+    if heating_s < RESPONSE_AFTER_S or not power_W_per_m > 0:
+        return None
+    need = power_W_per_m / (4.0 * math.pi * RESPONSE_K_MAX)
+    for name, rise in rises_K.items():
+        if math.isfinite(rise) and rise < need:
+            return (f"sensor {name!r} on the heater rose {rise:+.3f} K in {heating_s:.0f} s at {power_W_per_m:.1f} "
+                    f"W/m, less than any ground allows ({need:.3f} K): thermocouple shorted, or not in the probe?")
+    return None
+
+
+class ShortfallWatch:
+    """Delivered power well below the request, held: the run no longer heats at the power it planned (a flat
+    battery, a failing regulator or lead), and with a sagging supply the constant-power premise goes."""
+
+    def __init__(self) -> None:
+        self._short = 0
+
+    def reset(self) -> None:
+        self._short = 0
+
+    def add(self, heating: bool, set_W_per_m: float, measured_W_per_m: float, lim: Limits) -> str | None:
+        if not heating or not set_W_per_m > 0 or not math.isfinite(measured_W_per_m):
+            self._short = 0
+            return None
+        floor = set_W_per_m * (1.0 - lim.power_tolerance)
+        self._short = self._short + 1 if measured_W_per_m < floor else 0
+        if self._short >= SHORTFALL_SAMPLES:
+            short = 1.0 - measured_W_per_m / set_W_per_m
+            return (f"heater delivers {measured_W_per_m:.2f} W/m, {short:.0%} below the {set_W_per_m:.2f} W/m asked "
+                    f"(limit {lim.power_tolerance:.0%}) for {self._short} samples: flat battery, regulator or leads?")
+        return None
+
+
 class FrameLossWindow:
     """Frames lost among the last ``size`` frames the front end sent, of every kind (samples, acknowledgements,
     faults), from the decoder's running totals: PROTOCOL.md §5 counts a sequence step of n as n − 1 lost frames,

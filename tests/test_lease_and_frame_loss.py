@@ -1,9 +1,10 @@
 """The heater lease and the frame-loss limit as hardware/PROTOCOL.md has them, with real processes.
 
-§6: the host renews every period (lease/4 here), so that lost renewals, or lost acknowledgements of them, do not end
-the heating: the daemon faults only when no renewal at all was acknowledged for a whole lease, the time after
-which the front end would have switched the heater off had none arrived. §5: a sequence step of n counts n − 1
-lost frames, of every kind; the loss fraction is taken over the front end's frames, not over its samples.
+§6: the host renews every period (lease/4 here) whatever became of the last renewal, so that lost renewals, lost
+or late acknowledgements do not end the heating: the daemon faults only when no renewal sent within a whole lease
+was acknowledged, the time after which the front end would have switched the heater off had none arrived.
+§5: a sequence step of n counts n − 1 lost frames, of every kind; the loss fraction is taken over the front end's
+frames, not over its samples.
 """
 
 from __future__ import annotations
@@ -69,8 +70,9 @@ def test_three_per_cent_frame_loss_at_one_hertz_does_not_fault_a_run(tmp_path: P
         d.wait_fresh(22, timeout=60)  # more than 130 frames, four of them lost
         st = d.status()
         assert d.run_state(rid) == "heating" and st["fault"] is None, st["fault"]
+        assert st["counters"]["lost_frames"] >= 3, st["counters"]  # they were lost, and counted
         loss = st["frame_loss"]
-        assert loss["lost"] >= 2 and loss["lost"] / (loss["lost"] + loss["frames"]) < 0.05, loss
+        assert loss["lost"] / (loss["lost"] + loss["frames"]) < 0.05, loss
     finally:
         d.stop()
         sim.stop()

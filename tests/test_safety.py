@@ -9,10 +9,13 @@ import pytest
 
 from linerig.daemon.safety import (
     LIMIT_RANGE,
+    DeviceClockWatch,
     FrameLossWindow,
     Limits,
     SampleView,
+    ShortfallWatch,
     check_arming,
+    check_heater_response,
     check_link,
     check_plan,
     check_precheck,
@@ -139,3 +142,44 @@ def test_the_daemons_copies_of_the_flashed_limits_are_the_firmwares() -> None:
     assert safety.FRONT_END_MAX_POWER_W == fw.POWER_MAX_W
     assert safety.FRONT_END_MAX_ON_S == fw.ON_TIME_MAX_MS / 1000
     assert safety.FRONT_END_MIN_SUPPLY_V == fw.SUPPLY_MIN_V
+
+
+def test_a_front_end_clock_that_stops_or_goes_back_is_named() -> None:
+    w = DeviceClockWatch()
+    for t in range(10):
+        assert w.add(float(t), 1.0) is None
+    assert w.add(10.0, 1.0) is None and w.add(13.0, 1.0) is None  # lost samples: a longer step, not a fault
+    assert w.add(13.0, 1.0) is None and w.add(13.0, 1.0) is None  # two stuck samples may be a glitch
+    assert "clock has stopped" in (w.add(13.0, 1.0) or "")
+    w.reset()
+    w.add(100.0, 1.0)
+    assert "went back" in (w.add(50.0, 1.0) or "")
+
+
+def test_a_sensor_on_the_heater_must_warm_as_any_ground_would() -> None:
+    """The bar is the late-time slope in the most conductive ground, q/(4πk) per unit of ln t with k = 10. The
+    line source itself (Carslaw & Jaeger 1959 §10.4, scipy's E1) for a 0.635 mm needle after 60 s at 5 W/m, in
+    ground from k = 0.25 (dry clay) to 10 with ρc 1.3–4 MJ/(m³·K), always rises well past it."""
+    from scipy.special import exp1
+
+    q, t, r = 5.0, 60.0, 0.635e-3
+    need = q / (4 * math.pi * 10.0)
+    for k in (0.25, 1.5, 3.0, 10.0):
+        for rho_c in (1.3e6, 4.0e6):
+            rise = q / (4 * math.pi * k) * float(exp1(r**2 * rho_c / (4 * k * t)))
+            assert rise > 2 * need
+            assert check_heater_response({"heater": rise}, t, q) is None
+    assert check_heater_response({"heater": 0.01}, 59.0, q) is None  # too early to judge
+    reason = check_heater_response({"heater": 0.01}, t, q) or ""
+    assert "thermocouple shorted" in reason and "'heater'" in reason
+    assert check_heater_response({"heater": math.nan}, t, q) is None  # a faulted channel is the fault bit's job
+
+
+def test_delivered_power_held_below_the_request_is_named() -> None:
+    w = ShortfallWatch()
+    assert w.add(True, 10.0, 6.8, LIM) is None and w.add(True, 10.0, 6.8, LIM) is None  # the first may be partial
+    assert "32% below the 10.00 W/m asked" in (w.add(True, 10.0, 6.8, LIM) or "")
+    w.reset()
+    for _ in range(10):
+        assert w.add(True, 10.0, 8.6, LIM) is None  # 14 %: inside power_tolerance
+    assert w.add(False, 10.0, 0.0, LIM) is None

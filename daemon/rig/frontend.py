@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import time
 from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -32,6 +33,8 @@ class FrontEndHandlers:
     on_heater_switch: Callable[[str, int], None] = lambda kind, device_ms: None
     # an acknowledgement of a command this host never sent: another program is writing to the front end
     on_foreign_ack: Callable[[m.Ack], None] = lambda ack: None
+    # the answer to a lease renewal sent with ``send_renewal``: (when it was sent, monotonic s; the answer)
+    on_renewal: Callable[[float, m.Ack], None] = lambda sent, ack: None
 
 
 class FrontEnd:
@@ -45,6 +48,7 @@ class FrontEnd:
         self._acks: dict[int, asyncio.Future[m.Ack]] = {}
         self._sent_kinds: dict[int, str] = {}
         self._sent_seqs: deque[int] = deque(maxlen=SENT_MEMORY)  # kept after the ack: a retry is acked again
+        self._renewals: dict[int, float] = {}  # renewals in flight: seq → monotonic time sent
         self._lock = asyncio.Lock()
         self._identity_wait: asyncio.Future[m.Identity] | None = None
         self._status_wait: asyncio.Future[m.Status] | None = None
@@ -73,6 +77,11 @@ class FrontEnd:
         elif isinstance(msg, m.Ack):
             if msg.cmd_seq not in self._sent_seqs:
                 self.handlers.on_foreign_ack(msg)
+                return
+            sent = self._renewals.pop(msg.cmd_seq, None)
+            if sent is not None:
+                self._sent_kinds.pop(msg.cmd_seq, None)
+                self.handlers.on_renewal(sent, msg)
                 return
             kind = self._sent_kinds.pop(msg.cmd_seq, None)
             switched = _device_ms(msg.detail) if msg.ok else None
@@ -148,9 +157,20 @@ class FrontEnd:
         ack = await self.command(m.CMD_POWER, [f"{power_W_per_m:.4f}", str(int(lease_s * 1000))])
         return _device_ms(ack.detail)
 
-    async def renew_lease(self, lease_s: float, ack_timeout_s: float = ACK_TIMEOUT_S) -> None:
-        """Renew; a lost acknowledgement is retried (the identical frame) after ``ack_timeout_s``."""
-        await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))], timeout=ack_timeout_s)
+    async def renew_lease(self, lease_s: float) -> None:
+        await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))])
+
+    async def send_renewal(self, lease_s: float) -> None:
+        """A lease renewal sent at once, without waiting for earlier ones to be answered (PROTOCOL.md §6: every
+        renewal period whatever became of the last; each is an absolute setting, so one arriving late or twice
+        does no harm). The answer goes to ``on_renewal``."""
+        seq = (self._seq + 1) % 65536
+        self._seq = seq
+        self._note_sent(seq, m.CMD_LEASE)
+        self._renewals[seq] = time.monotonic()
+        while len(self._renewals) > SENT_MEMORY:  # answers that never came
+            self._renewals.pop(next(iter(self._renewals)))
+        await self.transport.write(encode_frame(m.CMD_LEASE, seq, [str(int(lease_s * 1000))]))
 
     async def heater_off(self) -> int | None:
         """Heater off; returns the device ms at which it went off when it had been on."""
