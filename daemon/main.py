@@ -13,7 +13,6 @@ import contextlib
 import grp
 import json
 import logging
-import math
 import os
 import random
 import shutil
@@ -26,16 +25,15 @@ import time
 from pathlib import Path
 from typing import Any
 
-import sqlite_utils
-
 from linerig.daemon import sdnotify
-from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError
+from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError, SocketFolderError, Streamed
 from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, devices_anyway, load_config
 from linerig.daemon.controller import RunPlan
 from linerig.daemon.errors import ConfigError, RigError
 from linerig.daemon.paths import default_db_path, default_socket_path
 from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
+from linerig.daemon.samples_reply import samples_pieces
 from linerig.daemon.service import DaemonSettings, RigService
 from linerig.daemon.sim.speed import speed_factor
 from linerig.daemon.store import queries
@@ -164,12 +162,12 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
             raise RequestError(f"no series {sid}")
         return {"series": detail}
 
-    async def samples(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+    async def samples(req: dict[str, Any], peer: Peer) -> Streamed:
         rid = _int_field(req, "run_id")
-        try:  # a day of samples takes a while to read: off the loop that keeps the lease and the limits
-            return {"run_id": rid, "samples": await asyncio.to_thread(run_samples_json, store.path, rid)}
-        except KeyError:
-            raise RequestError(f"no run {rid}") from None
+        if not any(db.query("SELECT 1 FROM runs WHERE id = ?", [rid])):
+            raise RequestError(f"no run {rid}")
+        # tens of MB for a long run: built by a process of its own, passed on in pieces (samples_reply)
+        return Streamed(lambda envelope: samples_pieces(store.path, rid, envelope))
 
     async def probes(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         rows = list(db.query("SELECT serial, name, kind, added_utc, profile_toml FROM probes ORDER BY serial"))
@@ -190,28 +188,6 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
     return {"status": status, "ping": ping, "start": start, "resume": resume, "stop_heating": stop_heating,
             "abort": abort, "subscribe": subscribe, "runs": runs, "run": run, "series": series, "samples": samples,
             "probes": probes, "calibrations": calibrations, "presets": presets}
-
-
-def run_samples_json(db_path: Path, run_id: int) -> dict[str, Any]:
-    """A run's samples for a client, on a connection of this thread's own: ``time_s`` from heater on,
-    ``device_s``, ``q_W_per_m`` held from each sample on (the reduction's convention), ``temps_C`` by sensor
-    (None where a channel had no reading), ``phase``. Rounded to what the instruments resolve."""
-    con = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True)
-    try:
-        con.execute("PRAGMA busy_timeout=2000")
-        rdb = sqlite_utils.Database(con)
-        arr = queries.run_arrays(rdb, run_id)
-        row = next(iter(rdb.query("SELECT heat_start_device_s FROM runs WHERE id = ?", [run_id])))
-    finally:
-        con.close()
-
-    def listed(a: Any, nd: int) -> list[float | None]:
-        return [None if not math.isfinite(v) else round(float(v), nd) for v in a]
-
-    t0 = row["heat_start_device_s"] or 0.0
-    return {"time_s": listed(arr["time_s"], 4), "device_s": listed(arr["time_s"] + t0, 4),
-            "q_W_per_m": listed(arr["q_W_per_m"], 5),
-            "temps_C": {n: listed(v, 5) for n, v in arr["temps_C"].items()}, "phase": arr["phase"]}
 
 
 # -- serving -------------------------------------------------------------------
@@ -250,6 +226,12 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
     svc = RigService(settings, store, hub)
     api = ApiServer(args.socket or cfg.daemon.socket or default_socket_path(), handlers(svc, store), hub,
                     group=args.group or cfg.daemon.group)
+    try:
+        api.prepare_folder()  # before anything starts: a folder someone else could write to is refused
+    except SocketFolderError as exc:
+        print(f"linerigd: {exc}", file=sys.stderr)
+        store.close()
+        return 2
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
         loop.add_signal_handler(sig, svc.stop_requested.set)
@@ -257,6 +239,11 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         exc = ctx.get("exception")
         if isinstance(exc, asyncio.CancelledError):  # a task cancelled at shutdown, not a fault
             log.debug("cancelled: %s", ctx.get("message"))
+            return
+        if isinstance(exc, OSError) and "socket" in ctx:
+            # accept() out of descriptors (EMFILE) and the like: asyncio pauses accepting and retries; a client
+            # that cannot connect is never a reason to stop a run
+            log.warning("control socket: %s (%s); accepting again shortly", ctx.get("message"), exc)
             return
         svc.internal_error(str(ctx.get("message")), exc)
 
