@@ -59,6 +59,7 @@ def test_clients_that_never_read_are_cut_off_and_their_descriptors_freed(tmp_pat
         # a reserved slot were answered once and closed) ...
         assert wait_for(lambda: _reserved_ping(d.socket), 20, "a reserved slot")["pong"]
         # ... and once they have not read for DRAIN_TIMEOUT_S they are gone, descriptors and buffers
+        wait_for(lambda: fds(d.pid) >= base + MAX_CLIENTS, 60, "the clients to be taken in")
         wait_for(lambda: fds(d.pid) <= base + 3, 3 * DRAIN_TIMEOUT_S + 30, "the daemon's descriptors to come back")
         st = d.status()  # a normal client gets in again
         assert st["run"]["id"] == live and st["run"]["state"] == "heating" and st["fault"] is None

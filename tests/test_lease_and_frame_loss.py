@@ -15,16 +15,10 @@ import pytest
 
 from linerig.daemon.safety import FrameLossWindow, Limits, check_link
 from tests.daemon_harness import Daemon, Sim, reap, wait_for  # noqa: F401  (reap kills what a test started)
+from tests.test_reliability_processes import heating
 
 pytestmark = pytest.mark.timeout(180)
 LONG = {"baseline_s": 5, "heat_s": 3000, "recover_s": 5, "max_drift_K_per_min": 1.0, "settle_timeout_s": 30}
-
-
-def heating(d: Daemon, plan: dict) -> tuple[int, object]:
-    events = d.subscribe()
-    rid = int(d.request("start", **plan)["run_id"])
-    events.next(lambda e: e.get("event") == "heater_on" and e["run_id"] == rid, 60)
-    return rid, events
 
 
 def test_lost_lease_acknowledgements_are_retried_and_only_a_whole_lease_without_one_trips(tmp_path: Path) -> None:
@@ -32,7 +26,7 @@ def test_lost_lease_acknowledgements_are_retried_and_only_a_whole_lease_without_
     d = Daemon(tmp_path, sim.frontend)
     try:
         d.wait_link()
-        rid, events = heating(d, LONG)
+        rid, events = heating(d, sim, LONG)
         for lost in (1, 2, 1, 2):  # one lost ack faulted a run before
             # each time on a clear frame-loss window: the lost acks are lost frames too (§5), and enough of them
             # within a few seconds are a burst for that limit
@@ -66,7 +60,7 @@ def test_three_per_cent_frame_loss_at_one_hertz_does_not_fault_a_run(tmp_path: P
     try:
         d.wait_link()
         sim.inject("drop", every=33)
-        rid, _ = heating(d, {**LONG, "baseline_s": 3, "heat_s": 25, "settle_timeout_s": 20})
+        rid, _ = heating(d, sim, {**LONG, "baseline_s": 3, "heat_s": 25, "settle_timeout_s": 20})
         d.wait_fresh(22, timeout=60)  # more than 130 frames, four of them lost
         st = d.status()
         assert d.run_state(rid) == "heating" and st["fault"] is None, st["fault"]
