@@ -4,6 +4,11 @@
 measured heater power per metre, held from that row until the next (0 when off); temperatures in °C. Every
 problem is reported with the file line number and the column, so a bad file never turns into a number that
 looks like a result.
+
+Comment lines of the form ``# key: value`` before the column header are the run's metadata. Those the reduction
+uses: ``probe_serial``, ``calibration_factor`` and ``calibration_factor_u`` (the probe factor applied to the
+stored result and its standard uncertainty), ``calibration`` (where that factor comes from, in words) and
+``probe_profile`` (the probe profile as one line of JSON, as linerigd stores it).
 """
 
 from __future__ import annotations
@@ -15,6 +20,7 @@ import io
 import math
 import re
 from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
@@ -23,6 +29,9 @@ import numpy as np
 from .reduction.data import RunData, out_of_bounds, value_problem
 
 _SENSOR_COL = re.compile(r"^T_([A-Za-z0-9_]+)_C$")
+_META = re.compile(r"^#\s*([A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*?)\s*$")
+PROBE_SERIAL, PROBE_PROFILE = "probe_serial", "probe_profile"
+CAL_FACTOR, CAL_FACTOR_U, CAL_SOURCE = "calibration_factor", "calibration_factor_u", "calibration"
 # Plain decimal numbers only: float() would also take "1_1.0", full-width digits and "infinity"
 _NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?", re.ASCII)
 _NON_FINITE = re.compile(r"[+-]?(?:nan|inf|infinity)", re.ASCII | re.IGNORECASE)
@@ -36,6 +45,46 @@ _BLOCK = 1 << 24
 
 class RunCsvError(ValueError):
     """A run CSV that cannot be read; the message names the line (and row) and the column."""
+
+
+@dataclass(frozen=True)
+class HeaderValue:
+    text: str
+    line: int
+
+
+@dataclass(frozen=True)
+class FileCalibration:
+    """The probe factor a run CSV says its stored result carries."""
+
+    factor: float
+    factor_u: float
+    source: str
+
+
+def file_calibration(meta: dict[str, HeaderValue], name: str) -> FileCalibration | None:
+    """The ``calibration_factor`` (and ``_u``) of a run CSV's header; None when it names none.
+
+    Raises RunCsvError naming the line when a value is not a usable number: a factor must not be guessed.
+    """
+    if CAL_FACTOR not in meta:
+        if CAL_FACTOR_U in meta:
+            raise RunCsvError(f"{name}: line {meta[CAL_FACTOR_U].line}: {CAL_FACTOR_U} without {CAL_FACTOR}")
+        return None
+    factor = _header_number(meta[CAL_FACTOR], CAL_FACTOR, name, zero_ok=False)
+    u = _header_number(meta[CAL_FACTOR_U], CAL_FACTOR_U, name, zero_ok=True) if CAL_FACTOR_U in meta else 0.0
+    return FileCalibration(factor, u, meta[CAL_SOURCE].text if CAL_SOURCE in meta else "")
+
+
+def _header_number(v: HeaderValue, key: str, name: str, *, zero_ok: bool) -> float:
+    try:
+        x = float(v.text)
+    except ValueError:
+        x = math.nan
+    if not math.isfinite(x) or x < 0 or (x == 0 and not zero_ok):
+        raise RunCsvError(f"{name}: line {v.line}: {key} {v.text!r} is not a finite number "
+                          f"{'>= 0' if zero_ok else '> 0'}")
+    return x
 
 
 @contextlib.contextmanager
@@ -57,7 +106,13 @@ def _decode(raw: bytes, name: str) -> str:
 
 
 def read_run_csv(src: str | Path | TextIO, *, require_baseline: bool = True) -> RunData:
-    """Parse a run CSV (a path, the text itself, or an open text stream).
+    """Parse a run CSV (a path, the text itself, or an open text stream)."""
+    return read_run_file(src, require_baseline=require_baseline)[0]
+
+
+def read_run_file(src: str | Path | TextIO, *, require_baseline: bool = True
+                  ) -> tuple[RunData, dict[str, HeaderValue]]:
+    """The samples and the ``# key: value`` metadata above the column header (first value of a key wins).
 
     A large file of plain numbers is read by numpy in one pass; any file the fast reader cannot take as it is
     (comments between rows, quotes, a bad cell) is read line by line, which names the first problem exactly.
@@ -67,22 +122,32 @@ def read_run_csv(src: str | Path | TextIO, *, require_baseline: bool = True) -> 
     if isinstance(src, str | Path):
         path = Path(src)
         with _named(path):
-            if path.stat().st_size >= FAST_MIN_BYTES and (data := _read_fast(path, require_baseline)) is not None:
-                return data
+            if path.stat().st_size >= FAST_MIN_BYTES and (got := _read_fast(path, require_baseline)) is not None:
+                return got
             raw = path.read_bytes()
         return _read_lines(_decode(raw, str(path)), str(path), require_baseline)
     return _read_lines(src.read().removeprefix(_BOM), getattr(src, "name", "<stream>"), require_baseline)
 
 
-def _read_lines(text: str, name: str, require_baseline: bool) -> RunData:
+def _metadata(line: str, line_no: int, meta: dict[str, HeaderValue]) -> None:
+    """A ``# key: value`` comment above the column header (the first value of a key wins)."""
+    m = _META.match(line)
+    if m and m.group(1) not in meta:
+        meta[m.group(1)] = HeaderValue(m.group(2), line_no)
+
+
+def _read_lines(text: str, name: str, require_baseline: bool) -> tuple[RunData, dict[str, HeaderValue]]:
     header: list[str] | None = None
     header_line = 0
+    meta: dict[str, HeaderValue] = {}
     values = array.array("d")  # 8 bytes a value, not a list of lists: a long file stays small
     prev_t = -math.inf
     row_no = 0
     for line_no, raw in enumerate(io.StringIO(text, newline=None), start=1):
         stripped = raw.strip()
         if not stripped or stripped.startswith("#"):
+            if header is None:
+                _metadata(stripped, line_no, meta)
             continue
         try:
             cells = [c.strip() for c in next(csv.reader([raw.rstrip("\n")], strict=True))]
@@ -122,7 +187,7 @@ def _read_lines(text: str, name: str, require_baseline: bool) -> RunData:
     if header is None:
         raise RunCsvError(f"{name}: no header line (expected time_s,q_W_per_m,T_<sensor>_C,...)")
     arr = np.frombuffer(values, dtype=float).reshape(row_no, len(header)).copy()
-    return _finish(arr, header, name, require_baseline)
+    return _finish(arr, header, name, require_baseline), meta
 
 
 def _finish(arr: np.ndarray, header: list[str], name: str, require_baseline: bool) -> RunData:
@@ -139,7 +204,7 @@ def _finish(arr: np.ndarray, header: list[str], name: str, require_baseline: boo
     return RunData(time_s=t, q_W_per_m=q, temps_C=temps)
 
 
-def _read_fast(path: Path, require_baseline: bool) -> RunData | None:
+def _read_fast(path: Path, require_baseline: bool) -> tuple[RunData, dict[str, HeaderValue]] | None:
     """numpy's reader for a large file that is a header and then plain numbers, one row a line; None when the
     file is anything else (the line-by-line reader then finds and names the problem)."""
     name = str(path)
@@ -148,9 +213,12 @@ def _read_fast(path: Path, require_baseline: bool) -> RunData | None:
         header_line, offset = _header_position(head)
         if header_line == 0:
             return None
+        above = _decode(head[:offset], name).splitlines()
+        meta: dict[str, HeaderValue] = {}
+        for line_no, line in enumerate(above[:-1], start=1):
+            _metadata(line.strip(), line_no, meta)
         try:
-            header = [c.strip() for c in next(csv.reader([_decode(head[:offset], name).splitlines()[-1]],
-                                                          strict=True))]
+            header = [c.strip() for c in next(csv.reader([above[-1]], strict=True))]
         except csv.Error:
             return None
         _check_header(header, name, header_line)
@@ -174,7 +242,7 @@ def _read_fast(path: Path, require_baseline: bool) -> RunData | None:
     if arr.shape != (rows, len(header)):
         return None
     _check_columns(arr, header, name, header_line)
-    return _finish(arr, header, name, require_baseline)
+    return _finish(arr, header, name, require_baseline), meta
 
 
 def _header_position(head: bytes) -> tuple[int, int]:

@@ -1,7 +1,7 @@
 """Hostile run CSVs: what spreadsheets and loggers really write is read, and what no heated probe could record
 ends `linerig reduce` with exit 2 and one line naming the problem, never a number that looks like a result.
 
-The base record is the invented Harrowgate Fen field run in examples/; each case changes one thing in it.
+The base record is the invented Examplemoor field run in examples/; each case changes one thing in it.
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from linerig.daemon.runcsv import RunCsvError, read_run_csv
 from linerig.tui.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
-RUN_CSV = ROOT / "examples" / "harrowgate-fen" / "run_BH1_1.5m.csv"
+RUN_CSV = ROOT / "examples" / "examplemoor" / "run_BH1_1.5m.csv"
 TEXT = RUN_CSV.read_text(encoding="utf-8")
 
 
@@ -119,11 +119,13 @@ def fast_reader(monkeypatch: pytest.MonkeyPatch) -> None:
 
 def test_the_fast_reader_gives_the_line_readers_record(tmp_path: Path, fast_reader: None) -> None:
     path = tmp_path / "plain.csv"
-    path.write_text(_rows(_plain).replace("# Invented field run, Harrowgate Fen substation, BH1, probe tip 1.575 m\n",
-                                          "\ufeff# Invented field run\n"))
-    fast = runcsv._read_fast(path, True)
-    assert fast is not None  # a header and plain numbers: numpy's reader took it
-    slow = runcsv._read_lines(path.read_text(encoding="utf-8-sig"), str(path), True)
+    path.write_text(_rows(_plain).replace("# Invented field run, Examplemoor substation, BH1, probe tip 1.575 m\n",
+                                          "\ufeff# Invented field run\n# probe_serial: FN-0412\n"))
+    got = runcsv._read_fast(path, True)
+    assert got is not None  # a header and plain numbers: numpy's reader took it
+    fast, fast_meta = got
+    slow, slow_meta = runcsv._read_lines(path.read_text(encoding="utf-8-sig"), str(path), True)
+    assert fast_meta == slow_meta and fast_meta["probe_serial"].text == "FN-0412"  # the header's metadata too
     for a, b in ((fast.time_s, slow.time_s), (fast.q_W_per_m, slow.q_W_per_m),
                  (fast.temps_C["heater"], slow.temps_C["heater"])):
         assert np.array_equal(a, b)

@@ -40,6 +40,28 @@ def contiguous(mask: np.ndarray) -> slice | np.ndarray:
     return mask
 
 
+def heating_signal_problem(sensor: str, th: np.ndarray, dTh: np.ndarray) -> str | None:
+    """Why ``sensor`` shows no heating (None when it warms): ``dTh``, its rise above the baseline's extrapolation
+    over the heating samples ``th``, must end (median of the last quarter) more than SIGNAL_Z sample-to-sample noise
+    (MAD of the steps) above zero.
+
+    A sensor that cools, or only wanders, while the heater is on is not in the probe, is shorted (it reads its
+    connector) or belongs to another column: any slope fitted to it would be noise, and its k any number.
+    """
+    ok = np.isfinite(dTh)
+    th, dTh = th[ok], dTh[ok]
+    if th.size < 4:
+        return None  # too short to judge; the fit says what is missing
+    rise = float(np.median(dTh[-max(th.size // 4, 2):]))
+    steps = np.diff(dTh)
+    noise = max(float(np.median(np.abs(steps - np.median(steps)))) / 0.6745 / math.sqrt(2.0), NOISE_FLOOR_K)
+    if rise > SIGNAL_Z * noise:
+        return None
+    how = "falls" if rise < -SIGNAL_Z * noise else "does not rise"
+    return (f"T_{sensor}_C {how} while the heater is on ({rise:+.3g} K at the end of {th[-1]:.4g} s of heating, "
+            f"noise {noise:.2g} K): is the sensor in the probe, shorted, or in the wrong column?")
+
+
 class ReductionError(ValueError):
     """The data cannot give a result (no heating, too few samples ...); the message says what is missing."""
 
@@ -103,34 +125,6 @@ class RunData:
             if bad.any():
                 i = int(np.argmax(bad))
                 raise ImplausibleRun(f"column {name}, sample {i + 1}: {value_problem(name, float(v[i]))}")
-
-    def heating_signal_problem(self, sensor: str) -> str | None:
-        """Why ``sensor`` shows no heating (None when it warms): at the end of the heating it must stand more than
-        SIGNAL_Z sample-to-sample noise above its baseline's extrapolation (drift removed as the fit removes it).
-
-        A sensor that cools, or only wanders, while the heater is on is not in the probe, is shorted (it reads
-        its connector) or belongs to another column: any slope fitted to it would be noise, and its k any number.
-        """
-        from .drift import fit_baseline
-
-        t, T = self.time_s, self.temps_C[sensor]
-        i0, i1 = self.heating_span()
-        ok = np.isfinite(T)
-        th, Th = t[i0:i1][ok[i0:i1]], T[i0:i1][ok[i0:i1]]
-        if th.size < 4:
-            return None  # too short to judge; the fit says what is missing
-        base = (t < 0) & ok
-        level = (fit_baseline(t[base], T[base]).at(th) if np.count_nonzero(base) >= 2
-                 else np.full(th.size, float(Th[0])))
-        tail = max(th.size // 4, 2)
-        rise = float(np.median(Th[-tail:] - level[-tail:]))
-        steps = np.diff(Th)
-        noise = max(float(np.median(np.abs(steps - np.median(steps)))) / 0.6745 / math.sqrt(2.0), NOISE_FLOOR_K)
-        if rise > SIGNAL_Z * noise:
-            return None
-        how = "falls" if rise < -SIGNAL_Z * noise else "does not rise"
-        return (f"T_{sensor}_C {how} while the heater is on ({rise:+.3g} K at the end of {th[-1]:.4g} s of heating, "
-                f"noise {noise:.2g} K): is the sensor in the probe, shorted, or in the wrong column?")
 
     @property
     def sensor_names(self) -> list[str]:

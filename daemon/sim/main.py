@@ -41,7 +41,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also offer a SCPI bench supply (on <link-dir>/supply) whose output heats the probe")
     p.add_argument("--firmware", action="store_true",
                    help="run the real front-end firmware (hardware/firmware) on the simulated board instead of "
-                        "the protocol emulator")
+                        "the protocol emulator: in its own MicroPython process when the micropython command is "
+                        "installed, else hosted in this process (the start-up line says which)")
+    p.add_argument("--firmware-host", choices=("auto", "micropython", "cpython"), default="auto",
+                   help="with --firmware: which interpreter runs it (default: micropython when installed)")
     p.add_argument("--parent-pid", type=int, default=None,
                    help=f"exit {PARENT_GRACE_S:g} s after this process is gone (the heater lease expires first)")
     return p
@@ -78,27 +81,35 @@ def _probe(path: Path | None) -> ProbeSpec:
     return ProbeSpec.from_profile(load_probe_profile(path))
 
 
+def _frontend(args: argparse.Namespace, rig: SimulatedRig) -> tuple[Any, str | None]:
+    """The simulated front end, and which interpreter runs the firmware on it (None: the protocol emulator)."""
+    if not args.firmware:
+        return FrontEndEmulator(rig, speed=args.speed, seed=args.seed), None
+    from linerig.daemon.sim.mpy_host import MicroPythonFrontEnd, micropython_command
+
+    if args.firmware_host == "micropython" or (args.firmware_host == "auto" and micropython_command()):
+        return MicroPythonFrontEnd(rig, speed=args.speed, seed=args.seed), "micropython"
+    from linerig.daemon.sim.firmware_host import FirmwareFrontEnd
+
+    return FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed), "cpython"
+
+
 async def _run(args: argparse.Namespace) -> int:
     material = get_material(args.material)
     kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
     rig = SimulatedRig(material, _probe(args.probe), seed=args.seed, **kwargs)
-    if args.firmware:
-        from linerig.daemon.sim.firmware_host import FirmwareFrontEnd
-
-        frontend: Any = FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed)
-    else:
-        frontend = FrontEndEmulator(rig, speed=args.speed, seed=args.seed)
+    frontend, firmware = _frontend(args, rig)
     own_dir = args.link_dir is None  # a folder made here is removed here, however the run ends
     link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix=SIM_DIR_PREFIX))
     link_dir.mkdir(parents=True, exist_ok=True)
     try:
-        return await _serve(args, material, frontend, link_dir)
+        return await _serve(args, material, frontend, firmware, link_dir)
     finally:
         if own_dir:
             shutil.rmtree(link_dir, ignore_errors=True)
 
 
-async def _serve(args: argparse.Namespace, material: Any, frontend: Any, link_dir: Path) -> int:
+async def _serve(args: argparse.Namespace, material: Any, frontend: Any, firmware: Any, link_dir: Path) -> int:
     server = SimServer(frontend, link_dir, args.heater_log)
     control = args.control or link_dir / "control.sock"
     supply_path = server.offer_supply() if args.supply else None
@@ -112,7 +123,7 @@ async def _serve(args: argparse.Namespace, material: Any, frontend: Any, link_di
         await asyncio.sleep(0)
     print(json.dumps({"frontend": str(link_dir / "frontend"), "control": str(control),
                       "supply": str(supply_path) if supply_path else None,
-                      "material": material.key, "speed": args.speed}), flush=True)
+                      "material": material.key, "speed": args.speed, "firmware": firmware}), flush=True)
     await task
     if watcher is not None:
         watcher.cancel()
