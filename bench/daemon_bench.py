@@ -268,8 +268,8 @@ def breach_latency(repeats: int) -> None:
 
 
 # -- 4. SIGKILL mid-heating ----------------------------------------------------
-def kills(repeats: int) -> None:
-    print(f"\n4. SIGKILL mid-heating × {repeats}: lease-off time, committed samples, restart")
+def kills(repeats: int, number: int = 4) -> None:
+    print(f"\n{number}. SIGKILL mid-heating × {repeats}: lease-off time, committed samples, restart")
     lat, ok = [], 0
     with tempfile.TemporaryDirectory() as td:
         tmp = Path(td)

@@ -47,7 +47,7 @@ from typing import Any
 from linerig.daemon.controller import PLAN_HELP, PlanError, RunPlan
 from linerig.daemon.errors import ConfigError
 from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
-from linerig.daemon.safety import LIMIT_HELP, Limits, check_plan, limit_problem
+from linerig.daemon.safety import LIMIT_HELP, Limits, check_plan, limit_problem, plan_power_problem
 
 DEFAULT_CONFIG_PATH = Path("/etc/linerig/rig.toml")
 DEFAULT_PROBE_PATH = Path(__file__).parent / "profiles" / "default-needle.toml"
@@ -335,7 +335,7 @@ def _limits(src: _Src, t: dict[str, Any]) -> Limits:
     for key, value in t.items():
         problem = limit_problem(key, value)
         if problem:
-            raise src.error(["limits", key], f"expected {problem} ({LIMIT_HELP[key]}), got {value!r}")
+            raise src.error(["limits", key], f"expected {problem}, got {value!r} ({LIMIT_HELP[key]})")
     return Limits(**t)
 
 
@@ -360,6 +360,14 @@ def _check_plan(src: _Src, plan: RunPlan, path: list[str], limits: Limits, probe
                                            f"got {plan.sensor!r}")
 
 
+def _check_limits_against(src: _Src, written: dict[str, Any], limits: Limits, probe: ProbeProfile) -> None:
+    """Limits that are fine alone but not with this probe's heater."""
+    if "max_power_W_per_m" in written:
+        problem = plan_power_problem(limits.max_power_W_per_m, probe.length_m or 0.1)
+        if problem:
+            raise src.error(["limits", "max_power_W_per_m"], problem)
+
+
 def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None) -> RigConfig:
     src = _Src(source, text)
     try:
@@ -380,6 +388,7 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
             and plan.sensor not in [s.name for s in probe.sensors]:
         plan = plan.with_changes({"sensor": probe.sensors[0].name})  # the default follows the probe
     _check_plan(src, plan, ["run"], limits, probe)
+    _check_limits_against(src, _table(src, doc, "limits"), limits, probe)
     presets: dict[str, RunPlan] = {}
     for name, table in _table(src, doc, "presets").items():
         if not isinstance(table, dict):
@@ -394,11 +403,53 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
                      limits=limits, plan=plan, presets=presets, sync=sync)
 
 
+def devices_anyway(path: Path) -> DeviceConfig:
+    """The [devices] of a configuration that does not load, as far as they can be read: the safe-off must reach
+    the front end and the supply even when a limit, a probe or the TOML elsewhere in the file is wrong."""
+    try:
+        text = path.read_bytes().decode("utf-8", errors="replace")
+    except OSError:
+        return DeviceConfig()
+    try:
+        table = tomllib.loads(text).get("devices", {})
+    except tomllib.TOMLDecodeError:
+        table = _devices_by_line(text)
+    kw: dict[str, Any] = {}
+    for key in ("frontend", "supply"):
+        if isinstance(table.get(key), str) and table[key].strip():
+            kw[key] = table[key].strip()
+    for key in ("frontend_baud", "supply_baud"):
+        if isinstance(table.get(key), int) and not isinstance(table[key], bool) and 300 <= table[key] <= 4_000_000:
+            kw[key] = table[key]
+    return DeviceConfig(**kw)
+
+
+def _devices_by_line(text: str) -> dict[str, Any]:
+    """``key = "value"`` and ``key = number`` lines of the [devices] table, read line by line (broken TOML)."""
+    table: dict[str, Any] = {}
+    section = ""
+    for raw in text.splitlines():
+        line = raw.split("#", 1)[0].strip()
+        if line.startswith("["):
+            section = line.strip("[] ")
+            continue
+        m = re.fullmatch(r'([A-Za-z_]+)\s*=\s*(?:"([^"]*)"|\'([^\']*)\'|([0-9]+))', line)
+        if section == "devices" and m:
+            table[m.group(1)] = int(m.group(4)) if m.group(4) else (m.group(2) or m.group(3) or "")
+    return table
+
+
 def load_config(path: Path) -> RigConfig:
     try:
-        text = path.read_text(encoding="utf-8")
+        raw = path.read_bytes()
     except FileNotFoundError:
         raise ConfigError(f"{path}: no such file; write one (see systemd/README.md) or pass --config") from None
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read it ({exc.strerror})") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise ConfigError(f"{path} line {line}: byte 0x{raw[exc.start]:02X} is not UTF-8 text; save the file as "
+                          "UTF-8") from None
     return parse_config(text, str(path), path.parent)

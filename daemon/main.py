@@ -10,29 +10,30 @@ from __future__ import annotations
 import argparse
 import asyncio
 import contextlib
+import grp
 import json
 import logging
-import math
 import os
 import random
+import shutil
 import signal
 import sqlite3
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-import sqlite_utils
-
 from linerig.daemon import sdnotify
-from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError
-from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, load_config
+from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError, SocketFolderError, Streamed
+from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, devices_anyway, load_config
 from linerig.daemon.controller import RunPlan
 from linerig.daemon.errors import ConfigError, RigError
 from linerig.daemon.paths import default_db_path, default_socket_path
 from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
+from linerig.daemon.samples_reply import samples_pieces
 from linerig.daemon.service import DaemonSettings, RigService
 from linerig.daemon.sim.speed import speed_factor
 from linerig.daemon.store import queries
@@ -165,12 +166,12 @@ def handlers(svc: RigService, store: Store, sync: SyncScheduler | None = None) -
             raise RequestError(f"no series {sid}")
         return {"series": detail}
 
-    async def samples(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+    async def samples(req: dict[str, Any], peer: Peer) -> Streamed:
         rid = _int_field(req, "run_id")
-        try:  # a day of samples takes a while to read: off the loop that keeps the lease and the limits
-            return {"run_id": rid, "samples": await asyncio.to_thread(run_samples_json, store.path, rid)}
-        except KeyError:
-            raise RequestError(f"no run {rid}") from None
+        if not any(db.query("SELECT 1 FROM runs WHERE id = ?", [rid])):
+            raise RequestError(f"no run {rid}")
+        # tens of MB for a long run: built by a process of its own, passed on in pieces (samples_reply)
+        return Streamed(lambda envelope: samples_pieces(store.path, rid, envelope))
 
     async def probes(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         rows = list(db.query("SELECT serial, name, kind, added_utc, profile_toml FROM probes ORDER BY serial"))
@@ -191,28 +192,6 @@ def handlers(svc: RigService, store: Store, sync: SyncScheduler | None = None) -
     return {"status": status, "ping": ping, "start": start, "resume": resume, "stop_heating": stop_heating,
             "abort": abort, "subscribe": subscribe, "runs": runs, "run": run, "series": series, "samples": samples,
             "probes": probes, "calibrations": calibrations, "presets": presets}
-
-
-def run_samples_json(db_path: Path, run_id: int) -> dict[str, Any]:
-    """A run's samples for a client, on a connection of this thread's own: ``time_s`` from heater on,
-    ``device_s``, ``q_W_per_m`` held from each sample on (the reduction's convention), ``temps_C`` by sensor
-    (None where a channel had no reading), ``phase``. Rounded to what the instruments resolve."""
-    con = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True)
-    try:
-        con.execute("PRAGMA busy_timeout=2000")
-        rdb = sqlite_utils.Database(con)
-        arr = queries.run_arrays(rdb, run_id)
-        row = next(iter(rdb.query("SELECT heat_start_device_s FROM runs WHERE id = ?", [run_id])))
-    finally:
-        con.close()
-
-    def listed(a: Any, nd: int) -> list[float | None]:
-        return [None if not math.isfinite(v) else round(float(v), nd) for v in a]
-
-    t0 = row["heat_start_device_s"] or 0.0
-    return {"time_s": listed(arr["time_s"], 4), "device_s": listed(arr["time_s"] + t0, 4),
-            "q_W_per_m": listed(arr["q_W_per_m"], 5),
-            "temps_C": {n: listed(v, 5) for n, v in arr["temps_C"].items()}, "phase": arr["phase"]}
 
 
 # -- serving -------------------------------------------------------------------
@@ -259,6 +238,12 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         hub.watchers.append(sync.on_event)
     api = ApiServer(args.socket or cfg.daemon.socket or default_socket_path(), handlers(svc, store, sync), hub,
                     group=args.group or cfg.daemon.group)
+    try:
+        api.prepare_folder()  # before anything starts: a folder someone else could write to is refused
+    except SocketFolderError as exc:
+        print(f"linerigd: {exc}", file=sys.stderr)
+        store.close()
+        return 2
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
         loop.add_signal_handler(sig, svc.stop_requested.set)
@@ -266,6 +251,11 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         exc = ctx.get("exception")
         if isinstance(exc, asyncio.CancelledError):  # a task cancelled at shutdown, not a fault
             log.debug("cancelled: %s", ctx.get("message"))
+            return
+        if isinstance(exc, OSError) and "socket" in ctx:
+            # accept() out of descriptors (EMFILE) and the like: asyncio pauses accepting and retries; a client
+            # that cannot connect is never a reason to stop a run
+            log.warning("control socket: %s (%s); accepting again shortly", ctx.get("message"), exc)
             return
         svc.internal_error(str(ctx.get("message")), exc)
 
@@ -391,6 +381,21 @@ def _describe(cfg: RigConfig) -> str:
     return "\n".join(lines)
 
 
+def _safe_off_command(args: argparse.Namespace) -> int:
+    """``--safe-off``: heater off even when the rest of the configuration is wrong (ExecStopPost relies on it)."""
+    try:
+        devices = _load_config(args).devices
+    except ConfigError as exc:
+        devices = devices_anyway(args.config or DEFAULT_CONFIG_PATH)
+        print(f"linerigd --safe-off: ConfigError: {exc}; switching off the devices it names all the same",
+              file=sys.stderr)
+    ok, notes = safe_off(args.frontend or devices.frontend, devices.supply, devices.frontend_baud,
+                         devices.supply_baud)
+    for note in notes:
+        print(f"linerigd --safe-off: {note}", file=sys.stderr)
+    return 0 if ok else 1
+
+
 def _describe_sync(cfg: RigConfig) -> str:
     if cfg.sync is None:
         return "(none: no [sync] section)"
@@ -404,6 +409,8 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     logging.basicConfig(level=logging.DEBUG if args.verbose else logging.INFO, stream=sys.stderr,
                         format="%(asctime)s %(name)s %(levelname)s %(message)s")
+    if args.safe_off:
+        return _safe_off_command(args)
     try:
         cfg = _load_config(args)
     except ConfigError as exc:
@@ -412,12 +419,13 @@ def main(argv: list[str] | None = None) -> int:
     if args.check_config:
         print(_describe(cfg))
         return 0
-    if args.safe_off:
-        ok, notes = safe_off(args.frontend or cfg.devices.frontend, cfg.devices.supply,
-                             cfg.devices.frontend_baud, cfg.devices.supply_baud)
-        for note in notes:
-            print(f"linerigd --safe-off: {note}", file=sys.stderr)
-        return 0 if ok else 1
+    if args.group is not None:
+        try:
+            grp.getgrnam(args.group)
+        except KeyError:
+            print(f"linerigd: --group {args.group}: no such group on this machine; create it (see "
+                  "systemd/README.md) or leave --group out", file=sys.stderr)
+            return 2
     sim: subprocess.Popen[str] | None = None
     material = None
     sim_firmware: str | None = None
@@ -459,7 +467,11 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return asyncio.run(serve(args, cfg, frontend_url, material, supply_url, sim_firmware))
     except BaseException:
-        # the loop itself died: whatever happened, the heater goes off before the process ends
+        # the loop itself died: whatever happened, the heater goes off before the process ends (the ports are
+        # closed first: held exclusively, they would refuse this second open)
+        from linerig.daemon.rig.transport import close_all
+
+        close_all()
         safe_off(frontend_url, supply_url, cfg.devices.frontend_baud, cfg.devices.supply_baud, timeout_s=0.5)
         raise
     finally:
@@ -469,6 +481,16 @@ def main(argv: list[str] | None = None) -> int:
                 sim.wait(5)
             if sim.poll() is None:
                 sim.kill()
+                sim.wait(5)
+            _remove_sim_folder(Path(info["frontend"]).parent)
+
+
+def _remove_sim_folder(folder: Path) -> None:
+    """The simulator removes its own temporary folder; this covers a simulator that was killed first."""
+    from linerig.daemon.sim.main import SIM_DIR_PREFIX
+
+    if folder.name.startswith(SIM_DIR_PREFIX) and folder.parent == Path(tempfile.gettempdir()):
+        shutil.rmtree(folder, ignore_errors=True)
 
 
 if __name__ == "__main__":

@@ -12,7 +12,14 @@ import math
 from collections import deque
 from dataclasses import dataclass, fields
 
-FRONT_END_MAX_LEASE_S = 1.0  # hardware/PROTOCOL.md: the front end caps a lease at 1000 ms
+# The front end's flashed hard limits (hardware/firmware/probefw/limits.py, PROTOCOL.md §11). The daemon's own
+# limits must sit inside them; tests/test_safety.py checks these copies against the firmware's file.
+FRONT_END_MAX_LEASE_S = 1.0  # LEASE_MAX_MS: the front end caps a lease at 1000 ms
+FRONT_END_MAX_PROBE_C = 95.0  # T_PROBE_MAX_C
+FRONT_END_MAX_POWER_W_PER_M = 60.0  # POWER_MAX_W_PER_M
+FRONT_END_MAX_POWER_W = 45.0  # POWER_MAX_W, the whole heater
+FRONT_END_MAX_ON_S = 3600.0  # ON_TIME_MAX_MS
+FRONT_END_MIN_SUPPLY_V = 9.0  # SUPPLY_MIN_V
 
 LIMIT_HELP: dict[str, str] = {
     "max_power_W_per_m": "heater power per metre of heater, W/m",
@@ -22,7 +29,8 @@ LIMIT_HELP: dict[str, str] = {
     "max_heating_s": "heating time of one run, s (device clock or the daemon's own clock, whichever is longer)",
     "heater_ohm_tolerance": "fraction either side of the probe's nominal heater resistance (0.25 = ±25 %)",
     "min_supply_V": "supply (battery) voltage at the front end, V",
-    "max_frame_loss": "fraction of frames lost or corrupted among the last frame_window frames",
+    "max_frame_loss": "fraction of the front end's frames (samples, acknowledgements ...) lost or corrupted among "
+                      "the last frame_window of them",
     "frame_window": "number of frames the loss fraction is taken over (a whole number)",
     "stale_after_s": "seconds of silence from the front end before its data count as stale",
     "lease_s": "heater lease given to the front end, s (at most 1 s; renewed every quarter of it)",
@@ -57,18 +65,53 @@ class Limits:
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
+_FW = "the front end's flashed limit"
+# name: (lowest, highest, unit, why not lower, why not higher). Beyond these a limit defeats itself (a lease
+# too short to renew, data stale for ever, a margin no probe meets) or sits above the firmware's own.
+LIMIT_RANGE: dict[str, tuple[float, float, str, str, str]] = {
+    "max_power_W_per_m": (0.1, FRONT_END_MAX_POWER_W_PER_M, " W/m", "no usable heating", _FW),
+    "power_tolerance": (0.01, 0.5, "", "meter noise alone would trip it", "it would hide a regulator fault"),
+    "max_rise_K": (0.1, 30.0, " K", "no usable heating",
+                   "soil dries and moisture migrates long before (ASTM D5334-14 §1.2)"),
+    "max_probe_C": (-40.0, FRONT_END_MAX_PROBE_C, " °C", "below any ground a probe is pushed into", _FW),
+    "max_heating_s": (1.0, FRONT_END_MAX_ON_S, " s", "no usable heating", _FW),
+    "heater_ohm_tolerance": (0.01, 0.5, "", "the heater's own temperature coefficient would trip it",
+                             "it would miss a short or an open"),
+    "min_supply_V": (FRONT_END_MIN_SUPPLY_V, 30.0, " V", _FW + " is higher", "above any 12 V or 24 V pack"),
+    "max_frame_loss": (0.001, 0.5, "", "one lost frame would trip it", "half the data could be missing"),
+    "frame_window": (5, 1000, " frames", "too few to judge a loss rate", "a burst would be diluted away"),
+    "stale_after_s": (0.1, 10.0, " s", "shorter than the link's own jitter",
+                      "the heater would run blind that long"),
+    "lease_s": (0.2, FRONT_END_MAX_LEASE_S, " s", "renewals every lease/4 would flood the link",
+                "the front end caps its lease there"),
+    "precheck_margin_K": (0.5, 20.0, " K", "a probe at the limit could start heating",
+                          "no probe in warm ground could start"),
+    "heater_on_within_s": (0.2, 10.0, " s", "shorter than one command and its sample",
+                           "an unanswered arm would wait that long"),
+}
+
+
 def limit_problem(name: str, value: object) -> str | None:
     """What a value of limit ``name`` must be, when it is not; None when it is fine."""
     if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
         return "a finite number"
-    if name == "frame_window":
-        return None if isinstance(value, int) and value >= 5 else "a whole number ≥ 5"
-    if value <= 0:
-        return "a number > 0"
-    if name in ("power_tolerance", "heater_ohm_tolerance", "max_frame_loss") and value >= 1:
-        return "a fraction between 0 and 1"
-    if name == "lease_s" and value > FRONT_END_MAX_LEASE_S:
-        return f"at most {FRONT_END_MAX_LEASE_S:g} s (the front end caps its lease there)"
+    lo, hi, unit, why_lo, why_hi = LIMIT_RANGE[name]
+    if name == "frame_window" and not isinstance(value, int):
+        return f"a whole number from {lo:g} to {hi:g}"
+    if value > hi:
+        return f"at most {hi:g}{unit} ({why_hi})"
+    if value < lo:
+        return f"at least {lo:g}{unit} ({why_lo})"
+    return None
+
+
+def plan_power_problem(max_power_W_per_m: float, heater_length_m: float) -> str | None:
+    """The power limit over the whole heater against the front end's total-power limit, or None."""
+    total = max_power_W_per_m * heater_length_m
+    if total > FRONT_END_MAX_POWER_W:
+        return (f"{max_power_W_per_m:g} W/m over the {heater_length_m:g} m heater is {total:.1f} W, above "
+                f"{FRONT_END_MAX_POWER_W:g} W ({_FW}); at most {FRONT_END_MAX_POWER_W / heater_length_m:.4g} W/m "
+                "for this probe")
     return None
 
 
@@ -97,7 +140,8 @@ def check_sample(s: SampleView, lim: Limits, nominal_ohm: float | None) -> str |
     if finite and max(finite) > lim.max_probe_C:
         return f"probe temperature {max(finite):.1f} °C is above the limit {lim.max_probe_C:.1f} °C"
     if s.heater_on and not (s.heating or s.off_pending):
-        return "the front end reports the heater on when it should be off"
+        return ("the front end reports the heater on when it should be off (another program on its port, or a "
+                "front-end fault): heater forced off")
     if s.heater_on:
         if not (math.isfinite(s.power_W_per_m) and (s.heater_ohm is None or math.isfinite(s.heater_ohm))):
             return "the front end's heater voltage or current reading is not a number (sensor fault?)"
@@ -156,9 +200,11 @@ def check_plan(power_W_per_m: float, heat_s: float, lim: Limits) -> list[str]:
 def check_link(lost_in_window: int, frames_in_window: int, silent_for_s: float, lim: Limits) -> str | None:
     if silent_for_s > lim.stale_after_s:
         return f"no data from the front end for {silent_for_s:.1f} s (cable, power or firmware?)"
-    total = lost_in_window + frames_in_window
+    # among the last frame_window frames: until that many have come (a new run, a reconnect) the ones not yet
+    # seen count as received, so two lost acknowledgements in the first second are not a 13 % loss
+    total = max(lost_in_window + frames_in_window, lim.frame_window)
     # one lost frame is tolerated whatever the window; a burst is not
-    if lost_in_window >= 2 and total and lost_in_window / total > lim.max_frame_loss:
+    if lost_in_window >= 2 and lost_in_window / total > lim.max_frame_loss:
         return (f"{lost_in_window} of the last {total} frames were lost or corrupted "
                 f"(limit {lim.max_frame_loss:.0%}; electrical noise or a bad cable?)")
     return None
@@ -170,23 +216,104 @@ def check_arming(armed_for_s: float, confirmed: bool, lim: Limits) -> str | None
     return None
 
 
+CLOCK_STUCK_SAMPLES = 3  # consecutive samples whose device time did not advance (one may be a glitch; no source)
+RESPONSE_AFTER_S = 60.0  # heating after which every sensor on the heater must have warmed (common practice, no source)
+RESPONSE_K_MAX = 10.0
+"""W/(m·K), above any ground a probe meets: quartz, the most conductive common rock-forming mineral, is about 7.7
+(Clauser & Huenges 1995, value from memory), and soils and rocks lie below their minerals."""
+SHORTFALL_SAMPLES = 3  # consecutive samples short of the asked power (the first after arming is a partial period)
+
+
+class DeviceClockWatch:
+    """The front end's sample clock must advance (PROTOCOL.md §4.3: a counter that does not wrap). Stopped, it
+    stops the heating time, the run's plan and its time axis with it: a heating ran three times its plan."""
+
+    def __init__(self) -> None:
+        self._last: float | None = None
+        self._stuck = 0
+
+    def reset(self) -> None:
+        """After a restart of the front end: its clock starts again from zero."""
+        self._last = None
+        self._stuck = 0
+
+    def add(self, device_s: float, period_s: float) -> str | None:
+        """One sample's device time; the reason to trip, or None."""
+        last, self._last = self._last, device_s
+        if last is None:
+            return None
+        step = device_s - last
+        if step < -period_s:
+            return f"the front end's clock went back {-step:.3f} s without a restart (its timing cannot be trusted)"
+        self._stuck = self._stuck + 1 if step < 0.5 * period_s else 0
+        if self._stuck >= CLOCK_STUCK_SAMPLES:
+            return (f"the front end's clock has stopped: device time stayed at {device_s:.3f} s over "
+                    f"{self._stuck + 1} samples (heating time and the run's time axis cannot be trusted)")
+        return None
+
+
+def check_heater_response(rises_K: dict[str, float], heating_s: float, power_W_per_m: float) -> str | None:
+    """Every sensor on the heater must warm. After RESPONSE_AFTER_S of heating at q, a line source in the most
+    conductive ground (RESPONSE_K_MAX) has risen by more than q/(4πk), one unit of ln t of its late-time slope
+    (Carslaw & Jaeger 1959 §10.4), and a probe's own heat capacity and contact only add to it. A sensor that rose
+    less reads something else (shorted at its plug it reads the plug; pulled out, the air), so every
+    temperature limit on it is blind and its k any number."""
+    if heating_s < RESPONSE_AFTER_S or not power_W_per_m > 0:
+        return None
+    need = power_W_per_m / (4.0 * math.pi * RESPONSE_K_MAX)
+    for name, rise in rises_K.items():
+        if math.isfinite(rise) and rise < need:
+            return (f"sensor {name!r} on the heater rose {rise:+.3f} K in {heating_s:.0f} s at {power_W_per_m:.1f} "
+                    f"W/m, less than any ground allows ({need:.3f} K): thermocouple shorted, or not in the probe?")
+    return None
+
+
+class ShortfallWatch:
+    """Delivered power well below the request, held: the run no longer heats at the power it planned (a flat
+    battery, a failing regulator or lead), and with a sagging supply the constant-power premise goes."""
+
+    def __init__(self) -> None:
+        self._short = 0
+
+    def reset(self) -> None:
+        self._short = 0
+
+    def add(self, heating: bool, set_W_per_m: float, measured_W_per_m: float, lim: Limits) -> str | None:
+        if not heating or not set_W_per_m > 0 or not math.isfinite(measured_W_per_m):
+            self._short = 0
+            return None
+        floor = set_W_per_m * (1.0 - lim.power_tolerance)
+        self._short = self._short + 1 if measured_W_per_m < floor else 0
+        if self._short >= SHORTFALL_SAMPLES:
+            short = 1.0 - measured_W_per_m / set_W_per_m
+            return (f"heater delivers {measured_W_per_m:.2f} W/m, {short:.0%} below the {set_W_per_m:.2f} W/m asked "
+                    f"(limit {lim.power_tolerance:.0%}) for {self._short} samples: flat battery, regulator or leads?")
+        return None
+
+
 class FrameLossWindow:
-    """Frames lost or corrupted among the last ``size`` good frames, from the decoder's running totals."""
+    """Frames lost among the last ``size`` frames the front end sent, of every kind (samples, acknowledgements,
+    faults), from the decoder's running totals: PROTOCOL.md §5 counts a sequence step of n as n − 1 lost frames,
+    so a corrupted frame counts once, by the gap it leaves. At 1 Hz the lease's acknowledgements outnumber the
+    samples five to one: counted against samples alone, 3 % of lost frames read as 15 %."""
 
     def __init__(self, size: int) -> None:
-        self._marks: deque[int] = deque(maxlen=size + 1)
+        self.size = size
+        self._marks: deque[tuple[int, int]] = deque()  # (good frames, lost frames) so far, one mark per call
 
     def reset(self) -> None:
         self._marks.clear()
 
-    def add(self, lost_total: int) -> None:
-        """Call once per good frame with the running count of lost + corrupted frames."""
-        self._marks.append(lost_total)
+    def add(self, good_total: int, lost_total: int) -> None:
+        """Call with the decoder's running counts (any time; once per sample is enough)."""
+        self._marks.append((good_total, lost_total))
+        while len(self._marks) > 2 and good_total - self._marks[1][0] >= self.size:
+            self._marks.popleft()  # the window still holds at least ``size`` frames without the oldest mark
 
     @property
     def lost(self) -> int:
-        return self._marks[-1] - self._marks[0] if len(self._marks) > 1 else 0
+        return self._marks[-1][1] - self._marks[0][1] if len(self._marks) > 1 else 0
 
     @property
     def frames(self) -> int:
-        return max(len(self._marks) - 1, 0)
+        return self._marks[-1][0] - self._marks[0][0] if len(self._marks) > 1 else 0

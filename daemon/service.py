@@ -24,9 +24,12 @@ import logging
 import math
 import os
 import time
+from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
+
+import numpy as np
 
 from linerig.daemon import sdnotify
 from linerig.daemon.api import Hub, Peer
@@ -40,10 +43,13 @@ from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
 from linerig.daemon.rig.transport import SerialTransport
 from linerig.daemon.run_keeper import RunKeeper
 from linerig.daemon.safety import (
+    DeviceClockWatch,
     FrameLossWindow,
     Limits,
     SampleView,
+    ShortfallWatch,
     check_arming,
+    check_heater_response,
     check_link,
     check_precheck,
     check_sample,
@@ -53,6 +59,8 @@ from linerig.daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
 log = logging.getLogger("linerigd")
 
 WATCH_PERIOD_S = 0.1
+PRE_HEAT_SAMPLES = 10  # readings averaged for each sensor's level at heater on (the response check's zero)
+FORCE_OFF_HOLD_S = 10.0  # OFF is repeated this long after a heater-on nobody here asked for (no source)
 
 
 @dataclass
@@ -82,7 +90,8 @@ class RigService:
         self.frontend = FrontEnd(self.transport, FrontEndHandlers(
             on_sample=self._on_sample, on_boot=self._on_boot, on_fault=self._on_fault,
             on_link_lost=self._on_link_lost, on_bad_message=lambda why: log.debug("bad message: %s", why),
-            on_heater_switch=self._on_heater_switch))
+            on_heater_switch=self._on_heater_switch, on_foreign_ack=self._on_foreign_ack,
+            on_renewal=self._on_renewal))
         self.runs = RunKeeper(self)  # the current run and series
         self.link_up = False
         self.armed_power: float | None = None
@@ -90,6 +99,7 @@ class RigService:
         self._heater_confirmed = False
         self._last_power_set = 0.0
         self._off_pending_until: float | None = None
+        self._force_off_until: float | None = None  # OFF every lease period until then (a heater nobody armed)
         self._arm_task: asyncio.Task[None] | None = None
         self._last_lease_ack = 0.0
         self._off_sent = -1.0
@@ -102,6 +112,10 @@ class RigService:
         self._last_ms: int | None = None
         self._n = 0
         self._loss = FrameLossWindow(settings.limits.frame_window)
+        self._clock = DeviceClockWatch()
+        self._shortfall = ShortfallWatch()
+        self._pre_heat: deque[tuple[float, ...]] = deque(maxlen=PRE_HEAT_SAMPLES)  # the last readings before heating
+        self._heat_ref: tuple[float, ...] | None = None  # each sensor's level when heating began
         self._tasks: list[asyncio.Task[Any]] = []
         self._background: set[asyncio.Task[Any]] = set()
         self.stopping = False
@@ -291,6 +305,9 @@ class RigService:
                 self.transport.open()
             except RigError as exc:
                 self._note_link(False, str(exc))
+                if str(exc) != self._link_note:
+                    log.warning("%s", exc)
+                    self._link_note = str(exc)
                 await asyncio.sleep(0.5)
                 continue
             reader = asyncio.create_task(self.frontend.read_forever())
@@ -322,6 +339,7 @@ class RigService:
                                       self.s.probe.length_m or 0.1)
         self.last_sample_wall = time.monotonic()
         self._loss.reset()
+        self._clock.reset()
 
     def _note_link(self, up: bool, why: str) -> None:
         if up == self.link_up:
@@ -340,6 +358,7 @@ class RigService:
     def _on_boot(self, boot: m.Boot) -> None:
         self._last_ms = None
         self._loss.reset()
+        self._clock.reset()
         why = f"front end restarted (boot id {boot.boot_id}, cause {boot.reset_cause})"
         run = self.run
         if (run is not None and run.active) or self.armed_power is not None:
@@ -361,6 +380,27 @@ class RigService:
             self.trip(why)
         else:
             self.record_event(None, "device", None, why)
+
+    def _on_foreign_ack(self, ack: m.Ack) -> None:
+        """Someone else's command was answered: whoever else writes to the front end can switch its heater on."""
+        if not self.link_up:  # bytes left over from before this daemon opened the port
+            log.debug("acknowledgement of command %s before the link came up: ignored", ack.cmd_seq)
+            return
+        self.force_off(f"the front end acknowledged command {ack.cmd_seq}, which this daemon did not send: another "
+                       f"program is writing to {self.s.frontend_url}; heater forced off")
+
+    def _on_renewal(self, sent: float, ack: m.Ack) -> None:
+        """An answered renewal: the device extended its lease after ``sent`` (or says its heater is already off)."""
+        if ack.ok:
+            self._last_lease_ack = max(self._last_lease_ack, sent)
+        elif ack.detail == "NOTARMED" and self.armed_power is not None and self._heater_confirmed \
+                and sent > self._last_arm:
+            self.trip("the front end's lease had run out (it answered a renewal NOTARMED): heater off")
+
+    def force_off(self, reason: str) -> None:
+        """Trip, then keep sending OFF every lease period for FORCE_OFF_HOLD_S (extended while it goes on)."""
+        self._force_off_until = time.monotonic() + FORCE_OFF_HOLD_S
+        self.trip(reason)
 
     # -- samples ------------------------------------------------------------
     def _on_heater_switch(self, kind: str, device_ms: int) -> None:
@@ -391,7 +431,7 @@ class RigService:
         self.last_sample_wall = now
         self.samples_seen += 1
         c = self.frontend.decoder.counters
-        self._loss.add(c.bad_frames + c.lost_frames)
+        self._loss.add(c.frames, c.lost_frames)
         self.device_s = self._device_seconds(s.device_ms)
         probe = self.s.probe
         temps = tuple(float("nan") if ch.fault else ch.value for ch in s.channels)
@@ -438,8 +478,15 @@ class RigService:
                           rise_K=rise, heating_elapsed_s=run.heating_elapsed_s(self.device_s) if run else 0.0,
                           run_active=active and run is not None and run.state != RunState.CHECKING,
                           off_pending=self._off_pending_until is not None)
-        reason = check_sample(view, self.s.limits, probe.heater_resistance_ohm)
-        if reason and (active or heater_on or self.armed_power is not None):
+        # the watches keep state: each sees every sample, whatever trips first
+        clock = self._clock.add(self.device_s, 1.0 / self.s.rate_hz)
+        response = self._heater_response(run, temps, power)
+        shortfall = self._shortfall.add(self.armed_power is not None and self._heater_confirmed and heater_on,
+                                        self.armed_power or 0.0, power, self.s.limits)
+        reason = check_sample(view, self.s.limits, probe.heater_resistance_ohm) or clock or response or shortfall
+        if reason and heater_on and self.armed_power is None and self._off_pending_until is None:
+            self.force_off(reason)  # a heater nobody here armed
+        elif reason and (active or heater_on or self.armed_power is not None):
             self.trip(reason)
         if active and run is not None and run.active:
             if run.state == RunState.CHECKING:
@@ -457,12 +504,37 @@ class RigService:
             self.hub.publish({"event": "sample", "run_id": run.run_id if active and run else None,
                               "phase": str(run.state) if active and run else None, "t_s": t, **self.last_sample})
 
+    def _heater_response(self, run: RunController | None, temps: tuple[float, ...], power: float) -> str | None:
+        """Whether each sensor on the heater has warmed since heating began (``check_heater_response``)."""
+        if run is None or not run.active:
+            self._heat_ref = None
+            self._pre_heat.clear()
+            return None
+        if not run.heating or not self._heater_confirmed:
+            self._heat_ref = None
+            self._pre_heat.append(temps)  # this run's own baseline
+            return None
+        if self._heat_ref is None:
+            if not self._pre_heat:
+                return None
+            with np.errstate(all="ignore"):
+                self._heat_ref = tuple(float(v) for v in np.nanmean(np.array(self._pre_heat, dtype=float), axis=0))
+            self._pre_heat.clear()
+        ref = self._heat_ref
+        rises = {self._sensor_names[i]: temps[i] - ref[i] for i in self._heater_idx if i < len(temps) and i < len(ref)}
+        return check_heater_response(rises, run.heating_elapsed_s(self.device_s), power)
+
     # -- periodic tasks -----------------------------------------------------
     async def _lease_loop(self) -> None:
         lease = self.s.limits.lease_s
         period = lease / 4
         while True:
             await asyncio.sleep(period)
+            if self._force_off_until is not None and self.armed_power is None and self.link_up:
+                if time.monotonic() < self._force_off_until:
+                    await self.frontend.heater_off_best_effort()
+                else:
+                    self._force_off_until = None
             if self.armed_power is None or not self.link_up:
                 continue
             sent = time.monotonic()
@@ -477,11 +549,11 @@ class RigService:
                     continue
                 self._last_lease_ack = max(self._last_lease_ack, sent)
                 continue
-            with contextlib.suppress(RigError, TimeoutError, OSError):
-                # a lost ack must not hold up the next renewal for long; the device extended the lease when
-                # the frame arrived, which was after ``sent``: that is what an ack proves
-                await asyncio.wait_for(self.frontend.renew_lease(lease), lease / 2)
-                self._last_lease_ack = max(self._last_lease_ack, sent)
+            with contextlib.suppress(RigError, OSError):
+                # PROTOCOL.md §6: a renewal every period whatever became of the last one, so that the lease
+                # survives lost renewals, lost answers and slow ones; the watch trips only when no renewal sent
+                # within a whole lease was acknowledged (``_on_renewal``)
+                await self.frontend.send_renewal(lease)
 
     def _check_timers(self, now: float) -> str | None:
         lim = self.s.limits
@@ -557,6 +629,7 @@ class RigService:
         run = self.run
         return {
             "link_up": self.link_up,
+            "link_problem": None if self.link_up else self._link_note,
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
             "heater_armed": self.armed_power is not None,
             "heat_source": "scpi" if self.supply is not None else "frontend",

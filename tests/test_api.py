@@ -21,6 +21,8 @@ from linerig.daemon.api import (
     MAX_CLIENTS,
     MAX_LINE,
     QUEUE_DEPTH,
+    RESERVED_CLIENTS,
+    RESERVED_REQUESTS,
     ApiServer,
     Hub,
     Outbox,
@@ -74,8 +76,13 @@ class Server:
         async def subscribe(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
             return {"_subscribe": True}
 
-        self.api = ApiServer(path, {"count": count, "refuse": refuse, "buggy": buggy, "subscribe": subscribe},
-                             self.hub)
+        async def abort(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
+            self.aborted = True
+            return {}
+
+        self.aborted = False
+        self.api = ApiServer(path, {"count": count, "refuse": refuse, "buggy": buggy, "subscribe": subscribe,
+                                    "abort": abort}, self.hub)
 
 
 async def exchange(path: Path, payload: bytes, replies: int = 1) -> list[dict[str, Any]]:
@@ -98,7 +105,7 @@ async def test_hostile_input_gets_error_replies_and_the_connection_stays_usable(
             (b"[" * 50000 + b"\n", "not a JSON request"),  # nesting deep enough to exhaust the parser's stack
             (b'["op", "count"]\n', 'a JSON object with a string "op"'),
             (b'{"op": 5}\n', 'a JSON object with a string "op"'),
-            (b'{"op": "launch"}\n', "unknown op 'launch'; known: buggy, count, refuse, subscribe"),
+            (b'{"op": "launch"}\n', "unknown op 'launch'; known: abort, buggy, count, refuse, subscribe"),
             (b'{"op": "refuse", "id": 3}\n', "not now"),
             (b'{"op": "buggy", "id": {"x": 1}}\n', "internal error: ZeroDivisionError"),
             (b"x" * (MAX_LINE + 10) + b"\n", f"request longer than {MAX_LINE} bytes"),
@@ -140,13 +147,31 @@ async def test_too_many_clients_are_turned_away_and_slow_subscribers_lose_old_ev
             await w.drain()
             assert json.loads(await asyncio.wait_for(r.readline(), 5))["ok"]
             conns.append((r, w))
+        # past the limit a few reserved connections may still abort or stop the heating, one request each
+        reserved = []
+        for _ in range(RESERVED_CLIENTS):
+            r, w = await asyncio.open_unix_connection(str(srv.api.path))
+            notice = json.loads(await asyncio.wait_for(r.readline(), 5))
+            assert not notice["ok"] and "serves abort, stop_heating and status only" in notice["error"]
+            reserved.append((r, w))
         r, w = await asyncio.open_unix_connection(str(srv.api.path))
         refused = json.loads(await asyncio.wait_for(r.readline(), 5))
         assert not refused["ok"] and "too many clients" in refused["error"]
         assert await asyncio.wait_for(r.read(), 5) == b""  # and closed
-        for _, cw in conns:
+        r, w = reserved[0]
+        w.write(b'{"op":"count","id":1}\n' * RESERVED_REQUESTS)
+        await w.drain()
+        for _ in range(RESERVED_REQUESTS):
+            assert "only abort, ping, status, stop_heating are served" in json.loads(
+                await asyncio.wait_for(r.readline(), 5))["error"]
+        assert await asyncio.wait_for(r.read(), 5) == b""  # a few requests, then closed
+        r, w = reserved[1]
+        w.write(b'{"op":"abort","id":2}\n')
+        await w.drain()
+        assert json.loads(await asyncio.wait_for(r.readline(), 5)) == {"id": 2, "ok": True} and srv.aborted
+        for _, cw in conns + reserved:
             cw.close()
-        await wait_async(lambda: srv.api.clients == 0)
+        await wait_async(lambda: srv.api.clients == 0 and srv.api.reserved == 0)
         # a subscriber that never reads: publishing stays instant, its queue is capped
         r, w = await asyncio.open_unix_connection(str(srv.api.path))
         w.write(b'{"op":"subscribe"}\n')
@@ -329,3 +354,39 @@ def test_a_client_gets_a_runs_samples_and_its_probe_profile(tmp_path: Path) -> N
     active = probes["active"]["serial"]
     row = next(p for p in probes["probes"] if p["serial"] == active)
     assert stored_profile(row["profile_toml"], "stored").serial == active
+
+
+def test_a_reply_sent_in_pieces_is_the_same_line() -> None:
+    from linerig.daemon.jsonlines import encode, iter_encode
+
+    obj = {"id": 3, "ok": True, "run_id": 7,
+           "samples": {"t": [i / 3 for i in range(10_000)], "x": [float("nan"), 1.5, None] * 3000,
+                       "phase": ["heating"] * 5000, "empty": [], "nested": {"a": [1, 2]}}}
+    pieces = list(iter_encode(obj))
+    assert len(pieces) > 3 and b"".join(pieces) == encode(obj)
+    assert json.loads(b"".join(pieces))["samples"]["x"][:3] == [None, 1.5, None]  # NaN is null, as in one line
+
+
+async def test_a_client_that_asks_nothing_is_closed_but_a_quiet_subscriber_is_not(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from linerig.daemon import api
+
+    monkeypatch.setattr(api, "IDLE_TIMEOUT_S", 0.3)
+    srv = Server(tmp_path / "api.sock")
+    await srv.api.start()
+    try:
+        r, w = await asyncio.open_unix_connection(str(srv.api.path))
+        assert await asyncio.wait_for(r.read(), 10) == b""  # closed for saying nothing
+        assert srv.api.dropped == 1
+        r, w = await asyncio.open_unix_connection(str(srv.api.path))
+        w.write(b'{"op":"subscribe","id":1}\n')
+        await w.drain()
+        await asyncio.wait_for(r.readline(), 5)
+        # an idle client that came after it is closed: the subscriber has been quiet as long, and stays
+        r2, _ = await asyncio.open_unix_connection(str(srv.api.path))
+        assert await asyncio.wait_for(r2.read(), 10) == b""
+        srv.hub.publish({"event": "state", "state": "heating"})
+        assert json.loads(await asyncio.wait_for(r.readline(), 5))["state"] == "heating"
+        w.close()
+    finally:
+        await srv.api.close()

@@ -80,10 +80,18 @@ def test_key_line_finds_tables_dotted_and_quoted_keys() -> None:
 
 
 @pytest.mark.parametrize(("old", "new", "line", "words"), [
-    ("max_rise_K = 8.5", "max_rise_K = -1", 18, "limits.max_rise_K: expected a number > 0"),
+    ("max_rise_K = 8.5", "max_rise_K = -1", 18, "limits.max_rise_K: expected at least 0.1 K"),
     ("max_rise_K = 8.5", 'max_rise_K = "hot"', 18, "expected a finite number"),
     ("lease_s = 0.5", "lease_s = 2", 19, "at most 1 s"),
     ("max_rise_K = 8.5", "max_rise = 8.5", 18, "limits.max_rise: unknown key; expected one of:"),
+    # limits that defeat themselves, or sit above the front end's flashed ones (hardware/firmware/probefw/limits.py)
+    ("lease_s = 0.5", "lease_s = 0.001", 19, "limits.lease_s: expected at least 0.2 s"),
+    ("lease_s = 0.5", "stale_after_s = 1e9", 19, "limits.stale_after_s: expected at most 10 s"),
+    ("lease_s = 0.5", "max_heating_s = 1e12", 19, "expected at most 3600 s (the front end's flashed limit)"),
+    ("lease_s = 0.5", "max_probe_C = 500", 19, "expected at most 95 °C (the front end's flashed limit)"),
+    ("lease_s = 0.5", "precheck_margin_K = 1000", 19, "limits.precheck_margin_K: expected at most 20 K"),
+    ("lease_s = 0.5", "min_supply_V = 5", 19, "limits.min_supply_V: expected at least 9 V"),
+    ("lease_s = 0.5", "frame_window = 1e6", 19, "limits.frame_window: expected a whole number from 5 to 1000"),
     ("heat_s = 900", "heat_s = 0", 22, "run.heat_s: expected a number > 0"),
     ("heat_s = 900", "heat_s = 4000", 22, "run.heat_s: heating time 4000 s is above the limit 3600 s"),
     ("auto_stop = true", 'auto_stop = "yes"', 27, "presets.quick.auto_stop: expected true or false"),
@@ -101,6 +109,35 @@ def test_errors_name_file_key_line_and_what_is_expected(old: str, new: str, line
     msg = str(e.value)
     assert msg.startswith(f"/etc/linerig/rig.toml line {line}: "), msg
     assert words in msg, msg
+
+
+def test_the_power_limit_over_the_whole_heater_stays_under_the_front_ends() -> None:
+    rod = ROOT / "hardware" / "probes" / "field-rod.toml"
+    text = f'[probes]\nprofiles = ["{rod}"]\n[limits]\nmax_power_W_per_m = 50\n'
+    with pytest.raises(ConfigError, match=r"line 4: limits.max_power_W_per_m: 50 W/m over the 1 m heater is 50.0 W, "
+                                          r"above 45 W \(the front end's flashed limit\)"):
+        parse_config(text, "rig.toml")
+    parse_config(text.replace("= 50", "= 40"), "rig.toml")
+
+
+def test_a_config_that_is_not_utf8_is_one_line_naming_file_and_line(tmp_path: Path) -> None:
+    bad = tmp_path / "rig.toml"
+    bad.write_bytes(b"[limits]\n# max \xb0C\nmax_rise_K = 8\n")  # a Latin-1 degree sign
+    with pytest.raises(ConfigError, match=r"rig.toml line 2: byte 0xB0 is not UTF-8 text"):
+        load_config(bad)
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--config", str(bad), "--check-config"],
+                          capture_output=True, text=True, timeout=30, cwd=ROOT)
+    assert done.returncode == 2 and done.stderr.count("\n") == 1 and "Traceback" not in done.stderr, done.stderr
+
+
+def test_an_unknown_group_on_the_command_line_is_one_line(tmp_path: Path) -> None:
+    done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--frontend", "/dev/null", "--group",
+                           "no-such-group-here", "--socket", str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")],
+                          capture_output=True, text=True, timeout=30, cwd=ROOT)
+    assert done.returncode == 2 and "Traceback" not in done.stderr, done.stderr
+    assert done.stderr.strip().splitlines() == ["linerigd: --group no-such-group-here: no such group on this machine; "
+                                                "create it (see systemd/README.md) or leave --group out"]
+    assert not (tmp_path / "r.db").exists()
 
 
 def test_a_plan_sensor_must_be_on_the_probe() -> None:
@@ -140,7 +177,7 @@ def test_check_config_command_and_exit_code_2_on_a_bad_file(tmp_path: Path) -> N
     done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--config", str(good), "--check-config"],
                           capture_output=True, text=True, timeout=30, cwd=ROOT)
     assert done.returncode == 2
-    assert f"ConfigError: {good} line 18: limits.max_rise_K: expected a number > 0" in done.stderr
+    assert f"ConfigError: {good} line 18: limits.max_rise_K: expected at least 0.1 K" in done.stderr
 
 
 def test_without_config_or_front_end_the_daemon_says_what_to_do(tmp_path: Path) -> None:

@@ -276,6 +276,34 @@ def test_safe_off_turns_a_held_heater_off_by_command(tmp_path: Path) -> None:
     assert done.returncode == 1 and "cannot open" in done.stderr
 
 
+def test_safe_off_reaches_the_front_end_even_when_the_configuration_is_wrong(tmp_path: Path) -> None:
+    """ExecStopPost runs `linerigd --safe-off --config ...`: a wrong limit, broken TOML or a stray byte elsewhere in
+    the file must not stop it from switching the heater off (they ended it with exit 2 before)."""
+    sim = Sim(tmp_path, speed=10)
+    host = HostPort(sim.frontend)
+    devices = f'[devices]\nfrontend = "{sim.frontend}"\n'
+    bad = {"a limit out of range": (devices + "[limits]\nlease_s = 0.001\n").encode(),
+           "broken TOML": (devices + "[limits]\nmax_rise_K = = 3\n").encode(),
+           "not UTF-8": devices.encode() + b"[run]\n# 5 \xb0C\nheat_s = 60\n"}
+    try:
+        host.send(m.CMD_CONFIGURE, "1", "T", "T", "100.0")
+        for name, text in bad.items():
+            host.send(m.CMD_POWER, "5.0", "1000")
+            wait_for(lambda: sim.state()["heater_on"], 5, "the test's own heater-on")
+            config = tmp_path / "rig.toml"
+            config.write_bytes(text)
+            with host.holding():  # only a command can end it
+                done = subprocess.run([sys.executable, "-m", "linerig.daemon.main", "--safe-off", "--config",
+                                       str(config)], capture_output=True, text=True, cwd=ROOT, timeout=30)
+            assert done.returncode == 0, (name, done.stderr)
+            assert "ConfigError" in done.stderr and "heater off acknowledged" in done.stderr, (name, done.stderr)
+            off = sim.heater_events()[-1]
+            assert (off["heater_on"], off["reason"]) == (False, "host command"), name
+    finally:
+        host.close()
+        sim.stop()
+
+
 def test_a_new_daemon_turns_off_a_heater_it_finds_on(tmp_path: Path) -> None:
     sim = Sim(tmp_path, speed=10)
     host = HostPort(sim.frontend)
@@ -318,6 +346,42 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
     finally:
         proc.terminate()
         assert proc.wait(15) == 0
+
+
+def _simulate(tmp_path: Path, env: dict[str, str]) -> subprocess.Popen[str]:
+    proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--speed", "50", "--socket",
+                             str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")], stdout=subprocess.PIPE,
+                            stderr=subprocess.DEVNULL, text=True, cwd=ROOT, env=env)
+    assert proc.stdout is not None and json.loads(proc.stdout.readline())["ready"]
+    return proc
+
+
+def test_simulate_leaves_no_temporary_folder_behind(tmp_path: Path) -> None:
+    """Each `--simulate` used to leave a /tmp/linerig-sim-* folder (its pty links and control socket)."""
+    import os
+
+    tmp = tmp_path / "tmp"
+    tmp.mkdir()
+    env = {**os.environ, "TMPDIR": str(tmp)}
+    proc = _simulate(tmp_path, env)
+    assert [p.name.startswith("linerig-sim-") for p in tmp.iterdir()] == [True]  # while it runs, it is there
+    proc.terminate()
+    assert proc.wait(15) == 0
+    assert list(tmp.iterdir()) == []
+    # the simulator on its own, stopped as a service manager stops it
+    sim = subprocess.Popen([sys.executable, "-m", "linerig.daemon.sim.main", "--speed", "50"], stdout=subprocess.PIPE,
+                           text=True, cwd=ROOT, env=env)
+    assert sim.stdout is not None and json.loads(sim.stdout.readline())["frontend"]
+    sim.terminate()
+    assert sim.wait(15) == 0 and list(tmp.iterdir()) == []
+    # a simulator killed outright cannot tidy up: the daemon that started it does
+    proc = _simulate(tmp_path, env)
+    children = Path(f"/proc/{proc.pid}/task/{proc.pid}/children").read_text().split()
+    assert len(children) == 1
+    os.kill(int(children[0]), signal.SIGKILL)
+    proc.terminate()
+    proc.wait(15)
+    assert list(tmp.iterdir()) == []
 
 
 def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) -> None:

@@ -8,10 +8,14 @@ from dataclasses import replace
 import pytest
 
 from linerig.daemon.safety import (
+    LIMIT_RANGE,
+    DeviceClockWatch,
     FrameLossWindow,
     Limits,
     SampleView,
+    ShortfallWatch,
     check_arming,
+    check_heater_response,
     check_link,
     check_plan,
     check_precheck,
@@ -97,13 +101,13 @@ def test_stale_data_and_frame_loss() -> None:
 
 def test_frame_loss_window_counts_losses_among_the_last_frames() -> None:
     w = FrameLossWindow(10)
-    for _ in range(20):
-        w.add(0)
+    for i in range(1, 21):
+        w.add(i, 0)  # one good frame at a time
     assert (w.lost, w.frames) == (0, 10)
-    w.add(3)  # three frames lost before this good one
+    w.add(21, 3)  # three frames lost before this good one
     assert (w.lost, w.frames) == (3, 10)
-    for _ in range(10):
-        w.add(3)
+    for i in range(22, 32):
+        w.add(i, 3)
     assert w.lost == 0  # the burst has left the window
     w.reset()
     assert (w.lost, w.frames) == (0, 0)
@@ -111,9 +115,71 @@ def test_frame_loss_window_counts_losses_among_the_last_frames() -> None:
 
 def test_limits_refuse_nonsense() -> None:
     assert limit_problem("max_rise_K", True) == "a finite number"
-    assert limit_problem("max_rise_K", -1) == "a number > 0"
-    assert limit_problem("frame_window", 2.5) == "a whole number ≥ 5"
+    assert limit_problem("max_rise_K", -1) == "at least 0.1 K (no usable heating)"
+    assert limit_problem("frame_window", 2.5) == "a whole number from 5 to 1000"
     assert "at most 1 s" in (limit_problem("lease_s", 1.5) or "")
-    assert "fraction" in (limit_problem("max_frame_loss", 1.0) or "")
+    assert "at most 0.5" in (limit_problem("max_frame_loss", 1.0) or "")
+    for name, default in Limits().to_dict().items():  # every limit has a range, and its default is inside it
+        assert name in LIMIT_RANGE and limit_problem(name, default) is None, name
     with pytest.raises(ValueError, match="max_probe_C"):
         Limits(max_probe_C=math.inf)
+
+
+def test_the_daemons_copies_of_the_flashed_limits_are_the_firmwares() -> None:
+    """The daemon refuses limits above the front end's own; its copies must be the firmware's values."""
+    import importlib.util
+
+    from linerig.daemon import safety
+    from linerig.daemon.sim.firmware_host import FIRMWARE_DIR
+
+    spec = importlib.util.spec_from_file_location("probefw_limits", FIRMWARE_DIR / "probefw" / "limits.py")
+    assert spec is not None and spec.loader is not None
+    fw = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(fw)
+    assert safety.FRONT_END_MAX_LEASE_S == fw.LEASE_MAX_MS / 1000
+    assert safety.FRONT_END_MAX_PROBE_C == fw.T_PROBE_MAX_C
+    assert safety.FRONT_END_MAX_POWER_W_PER_M == fw.POWER_MAX_W_PER_M
+    assert safety.FRONT_END_MAX_POWER_W == fw.POWER_MAX_W
+    assert safety.FRONT_END_MAX_ON_S == fw.ON_TIME_MAX_MS / 1000
+    assert safety.FRONT_END_MIN_SUPPLY_V == fw.SUPPLY_MIN_V
+
+
+def test_a_front_end_clock_that_stops_or_goes_back_is_named() -> None:
+    w = DeviceClockWatch()
+    for t in range(10):
+        assert w.add(float(t), 1.0) is None
+    assert w.add(10.0, 1.0) is None and w.add(13.0, 1.0) is None  # lost samples: a longer step, not a fault
+    assert w.add(13.0, 1.0) is None and w.add(13.0, 1.0) is None  # two stuck samples may be a glitch
+    assert "clock has stopped" in (w.add(13.0, 1.0) or "")
+    w.reset()
+    w.add(100.0, 1.0)
+    assert "went back" in (w.add(50.0, 1.0) or "")
+
+
+def test_a_sensor_on_the_heater_must_warm_as_any_ground_would() -> None:
+    """The bar is the late-time slope in the most conductive ground, q/(4πk) per unit of ln t with k = 10. The
+    line source itself (Carslaw & Jaeger 1959 §10.4, scipy's E1) for a 0.635 mm needle after 60 s at 5 W/m, in
+    ground from k = 0.25 (dry clay) to 10 with ρc 1.3–4 MJ/(m³·K), always rises well past it."""
+    from scipy.special import exp1
+
+    q, t, r = 5.0, 60.0, 0.635e-3
+    need = q / (4 * math.pi * 10.0)
+    for k in (0.25, 1.5, 3.0, 10.0):
+        for rho_c in (1.3e6, 4.0e6):
+            rise = q / (4 * math.pi * k) * float(exp1(r**2 * rho_c / (4 * k * t)))
+            assert rise > 2 * need
+            assert check_heater_response({"heater": rise}, t, q) is None
+    assert check_heater_response({"heater": 0.01}, 59.0, q) is None  # too early to judge
+    reason = check_heater_response({"heater": 0.01}, t, q) or ""
+    assert "thermocouple shorted" in reason and "'heater'" in reason
+    assert check_heater_response({"heater": math.nan}, t, q) is None  # a faulted channel is the fault bit's job
+
+
+def test_delivered_power_held_below_the_request_is_named() -> None:
+    w = ShortfallWatch()
+    assert w.add(True, 10.0, 6.8, LIM) is None and w.add(True, 10.0, 6.8, LIM) is None  # the first may be partial
+    assert "32% below the 10.00 W/m asked" in (w.add(True, 10.0, 6.8, LIM) or "")
+    w.reset()
+    for _ in range(10):
+        assert w.add(True, 10.0, 8.6, LIM) is None  # 14 %: inside power_tolerance
+    assert w.add(False, 10.0, 0.0, LIM) is None

@@ -109,11 +109,11 @@ def test_reachable_power_is_held_until_the_battery_runs_low() -> None:
     rig.inject("battery_low")
     run(rig, 10)
     low = rig.sample()
-    # at full duty: V_oc²R/(R + R_int)² with V_oc at the cut-off (Ohm's law)
+    # at full duty: V_oc²R/(R + R_int)² with V_oc past the knee, at 10.2 V (Ohm's law)
     r_int = BatterySpec().internal_resistance_ohm
-    assert low.delivered_W_per_m == pytest.approx(10 * 11.6**2 * 40.0 / (40.0 + r_int) ** 2, rel=1e-6)
+    assert low.delivered_W_per_m == pytest.approx(10 * 10.2**2 * 40.0 / (40.0 + r_int) ** 2, rel=1e-6)
     assert low.delivered_W_per_m < 35.0
-    assert low.supply_V < 11.6
+    assert low.supply_V < 10.5  # below a 12 V pack's usual cut-off, so the daemon's default limit can see it
     rig.inject("battery_low", on=False)
     run(rig, 1)
     assert rig.sample().delivered_W_per_m == pytest.approx(35.0)

@@ -19,7 +19,14 @@ import pytest
 from scipy.special import exp1
 
 from linerig.daemon.reduction.data import RunData
-from linerig.daemon.safety import Limits, SampleView, check_sample
+from linerig.daemon.safety import (
+    DeviceClockWatch,
+    Limits,
+    SampleView,
+    ShortfallWatch,
+    check_heater_response,
+    check_sample,
+)
 from linerig.tui.screens.history import filter_runs, trace_from_data
 from linerig.tui.screens.live_state import LiveState, RunTrace
 from linerig.tui.screens.rereduce import export_run, rereduce, run_data_from_arrays
@@ -218,6 +225,16 @@ def test_advice_for_the_daemons_own_trip_reasons() -> None:
     assert hot is not None and "less power" in fault_advice(hot)
     assert open_tc is not None and "thermocouple" in fault_advice(open_tc)
     assert "History" in fault_advice("something nobody planned for")
+    stray = check_sample(SampleView(**{**base, "heating": False}), lim, 40.0)
+    assert stray is not None and "Something else is writing" in fault_advice(stray)
+    clock = DeviceClockWatch()
+    stuck = [clock.add(3.0, 1.0) for _ in range(5)][-1]
+    assert stuck is not None and "clock" in fault_advice(stuck)
+    short = ShortfallWatch()
+    weak = [short.add(True, 10.0, 6.0, lim) for _ in range(3)][-1]
+    assert weak is not None and "less power than asked" in fault_advice(weak)
+    shorted = check_heater_response({"heater": 0.0}, 60.0, 5.0)
+    assert shorted is not None and "thermocouple" in fault_advice(shorted)
     assert flag_words(["window_short", "odd_flag"]) == ["fit window still short", "odd flag"]
 
 

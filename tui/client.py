@@ -8,7 +8,7 @@ from collections.abc import AsyncIterator
 from pathlib import Path
 from typing import Any
 
-from linerig.daemon.paths import default_socket_path
+from linerig.daemon.paths import default_socket_path, socket_folder_problem
 
 
 class DaemonError(RuntimeError):
@@ -26,6 +26,9 @@ class Client:
         self._pump: asyncio.Task[None] | None = None
 
     async def connect(self) -> Client:
+        problem = socket_folder_problem(self.path, serving=False)
+        if problem:
+            raise DaemonError(f"not connecting to {self.path}: {problem}")
         try:
             # a day of samples at 8 channels is one reply line of about 10 MB
             self._reader, self._writer = await asyncio.open_unix_connection(str(self.path), limit=1 << 26)

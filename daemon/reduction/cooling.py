@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .data import contiguous
 from .stats import ar1_inflation, fit_line, lag1_autocorrelation
 
 RECOVERY_TOLS = (0.01, 0.02, 0.03, 0.05)  # predicted error allowed in the window, tried in turn (no source)
@@ -155,31 +156,55 @@ def fit_recovery(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, t0
 def fit_joint(t: np.ndarray, dT: np.ndarray, X: np.ndarray, Q: np.ndarray, heat_window: tuple[float, float],
               cool_window: tuple[float, float], drift_rate_u_K_per_s: float = 0.0, *, free_offset: bool = False,
               level_u_K: float = 0.0, window_u_rel: float = 0.0) -> CoolingFit:
-    """ΔT = X/(4πk) + b·Q (+ c in the recovery with ``free_offset``) over both windows together (one k)."""
-    heat = (t >= heat_window[0]) & (t <= heat_window[1]) & (Q > 0)
-    cool = (t >= cool_window[0]) & (t <= cool_window[1]) & (Q == 0)
-    sel = heat | cool
-    if np.count_nonzero(heat) < 3 or np.count_nonzero(cool) < 3:
+    """ΔT = X/(4πk) + b·Q (+ c in the recovery with ``free_offset``) over both windows together (one k).
+
+    Solved by the normal equations summed over the two windows, each taken as a view where it is contiguous: a
+    long record never holds a design matrix or copies of its columns.
+    """
+    parts = [(contiguous((t >= heat_window[0]) & (t <= heat_window[1]) & (Q > 0)), 0.0),
+             (contiguous((t >= cool_window[0]) & (t <= cool_window[1]) & (Q == 0)), 1.0)]
+    if any(t[sel].size < 3 for sel, _ in parts):
         raise ValueError("too few samples for a joint heating and recovery fit")
-    cols = [X[sel], Q[sel]] + ([cool[sel].astype(float)] if free_offset else [])
-    A = np.column_stack(cols)
-    coef, *_ = np.linalg.lstsq(A, dT[sel], rcond=None)
-    resid = dT[sel] - A @ coef
-    n = resid.size
-    s2 = float(resid @ resid) / (n - A.shape[1])
-    rho = lag1_autocorrelation(resid)
-    AtA_inv = np.linalg.inv(A.T @ A)
-    pinv_row = (AtA_inv @ A.T)[0]
-    cov = AtA_inv * s2 * ar1_inflation(rho)
+    p = 3 if free_offset else 2
+    ata = np.zeros((3, 3))
+    atb = np.zeros(3)
+    sums = np.zeros(3)  # Σ of each column, and Σ column·t, for the baseline's level and slope errors
+    tdot = np.zeros(3)
+    for sel, off in parts:
+        x, q, y, ts = X[sel], Q[sel], dT[sel], t[sel]
+        cols = (x, q)
+        for i, ci in enumerate(cols):
+            for j, cj in enumerate(cols):
+                ata[i, j] += float(ci @ cj)
+            ata[i, 2] += off * float(ci.sum())
+            ata[2, i] = ata[i, 2]
+            atb[i] += float(ci @ y)
+            sums[i] += float(ci.sum())
+            tdot[i] += float(ci @ ts)
+        ata[2, 2] += off * off * x.size
+        atb[2] += off * float(y.sum())
+        sums[2] += off * x.size
+        tdot[2] += off * float(ts.sum())
+    ata_inv = np.linalg.inv(ata[:p, :p])
+    coef = np.zeros(3)
+    coef[:p] = ata_inv @ atb[:p]
+    resid = [dT[sel] - coef[0] * X[sel] - coef[1] * Q[sel] - coef[2] * off for sel, off in parts]
+    n = sum(r.size for r in resid)
+    sse = sum(float(r @ r) for r in resid)
+    lag = sum(float(r[:-1] @ r[1:]) for r in resid) + float(resid[0][-1] * resid[1][0])
+    rho = lag / sse if sse > 0 else 0.0
+    s2 = sse / (n - p)
+    cov = ata_inv * s2 * ar1_inflation(rho)
     a = float(coef[0])
     if a <= 0:
         raise ValueError("joint fit found no heating signal")
-    tilt = float(pinv_row @ t[sel])
+    w = ata_inv[0]
+    tilt = float(w @ tdot[:p])
     drift_u = abs(drift_rate_u_K_per_s * tilt)
     # a baseline level error shifts every ΔT, heating and recovery alike
-    level_u = 0.0 if free_offset else abs(level_u_K * float(pinv_row.sum()))
+    level_u = 0.0 if free_offset else abs(level_u_K * float(w @ sums[:p]))
     k = 1.0 / (4.0 * math.pi * a)
-    ts = t[sel]
-    return CoolingFit("joint", k, k * math.sqrt(cov[0, 0] + drift_u**2 + level_u**2) / a,
-                      (float(ts[0]), float(ts[-1])), n, math.sqrt(float(resid @ resid) / n), rho, window_u_rel,
-                      free_offset, -tilt / a)
+    first = min(float(t[sel][0]) for sel, _ in parts)
+    last = max(float(t[sel][-1]) for sel, _ in parts)
+    return CoolingFit("joint", k, k * math.sqrt(cov[0, 0] + drift_u**2 + level_u**2) / a, (first, last), n,
+                      math.sqrt(sse / n), rho, window_u_rel, free_offset, -tilt / a)

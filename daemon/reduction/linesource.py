@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import window as win
+from .data import contiguous
 from .stats import LineFit, fit_line, quadratic_curvature
 
 FLOOR_FRACTION = 0.1   # same as the live rule: the window never starts before 0.1·t_end (no source)
@@ -68,14 +69,17 @@ def fit_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, t_sta
     ``drift_rate_u_K_per_s`` (the standard uncertainty of the baseline slope that was subtracted) is carried into
     k: an error δ in the rate adds −δ·t/Q to y, which tilts the fitted slope by −δ·cov(t/Q, u)/var(u).
     """
-    sel = (t >= t_start) & (t <= t_end)
-    if np.count_nonzero(sel) < 3:
-        raise ValueError(f"fewer than 3 samples between {t_start:.3g} s and {t_end:.3g} s")
+    sel = _span(t, t_start, t_end)
     ts, us, ys, qs = t[sel], u[sel], y[sel], Q[sel]
+    if ts.size < 3:
+        raise ValueError(f"fewer than 3 samples between {t_start:.3g} s and {t_end:.3g} s")
     lf = fit_line(us, ys)
     a, b = lf.slope, lf.intercept
     if a <= 0:
         raise ValueError("temperature does not rise with ln t in the window (no heating signal)")
+    if not 1e-60 < a < 1e60:  # a³ below appears in α's variance; past these it under- or overflows
+        raise ValueError(f"slope {a:.3g} K per W/m per unit of ln t is beyond any medium: check the units of the "
+                         "power and temperature columns")
     k = 1.0 / (4.0 * math.pi * a)
     q_mean = float(np.mean(qs))
     resid = ys - (a * us + b)
@@ -93,12 +97,17 @@ def fit_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, t_sta
                        abs(drift_rate_u_K_per_s * tilt) / a, -tilt / a)
 
 
+def _span(t: np.ndarray, t0: float, t1: float) -> slice | np.ndarray:
+    """The samples with t0 <= t <= t1 (a slice when contiguous: views, not copies, of a long record)."""
+    return contiguous((t >= t0) & (t <= t1))
+
+
 def _thirds_slopes(t: np.ndarray, u: np.ndarray, y: np.ndarray, t0: float, t1: float) -> tuple[float, ...]:
     edges = np.exp(np.linspace(math.log(t0), math.log(t1), 4))
     out = []
     for lo, hi in itertools.pairwise(edges):
-        sel = (t >= lo) & (t <= hi)
-        out.append(fit_line(u[sel], y[sel]).slope if np.count_nonzero(sel) >= 3 else math.nan)
+        sel = _span(t, lo, hi)
+        out.append(fit_line(u[sel], y[sel]).slope if u[sel].size >= 3 else math.nan)
     return tuple(out)
 
 
@@ -163,8 +172,8 @@ def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *,
     for _ in range(10):
         if math.log(t_end / t_start) < SHORT_SPAN_LN + math.log(1.25):
             break
-        sel = (t >= t_start) & (t <= t_end)
-        if np.count_nonzero(sel) < 2 * MIN_POINTS:
+        sel = _span(t, t_start, t_end)
+        if u[sel].size < 2 * MIN_POINTS:
             break
         rel, z, _ = quadratic_curvature(u[sel], y[sel])
         if not (abs(rel) > TREND_TOL and z > TREND_Z):

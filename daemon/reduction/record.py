@@ -12,7 +12,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..probe import ProbeProfile
-from .data import ReductionError, RunData
+from .data import ImplausibleRun, ReductionError, RunData, contiguous, heating_signal_problem
 from .drift import Baseline, fit_baseline, no_baseline
 from .superposition import log_time_regressor, power_steps
 from .timezero import TimeZero, early_rise
@@ -67,6 +67,7 @@ class HeatingRecord:
     X: np.ndarray
     Q: np.ndarray
     heat: np.ndarray      # heating samples used by every heating fit (t > 0, power on, before switch-off)
+    heat_span: slice | np.ndarray  # the same as a slice when contiguous: views, not copies, of a long record
     t_off: float | None   # heater switch-off (None: still heating at the end of the record)
     heating_s: float
     i_off: int            # index of the first sample after switch-off (the record's length if none)
@@ -87,8 +88,9 @@ class HeatingRecord:
         n = int(np.count_nonzero(heat))
         if n < MIN_HEATING_SAMPLES:
             raise ReductionError(f"only {n} heating samples; at least {MIN_HEATING_SAMPLES} are needed")
-        heating_s = t_off if t_off is not None else float(t[heat][-1])
-        return cls(t, q, steps_t, steps_dq, X, Q, heat, t_off, heating_s, i_off, shift_s)
+        span = contiguous(heat)
+        heating_s = t_off if t_off is not None else float(t[span][-1])
+        return cls(t, q, steps_t, steps_dq, X, Q, heat, span, t_off, heating_s, i_off, shift_s)
 
     def shifted(self, shift_s: float) -> HeatingRecord:
         """The same run with every power step moved by ``shift_s`` from where the power column put it."""
@@ -118,9 +120,12 @@ class SensorRecord:
             raise ReductionError(f"no column T_{name}_C in the run")
         t, T = run.t, data.temps_C[name]
         base = t < 0
-        baseline = fit_baseline(t[base], T[base]) if np.any(base) else no_baseline(float(T[run.heat][0]))
+        baseline = fit_baseline(t[base], T[base]) if np.any(base) else no_baseline(float(T[run.heat_span][0]))
         geometry = Geometry.of(probe, name)
         dT = T - baseline.at(t)
+        problem = heating_signal_problem(name, t[run.heat_span], dT[run.heat_span])
+        if problem:
+            raise ImplausibleRun(problem)
         tz = None
         if geometry.on_heater and baseline.present and run.steps_t.size:
             tz = early_rise(t, dT, float(run.steps_t[0]), baseline.resid_rms_K)
@@ -133,19 +138,19 @@ class SensorRecord:
     # heating samples, and y = ΔT/Q against u = X/Q (the superposed late-time line; see superposition.py)
     @property
     def th(self) -> np.ndarray:
-        return self.run.t[self.run.heat]
+        return self.run.t[self.run.heat_span]
 
     @property
     def dTh(self) -> np.ndarray:
-        return self.dT[self.run.heat]
+        return self.dT[self.run.heat_span]
 
     @property
     def Qh(self) -> np.ndarray:
-        return self.run.Q[self.run.heat]
+        return self.run.Q[self.run.heat_span]
 
     @property
     def u(self) -> np.ndarray:
-        return self.run.X[self.run.heat] / self.Qh
+        return self.run.X[self.run.heat_span] / self.Qh
 
     @property
     def y(self) -> np.ndarray:

@@ -86,17 +86,24 @@ def quadratic_curvature(x: np.ndarray, y: np.ndarray) -> tuple[float, float, flo
     y = np.asarray(y, dtype=float)
     if x.size < 6:
         return 0.0, 0.0, math.nan
-    xc = x - x.mean()
-    A = np.column_stack([np.ones_like(xc), xc, xc * xc])
-    coef, *_ = np.linalg.lstsq(A, y, rcond=None)
-    resid = y - A @ coef
-    s2 = float(resid @ resid) / max(x.size - 3, 1)
+    # normal equations on centred, scaled x: no n×3 design matrix (a long record would hold hundreds of MB)
+    xm = float(x.mean())
+    scale = float(np.max(np.abs(x - xm))) or 1.0
+    xs = (x - xm) / scale
+    x2 = xs * xs
+    m = [float(v) for v in (xs.size, xs.sum(), x2.sum(), x2 @ xs, x2 @ x2)]
+    ata = np.array([[m[0], m[1], m[2]], [m[1], m[2], m[3]], [m[2], m[3], m[4]]])
+    atb = np.array([float(y.sum()), float(xs @ y), float(x2 @ y)])
     try:
-        cov = np.linalg.inv(A.T @ A) * s2 * ar1_inflation(lag1_autocorrelation(resid))
+        inv = np.linalg.inv(ata)
     except np.linalg.LinAlgError:
         return 0.0, 0.0, math.nan
-    c1, c2 = float(coef[1]), float(coef[2])
-    span = float(xc.max() - xc.min())
+    c0, c1s, c2s = inv @ atb
+    resid = y - (c0 + c1s * xs + c2s * x2)
+    s2 = float(resid @ resid) / max(x.size - 3, 1)
+    var_c2s = inv[2, 2] * s2 * ar1_inflation(lag1_autocorrelation(resid))
+    c1, c2 = float(c1s) / scale, float(c2s) / scale**2
+    span = float(xs.max() - xs.min()) * scale
     rel = 2.0 * c2 * span / c1 if c1 != 0 else math.inf
-    z = abs(c2) / math.sqrt(cov[2, 2]) if cov[2, 2] > 0 else math.inf
+    z = abs(float(c2s)) / math.sqrt(var_c2s) if var_c2s > 0 else math.inf
     return rel, z, c1

@@ -84,6 +84,8 @@ class FrameDecoder:
     """Feed bytes, get frames. Tracks the peer's sequence numbers."""
 
     counters: LinkCounters = field(default_factory=LinkCounters)
+    track_sequence: bool = True
+    """False on the device side, which must see a repeated command to answer it again (PROTOCOL.md §5)."""
     _buf: bytearray = field(default_factory=bytearray)
     _last_seq: int | None = None
 
@@ -125,7 +127,7 @@ class FrameDecoder:
                 self.counters.bad_frames += 1
                 self.counters.skipped_bytes += len(line) + 1
                 continue
-            if self._accept_seq(frame.seq):
+            if not self.track_sequence or self._accept_seq(frame.seq):
                 self.counters.frames += 1
                 out.append(frame)
         return out

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import time
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -14,6 +16,7 @@ from linerig.daemon.rig.transport import SerialTransport
 
 ACK_TIMEOUT_S = 0.5
 RETRIES = 2
+SENT_MEMORY = 256  # sequence numbers of our own commands remembered, to tell their acks from anyone else's
 
 
 @dataclass
@@ -28,6 +31,10 @@ class FrontEndHandlers:
     # the device's own time (ms) at which its heater went on ("P") or off ("O"), from its acknowledgement;
     # delivered in frame order, before any later sample, so time zero is known when the first hot sample arrives
     on_heater_switch: Callable[[str, int], None] = lambda kind, device_ms: None
+    # an acknowledgement of a command this host never sent: another program is writing to the front end
+    on_foreign_ack: Callable[[m.Ack], None] = lambda ack: None
+    # the answer to a lease renewal sent with ``send_renewal``: (when it was sent, monotonic s; the answer)
+    on_renewal: Callable[[float, m.Ack], None] = lambda sent, ack: None
 
 
 class FrontEnd:
@@ -40,6 +47,8 @@ class FrontEnd:
         self._seq = 0
         self._acks: dict[int, asyncio.Future[m.Ack]] = {}
         self._sent_kinds: dict[int, str] = {}
+        self._sent_seqs: deque[int] = deque(maxlen=SENT_MEMORY)  # kept after the ack: a retry is acked again
+        self._renewals: dict[int, float] = {}  # renewals in flight: seq → monotonic time sent
         self._lock = asyncio.Lock()
         self._identity_wait: asyncio.Future[m.Identity] | None = None
         self._status_wait: asyncio.Future[m.Status] | None = None
@@ -66,6 +75,14 @@ class FrontEnd:
         if isinstance(msg, m.Sample):
             self.handlers.on_sample(msg)
         elif isinstance(msg, m.Ack):
+            if msg.cmd_seq not in self._sent_seqs:
+                self.handlers.on_foreign_ack(msg)
+                return
+            sent = self._renewals.pop(msg.cmd_seq, None)
+            if sent is not None:
+                self._sent_kinds.pop(msg.cmd_seq, None)
+                self.handlers.on_renewal(sent, msg)
+                return
             kind = self._sent_kinds.pop(msg.cmd_seq, None)
             switched = _device_ms(msg.detail) if msg.ok else None
             if kind in (m.CMD_POWER, m.CMD_OFF) and switched is not None:
@@ -117,6 +134,7 @@ class FrontEnd:
                 self._acks.pop(seq, None)
 
     def _note_sent(self, seq: int, kind: str) -> None:
+        self._sent_seqs.append(seq)
         self._sent_kinds[seq] = kind
         if len(self._sent_kinds) > 64:  # acknowledgements that never came: forget the oldest
             self._sent_kinds.pop(next(iter(self._sent_kinds)))
@@ -141,6 +159,18 @@ class FrontEnd:
 
     async def renew_lease(self, lease_s: float) -> None:
         await self.command(m.CMD_LEASE, [str(int(lease_s * 1000))])
+
+    async def send_renewal(self, lease_s: float) -> None:
+        """A lease renewal sent at once, without waiting for earlier ones to be answered (PROTOCOL.md §6: every
+        renewal period whatever became of the last; each is an absolute setting, so one arriving late or twice
+        does no harm). The answer goes to ``on_renewal``."""
+        seq = (self._seq + 1) % 65536
+        self._seq = seq
+        self._note_sent(seq, m.CMD_LEASE)
+        self._renewals[seq] = time.monotonic()
+        while len(self._renewals) > SENT_MEMORY:  # answers that never came
+            self._renewals.pop(next(iter(self._renewals)))
+        await self.transport.write(encode_frame(m.CMD_LEASE, seq, [str(int(lease_s * 1000))]))
 
     async def heater_off(self) -> int | None:
         """Heater off; returns the device ms at which it went off when it had been on."""

@@ -3,18 +3,36 @@
 A real port, a pseudo-terminal and ``socket://`` all come through
 ``serial.serial_for_url``. Reading waits on the file descriptor with the event
 loop when the port has one, and polls briefly when it does not.
+
+A serial port is held exclusively: pyserial's lock (flock, which another linerigd or a
+careful program respects) and the terminal's own exclusive mode (TIOCEXCL: the kernel refuses
+every later open by anyone without CAP_SYS_ADMIN), released again when the port is closed.
+Whoever else can write to the front end can switch its heater on.
 """
 
 from __future__ import annotations
 
 import asyncio
 import contextlib
+import fcntl
+import os
+import termios
+import weakref
 
 import serial
 
 from linerig.daemon.errors import LinkError
 
 POLL_S = 0.005
+
+
+_OPEN: weakref.WeakSet[SerialTransport] = weakref.WeakSet()
+
+
+def close_all() -> None:
+    """Close every port this process holds (before a last-resort safe-off opens the port again)."""
+    for transport in list(_OPEN):
+        transport.close()
 
 
 class SerialTransport:
@@ -31,18 +49,30 @@ class SerialTransport:
 
     def open(self) -> None:
         try:
-            port = serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=0, write_timeout=1.0)
+            port = serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=0, write_timeout=1.0,
+                                         exclusive=True)
         except (serial.SerialException, OSError, ValueError) as exc:
-            raise LinkError(f"cannot open {self.url}: {exc}") from exc
+            held = "lock" in str(exc) or "busy" in str(exc).lower()
+            raise LinkError(f"cannot open {self.url}: {exc}" + ("; another program holds the port (a second "
+                                                               "linerigd, a terminal program?)" if held else "")
+                            ) from exc
         self._port = port
         try:
             self._fd = port.fileno()
         except (AttributeError, NotImplementedError, serial.SerialException):
             self._fd = None
+        if self._fd is not None and os.isatty(self._fd):
+            fcntl.ioctl(self._fd, termios.TIOCEXCL)
+        _OPEN.add(self)
 
     def close(self) -> None:
         port, self._port = self._port, None
+        fd, self._fd = self._fd, None
+        _OPEN.discard(self)
         if port is not None:
+            if fd is not None:
+                with contextlib.suppress(OSError):
+                    fcntl.ioctl(fd, termios.TIOCNXCL)  # a pty keeps the mode after the last close; a USB port not
             with contextlib.suppress(Exception):
                 port.close()
 

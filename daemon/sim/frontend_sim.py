@@ -33,6 +33,9 @@ class WireFaults:
     corrupt_fraction: float = 0.0
     duplicate_fraction: float = 0.0
     garbage_bytes: int = 0  # bytes of noise to send once, before the next frame
+    drop_acks: int = 0  # the next this many acknowledgements are lost (their commands were carried out)
+    drop_every: int = 0  # every n-th frame is lost: a loss rate without chance in it (0: off)
+    _count: int = 0
 
     def apply(self, frames: list[bytes], rng: random.Random) -> list[bytes]:
         """What reaches the wire of the frames a device meant to send."""
@@ -43,6 +46,12 @@ class WireFaults:
             out.append(bytes(rng.randrange(256) for _ in range(self.garbage_bytes)))
             self.garbage_bytes = 0
         for fr in frames:
+            if self.drop_acks and fr.startswith(b"$A,"):
+                self.drop_acks -= 1
+                continue
+            self._count += 1
+            if self.drop_every and self._count % self.drop_every == 0:
+                continue
             r = rng.random()
             if r < self.drop_fraction:
                 continue
@@ -71,7 +80,7 @@ class FrontEndEmulator:
 
     def __post_init__(self) -> None:
         self._rng = random.Random(self.seed)
-        self._decoder = FrameDecoder()
+        self._decoder = FrameDecoder(track_sequence=False)  # a retried command must reach _command to be re-acked
         self._boot()
 
     def set_overpower(self, factor: float) -> None:

@@ -11,6 +11,7 @@ import argparse
 import asyncio
 import json
 import os
+import shutil
 import signal
 import sys
 import tempfile
@@ -50,6 +51,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 PARENT_GRACE_S = 5.0
+SIM_DIR_PREFIX = "linerig-sim-"
 
 
 def _alive(pid: int) -> bool:
@@ -97,8 +99,17 @@ async def _run(args: argparse.Namespace) -> int:
     kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
     rig = SimulatedRig(material, _probe(args.probe), seed=args.seed, **kwargs)
     frontend, firmware = _frontend(args, rig)
-    link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix="linerig-sim-"))
+    own_dir = args.link_dir is None  # a folder made here is removed here, however the run ends
+    link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix=SIM_DIR_PREFIX))
     link_dir.mkdir(parents=True, exist_ok=True)
+    try:
+        return await _serve(args, material, frontend, firmware, link_dir)
+    finally:
+        if own_dir:
+            shutil.rmtree(link_dir, ignore_errors=True)
+
+
+async def _serve(args: argparse.Namespace, material: Any, frontend: Any, firmware: Any, link_dir: Path) -> int:
     server = SimServer(frontend, link_dir, args.heater_log)
     control = args.control or link_dir / "control.sock"
     supply_path = server.offer_supply() if args.supply else None

@@ -54,7 +54,8 @@ FAULT_NAMES: dict[str, str] = {
     "heater_open": "heater circuit open: no current, no heat",
     "heater_short": "heater shorted in the cable (about 0.2 ohm): current limited, no heat in the ground",
     "heater_drift": "heater resistance creeping up by 2 % per hour of device time (failing joint)",
-    "battery_low": "battery flat: open-circuit voltage at the cut-off (empty_V), power sags",
+    "battery_low": "battery flat: past its knee, open-circuit voltage 10.2 V (below the 10.5 V a 12 V pack is cut "
+    "off at), power sags",
     "poor_contact": "probe lost contact with the medium: contact conductance one tenth of normal",
     "dry_out": "heat drives water away from the probe: a zone at 35 % of the medium's k grows while heating "
     "(radial model only)",
@@ -210,6 +211,11 @@ class ProbeSpec:
             heater_tcr_per_K=float(_attr(profile, "heater_tcr_per_K", default=5e-5)),
             name=str(_attr(profile, "name", default="probe")),
         )
+
+
+FLAT_FRACTION = 1.07
+"""The battery_low fault: 7 % past the knee, where the open-circuit voltage has fallen to 10.2 V (12.8 V full,
+11.6 V at the knee, then 20 V per unit of capacity: this model's shape, no source)."""
 
 
 @dataclass(frozen=True)
@@ -470,7 +476,7 @@ class SimulatedRig:
         b = self.battery
         frac = self._energy_drawn_J / (b.capacity_Wh * 3600.0)
         if "battery_low" in self._rig_faults:
-            frac = max(frac, 1.0)
+            frac = max(frac, FLAT_FRACTION)
         v = b.full_V - (b.full_V - b.empty_V) * min(frac, 1.0)
         if frac > 1.0:  # past the knee the voltage collapses
             v -= 20.0 * (frac - 1.0)

@@ -9,8 +9,10 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import fcntl
 import json
 import os
+import struct
 import termios
 import time
 import tty
@@ -21,6 +23,8 @@ from linerig.daemon.sim.frontend_sim import FrontEndEmulator
 
 TICK_S = 0.01
 OUT_CAP = 1 << 20  # bytes held for a host that reads late
+RELEASE_CHECK_S = 1.0
+TIOCGEXCL = getattr(termios, "TIOCGEXCL", 0x80045440)  # Linux: _IOR('T', 0x40, int)
 
 
 class PtyPort:
@@ -47,6 +51,20 @@ class PtyPort:
             tmp.unlink()
         tmp.symlink_to(self.slave_path)
         tmp.replace(self.link)
+
+    def release_if_abandoned(self) -> None:
+        """A USB port leaves exclusive mode (TIOCEXCL) when its last user closes it; a pty keeps the mode while its
+        master is open, so a host killed outright would leave it refusing every later open. Clear it once no
+        other process has the port open (seen in /proc: processes this user may inspect)."""
+        if self.slave is None:
+            return
+        try:
+            exclusive = struct.unpack("i", fcntl.ioctl(self.slave, TIOCGEXCL, b"\0" * 4))[0]
+        except OSError:
+            return
+        if exclusive and not _open_elsewhere(self.slave_path):
+            with contextlib.suppress(OSError):
+                fcntl.ioctl(self.slave, termios.TIOCNXCL)
 
     def unplug(self) -> None:
         """The device goes away, and so does its stable name (as /dev/serial/by-id entries do)."""
@@ -83,6 +101,20 @@ class PtyPort:
             except (BlockingIOError, OSError):
                 return
             del self._out[:n]
+
+
+def _open_elsewhere(path: str) -> bool:
+    """Whether a process other than this one has ``path`` open."""
+    me = str(os.getpid())
+    for pid in os.listdir("/proc"):
+        if not pid.isdigit() or pid == me:
+            continue
+        with contextlib.suppress(OSError):
+            for fd in os.listdir(f"/proc/{pid}/fd"):
+                with contextlib.suppress(OSError):
+                    if os.readlink(f"/proc/{pid}/fd/{fd}") == path:
+                        return True
+    return False
 
 
 class SimServer:
@@ -133,8 +165,14 @@ class SimServer:
         self.port.plug()
         if self.supply is not None:
             self.supply[2].plug()
+        next_release = 0.0
         while not self._stop.is_set():
             wall = time.monotonic()
+            if wall >= next_release:
+                next_release = wall + RELEASE_CHECK_S
+                self.port.release_if_abandoned()
+                if self.supply is not None:
+                    self.supply[2].release_if_abandoned()
             if self.supply is not None:
                 self._serve_supply()
             data = self.port.read()
@@ -186,6 +224,7 @@ class SimServer:
                     "lease_left_s": max(fe.lease_deadline - wall, 0.0) if fe.heater_on else 0.0,
                     "samples_sent": fe.samples_sent, "rig_faults": sorted(fe.rig.active_faults),
                     "overpower": fe.overpower, "clock_stuck": fe.clock_stuck_ms is not None,
+                    "acks_to_drop": fe.faults.drop_acks,
                     "inject_wall": self.inject_wall, "first_sample_after_inject": self.first_sample_after_inject}
         if op == "inject":
             fault, on = str(req["fault"]), bool(req.get("on", True))
@@ -195,8 +234,14 @@ class SimServer:
                 wf.silent = on
             elif fault == "garbage":
                 wf.garbage_bytes = int(req.get("bytes", 64))
+            elif fault == "drop_acks":
+                wf.drop_acks = int(req.get("count", 1)) if on else 0
+            elif fault == "drop" and "every" in req:
+                wf.drop_every = int(req["every"]) if on else 0
             elif fault in ("drop", "corrupt", "duplicate"):
                 setattr(wf, f"{fault}_fraction", float(req.get("fraction", 0.2)) if on else 0.0)
+                if fault == "drop" and not on:
+                    wf.drop_every = 0
             elif fault == "reset":
                 fe.reset()
             elif fault == "unplug":

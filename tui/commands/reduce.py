@@ -139,7 +139,8 @@ def run(args: argparse.Namespace) -> int:
     try:
         # a logger's export (--map) carries no header metadata: the probe and factor come from the options
         data, meta = read_run_file(Path(args.file)) if args.map is None else (read_logger_file(args), {})
-    except (RunCsvError, LoggerImportError, ProbeProfileError) as e:
+    except (RunCsvError, LoggerImportError, ProbeProfileError, ReductionError) as e:
+        # ReductionError: values outside physical bounds
         return _fail(str(e))
     problem = option_problem(args)
     if problem:

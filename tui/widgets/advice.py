@@ -8,6 +8,14 @@ from __future__ import annotations
 
 # (words to look for, what to do next); first match wins, so the most specific come first.
 _FAULT_ADVICE: tuple[tuple[tuple[str, ...], str], ...] = (
+    (("another program",),
+     "Something else is writing to the front end's port. Find and stop it (who is in the port's group?); the "
+     "daemon keeps switching the heater off meanwhile. Start a run only once it is gone."),
+    (("clock has stopped", "clock went back"),
+     "The front end's clock stopped or jumped, so heating time cannot be trusted. Power-cycle the front end and "
+     "check its firmware before the next run."),
+    (("below the",),
+     "The heater got less power than asked. Charge or swap the battery, check the heater leads and connector."),
     (("pre-check failed",),
      "Nothing was heated. Fix each item listed, then start the run again."),
     (("probe temperature", "probe already at"),
