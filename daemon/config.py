@@ -43,10 +43,10 @@ from typing import Any
 from linerig.daemon.controller import PLAN_HELP, PlanError, RunPlan
 from linerig.daemon.errors import ConfigError
 from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
+from linerig.daemon.resources import default_probe_path
 from linerig.daemon.safety import LIMIT_HELP, Limits, check_plan, limit_problem
 
 DEFAULT_CONFIG_PATH = Path("/etc/linerig/rig.toml")
-DEFAULT_PROBE_PATH = Path(__file__).parent / "profiles" / "default-needle.toml"
 _URL = re.compile(r"^[a-z][a-z0-9+.-]*://", re.IGNORECASE)
 _KEY = re.compile(r"^((?:[A-Za-z0-9_-]+|\"[^\"]*\"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_-]+|\"[^\"]*\"|'[^']*'))*)\s*=")
 
@@ -85,7 +85,7 @@ class RigConfig:
     def probe(self) -> ProbeProfile:
         if self.active_probe is not None:
             return self.active_probe
-        return load_probe_profile(DEFAULT_PROBE_PATH)
+        return load_probe_profile(default_probe_path())
 
 
 SECTIONS = ("devices", "daemon", "probes", "limits", "run", "presets")
@@ -314,7 +314,7 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
     probes, active = _probes(src, _table(src, doc, "probes"), base)
     limits = _limits(src, _table(src, doc, "limits"))
     plan = _plan(src, _table(src, doc, "run"), ["run"], RunPlan())
-    probe = active or load_probe_profile(DEFAULT_PROBE_PATH)
+    probe = active or load_probe_profile(default_probe_path())
     if plan.sensor == RunPlan().sensor and "sensor" not in _table(src, doc, "run") \
             and plan.sensor not in [s.name for s in probe.sensors]:
         plan = plan.with_changes({"sensor": probe.sensors[0].name})  # the default follows the probe

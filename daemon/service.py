@@ -25,7 +25,6 @@ import math
 import os
 import time
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
 from linerig.daemon import sdnotify
@@ -628,5 +627,6 @@ def _profile_dict(p: ProbeProfile) -> dict[str, Any]:
 
 def load_default_probe() -> ProbeProfile:
     from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.resources import default_probe_path
 
-    return load_probe_profile(Path(__file__).parent / "profiles" / "default-needle.toml")
+    return load_probe_profile(default_probe_path())
