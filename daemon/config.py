@@ -36,6 +36,7 @@ import grp
 import math
 import re
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
@@ -210,7 +211,15 @@ def _devices(src: _Src, t: dict[str, Any]) -> DeviceConfig:
     return DeviceConfig(**kw)
 
 
-def _daemon(src: _Src, t: dict[str, Any], base: Path) -> DaemonConfig:
+def group_on_this_machine(name: str) -> bool:
+    try:
+        grp.getgrnam(name)
+    except KeyError:
+        return False
+    return True
+
+
+def _daemon(src: _Src, t: dict[str, Any], base: Path, group_exists: Callable[[str], bool]) -> DaemonConfig:
     _only(src, t, ["daemon"], _DAEMON_KEYS)
     kw: dict[str, Any] = {}
     for key in ("socket", "database"):
@@ -223,11 +232,9 @@ def _daemon(src: _Src, t: dict[str, Any], base: Path) -> DaemonConfig:
         v = t["group"]
         if not isinstance(v, str) or not v:
             raise src.error(["daemon", "group"], f"expected a group name, got {v!r}")
-        try:
-            grp.getgrnam(v)
-        except KeyError:
+        if not group_exists(v):
             raise src.error(["daemon", "group"], f"no group {v!r} on this machine; create it (see "
-                                                 "systemd/README.md) or remove the key") from None
+                                                 "systemd/README.md) or remove the key")
         kw["group"] = v
     if "max_database_MB" in t:
         v = t["max_database_MB"]
@@ -299,7 +306,9 @@ def _check_plan(src: _Src, plan: RunPlan, path: list[str], limits: Limits, probe
                                            f"got {plan.sensor!r}")
 
 
-def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None) -> RigConfig:
+def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None,
+                 group_exists: Callable[[str], bool] = group_on_this_machine) -> RigConfig:
+    """``group_exists`` answers for the machine the file is for (linerig-setup checks one under a throwaway root)."""
     src = _Src(source, text)
     try:
         doc = tomllib.loads(text)
@@ -310,7 +319,7 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
             raise src.error([key], f"unknown section; expected one of: {', '.join(SECTIONS)}")
     base = base_dir or Path.cwd()
     devices = _devices(src, _table(src, doc, "devices"))
-    daemon = _daemon(src, _table(src, doc, "daemon"), base)
+    daemon = _daemon(src, _table(src, doc, "daemon"), base, group_exists)
     probes, active = _probes(src, _table(src, doc, "probes"), base)
     limits = _limits(src, _table(src, doc, "limits"))
     plan = _plan(src, _table(src, doc, "run"), ["run"], RunPlan())
@@ -332,11 +341,11 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
                      limits=limits, plan=plan, presets=presets)
 
 
-def load_config(path: Path) -> RigConfig:
+def load_config(path: Path, group_exists: Callable[[str], bool] = group_on_this_machine) -> RigConfig:
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise ConfigError(f"{path}: no such file; write one (see systemd/README.md) or pass --config") from None
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read it ({exc.strerror})") from None
-    return parse_config(text, str(path), path.parent)
+    return parse_config(text, str(path), path.parent, group_exists)

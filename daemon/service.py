@@ -559,6 +559,8 @@ class RigService:
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
             "heater_armed": self.armed_power is not None,
             "heat_source": "scpi" if self.supply is not None else "frontend",
+            "supply_identity": self.supply.supply.identity.__dict__
+            if self.supply is not None and self.supply.supply.identity else None,
             "heater_on": bool(self.last_sample and self.last_sample["heater_on"]),
             "fault": self.fault,
             "store_failed": self.store.failed,
