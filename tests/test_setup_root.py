@@ -180,6 +180,27 @@ def test_an_edited_configuration_is_never_written_again(tmp_path: Path, ports: d
     assert "run systemctl restart linerigd" in run.stdout  # the rule changed under a running service
 
 
+def test_a_rig_that_pushes_to_a_central_database_gets_the_network_drop_in_and_loses_it_again(
+        tmp_path: Path, ports: dict[str, str]) -> None:
+    root = plug(tmp_path, ports, FRONTEND)
+    assert setup(root).returncode == 0
+    config = root / "etc/linerig/rig.toml"
+    plain = config.read_text()
+    config.write_text(plain + '\n[sync]\nto = "service=linerig-central"\n')
+    dropin = root / "etc/systemd/system/linerigd.service.d/sync.conf"
+    on = setup(root)
+    assert on.returncode == 0, on.stderr
+    assert dropin.read_text() == service_file("linerigd-sync.conf").read_text()
+    assert [c.split("  (")[0] for c in changes(on.stdout)] == [
+        "  create folder /etc/systemd/system/linerigd.service.d (mode 0755)",
+        "  write /etc/systemd/system/linerigd.service.d/sync.conf (new file, mode 0644)",
+        "  run systemctl daemon-reload", "  run systemctl restart linerigd"]
+    config.write_text(plain.replace("max_rise_K = 10", "max_rise_K = 9"))
+    off = setup(root)
+    assert "  remove /etc/systemd/system/linerigd.service.d/sync.conf" in changes(off.stdout)
+    assert not dropin.parent.exists()
+
+
 def test_operators_join_the_control_group_and_stay_there(tmp_path: Path, ports: dict[str, str]) -> None:
     root = plug(tmp_path, ports, FRONTEND)
     (root / "etc").mkdir()

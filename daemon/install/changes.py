@@ -70,6 +70,24 @@ class RemoveFile:
 
 
 @dataclass(frozen=True)
+class RemoveDir:
+    """A folder linerig-setup made, once what it put there is gone (left alone if anything else is in it)."""
+
+    path: Path
+
+    def summary(self) -> str:
+        return f"remove folder {self.path} (if empty)"
+
+    def detail(self) -> list[str]:
+        return []
+
+    def apply(self, host: Host) -> None:
+        folder = host.path(self.path)
+        if folder.is_dir() and not any(folder.iterdir()):
+            folder.rmdir()
+
+
+@dataclass(frozen=True)
 class RunCommand:
     argv: tuple[str, ...]
     why: str
@@ -84,7 +102,7 @@ class RunCommand:
         host.run(list(self.argv))
 
 
-Change = MakeDir | WriteFile | RemoveFile | RunCommand
+Change = MakeDir | WriteFile | RemoveFile | RemoveDir | RunCommand
 
 
 def folders_for(host: Host, files: list[Path]) -> list[MakeDir]:

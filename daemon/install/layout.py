@@ -11,6 +11,7 @@ SYSUSERS = Path("/etc/sysusers.d/linerig.conf")
 OPERATORS = Path("/etc/sysusers.d/linerig-operators.conf")
 RULES = Path("/etc/udev/rules.d/70-linerig.rules")
 UNIT = Path("/etc/systemd/system/linerigd.service")
+SYNC_DROPIN = Path("/etc/systemd/system/linerigd.service.d/sync.conf")
 CONFIG_DIR = Path("/etc/linerig")
 CONFIG = CONFIG_DIR / "rig.toml"
 PROBES_DIR = CONFIG_DIR / "probes"
@@ -20,7 +21,7 @@ DATABASE = STATE_DIR / "linerig.db"
 SERVICE = "linerigd"
 CONTROL_GROUP = "linerig"
 
-INSTALLED = (SYSUSERS, OPERATORS, RULES, UNIT)
+INSTALLED = (SYSUSERS, OPERATORS, RULES, SYNC_DROPIN, UNIT)
 """What an uninstall removes: the files only linerig-setup writes and nobody edits."""
 
 KEPT = ((CONFIG, "the rig's configuration"), (PROBES_DIR, "the probe profiles"),

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from linerig.daemon.install import render
-from linerig.daemon.install.changes import Change, RemoveFile, RunCommand, WriteFile, folders_for
+from linerig.daemon.install.changes import Change, RemoveDir, RemoveFile, RunCommand, WriteFile, folders_for
 from linerig.daemon.install.detect import BY_ID, Detection, Found, detect
 from linerig.daemon.install.host import Host, under_way
 from linerig.daemon.install.layout import (
@@ -25,6 +25,7 @@ from linerig.daemon.install.layout import (
     PROBES_DIR,
     RULES,
     SERVICE,
+    SYNC_DROPIN,
     SYSUSERS,
     UNIT,
 )
@@ -163,10 +164,17 @@ def install_plan(host: Host, opts: Options) -> Plan:
         plan.notes.append(f"--probe {opts.probe} not applied: {CONFIG} is written again only when the ports are "
                           f"probed (stop {SERVICE} first)")
     unit_changed = _want(host, UNIT, render.unit_text(opts.bin_dir), writes)
+    config_now = next((w.text for w in writes if w.path == CONFIG), old_config)
+    removals: list[Change] = []
+    if render.pushes(config_now):
+        unit_changed |= _want(host, SYNC_DROPIN, render.sync_dropin_text(), writes)
+    elif host.path(SYNC_DROPIN).exists():
+        removals += [RemoveFile(SYNC_DROPIN), RemoveDir(SYNC_DROPIN.parent)]
+        plan.notes.append(f"no [sync] in {CONFIG}: the drop-in that gives the push its network goes")
+        unit_changed = True
 
     plan.changes += folders_for(host, [w.path for w in writes])
-    plan.changes += writes
-    config_now = next((w.text for w in writes if w.path == CONFIG), old_config)
+    plan.changes += writes + removals
     plan.socket = render.configured_socket(config_now)
     _commands(host, plan, config_now, accounts=accounts_changed, rules=rules_changed,
               restart=unit_changed or config_changed or rules_changed or accounts_changed, unit=unit_changed)
@@ -223,6 +231,8 @@ def uninstall_plan(host: Host) -> Plan:
         plan.changes.append(RunCommand(("systemctl", "disable", "--now", SERVICE), "stop it and keep it stopped"))
     removed = [p for p in INSTALLED if host.path(p).exists()]
     plan.changes += [RemoveFile(p) for p in removed]
+    if SYNC_DROPIN in removed:
+        plan.changes.append(RemoveDir(SYNC_DROPIN.parent))
     if UNIT in removed:
         plan.changes.append(RunCommand(("systemctl", "daemon-reload"), "forget the unit"))
     if RULES in removed:

@@ -128,6 +128,18 @@ def configured_socket(text: str | None) -> Path:
     return Path(socket) if isinstance(socket, str) and socket.startswith("/") else SERVICE_SOCKET
 
 
+def pushes(text: str | None) -> bool:
+    """True when a rig.toml has a [sync] table: the daemon pushes to a central database and needs the network."""
+    try:
+        return isinstance(tomllib.loads(text or "").get("sync"), dict)
+    except tomllib.TOMLDecodeError:
+        return False
+
+
+def sync_dropin_text() -> str:
+    return service_file("linerigd-sync.conf").read_text(encoding="utf-8")
+
+
 def configured_probe(text: str | None) -> str | None:
     """The ``active`` probe a rig.toml names, or None."""
     active = _table(text, "probes").get("active")
