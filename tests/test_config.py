@@ -165,15 +165,16 @@ def test_the_example_for_etc_linerig_parses(tmp_path: Path) -> None:
 
 
 def test_the_service_unit_passes_systemd_analyze_verify(tmp_path: Path) -> None:
+    """The unit as linerig-setup installs it: pointed at this environment's commands."""
     import shutil
+
+    from linerig.daemon.install.render import unit_text
 
     if shutil.which("systemd-analyze") is None:
         pytest.skip("systemd-analyze is not installed here")
-    unit = resources.service_file("linerigd.service").read_text()
-    linerigd = Path(sys.executable).parent / "linerigd"
-    if not linerigd.exists():
+    if not (Path(sys.executable).parent / "linerigd").exists():
         pytest.skip("linerigd is not installed in this environment")
-    (tmp_path / "linerigd.service").write_text(unit.replace("/opt/linerig/bin/linerigd", str(linerigd)))
+    (tmp_path / "linerigd.service").write_text(unit_text(Path(sys.executable).parent))
     done = subprocess.run(["systemd-analyze", "verify", str(tmp_path / "linerigd.service")], capture_output=True,
                           text=True, timeout=60)
     assert done.returncode == 0 and "linerigd.service" not in done.stderr, done.stderr
