@@ -8,6 +8,7 @@ port another program holds is reported busy and left alone; linerig-setup never 
 from __future__ import annotations
 
 import contextlib
+import errno
 import random
 import time
 from dataclasses import dataclass, field
@@ -43,6 +44,7 @@ class Detection:
     supplies: list[Found] = field(default_factory=list)
     silent: list[str] = field(default_factory=list)
     busy: list[str] = field(default_factory=list)
+    denied: list[str] = field(default_factory=list)
     skipped: str | None = None
 
     @property
@@ -63,6 +65,7 @@ class Detection:
         out += [f"also a supply (not used): {f.identity} at {f.port}" for f in self.supplies[1:]]
         out += [f"no answer (neither a front end nor a SCPI supply): {p}" for p in self.silent]
         out += [f"busy (another program holds it; not probed): {p}" for p in self.busy]
+        out += [f"no permission to open it (run linerig-setup as root): {p}" for p in self.denied]
         if not self.frontends:
             out.append("no front end found")
         return out
@@ -110,7 +113,7 @@ def by_id_ports(root: Path) -> list[Path]:
 
 
 def identify(root: Path, port: Path, timeout_s: float = ANSWER_S) -> Found | str:
-    """What answered on ``port``, or why nothing did: ``"busy"`` or ``"silent"``."""
+    """What answered on ``port``, or why nothing did: ``"busy"``, ``"denied"`` or ``"silent"``."""
     local = on(root, port)
     try:
         fe = frontend_identity(local, timeout_s)
@@ -119,6 +122,8 @@ def identify(root: Path, port: Path, timeout_s: float = ANSWER_S) -> Found | str
                                                 f"{fe.n_channels} channel{'s' if fe.n_channels != 1 else ''}")
         sup = supply_identity(local, timeout_s)
     except (serial.SerialException, OSError) as exc:
+        if getattr(exc, "errno", None) in (errno.EACCES, errno.EPERM):
+            return "denied"
         busy = isinstance(exc, BlockingIOError) or "lock" in str(exc).lower()
         return "busy" if busy else "silent"
     if sup is not None:
@@ -134,5 +139,5 @@ def detect(root: Path, only: list[Path] | None = None, timeout_s: float = ANSWER
         if isinstance(answer, Found):
             (found.frontends if answer.kind == "frontend" else found.supplies).append(answer)
         else:
-            (found.busy if answer == "busy" else found.silent).append(str(port))
+            {"busy": found.busy, "denied": found.denied}.get(answer, found.silent).append(str(port))
     return found

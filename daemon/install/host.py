@@ -7,10 +7,11 @@ there, as if the commands printed last time had been run. So a second run change
 
 from __future__ import annotations
 
-import asyncio
 import contextlib
 import grp
+import json
 import pwd
+import socket
 import subprocess
 from pathlib import Path
 from typing import Any
@@ -79,18 +80,25 @@ class Host:
             return False
         return True
 
-    def daemon_status(self, socket: Path, wait_s: float = 10.0) -> dict[str, Any] | None:
-        """The daemon's status over its socket, or None when no daemon answers there."""
-        from linerig.tui.client import Client, DaemonError
-
-        async def ask() -> dict[str, Any] | None:
-            try:
-                async with Client(socket) as c:
-                    return await asyncio.wait_for(c.request("status"), wait_s)
-            except (DaemonError, OSError, TimeoutError):
-                return None
-
-        return asyncio.run(ask())
+    def daemon_status(self, path: Path, wait_s: float = 10.0) -> dict[str, Any] | None:
+        """The daemon's status over its socket (one request, one reply line), or None when none answers there."""
+        buf = b""
+        try:
+            with socket.socket(socket.AF_UNIX, socket.SOCK_STREAM) as s:
+                s.settimeout(wait_s)
+                s.connect(str(path))
+                s.sendall(b'{"op": "status", "id": 1}\n')
+                while b"\n" not in buf:
+                    chunk = s.recv(1 << 20)
+                    if not chunk:
+                        return None
+                    buf += chunk
+        except OSError:
+            return None
+        with contextlib.suppress(ValueError):
+            reply = json.loads(buf.split(b"\n", 1)[0])
+            return reply if isinstance(reply, dict) and reply.get("ok") else None
+        return None
 
 
 def under_way(status: dict[str, Any] | None) -> str | None:
@@ -130,7 +138,7 @@ class ThrowawayRoot(Host):
     def group_exists(self, group: str) -> bool:
         return any(line.split(":")[0] == group for line in _lines(self.path(Path("/etc/group"))))
 
-    def daemon_status(self, socket: Path, wait_s: float = 10.0) -> dict[str, Any] | None:
+    def daemon_status(self, path: Path, wait_s: float = 10.0) -> dict[str, Any] | None:
         return None
 
 

@@ -98,7 +98,7 @@ def _ports(host: Host, opts: Options, plan: Plan) -> Detection | None:
         hits = found.frontends if role == "frontend" else found.supplies
         if not any(h.port == port for h in hits):  # named but silent or the other kind: used as given
             hits.insert(0, Found(port, role, f"given with --{role}, did not identify itself"))
-            for lst in (found.silent, found.busy):
+            for lst in (found.silent, found.busy, found.denied):
                 if port in lst:
                     lst.remove(port)
     return found
