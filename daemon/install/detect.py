@@ -58,7 +58,7 @@ class Detection:
     def lines(self) -> list[str]:
         """What was found, for the operator."""
         if self.skipped:
-            return [f"ports not probed: {self.skipped}"]
+            return [f"not probed: {self.skipped}"]
         out = [f"front end: {f.identity} at {f.port}" for f in self.frontends[:1]]
         out += [f"supply: {f.identity} at {f.port}" for f in self.supplies[:1]]
         out += [f"also a front end (not used): {f.identity} at {f.port}" for f in self.frontends[1:]]

@@ -31,7 +31,7 @@ from linerig.daemon.install.layout import (
 )
 from linerig.daemon.paths import SERVICE_SOCKET
 from linerig.daemon.probe import ProbeProfileError, load_probe_profile
-from linerig.daemon.resources import probe_profiles
+from linerig.daemon.resources import probe_profile, probe_profiles
 
 DEFAULT_PROBE = "lab-needle"
 SERVICE_USER = "linerig"
@@ -78,12 +78,11 @@ def _want(host: Host, path: Path, text: str | None, changes: list[WriteFile]) ->
     return True
 
 
-def _ports(host: Host, opts: Options, plan: Plan) -> Detection | None:
-    """The ports found now, or None when they must not be probed (the service holds them)."""
+def _ports(host: Host, opts: Options) -> Detection:
+    """What the ports say now; ``skipped`` when they must not be asked (the service holds them)."""
     if host.live and host.service_running():
-        plan.notes.append(f"ports not probed: {SERVICE} is running and holds them (stop it to have them found "
-                          "again); the udev rule and rig.toml stay as they are")
-        return None
+        return Detection(skipped=f"{SERVICE} is running and holds them (stop it to have them found again); the "
+                                 "udev rule and rig.toml stay as they are")
     named = [p for p in (opts.frontend, opts.supply) if p]
     for p in named:
         if not p.startswith(f"{BY_ID}/"):
@@ -124,12 +123,8 @@ def _probe_key(host: Host, name: str, changes: list[WriteFile]) -> str:
         raise SetupError(f"--probe {name}: no {target}; choose one of {', '.join(there) or 'the packaged ones'}, or "
                          "put your profile there first")
     try:
-        if pending is not None:  # not written yet: read from the packaged copy it comes from
-            from linerig.daemon.resources import probe_profile
-
-            profile = load_probe_profile(probe_profile(name))
-        else:
-            profile = load_probe_profile(path)
+        # a copy not written yet is read from the packaged profile it comes from
+        profile = load_probe_profile(probe_profile(name) if pending is not None else path)
     except ProbeProfileError as exc:
         raise SetupError(f"--probe {name}: {exc}") from None
     return profile.serial or profile.name
@@ -142,24 +137,24 @@ def install_plan(host: Host, opts: Options) -> Plan:
             raise SetupError(f"--operator {user}: no such user on this machine (see /etc/passwd); create the "
                              "account first, or check the spelling")
     writes: list[WriteFile] = []
-    accounts_changed = _want(host, SYSUSERS, render.sysusers_text(), writes)
-    accounts_changed |= _want(host, OPERATORS, render.operators_text(_read(host, OPERATORS), list(opts.operators)),
+    service_user_changed = _want(host, SYSUSERS, render.sysusers_text(), writes)
+    operators_changed = _want(host, OPERATORS, render.operators_text(_read(host, OPERATORS), list(opts.operators)),
                               writes)
     profiles = _profiles(host, writes)
 
-    found = _ports(host, opts, plan)
-    plan.found = found if found is not None else Detection(skipped=plan.notes[-1].removeprefix("ports not probed: "))
+    found = plan.found = _ports(host, opts)
+    probed = found.skipped is None
     old_config = _read(host, CONFIG)
     rules_changed = config_changed = False
-    if found is not None or _read(host, RULES) is None:
-        rules_changed = _want(host, RULES, render.rules_text(found or Detection()), writes)
+    if probed or _read(host, RULES) is None:
+        rules_changed = _want(host, RULES, render.rules_text(found), writes)
     if old_config is not None and not render.untouched(old_config):
         plan.notes.append(f"{CONFIG} is yours (edited, or not written by linerig-setup): left as it is")
         _compare_ports(plan, old_config)
-    elif found is not None or old_config is None:
+    elif probed or old_config is None:
         active = (_probe_key(host, opts.probe, writes) if opts.probe
                   else render.configured_probe(old_config) or _probe_key(host, DEFAULT_PROBE, writes))
-        config_changed = _want(host, CONFIG, render.config_text(found or Detection(), active, profiles), writes)
+        config_changed = _want(host, CONFIG, render.config_text(found, active, profiles), writes)
     elif opts.probe:
         plan.notes.append(f"--probe {opts.probe} not applied: {CONFIG} is written again only when the ports are "
                           f"probed (stop {SERVICE} first)")
@@ -176,8 +171,9 @@ def install_plan(host: Host, opts: Options) -> Plan:
     plan.changes += folders_for(host, [w.path for w in writes])
     plan.changes += writes + removals
     plan.socket = render.configured_socket(config_now)
-    _commands(host, plan, config_now, accounts=accounts_changed, rules=rules_changed,
-              restart=unit_changed or config_changed or rules_changed or accounts_changed, unit=unit_changed)
+    # an operator's membership is checked on each connection: a new one needs no restart
+    _commands(host, plan, config_now, accounts=service_user_changed or operators_changed, rules=rules_changed,
+              restart=unit_changed or config_changed or rules_changed or service_user_changed, unit=unit_changed)
     return plan
 
 
