@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+from simulated_daemon import simulated_daemon
 
 from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 from tests.daemon_harness import _json_request, wait_for
@@ -122,27 +123,16 @@ def test_an_offline_reduction_from_the_install_matches_the_checkout(installed: I
 
 
 def test_a_short_simulated_run_on_the_packaged_firmware(installed: Installed) -> None:
-    sock, db = installed.work / "d.sock", installed.work / "runs.db"
-    daemon = subprocess.Popen([installed.bin("linerigd"), "--simulate", "--firmware", "--speed", "50",
-                               "--socket", str(sock), "--db", str(db)], cwd=installed.work,
-                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    try:
-        assert daemon.stdout is not None
-        ready = json.loads(daemon.stdout.readline() or "{}")
-        assert ready.get("ready") and ready.get("firmware") == "cpython", ready  # no micropython in a plain install
+    with simulated_daemon(installed.work, 50, "--firmware", linerigd=(installed.bin("linerigd"),)) as daemon:
+        assert daemon["ready"].get("firmware") == "cpython"  # the packaged firmware; no micropython in a plain install
+        sock = daemon["socket"]
         wait_for(lambda: _json_request(sock, {"op": "status"}).get("link_up"), 30, "the front end link")
         done = installed.run(installed.bin("linerig"), "--socket", str(sock), "start", "--heat-s", "120",
                              "--recover-s", "60", "--baseline-s", "60", "--wait", "--json")
-        assert done.returncode == 0, done.stderr
-        out = json.loads(done.stdout)
-        k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
-        assert out["state"] == "done" and abs(out["results"]["heater"]["k_W_per_mK"] / k_true - 1) < 0.15, out
-    finally:
-        daemon.terminate()
-        try:
-            daemon.wait(20)
-        except subprocess.TimeoutExpired:
-            daemon.kill()
+    assert done.returncode == 0, done.stderr
+    out = json.loads(done.stdout)
+    k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
+    assert out["state"] == "done" and abs(out["results"]["heater"]["k_W_per_mK"] / k_true - 1) < 0.15, out
 
 
 def test_the_setup_command_from_the_install_on_a_throwaway_root(installed: Installed) -> None:

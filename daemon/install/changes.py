@@ -15,23 +15,27 @@ from pathlib import Path
 from linerig.daemon.install.host import Host
 
 
+class _Step:
+    """What every change can do besides saying what it is and doing it: show its content (files only)."""
+
+    def detail(self) -> list[str]:
+        return []
+
+
 @dataclass(frozen=True)
-class MakeDir:
+class MakeDir(_Step):
     path: Path
     mode: int = 0o755
 
     def summary(self) -> str:
         return f"create folder {self.path} (mode {self.mode:04o})"
 
-    def detail(self) -> list[str]:
-        return []
-
     def apply(self, host: Host) -> None:
         host.path(self.path).mkdir(mode=self.mode)
 
 
 @dataclass(frozen=True)
-class WriteFile:
+class WriteFile(_Step):
     path: Path
     text: str
     old: str | None = None
@@ -56,30 +60,24 @@ class WriteFile:
 
 
 @dataclass(frozen=True)
-class RemoveFile:
+class RemoveFile(_Step):
     path: Path
 
     def summary(self) -> str:
         return f"remove {self.path}"
-
-    def detail(self) -> list[str]:
-        return []
 
     def apply(self, host: Host) -> None:
         host.path(self.path).unlink(missing_ok=True)
 
 
 @dataclass(frozen=True)
-class RemoveDir:
+class RemoveDir(_Step):
     """A folder linerig-setup made, once what it put there is gone (left alone if anything else is in it)."""
 
     path: Path
 
     def summary(self) -> str:
         return f"remove folder {self.path} (if empty)"
-
-    def detail(self) -> list[str]:
-        return []
 
     def apply(self, host: Host) -> None:
         folder = host.path(self.path)
@@ -88,15 +86,12 @@ class RemoveDir:
 
 
 @dataclass(frozen=True)
-class RunCommand:
+class RunCommand(_Step):
     argv: tuple[str, ...]
     why: str
 
     def summary(self) -> str:
         return f"run {shlex.join(self.argv)}  ({self.why})"
-
-    def detail(self) -> list[str]:
-        return []
 
     def apply(self, host: Host) -> None:
         host.run(list(self.argv))

@@ -8,7 +8,6 @@ there, as if the commands printed last time had been run. So a second run change
 from __future__ import annotations
 
 import contextlib
-import grp
 import json
 import pwd
 import socket
@@ -16,6 +15,7 @@ import subprocess
 from pathlib import Path
 from typing import Any
 
+from linerig.daemon.config import group_on_this_machine
 from linerig.daemon.install.layout import CONFIG, SERVICE, SYSUSERS, UNIT, on
 from linerig.daemon.install.render import configured_port
 
@@ -58,13 +58,7 @@ class Host:
         return self._systemctl_says("is-enabled")
 
     def accounts_exist(self, user: str, groups: set[str]) -> bool:
-        try:
-            pwd.getpwnam(user)
-            for g in groups:
-                grp.getgrnam(g)
-        except KeyError:
-            return False
-        return True
+        return self.user_exists(user) and all(self.group_exists(g) for g in groups)
 
     def user_exists(self, user: str) -> bool:
         try:
@@ -74,11 +68,7 @@ class Host:
         return True
 
     def group_exists(self, group: str) -> bool:
-        try:
-            grp.getgrnam(group)
-        except KeyError:
-            return False
-        return True
+        return group_on_this_machine(group)
 
     def daemon_status(self, path: Path, wait_s: float = 10.0) -> dict[str, Any] | None:
         """The daemon's status over its socket (one request, one reply line), or None when none answers there."""
