@@ -285,3 +285,15 @@ def test_a_port_named_on_the_command_line_is_used_even_when_it_does_not_answer(
     assert done.returncode == 0, done.stderr
     assert f"front end: given with --frontend, did not identify itself at {SILENT}" in done.stdout
     assert f'SYMLINK=="{SILENT.removeprefix("/dev/")}"' in (root / "etc/udev/rules.d/70-linerig.rules").read_text()
+
+
+def test_the_live_system_is_changed_only_by_root_on_a_machine_run_by_systemd(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+    """Without --root nothing is written unless both hold (here neither may: systemd's marker is pointed away)."""
+    from linerig.daemon.install import main as setup_main
+
+    monkeypatch.setattr(setup_main, "SYSTEMD_RUNNING", tmp_path / "no-systemd")
+    assert setup_main.main([]) == 2
+    err = capsys.readouterr().err
+    assert ("changing the system needs root" in err if os.geteuid() != 0
+            else f"this machine does not run systemd ({tmp_path / 'no-systemd'} is missing)" in err)

@@ -48,7 +48,8 @@ class Host:
 
     def _systemctl_says(self, verb: str) -> bool:
         with contextlib.suppress(FileNotFoundError):
-            return subprocess.run(["systemctl", verb, "--quiet", SERVICE], timeout=60).returncode == 0
+            return subprocess.run(["systemctl", verb, "--quiet", SERVICE], capture_output=True,
+                                  timeout=60).returncode == 0
         return False
 
     def service_running(self) -> bool:

@@ -19,6 +19,8 @@ from linerig.daemon.install.layout import CONFIG, DATABASE
 from linerig.daemon.install.plan import Options, Plan, SetupError, install_plan, uninstall_plan
 from linerig.daemon.install.render import RenderError
 
+SYSTEMD_RUNNING = Path("/run/systemd/system")
+"""There when systemd is the init system (what sd_booted checks)."""
 HIDDEN_FROM_SERVICE = ("/home", "/root", "/tmp", "/var/tmp", "/run/user")
 """Folders the unit's ProtectHome and PrivateTmp hide from the service: linerig must not be installed there."""
 
@@ -96,6 +98,10 @@ def main(argv: list[str] | None = None) -> int:
     if host.live and not args.dry_run and os.geteuid() != 0:
         print("linerig-setup: changing the system needs root: run it with sudo (or try --dry-run, or --root DIR)",
               file=sys.stderr)
+        return 2
+    if host.live and not args.dry_run and not SYSTEMD_RUNNING.is_dir():
+        print(f"linerig-setup: this machine does not run systemd ({SYSTEMD_RUNNING} is missing), which the service "
+              "needs; --root DIR writes the files into a folder instead", file=sys.stderr)
         return 2
     where = "this machine" if host.live else f"the throwaway root {host.root}"
     try:
