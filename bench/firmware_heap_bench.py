@@ -114,9 +114,11 @@ def main() -> int:
     import tempfile
     from pathlib import Path
 
+    from linerig.daemon.resources import firmware_dir
+
     root = Path(__file__).resolve().parents[1]
     bin_dir = Path(sys.executable).parent
-    sources = sorted((root / "hardware" / "firmware" / "probefw").glob("*.py"))  # (no *-unpacking: mpy-cross
+    sources = sorted((firmware_dir() / "probefw").glob("*.py"))  # (no *-unpacking: mpy-cross
     sources += [root / "tests" / "firmware" / "board.py", Path(__file__).resolve()]  # compiles this file too)
     with tempfile.TemporaryDirectory() as tmp:
         (Path(tmp) / "probefw").mkdir()

@@ -24,13 +24,13 @@ from linerig.daemon.probe import ProbeProfile, load_probe_profile
 from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.reduction.synthetic import Medium, make_run
+from linerig.daemon.resources import default_probe_path
 from linerig.daemon.sim.materials import get_material
 from linerig.daemon.sim.physics import RadialModel
 from linerig.daemon.sim.records import recorded_run
 from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
-ROOT = Path(__file__).resolve().parents[1]
-NEEDLE = load_probe_profile(ROOT / "daemon" / "profiles" / "default-needle.toml")
+NEEDLE = load_probe_profile(default_probe_path())
 SEEDS = range(5)
 
 

@@ -35,6 +35,7 @@ sys.path.insert(0, str(ROOT))
 from linerig.daemon.probe import load_probe_profile  # noqa: E402
 from linerig.daemon.reduction.api import reduce_run  # noqa: E402
 from linerig.daemon.reduction.data import ReductionError, RunData  # noqa: E402
+from linerig.daemon.resources import default_probe_path  # noqa: E402
 from tests.reference import load, records  # noqa: E402
 
 QUANTITIES = (("k", "k_W_per_mK", "k_u_W_per_mK"), ("alpha", "alpha_m2_per_s", "alpha_u_m2_per_s"),
@@ -141,7 +142,7 @@ def default_run(n: int) -> None:
     from linerig.daemon.sim.records import recorded_run
     from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
-    needle = load_probe_profile(ROOT / "daemon" / "profiles" / "default-needle.toml")
+    needle = load_probe_profile(default_probe_path())
     mat = get_material("moist-sand")
     us, inside, errs = [], [], []
     for seed in range(1, n + 1):

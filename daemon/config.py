@@ -40,6 +40,7 @@ import grp
 import math
 import re
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
@@ -47,10 +48,10 @@ from typing import Any
 from linerig.daemon.controller import PLAN_HELP, PlanError, RunPlan
 from linerig.daemon.errors import ConfigError
 from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
+from linerig.daemon.resources import default_probe_path
 from linerig.daemon.safety import LIMIT_HELP, Limits, check_plan, limit_problem, plan_power_problem
 
 DEFAULT_CONFIG_PATH = Path("/etc/linerig/rig.toml")
-DEFAULT_PROBE_PATH = Path(__file__).parent / "profiles" / "default-needle.toml"
 _URL = re.compile(r"^[a-z][a-z0-9+.-]*://", re.IGNORECASE)
 _KEY = re.compile(r"^((?:[A-Za-z0-9_-]+|\"[^\"]*\"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_-]+|\"[^\"]*\"|'[^']*'))*)\s*=")
 
@@ -101,7 +102,7 @@ class RigConfig:
     def probe(self) -> ProbeProfile:
         if self.active_probe is not None:
             return self.active_probe
-        return load_probe_profile(DEFAULT_PROBE_PATH)
+        return load_probe_profile(default_probe_path())
 
 
 SECTIONS = ("devices", "daemon", "probes", "limits", "run", "presets", "sync")
@@ -229,7 +230,15 @@ def _devices(src: _Src, t: dict[str, Any]) -> DeviceConfig:
     return DeviceConfig(**kw)
 
 
-def _daemon(src: _Src, t: dict[str, Any], base: Path) -> DaemonConfig:
+def group_on_this_machine(name: str) -> bool:
+    try:
+        grp.getgrnam(name)
+    except KeyError:
+        return False
+    return True
+
+
+def _daemon(src: _Src, t: dict[str, Any], base: Path, group_exists: Callable[[str], bool]) -> DaemonConfig:
     _only(src, t, ["daemon"], _DAEMON_KEYS)
     kw: dict[str, Any] = {}
     for key in ("socket", "database"):
@@ -242,11 +251,9 @@ def _daemon(src: _Src, t: dict[str, Any], base: Path) -> DaemonConfig:
         v = t["group"]
         if not isinstance(v, str) or not v:
             raise src.error(["daemon", "group"], f"expected a group name, got {v!r}")
-        try:
-            grp.getgrnam(v)
-        except KeyError:
+        if not group_exists(v):
             raise src.error(["daemon", "group"], f"no group {v!r} on this machine; create it (see "
-                                                 "systemd/README.md) or remove the key") from None
+                                                 "systemd/README.md) or remove the key")
         kw["group"] = v
     if "max_database_MB" in t:
         v = t["max_database_MB"]
@@ -368,7 +375,9 @@ def _check_limits_against(src: _Src, written: dict[str, Any], limits: Limits, pr
             raise src.error(["limits", "max_power_W_per_m"], problem)
 
 
-def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None) -> RigConfig:
+def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None,
+                 group_exists: Callable[[str], bool] = group_on_this_machine) -> RigConfig:
+    """``group_exists`` answers for the machine the file is for (linerig-setup checks one under a throwaway root)."""
     src = _Src(source, text)
     try:
         doc = tomllib.loads(text)
@@ -379,11 +388,11 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
             raise src.error([key], f"unknown section; expected one of: {', '.join(SECTIONS)}")
     base = base_dir or Path.cwd()
     devices = _devices(src, _table(src, doc, "devices"))
-    daemon = _daemon(src, _table(src, doc, "daemon"), base)
+    daemon = _daemon(src, _table(src, doc, "daemon"), base, group_exists)
     probes, active = _probes(src, _table(src, doc, "probes"), base)
     limits = _limits(src, _table(src, doc, "limits"))
     plan = _plan(src, _table(src, doc, "run"), ["run"], RunPlan())
-    probe = active or load_probe_profile(DEFAULT_PROBE_PATH)
+    probe = active or load_probe_profile(default_probe_path())
     if plan.sensor == RunPlan().sensor and "sensor" not in _table(src, doc, "run") \
             and plan.sensor not in [s.name for s in probe.sensors]:
         plan = plan.with_changes({"sensor": probe.sensors[0].name})  # the default follows the probe
@@ -439,7 +448,7 @@ def _devices_by_line(text: str) -> dict[str, Any]:
     return table
 
 
-def load_config(path: Path) -> RigConfig:
+def load_config(path: Path, group_exists: Callable[[str], bool] = group_on_this_machine) -> RigConfig:
     try:
         raw = path.read_bytes()
     except FileNotFoundError:
@@ -452,4 +461,4 @@ def load_config(path: Path) -> RigConfig:
         line = raw.count(b"\n", 0, exc.start) + 1
         raise ConfigError(f"{path} line {line}: byte 0x{raw[exc.start]:02X} is not UTF-8 text; save the file as "
                           "UTF-8") from None
-    return parse_config(text, str(path), path.parent)
+    return parse_config(text, str(path), path.parent, group_exists)

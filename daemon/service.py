@@ -26,7 +26,6 @@ import os
 import time
 from collections import deque
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -633,6 +632,8 @@ class RigService:
             "identity": self.frontend.identity.__dict__ if self.frontend.identity else None,
             "heater_armed": self.armed_power is not None,
             "heat_source": "scpi" if self.supply is not None else "frontend",
+            "supply_identity": self.supply.supply.identity.__dict__
+            if self.supply is not None and self.supply.supply.identity else None,
             "heater_on": bool(self.last_sample and self.last_sample["heater_on"]),
             "fault": self.fault,
             "store_failed": self.store.failed,
@@ -703,5 +704,6 @@ def _profile_dict(p: ProbeProfile) -> dict[str, Any]:
 
 def load_default_probe() -> ProbeProfile:
     from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.resources import default_probe_path
 
-    return load_probe_profile(Path(__file__).parent / "profiles" / "default-needle.toml")
+    return load_probe_profile(default_probe_path())

@@ -17,8 +17,10 @@ from pathlib import Path
 
 import pytest
 
+from linerig.daemon.resources import firmware_dir
+
 ROOT = Path(__file__).resolve().parents[1]
-FW_DIR = ROOT / "hardware" / "firmware"
+FW_DIR = firmware_dir()
 CASES_DIR = Path(__file__).resolve().parent / "firmware"
 for _p in (FW_DIR, CASES_DIR):
     if str(_p) not in sys.path:

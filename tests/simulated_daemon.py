@@ -12,17 +12,20 @@ from typing import Any
 
 
 @contextlib.contextmanager
-def simulated_daemon(tmp_path: Path, speed: float, *extra: str) -> Iterator[dict[str, Any]]:
+def simulated_daemon(tmp_path: Path, speed: float, *extra: str,
+                     linerigd: tuple[str, ...] = (sys.executable, "-m", "linerig.daemon.main"),
+                     ) -> Iterator[dict[str, Any]]:
+    """``linerigd`` is the command that starts the daemon (another installation's, for one); it runs in tmp_path."""
     sock, db, hlog = tmp_path / "d.sock", tmp_path / "runs.db", tmp_path / "heater.jsonl"
     proc = subprocess.Popen(
-        [sys.executable, "-m", "linerig.daemon.main", "--simulate", *extra, "--speed", str(speed),
+        [*linerigd, "--simulate", *extra, "--speed", str(speed),
          "--socket", str(sock), "--db", str(db), "--sim-heater-log", str(hlog)],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=tmp_path)
     try:
         assert proc.stdout is not None
         ready = json.loads(proc.stdout.readline() or "{}")
         assert ready.get("ready"), proc.stderr.read() if proc.poll() is not None else "daemon did not report ready"
-        yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc}
+        yield {"socket": sock, "db": db, "heater_log": hlog, "proc": proc, "ready": ready}
     finally:
         proc.terminate()
         try:

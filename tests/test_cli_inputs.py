@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from linerig.daemon import resources
 from linerig.daemon.probe import load_probe_profile
 from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.synthetic import Medium, make_run
@@ -63,12 +64,12 @@ def test_profiles_the_daemon_stores_are_read_back(tmp_path: Path) -> None:
     from linerig.daemon.service import _profile_dict
 
     needle = load_probe_profile(NEEDLE)
-    rod = load_probe_profile(ROOT / "hardware" / "probes" / "field-rod.toml")
+    rod = load_probe_profile(resources.probe_profile("field-rod"))
     store = Store(tmp_path / "d.db")
     try:
         # as linerigd writes the probes it loads, and as a TOML file would be kept
         store.upsert_probe(needle.serial, needle.name, needle.kind, json.dumps(_profile_dict(needle)))
-        store.upsert_probe(rod.serial, rod.name, rod.kind, (ROOT / "hardware" / "probes" / "field-rod.toml")
+        store.upsert_probe(rod.serial, rod.name, rod.kind, (resources.probe_profile("field-rod"))
                            .read_text(encoding="utf-8"))
     finally:
         store.close()
@@ -205,7 +206,7 @@ def test_qualify_checks_where_results_go_first_and_reports_carry_cautions(
         tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     crit = tmp_path / "fast.toml"
     crit.write_text(FAST_SETTINGS, encoding="utf-8")
-    probe = str(ROOT / "hardware" / "probes" / "lab-needle.toml")
+    probe = str(resources.probe_profile("lab-needle"))
     common = ["qualify", "run", probe, "--simulate", "--criteria", str(crit), "--sim-interval", "1.6",
               "--sim-radial-only", "--insulation-MOhm", "5000", "--quiet"]
     # refused before the procedure runs: a report folder that is not there, a database folder that is not there
@@ -241,7 +242,7 @@ def test_qualify_list_on_a_database_without_qualifications(tmp_path: Path,
 
 def test_profile_dict_round_trip_keeps_every_field() -> None:
     """The daemon stores dataclass fields; every field of a profile must survive the reader."""
-    prof = load_probe_profile(ROOT / "hardware" / "probes" / "dual-needle.toml")
+    prof = load_probe_profile(resources.probe_profile("dual-needle"))
     from linerig.daemon.probe import stored_profile
 
     assert stored_profile(json.dumps(asdict(prof)), "probe test") == prof

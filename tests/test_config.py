@@ -8,11 +8,12 @@ from pathlib import Path
 
 import pytest
 
+from linerig.daemon import resources
 from linerig.daemon.config import RigConfig, key_line, load_config, parse_config
 from linerig.daemon.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parent.parent
-PROFILE = ROOT / "daemon" / "profiles" / "default-needle.toml"
+PROFILE = resources.default_probe_path()
 
 GOOD = f"""\
 # a lab rig
@@ -192,7 +193,7 @@ def test_without_config_or_front_end_the_daemon_says_what_to_do(tmp_path: Path) 
 
 
 def test_the_example_for_etc_linerig_parses(tmp_path: Path) -> None:
-    text = (ROOT / "systemd" / "rig.toml.example").read_text()
+    text = resources.service_file("rig.toml.example").read_text()
     (tmp_path / "probes").mkdir()
     (tmp_path / "probes" / "lab-needle.toml").write_text(PROFILE.read_text())
     text = text.replace('group = "linerig"', 'group = "root"')  # the service's group may not exist here
@@ -201,15 +202,16 @@ def test_the_example_for_etc_linerig_parses(tmp_path: Path) -> None:
 
 
 def test_the_service_unit_passes_systemd_analyze_verify(tmp_path: Path) -> None:
+    """The unit as linerig-setup installs it: pointed at this environment's commands."""
     import shutil
+
+    from linerig.daemon.install.render import unit_text
 
     if shutil.which("systemd-analyze") is None:
         pytest.skip("systemd-analyze is not installed here")
-    unit = (ROOT / "systemd" / "linerigd.service").read_text()
-    linerigd = Path(sys.executable).parent / "linerigd"
-    if not linerigd.exists():
+    if not (Path(sys.executable).parent / "linerigd").exists():
         pytest.skip("linerigd is not installed in this environment")
-    (tmp_path / "linerigd.service").write_text(unit.replace("/opt/linerig/bin/linerigd", str(linerigd)))
+    (tmp_path / "linerigd.service").write_text(unit_text(Path(sys.executable).parent))
     done = subprocess.run(["systemd-analyze", "verify", str(tmp_path / "linerigd.service")], capture_output=True,
                           text=True, timeout=60)
     assert done.returncode == 0 and "linerigd.service" not in done.stderr, done.stderr

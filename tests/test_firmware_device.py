@@ -8,9 +8,10 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-from firmware_path import FW_DIR, FakeRig, Harness, board
+from firmware_path import FakeRig, Harness, board
 
 from linerig.daemon.probe import load_probe_profile
+from linerig.daemon.resources import probe_profiles
 from linerig.daemon.rig import its90
 
 
@@ -29,7 +30,7 @@ def test_every_frame_the_firmware_sends_decodes_on_the_host() -> None:
     assert c.frames == len(h.messages) and (c.bad_frames, c.seq_gaps, c.skipped_bytes) == (0, 0, 0)
 
 
-@pytest.mark.parametrize("profile", sorted((FW_DIR.parent / "probes").glob("*.toml")), ids=lambda p: p.stem)
+@pytest.mark.parametrize("profile", probe_profiles(), ids=lambda p: p.stem)
 def test_example_probe_profiles_work_with_the_firmware(profile: Path) -> None:
     # Each example probe, driven from a 12.6 V battery at 20 W/m: the firmware accepts its configuration and
     # holds the power (true power from the simulated board's Ohm's law).

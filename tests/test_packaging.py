@@ -1,4 +1,5 @@
-"""The distribution installs one import namespace, ``linerig``, over the top-level folders daemon/ and tui/."""
+"""The distribution installs one import namespace, ``linerig``, over the top-level folders daemon/ and tui/, with the
+data packages hardware/ and systemd/ beside them."""
 
 from __future__ import annotations
 
@@ -8,6 +9,8 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 TOPS = ("daemon", "tui")
+DATA_TOPS = ("hardware", "systemd")
+SKIP = {"__pycache__"}
 
 
 def _declared() -> tuple[set[str], dict[str, str]]:
@@ -15,11 +18,18 @@ def _declared() -> tuple[set[str], dict[str, str]]:
     return set(cfg["packages"]), cfg["package-dir"]
 
 
+def _folders(top: str) -> set[str]:
+    """Every folder under ``top`` that holds a file, as its linerig package name."""
+    return {"linerig." + ".".join(p.parent.relative_to(ROOT).parts) for p in (ROOT / top).rglob("*")
+            if p.is_file() and not SKIP & set(p.parts)}
+
+
 def test_every_package_folder_is_declared_under_linerig() -> None:
+    """A folder missing from the list would be left out of the wheel (data folders too: the probe profiles,
+    the firmware), and setuptools warns that it would be ignored."""
     packages, dirs = _declared()
-    assert dirs == {f"linerig.{top}": top for top in TOPS}
-    on_disk = {"linerig." + ".".join(p.parent.relative_to(ROOT).parts)
-               for top in TOPS for p in (ROOT / top).rglob("__init__.py")}
+    assert dirs == {f"linerig.{top}": top for top in (*TOPS, *DATA_TOPS)}
+    on_disk = set().union(*(_folders(top) for top in (*TOPS, *DATA_TOPS)))
     assert on_disk == packages, f"missing {sorted(on_disk - packages)}, stale {sorted(packages - on_disk)}"
 
 

@@ -4,7 +4,6 @@ really answers, and the tables agree with the code on both sides of the wire."""
 from __future__ import annotations
 
 import re
-from pathlib import Path
 
 import pytest
 from firmware_path import FakeRig
@@ -12,10 +11,11 @@ from probefw import device as fw_device
 from probefw import limits as fw_limits
 from probefw.device import FrontEnd
 
+from linerig.daemon import resources
 from linerig.daemon.rig import its90, messages
 from linerig.daemon.rig.framing import Frame, crc32, decode_line
 
-DOC = Path(__file__).resolve().parents[1] / "hardware" / "PROTOCOL.md"
+DOC = resources.hardware_doc("PROTOCOL.md")
 COMMAND_FIELDS = {"I": 0, "C": 4, "P": 2, "O": 0, "L": 1, "Q": 0}
 
 

@@ -80,14 +80,13 @@ def test_live_uncertainty_shrinks_as_heating_goes_on() -> None:
     # The default plan (120 s baseline, 600 s at 5 W/m) with the default needle in the simulator's moist sand (its
     # finite-volume solver, noise 10 mK). Before the drift became a parameter of the live fit, the ± grew from
     # about 1.7 % after a minute to 6.4 % at the end of heating (the baseline's slope uncertainty extrapolated).
-    from pathlib import Path
-
     from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.resources import default_probe_path
     from linerig.daemon.sim.materials import get_material
     from linerig.daemon.sim.records import recorded_run
     from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
-    needle = load_probe_profile(Path(__file__).resolve().parents[1] / "daemon" / "profiles" / "default-needle.toml")
+    needle = load_probe_profile(default_probe_path())
     for seed in (2, 3):
         rig = SimulatedRig(get_material("moist-sand"), ProbeSpec.default_needle(), seed=seed, axial_loss=True)
         data = recorded_run(rig, baseline_s=120.0, heat_s=600.0, recover_s=0.0, q_W_per_m=5.0)

@@ -8,8 +8,6 @@ assumes, so there the model may stand, and the reference set is where it must no
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import pytest
 
@@ -19,13 +17,13 @@ from linerig.daemon.reduction.data import RunData
 from linerig.daemon.reduction.live import replay
 from linerig.daemon.reduction.methods import Estimate, Found, MethodResult, Options
 from linerig.daemon.reduction.select import line_disagreement
+from linerig.daemon.resources import default_probe_path
 from linerig.daemon.sim.materials import get_material
 from linerig.daemon.sim.records import recorded_run
 from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 from tests.reference import load
 
-ROOT = Path(__file__).resolve().parents[1]
-NEEDLE = load_probe_profile(ROOT / "daemon" / "profiles" / "default-needle.toml")
+NEEDLE = load_probe_profile(default_probe_path())
 
 
 @pytest.fixture(scope="module")

@@ -14,13 +14,13 @@ The simulated needle runs use the simulator's finite-volume (r, z) solver, which
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import mpmath as mp
 import numpy as np
 import pytest
 from scipy.special import exp1
 
+from linerig.daemon import resources
 from linerig.daemon.probe import ProbeProfile, load_probe_profile
 from linerig.daemon.reduction import window as win
 from linerig.daemon.reduction.api import reduce_run
@@ -32,8 +32,7 @@ from linerig.daemon.sim.physics import RadialModel
 from linerig.daemon.sim.records import recorded_run
 from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
-ROOT = Path(__file__).resolve().parents[1]
-NEEDLE = load_probe_profile(ROOT / "daemon" / "profiles" / "default-needle.toml")
+NEEDLE = load_probe_profile(resources.default_probe_path())
 LONG = ProbeProfile(name="long needle", radius_mm=0.635, heater_length_mm=1e5, heat_capacity_MJ_per_m3K=3.2)
 SAND = get_material("moist-sand")
 A = 0.635e-3

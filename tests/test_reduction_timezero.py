@@ -9,7 +9,6 @@ record with its power column where the rig delivered it.
 from __future__ import annotations
 
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -21,11 +20,12 @@ from linerig.daemon.reduction.methods import Found, Options
 from linerig.daemon.reduction.methods.probe import ProbeModelMethod
 from linerig.daemon.reduction.record import HeatingRecord, SensorRecord
 from linerig.daemon.reduction.timezero import early_rise, rectangular_u
+from linerig.daemon.resources import default_probe_path
 from linerig.daemon.sim.materials import get_material
 from linerig.daemon.sim.records import recorded_run
 from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
-NEEDLE = load_probe_profile(Path(__file__).resolve().parents[1] / "daemon" / "profiles" / "default-needle.toml")
+NEEDLE = load_probe_profile(default_probe_path())
 
 
 @pytest.fixture(scope="module")

@@ -22,6 +22,7 @@ from typing import Any
 import pytest
 from waiting import Changed
 
+from linerig.daemon import resources
 from linerig.daemon.rig import its90
 from linerig.daemon.rig.framing import Frame, FrameDecoder, decode_line, encode_frame
 from linerig.daemon.rig.messages import Sample, parse_message
@@ -32,7 +33,7 @@ from linerig.daemon.sim.rig_model import ProbeSpec, SensorSpec, SimulatedRig
 from linerig.daemon.sim.server import PtyPort
 from linerig.daemon.sim.wall_link import LINK_FIELDS
 
-DOC = Path(__file__).resolve().parents[1] / "hardware" / "PROTOCOL.md"
+DOC = resources.hardware_doc("PROTOCOL.md")
 TICK_S = 0.005
 EULER_GAMMA = 0.5772156649015329
 

@@ -348,12 +348,10 @@ def test_from_profile_reads_millimetre_and_si_attributes() -> None:
 
 
 def test_from_profile_accepts_the_daemons_default_profile() -> None:
-    from pathlib import Path
-
     from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.resources import default_probe_path
 
-    path = Path(__file__).resolve().parent.parent / "daemon" / "profiles" / "default-needle.toml"
-    p = ProbeSpec.from_profile(load_probe_profile(path))
+    p = ProbeSpec.from_profile(load_probe_profile(default_probe_path()))
     assert p.heater_length_m == pytest.approx(0.1) and p.radius_m == pytest.approx(0.635e-3)
     assert p.probe_rho_c == pytest.approx(3.2e6) and p.heater_resistance_ohm == pytest.approx(40.0)
     assert [(s.name, s.radial_m, s.axial_m) for s in p.sensors] == [("heater", 0.0, pytest.approx(0.05))]

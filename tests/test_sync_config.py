@@ -10,8 +10,7 @@ import pytest
 
 from linerig.daemon.config import parse_config
 from linerig.daemon.errors import ConfigError
-
-ROOT = Path(__file__).resolve().parent.parent
+from linerig.daemon.resources import service_file
 
 
 def test_a_sync_section_with_defaults_and_its_own_settings() -> None:
@@ -46,7 +45,7 @@ def test_a_password_in_the_file_only_when_insisted_on() -> None:
 
 
 def test_the_commented_example_parses_when_uncommented(tmp_path: Path) -> None:
-    text = (ROOT / "systemd" / "rig.toml.example").read_text()
+    text = service_file("rig.toml.example").read_text()
     block = text[text.index("# [sync]"):]
     lines = [re.sub(r"^# ", "", ln) for ln in block.splitlines() if not ln.startswith("#  ")]
     cfg = parse_config("\n".join(lines), str(tmp_path / "rig.toml"), tmp_path).sync

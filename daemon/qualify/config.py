@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-DEFAULT_CRITERIA_PATH = Path(__file__).with_name("criteria.toml")
+from linerig.daemon.resources import qualify_criteria_path
 
 CRITERION_IDS = (
     "insulation", "heater_resistance", "heater_tcr", "heater_drift", "tc_offset", "tc_noise", "response_time",
@@ -269,7 +269,7 @@ def config_from_dict(doc: dict[str, Any]) -> QualificationConfig:
 
 def load_config(path: str | Path | None = None, overrides: dict[str, Any] | None = None) -> QualificationConfig:
     """Defaults, then the file at ``path`` (if any), then ``overrides`` (a dict shaped like the file)."""
-    doc = tomllib.loads(DEFAULT_CRITERIA_PATH.read_text(encoding="utf-8"))
+    doc = tomllib.loads(qualify_criteria_path().read_text(encoding="utf-8"))
     if path is not None:
         p = Path(path)
         try:

@@ -42,22 +42,20 @@ from __future__ import annotations
 import contextlib
 import logging
 import math
-import os
 import random
 import secrets
 import sys
 from collections.abc import Callable
-from pathlib import Path
 from types import ModuleType
 from typing import Any
 
+from linerig.daemon.resources import FIRMWARE_ENV, firmware_dir
 from linerig.daemon.rig import its90
 from linerig.daemon.sim.frontend_sim import WireFaults
 from linerig.daemon.sim.rig_model import FAULT_OPEN, FAULT_RANGE, SimulatedRig
 from linerig.daemon.sim.wall_link import MAX_CYCLES_PER_CALL, WallLink, catch_up, heater_reason, missing_link_field
 
 __all__ = [
-    "FIRMWARE_DIR",
     "MAX_CYCLES_PER_CALL",
     "FirmwareFrontEnd",
     "FirmwareInterfaceError",
@@ -66,9 +64,6 @@ __all__ = [
     "firmware_modules",
 ]
 
-FIRMWARE_DIR = Path(os.environ.get("LINERIG_FIRMWARE_DIR") or Path(__file__).resolve().parents[2] / "hardware"
-                    / "firmware")
-"""Where ``probefw`` lives: the source tree's hardware/firmware, or $LINERIG_FIRMWARE_DIR."""
 
 MONITOR_GAIN_SD = 5e-4  # power monitor gain noise, 0.05 % (a 16-bit shunt monitor; common practice, no source)
 BUS_LSB_V = 1.25e-3  # INA226-class bus and shunt resolution, as probefw/powermon.py reads them
@@ -91,17 +86,17 @@ _modules: tuple[ModuleType, ModuleType] | None = None
 
 
 def firmware_modules() -> tuple[ModuleType, ModuleType]:
-    """(probefw.device, probefw.regulator), importing them from `FIRMWARE_DIR` on first use."""
+    """(probefw.device, probefw.regulator), importing them from `resources.firmware_dir()` on first use."""
     global _modules
     if _modules is None:
-        if not (FIRMWARE_DIR / "probefw" / "device.py").is_file():
+        where = firmware_dir()
+        if not (where / "probefw" / "device.py").is_file():
             raise FirmwareNotFoundError(
-                f"the simulator runs the front-end firmware from {FIRMWARE_DIR / 'probefw'}, which is missing; "
-                "run it from a linerig source checkout (pip install -e .) or set LINERIG_FIRMWARE_DIR to the "
-                "folder that holds probefw/"
+                f"the simulator runs the front-end firmware from {where / 'probefw'}, which is missing; "
+                f"reinstall linerig, or set {FIRMWARE_ENV} to the folder that holds probefw/"
             )
-        if str(FIRMWARE_DIR) not in sys.path:
-            sys.path.insert(0, str(FIRMWARE_DIR))
+        if str(where) not in sys.path:
+            sys.path.insert(0, str(where))
         import probefw.device as device  # the path exists only now
         import probefw.regulator as regulator
 

@@ -76,8 +76,9 @@ async def _watch_parent(pid: int, server: SimServer) -> None:
 def _probe(path: Path | None) -> ProbeSpec:
     """The same profile the daemon assumes by default, so both sides agree on sensors and heater."""
     from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.resources import default_probe_path
 
-    path = path or Path(__file__).resolve().parent.parent / "profiles" / "default-needle.toml"
+    path = path or default_probe_path()
     return ProbeSpec.from_profile(load_probe_profile(path))
 
 

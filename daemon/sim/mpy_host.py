@@ -34,12 +34,12 @@ import tty
 from pathlib import Path
 from typing import Any
 
+from linerig.daemon.resources import firmware_dir, firmware_process_script
 from linerig.daemon.rig.framing import decode_line, encode_frame
-from linerig.daemon.sim.firmware_host import FIRMWARE_DIR, RigHal
+from linerig.daemon.sim.firmware_host import RigHal
 from linerig.daemon.sim.frontend_sim import WireFaults
 from linerig.daemon.sim.rig_model import SimulatedRig
 
-PROC_SCRIPT = Path(__file__).resolve().with_name("firmware_proc.py")
 READ_MAX = 1 << 16
 
 
@@ -99,8 +99,8 @@ class MicroPythonFrontEnd:
         to_fw_r, to_fw_w = os.pipe()
         from_fw_r, from_fw_w = os.pipe()
         self._proc = subprocess.Popen(
-            [self._exe, str(PROC_SCRIPT), str(FIRMWARE_DIR), repr(self.speed), cause, self.serial, self.boot_id,
-             str(self.hal.n_channels), str(to_fw_r), str(from_fw_w)],
+            [self._exe, str(firmware_process_script()), str(firmware_dir()), repr(self.speed), cause, self.serial,
+             self.boot_id, str(self.hal.n_channels), str(to_fw_r), str(from_fw_w)],
             stdin=slave, stdout=slave, pass_fds=(to_fw_r, from_fw_w), start_new_session=True,
             env={**os.environ, "MICROPYPATH": ""})
         for fd in (slave, to_fw_r, from_fw_w):

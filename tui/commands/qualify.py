@@ -21,7 +21,7 @@ from typing import Any
 
 from linerig.daemon.paths import default_db_path
 from linerig.daemon.probe import ProbeProfileError, load_probe_profile
-from linerig.daemon.qualify.config import DEFAULT_CRITERIA_PATH, QualificationConfigError, load_config
+from linerig.daemon.qualify.config import QualificationConfigError, load_config
 from linerig.daemon.qualify.procedure import run_async, run_sync
 from linerig.daemon.qualify.report import write_report
 from linerig.daemon.qualify.requests import AskNumber, Progress
@@ -35,6 +35,7 @@ from linerig.daemon.qualify.store import (
     save_qualification,
 )
 from linerig.daemon.report.sources import SourceError, open_db
+from linerig.daemon.resources import qualify_criteria_path
 from linerig.daemon.sim.rig_model import FAULT_NAMES
 
 CMD = "qualify"
@@ -296,7 +297,7 @@ def _db(args: argparse.Namespace) -> Any:
 def run(args: argparse.Namespace) -> int:
     action = args.qualify_command
     if action == "criteria":
-        sys.stdout.write(DEFAULT_CRITERIA_PATH.read_text(encoding="utf-8"))
+        sys.stdout.write(qualify_criteria_path().read_text(encoding="utf-8"))
         return 0
     if action == "run":
         return _run(args)
