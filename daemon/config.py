@@ -367,9 +367,11 @@ def _check_plan(src: _Src, plan: RunPlan, path: list[str], limits: Limits, probe
                                            f"got {plan.sensor!r}")
 
 
-def _check_limits_against(src: _Src, written: dict[str, Any], limits: Limits, probe: ProbeProfile) -> None:
-    """Limits that are fine alone but not with this probe's heater."""
-    if "max_power_W_per_m" in written:
+def _check_limits_against(src: _Src, written: dict[str, Any], limits: Limits, probe: ProbeProfile,
+                          devices: DeviceConfig) -> None:
+    """Limits that are fine alone but not with this probe's heater (the front end's flashed total-power limit
+    binds only when the front end heats; a SCPI supply has its own ceilings, ``supply_v_max``/``supply_i_max``)."""
+    if "max_power_W_per_m" in written and devices.supply is None:
         problem = plan_power_problem(limits.max_power_W_per_m, probe.length_m or 0.1)
         if problem:
             raise src.error(["limits", "max_power_W_per_m"], problem)
@@ -397,7 +399,7 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
             and plan.sensor not in [s.name for s in probe.sensors]:
         plan = plan.with_changes({"sensor": probe.sensors[0].name})  # the default follows the probe
     _check_plan(src, plan, ["run"], limits, probe)
-    _check_limits_against(src, _table(src, doc, "limits"), limits, probe)
+    _check_limits_against(src, _table(src, doc, "limits"), limits, probe, devices)
     presets: dict[str, RunPlan] = {}
     for name, table in _table(src, doc, "presets").items():
         if not isinstance(table, dict):

@@ -113,12 +113,14 @@ def test_errors_name_file_key_line_and_what_is_expected(old: str, new: str, line
 
 
 def test_the_power_limit_over_the_whole_heater_stays_under_the_front_ends() -> None:
-    rod = ROOT / "hardware" / "probes" / "field-rod.toml"
-    text = f'[probes]\nprofiles = ["{rod}"]\n[limits]\nmax_power_W_per_m = 50\n'
-    with pytest.raises(ConfigError, match=r"line 4: limits.max_power_W_per_m: 50 W/m over the 1 m heater is 50.0 W, "
-                                          r"above 45 W \(the front end's flashed limit\)"):
+    rod = ROOT / "hardware" / "probes" / "field-rod.toml"   # 1.5 m heated length
+    text = f'[probes]\nprofiles = ["{rod}"]\n[limits]\nmax_power_W_per_m = 40\n'
+    with pytest.raises(ConfigError, match=r"line 4: limits.max_power_W_per_m: 40 W/m over the 1.5 m heater is 60.0 W, "
+                                          r"above 45 W \(the front end's flashed limit\); at most 30 W/m"):
         parse_config(text, "rig.toml")
-    parse_config(text.replace("= 50", "= 40"), "rig.toml")
+    parse_config(text.replace("= 40", "= 30"), "rig.toml")
+    # a SCPI supply heats instead: the front end's total-power limit does not bind, the supply's ceilings do
+    parse_config('[devices]\nsupply = "/dev/linerig-supply"\n' + text, "rig.toml")
 
 
 def test_a_config_that_is_not_utf8_is_one_line_naming_file_and_line(tmp_path: Path) -> None:

@@ -227,7 +227,9 @@ def test_the_probe_in_use_is_chosen_by_its_profile(tmp_path: Path, ports: dict[s
     unknown = setup(root, "--probe", "lab-needel")
     assert unknown.returncode == 2 and "--probe lab-needel: no /etc/linerig/probes/lab-needel.toml" in unknown.stderr
     assert setup(root, "--probe", "field-rod").returncode == 0
-    assert load_config(root / "etc/linerig/rig.toml", lambda g: True).probe.serial == "RX15-4J-0011"
+    cfg = load_config(root / "etc/linerig/rig.toml", lambda g: True)
+    # the 1.5 m rod on the front end's heater: 45 W flashed limit / 1.5 m (hardware/firmware/probefw/limits.py)
+    assert cfg.probe.serial == "RX15-4J-0011" and cfg.limits.max_power_W_per_m == 30
     assert "nothing to change" in setup(root).stdout  # the choice stays without --probe
 
 

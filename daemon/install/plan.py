@@ -115,6 +115,16 @@ def _profiles(host: Host, changes: list[WriteFile]) -> list[str]:
 
 def _probe_key(host: Host, name: str, changes: list[WriteFile]) -> str:
     """The serial (or name) of probe profile ``name`` in the probes folder, as rig.toml's ``active`` wants it."""
+    return _probe(host, name, changes).key
+
+
+@dataclass(frozen=True)
+class _Probe:
+    key: str  # serial, or name
+    heater_length_m: float | None
+
+
+def _probe(host: Host, name: str, changes: list[WriteFile]) -> _Probe:
     target = PROBES_DIR / f"{name}.toml"
     pending = next((c for c in changes if c.path == target), None)
     path = host.path(target)
@@ -127,7 +137,19 @@ def _probe_key(host: Host, name: str, changes: list[WriteFile]) -> str:
         profile = load_probe_profile(probe_profile(name) if pending is not None else path)
     except ProbeProfileError as exc:
         raise SetupError(f"--probe {name}: {exc}") from None
-    return profile.serial or profile.name
+    return _Probe(profile.serial or profile.name, profile.length_m)
+
+
+def _active_heater_length(host: Host, active: str, changes: list[WriteFile]) -> float | None:
+    """The heated length of the profile whose serial or name is ``active`` (None when none matches)."""
+    for name in _profiles(host, []):
+        try:
+            probe = _probe(host, Path(name).stem, changes)
+        except SetupError:
+            continue
+        if probe.key == active:
+            return probe.heater_length_m
+    return None
 
 
 def install_plan(host: Host, opts: Options) -> Plan:
@@ -154,7 +176,8 @@ def install_plan(host: Host, opts: Options) -> Plan:
     elif probed or old_config is None:
         active = (_probe_key(host, opts.probe, writes) if opts.probe
                   else render.configured_probe(old_config) or _probe_key(host, DEFAULT_PROBE, writes))
-        config_changed = _want(host, CONFIG, render.config_text(found, active, profiles), writes)
+        length = _active_heater_length(host, active, writes)
+        config_changed = _want(host, CONFIG, render.config_text(found, active, profiles, length), writes)
     elif opts.probe:
         plan.notes.append(f"--probe {opts.probe} not applied: {CONFIG} is written again only when the ports are "
                           f"probed (stop {SERVICE} first)")

@@ -9,6 +9,7 @@ and nobody edited (which it may write again) from one an operator changed (which
 from __future__ import annotations
 
 import hashlib
+import math
 import re
 import tomllib
 from pathlib import Path
@@ -18,6 +19,7 @@ from linerig.daemon.install.detect import Detection
 from linerig.daemon.install.layout import BY_ID, CONTROL_GROUP, OPERATORS, PROBES_DIR
 from linerig.daemon.paths import SERVICE_SOCKET
 from linerig.daemon.resources import service_file
+from linerig.daemon.safety import FRONT_END_MAX_POWER_W, plan_power_problem
 
 PACKAGED_BIN = "/opt/linerig/bin/"
 PACKAGED_SHARE = "/opt/linerig/share/linerig/systemd/"
@@ -158,10 +160,18 @@ def untouched(text: str) -> bool:
     return m is not None and m.group(1) == mark(body)
 
 
-def config_text(found: Detection, active: str, profiles: list[str]) -> str:
+def config_text(found: Detection, active: str, profiles: list[str], heater_length_m: float | None = None) -> str:
     """The example configuration with the ports found, every probe profile listed and ``active`` (a probe's serial
-    or name) in use, under a mark (`untouched`)."""
+    or name) in use, under a mark (`untouched`). When the front end heats, the example's power limit is lowered to
+    what its flashed total-power limit allows over ``heater_length_m`` (a long rod), or the daemon refuses the file."""
     lines = service_file("rig.toml.example").read_text(encoding="utf-8").splitlines()
+    if found.supply is None and heater_length_m:
+        at = _key_line(lines, "limits", "max_power_W_per_m")
+        written = float(lines[at].split("=", 1)[1].split("#", 1)[0])
+        if plan_power_problem(written, heater_length_m):
+            most = math.floor(FRONT_END_MAX_POWER_W / heater_length_m)
+            lines[at:at + 1] = [f"# lowered at set-up: the front end's {FRONT_END_MAX_POWER_W:g} W over this probe's "
+                                f"{heater_length_m:g} m heater", f"max_power_W_per_m = {most}"]
     for role, what, hit in (("frontend", "front end", found.frontend), ("supply", "SCPI supply", found.supply)):
         at = _key_line(lines, "devices", role)
         if hit is not None:
