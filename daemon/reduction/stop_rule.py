@@ -1,0 +1,623 @@
+"""The "heating can stop" verdict: one rule for the live screen, the offline ``stable_at_s`` and the automatic stop.
+
+It answers a prediction: if heating stopped now rather than at the planned end T, how far could the k the
+reduction reports move? Both answers are predicted, for every medium the data still allow:
+
+- **the media**: the probe model (cylinder with heat capacity and contact, Blackwell 1954; Jaeger 1956;
+  ``probe_model.response_stehfest``; with the finite-line factor ½[erf(z/2√(αt)) + erf((L − z)/2√(αt))] for the
+  heater's length) is fitted to the heating so far for each medium heat capacity ρc on a grid over
+  ``RHO_C_RANGE`` (k from the slope, the contact h from the intercept); the ρc whose fit is within
+  ``ADMIT_CHI2`` noise variances of the best are admissible (≈ 95 %), and each gives its own k, α and h.
+- **what a stop now reports**: the late-time line over the reduction's own window (start where the probe's
+  slope error is under 1 %, at least 0.1·t, half a decade kept), or the probe model's k when that window is
+  shorter than a factor 2 (the reduction then reports the model);
+- **what the full heating would report**, medium by medium: the same choice at T, the line carrying the slope
+  error its window leaves (the **window's model error**), axial loss included;
+- **statistical**: the difference of two fits to the same noise (residual scatter, AR(1)-inflated, and the
+  overlap of the windows [0.1·t, t] and [0.1·T, T]); **drift**: an error δ in the baseline slope tilts each
+  window by δ·cov(t/Q, u)/var(u), so heating on changes k by δ times the difference (δ the baseline's u).
+
+"Can stop" when max over the media |now/full − 1| + 2·√(statistical² + drift²) ≤ tolerance, and none of these
+holds: the line's window is short (less than a factor 2 in time or 20 samples); no medium explains the heating
+(a boundary, moisture moving); axial loss would bend the line before T (heater length and the largest admissible
+α); no baseline (drift unknown); or no recovery window would be left for the heat–cool cross-check.
+
+It is judged on a fixed grid of ``GRID_PER_DECADE`` checkpoints per decade of time (at the first sample at or
+after each grid time), from prefix sums kept only at those checkpoints: memory and time per run grow with the
+number of decades, not of samples, and a sample-by-sample feed (live) and an array feed (offline) reach the same
+verdict at the same sample.
+
+The first "can stop" is latched (``first_at_s``). If the k a stop would report later moves from its value at the
+verdict by more than the tolerance, the verdict is withdrawn (shown until the rule says "can stop" again).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+from scipy.special import exp1
+
+from . import window as win
+from .cooling import RECOVERY_END_FACTOR, choose_recovery_window
+from .probe_model import response_stehfest
+from .stats import ar1_inflation
+
+DEFAULT_TOLERANCE = 0.02
+GRID_PER_DECADE = 64
+FLOOR = 0.1                 # window [0.1·t, t]: the offline line's floor (linesource.FLOOR_FRACTION)
+MIN_POINTS = 20             # the offline line's "short" (linesource.MIN_POINTS)
+SHORT_SPAN_LN = math.log(2.0)
+COVERAGE = 2.0              # k = 2 on the random part of the change (≈ 95 %)
+# The media a probe meets: dry sand ≈ 1.3, moist soils 2–3 MJ/(m³·K) (de Vries 1963), water 4.18 (IAPWS-95);
+# 1.0 leaves room below dry sand (common practice, no source).
+RHO_C_RANGE = np.geomspace(1.0e6, 4.2e6, 13)
+START_TOL = 0.01            # the reduction's window: slope error at its start (linesource.START_TOL) …
+END_FLOOR = 0.3             # … the axial limit never before 0.3·t (linesource.END_FLOOR) …
+HALF_DECADE_LN = 0.5        # … and at least half a decade kept (linesource.choose_window)
+SHAPE_BINS = 48             # the media are judged on at most this many bins
+ADMIT_CHI2 = 4.0            # a ρc is admissible when its fit's SSE is within 2² noise variances of the best (≈ 95 %)
+SHAPE_FROM = 0.01           # the medium is judged on the heating since 0.01·t (earlier: only the probe heats)
+MISFIT = 0.003              # model imperfection allowed, in ln-time units of rise (added to the noise; no source)
+AXIAL_TOL = 0.01            # the offline window's axial-loss end criterion (linesource.END_TOL)
+H_MAX = 5.0
+_NODES = 48
+_U0 = 5.0                   # u is summed as u − 5 (≈ ln 150 s): smaller powers, better-conditioned moments
+
+# prefix-sum columns: per sample, then lag-1 products (pair of a sample with the one before it)
+_N, _U, _Y, _UU, _UY, _YY, _T, _W, _WU, _PYY, _PYU, _PUY, _PUU, _PU, _PY = range(15)
+_COLS = 15
+
+
+@dataclass(frozen=True)
+class ProbeFacts:
+    """What the rule knows about the probe and the sensor that drives it (SI; None: unknown)."""
+
+    radius_m: float | None = None            # sensor radius: the probe radius for a sensor on the heater
+    probe_C_J_per_m3K: float | None = None   # probe heat capacity (only for a sensor on the heater)
+    length_m: float | None = None            # heated length
+    axial_m: float | None = None             # sensor distance from the heater's tip (None: mid-length)
+
+    @classmethod
+    def of(cls, probe: Any, sensor: str) -> ProbeFacts:
+        """From a ``ProbeProfile`` (or None) and the sensor name, as the live reducer and the reduction read it."""
+        if probe is None:
+            return cls()
+        on_heater = not probe.has_sensor(sensor) or probe.sensor(sensor).is_on_heater
+        r = probe.sensor_radius_m(sensor) if probe.has_sensor(sensor) else probe.radius_m
+        axial = None
+        if probe.has_sensor(sensor) and probe.sensor(sensor).axial_mm is not None:
+            axial = probe.sensor(sensor).axial_mm * 1e-3
+        cap = probe.heat_capacity_J_per_m3K if on_heater else None
+        return cls(r, cap or None, probe.length_m, axial)
+
+
+@dataclass(frozen=True)
+class StopSettings:
+    """The operator's side of the verdict: the tolerance on k and the heating planned (None: the record's own)."""
+
+    tolerance: float = DEFAULT_TOLERANCE
+    planned_heat_s: float | None = None
+
+    def __post_init__(self) -> None:
+        if not (0 < self.tolerance < 1):
+            raise ValueError(f"stop tolerance must be a fraction between 0 and 1 (0.02 = 2 %), got {self.tolerance}")
+        if self.planned_heat_s is not None and not self.planned_heat_s > 0:
+            raise ValueError(f"planned heating must be > 0 s, got {self.planned_heat_s}")
+
+
+@dataclass(frozen=True)
+class Judgement:
+    """The rule at one checkpoint. ``bound_rel`` is the predicted 95 % bound on |Δk|/k from stopping now."""
+
+    t_s: float
+    can_stop: bool
+    k_W_per_mK: float
+    bound_rel: float
+    terms: dict[str, float]
+    reason: str
+    recover_s: float | None = None            # stop plan: recovery to log after stopping now
+    recovery_window_s: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """What the operator is told (``to_dict`` for events and JSON; relative values as fractions)."""
+
+    tolerance: float
+    planned_heat_s: float
+    judged_at_s: float | None = None
+    can_stop: bool = False
+    bound_rel: float | None = None
+    terms: dict[str, float] = field(default_factory=dict)
+    reason: str = "not judged yet"
+    first_at_s: float | None = None
+    at_s: float | None = None                 # the verdict that stands (or was withdrawn)
+    k_at_W_per_mK: float | None = None
+    moved_rel: float | None = None            # the rule's k now against k at the verdict
+    withdrawn: bool = False
+    recover_s: float | None = None
+    recovery_window_s: tuple[float, float] | None = None
+    power_W: float | None = None              # planned heater power (per metre × heated length), for the energy
+
+    @property
+    def stands(self) -> bool:
+        """A verdict was given and has not been withdrawn."""
+        return self.at_s is not None and not self.withdrawn
+
+    def saved_s(self) -> float | None:
+        """Heating time a stop at the verdict saves against the plan."""
+        return None if self.at_s is None else max(self.planned_heat_s - self.at_s, 0.0)
+
+    def saved_Wh(self) -> float | None:
+        """Heater energy a stop at the verdict saves, at the planned power."""
+        s = self.saved_s()
+        return None if s is None or self.power_W is None else self.power_W * s / 3600.0
+
+    def to_dict(self) -> dict[str, Any]:
+        def clean(v: float | None) -> float | None:
+            return None if v is None or not math.isfinite(v) else float(v)
+        return {"tolerance": self.tolerance, "planned_heat_s": self.planned_heat_s,
+                "judged_at_s": self.judged_at_s, "can_stop": self.can_stop, "bound_rel": clean(self.bound_rel),
+                "terms": {k: clean(v) for k, v in self.terms.items()}, "reason": self.reason,
+                "first_at_s": self.first_at_s, "at_s": self.at_s, "k_at_W_per_mK": clean(self.k_at_W_per_mK),
+                "moved_rel": clean(self.moved_rel), "withdrawn": self.withdrawn, "saved_s": self.saved_s(),
+                "saved_Wh": clean(self.saved_Wh()), "recover_s": self.recover_s,
+                "recovery_window_s": list(self.recovery_window_s) if self.recovery_window_s else None}
+
+
+def recovery_after_stop_s(heated_s: float, planned_heat_s: float, planned_recover_s: float) -> float:
+    """How long to log the cooling after heating stopped at ``heated_s`` (the stop plan).
+
+    The recovery window of the reduction ends at 3·t_h (``cooling.RECOVERY_END_FACTOR``), so 2·t_h after the
+    switch-off gives the heat–cool cross-check all it can use; a plan that asked for relatively more cooling
+    keeps its ratio of cooling to heating.
+    """
+    if heated_s >= planned_heat_s:
+        return planned_recover_s
+    return max((RECOVERY_END_FACTOR - 1.0) * heated_s, planned_recover_s * heated_s / planned_heat_s)
+
+
+# --- the physics the prediction uses ------------------------------------------------------------------------------
+def _deviation(t: np.ndarray, k: float, rho_c: float, h: float, probe: ProbeFacts) -> np.ndarray:
+    """E(t) for a unit step: 4πk·ΔT/q = ln t + ln(α/r²) + E (probe) or ln t + ln(4α/r²) + E (ideal line at r).
+
+    E carries the probe's transient, its late constant (ln 4 − γ + 2h) and the axial loss −∫(1 − F) d ln t,
+    the integral started at the first time given (only its shape within one window matters there).
+    """
+    alpha = k / rho_c
+    r = probe.radius_m
+    assert r is not None
+    if probe.probe_C_J_per_m3K:
+        tau = alpha * t / (r * r)
+        e = response_stehfest(tau, 2.0 * rho_c / probe.probe_C_J_per_m3K, h) - np.log(tau)
+    else:
+        x = r * r / (4.0 * alpha * t)
+        e = exp1(x) + np.log(x)
+    if probe.length_m:
+        loss = 1.0 - win.axial_slope_factor(t, probe.length_m, alpha, probe.axial_m)
+        lt = np.log(t)
+        e = e - np.concatenate(([0.0], np.cumsum(0.5 * (loss[1:] + loss[:-1]) * np.diff(lt))))
+    return e
+
+
+def _ln_offset(k: float, rho_c: float, probe: ProbeFacts) -> float:
+    """The constant between 4πk·ΔT/q and ln t + E in ``_deviation``."""
+    r = probe.radius_m
+    assert r is not None
+    alpha = k / rho_c
+    return math.log(alpha / (r * r)) if probe.probe_C_J_per_m3K else math.log(4.0 * alpha / (r * r))
+
+
+def _nodes(t0: float, t1: float) -> np.ndarray:
+    return np.linspace(t0, t1, _NODES)
+
+
+def _line_bias(t0: float, t1: float, m: _Medium, probe: ProbeFacts) -> float:
+    """Relative slope error of the straight line fitted to the response over [t0, t1] (samples even in t)."""
+    t = _nodes(t0, t1)
+    e = _deviation(t, m.k, m.rho_c, m.h, probe)
+    du = np.log(t) - np.mean(np.log(t))
+    return float(du @ (e - e.mean())) / float(du @ du)
+
+
+def _window_stats(t: np.ndarray) -> tuple[float, float, float]:
+    """Mean of ln t, its variance and cov(t, ln t)/var(ln t) for samples even in t over the nodes' span."""
+    u = np.log(t)
+    du = u - u.mean()
+    var = float(du @ du) / t.size
+    return float(u.mean()), var, float(du @ (t - t.mean())) / t.size / var
+
+
+@dataclass(frozen=True)
+class _Bins:
+    """The heating as the checkpoints cut it: per bin the count and sums (rows of prefix-sum differences)."""
+
+    S: np.ndarray                 # (bins, columns)
+
+    @property
+    def total(self) -> np.ndarray:
+        return self.S.sum(axis=0)
+
+    @property
+    def n(self) -> np.ndarray:
+        return self.S[:, _N]
+
+    def means(self, col: int) -> np.ndarray:
+        return self.S[:, col] / self.S[:, _N]
+
+    def within(self, c1: int, c2: int, c12: int) -> float:
+        """Sum over bins of the centred cross-moment of columns c1, c2 (c12 their product's column)."""
+        return float(np.sum(self.S[:, c12] - self.S[:, c1] * self.S[:, c2] / self.S[:, _N]))
+
+    def since(self, t0: float) -> np.ndarray:
+        """Sums over the bins whose mean time is t0 or later (lag products of the first one dropped)."""
+        i = int(np.searchsorted(self.means(_T), t0, side="left"))
+        S = self.S[min(i, self.S.shape[0] - 1):].sum(axis=0)
+        S[_PYY:] -= self.S[min(i, self.S.shape[0] - 1), _PYY:]
+        return S
+
+    def coarse(self, most: int) -> _Bins:
+        """Adjacent bins merged in pairs until there are at most ``most`` (the first bin kept alone)."""
+        S = self.S
+        while S.shape[0] > most:
+            body = S[1:]
+            odd = body.shape[0] % 2
+            pairs = body[:body.shape[0] - odd].reshape(-1, 2, _COLS).sum(axis=1)
+            S = np.vstack([S[:1], pairs] + ([body[-1:]] if odd else []))
+        return _Bins(S)
+
+
+@dataclass(frozen=True)
+class _Line:
+    a: float
+    b: float
+    sse: float
+    infl: float
+    sxx: float
+
+
+def _line(S: np.ndarray) -> _Line | None:
+    n = S[_N]
+    if n < 6:
+        return None
+    Su, Sy = S[_U], S[_Y]
+    sxx = S[_UU] - Su * Su / n
+    if not sxx > 0:
+        return None
+    a = (S[_UY] - Su * Sy / n) / sxx
+    b = (Sy - a * Su) / n
+    sse = max(S[_YY] - 2 * a * S[_UY] - 2 * b * Sy + a * a * S[_UU] + 2 * a * b * Su + b * b * n, 0.0)
+    lag = (S[_PYY] - a * (S[_PYU] + S[_PUY]) - b * S[_PY] + a * a * S[_PUU] + a * b * S[_PU] + b * b * (n - 1))
+    return _Line(a, b, sse, ar1_inflation(lag / sse if sse > 0 else 0.0), sxx)
+
+
+@dataclass(frozen=True)
+class _Medium:
+    """One medium the data may come from: its heat capacity, the contact and k the fit gives, and the fit's SSE."""
+
+    rho_c: float
+    h: float
+    k: float
+    sse: float
+
+    @property
+    def alpha(self) -> float:
+        return self.k / self.rho_c
+
+
+def _shape_fit(bins: _Bins, rho_c: float, k0: float, probe: ProbeFacts) -> _Medium:
+    """y = a·(u + E(t; ρc, h)) + c over the bins, the within-bin scatter kept; h from the intercept.
+
+    A probe-model fit with ρc given: the slope gives k, and h is moved until the intercept is the one the
+    model predicts, c = a·ln(α/r²) (a few fixed-point steps; each 1 of h lifts the late response by 2).
+    """
+    n = bins.n
+    N = float(n.sum())
+    ub, yb, tb = bins.means(_U) + _U0, bins.means(_Y), bins.means(_T)
+    w_uu, w_uy, w_yy = bins.within(_U, _U, _UU), bins.within(_U, _Y, _UY), bins.within(_Y, _Y, _YY)
+    k, h, sse = k0, 0.0, math.inf
+    for _ in range(3 if probe.probe_C_J_per_m3K else 2):
+        x = ub + _deviation(tb, k, rho_c, h, probe)
+        sx, sy = float(n @ x), float(n @ yb)
+        A = np.array([[w_uu + float(n @ (x * x)), sx], [sx, N]])
+        a, c = np.linalg.solve(A, np.array([w_uy + float(n @ (x * yb)), sy]))
+        sse = w_yy - 2 * a * w_uy + a * a * w_uu + float(n @ (yb - a * x - c) ** 2)
+        if not a > 0:
+            return _Medium(rho_c, h, k, math.inf)
+        k = 1.0 / (4.0 * math.pi * a)
+        if probe.probe_C_J_per_m3K:
+            h = min(max(h + 0.5 * (c / a - _ln_offset(k, rho_c, probe)), 0.0), H_MAX)
+    return _Medium(rho_c, h, k, max(sse, 0.0))
+
+
+def _admissible(fits: list[_Medium], limit: float) -> tuple[_Medium, list[_Medium]]:
+    """The best medium (the SSE's parabola through its grid neighbours) and every admissible one: grid points
+    within ``limit`` of the best SSE, and the points where the SSE crosses it between grid points."""
+    x = np.log([m.rho_c for m in fits])
+    sse = np.array([m.sse for m in fits])
+    i = int(np.argmin(sse))
+
+    def at(xv: float, j0: int, j1: int, sse_v: float) -> _Medium:
+        f = (xv - x[j0]) / (x[j1] - x[j0])
+        a, b = fits[j0], fits[j1]
+        return _Medium(math.exp(xv), a.h + f * (b.h - a.h), a.k + f * (b.k - a.k), sse_v)
+
+    best = fits[i]
+    if 0 < i < len(fits) - 1 and all(math.isfinite(v) for v in sse[i - 1:i + 2]):
+        c2, c1, c0 = np.polyfit(x[i - 1:i + 2], sse[i - 1:i + 2], 2)
+        if c2 > 0:
+            xv = min(max(-c1 / (2 * c2), x[i - 1]), x[i + 1])
+            j = i - 1 if xv < x[i] else i + 1
+            best = at(xv, min(i, j), max(i, j), float(c0 + c1 * xv + c2 * xv * xv))
+    thr = best.sse + limit
+    media = [best] + [m for m in fits if m.sse <= thr]
+    for j in range(len(fits) - 1):  # the edges of the admissible interval, between grid points
+        s0, s1 = sse[j], sse[j + 1]
+        if math.isfinite(s0) and math.isfinite(s1) and min(s0, s1) < thr < max(s0, s1):
+            xv = x[j] + (thr - s0) / (s1 - s0) * (x[j + 1] - x[j])
+            media.append(at(float(xv), j, j + 1, thr))
+    return best, media
+
+
+def _reported_window(m: _Medium, horizon: float, probe: ProbeFacts) -> tuple[float, float, bool]:
+    """The reduction's late-time window for a heating of ``horizon`` in medium m, and whether it is short.
+
+    As ``linesource.choose_window``: end at the heating's end or where axial loss takes 1 % (never before
+    0.3·t), start at the later of 0.1·end and where the probe's slope error falls under 1 %, half a decade
+    kept. A window under a factor 2 is short: the reduction then reports the probe model.
+    """
+    r = probe.radius_m
+    assert r is not None
+    end = horizon
+    if probe.length_m:
+        end = min(horizon, max(win.axial_end_s(probe.length_m, m.alpha, AXIAL_TOL, probe.axial_m),
+                               END_FLOOR * horizon))
+    aj = 2.0 * m.rho_c / probe.probe_C_J_per_m3K if probe.probe_C_J_per_m3K else None
+    start = max(FLOOR * end, win.start_s(r, m.alpha, aj, m.h, START_TOL))
+    if math.log(end / start) < HALF_DECADE_LN:
+        start = end / math.exp(HALF_DECADE_LN)
+    return start, end, math.log(end / start) < SHORT_SPAN_LN
+
+
+def _reported_k(m: _Medium, horizon: float, probe: ProbeFacts) -> float:
+    """The k the reduction would report after heating for ``horizon`` in medium m (noise aside)."""
+    t0, t1, short = _reported_window(m, horizon, probe)
+    return m.k if short else m.k / (1.0 + _line_bias(t0, t1, m, probe))
+
+
+@dataclass
+class _Context:
+    probe: ProbeFacts
+    settings: StopSettings
+    planned_s: float
+    drift_u_K_per_s: float | None     # None: no baseline
+    q_W_per_m: float
+    k_scale: float = 1.0              # calibration factor applied to the k the verdict quotes
+    noise_infl: float = 1.0           # variance inflation for correlated noise, from the baseline's residuals
+    noise: tuple[float, float] = (0.0, 0.0)  # the baseline's residual variance (K²) and its degrees of freedom
+
+
+def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context) -> Judgement:
+    """The rule at one checkpoint: pure, no state. ``all_bins`` cover the heating since ``SHAPE_FROM``·t (the
+    media are judged on them); from bin ``first`` on they are the window [t0 ≈ 0.1·t, t1 = t]."""
+    t, T, tol = t1, ctx.planned_s, ctx.settings.tolerance
+    bins = _Bins(all_bins.S[first:].copy())
+    bins.S[0, _PYY:] = 0.0
+    S = bins.total
+    line = _line(S)
+    if line is None or line.a <= 0:
+        return Judgement(t, False, math.nan, math.inf, {}, "no rise yet")
+    k_line = 1.0 / (4.0 * math.pi * line.a)
+
+    def no(reason: str, terms: dict[str, float] | None = None, bound: float = math.inf,
+           k: float = k_line) -> Judgement:
+        return Judgement(t, False, k * ctx.k_scale, bound, terms or {}, reason)
+
+    n = float(S[_N])
+    if n < MIN_POINTS or math.log(t1 / t0) < SHORT_SPAN_LN:
+        return no("too few samples yet for a window of a factor 2 in time")
+    if ctx.probe.radius_m is None:
+        return no("the probe's radius is unknown: its transient cannot be predicted")
+    if ctx.drift_u_K_per_s is None:
+        return no("no baseline before heating: the ground's drift is unknown")
+
+    # --- statistical and drift parts of the change (samples even in time, rate from the data) ---------------
+    nodes_t, nodes_T = _nodes(t0, t), _nodes(FLOOR * T, T)
+    rate = n / max(t - t0, 1e-12)
+    um_t, var_t, tilt_t = _window_stats(nodes_t)
+    um_T, var_T, tilt_T = _window_stats(nodes_T)
+    sxx_t, sxx_T = rate * (t - t0) * var_t, rate * T * (1 - FLOOR) * var_T
+    lo, hi = max(t0, FLOOR * T), t
+    cross = 0.0
+    if hi > lo:
+        ov = np.log(_nodes(lo, hi))
+        cross = rate * (hi - lo) * float(np.mean((ov - um_t) * (ov - um_T))) / (sxx_t * sxx_T)
+
+    # --- the media the heating so far allows -----------------------------------------------------------------
+    coarse = all_bins.coarse(SHAPE_BINS)
+    fits = [_shape_fit(coarse, rc, k_line, ctx.probe) for rc in RHO_C_RANGE]
+    n_all, nb = float(all_bins.n.sum()), all_bins.S.shape[0]
+    w_resid = (all_bins.within(_Y, _Y, _YY)
+               - all_bins.within(_U, _Y, _UY) ** 2 / max(all_bins.within(_U, _U, _UU), 1e-300))
+    # the noise: the baseline's scatter pooled with the scatter inside the bins (both free of the transient)
+    base_var, base_dof = ctx.noise[0] / ctx.q_W_per_m**2, ctx.noise[1]
+    dof = max(n_all - nb - 1, 0.0)
+    min_sse = min(m.sse for m in fits)
+    pooled = (w_resid + base_var * base_dof) / (dof + base_dof) if dof + base_dof > 0 else math.nan
+    noise2 = pooled if dof + base_dof >= MIN_POINTS else min_sse / max(n_all - 3, 1)
+    # the line's own residuals are correlated by the transient it misses: the noise's correlation is the baseline's
+    infl = ctx.noise_infl
+    var_eff = noise2 * infl + (MISFIT * line.a) ** 2
+    best, media = _admissible(fits, ADMIT_CHI2 * var_eff)
+    excess = best.sse / max(n_all - 3, 1) - var_eff
+    explained = excess <= 3.0 * var_eff * math.sqrt(2.0 * infl / n_all) or excess <= (2.0 * MISFIT * line.a) ** 2
+
+    sigma2 = max(best.sse / max(n_all - 3, 1), 0.0) * infl
+    stat = math.sqrt(max(sigma2 * (1.0 / sxx_t + 1.0 / sxx_T - 2.0 * cross), 0.0)) / line.a
+    drift = ctx.drift_u_K_per_s * abs(tilt_T - tilt_t) / max(ctx.q_W_per_m, 1e-12) / line.a if t < T else 0.0
+
+    # --- what a stop now reports, against what the full heating would, medium by medium ----------------------
+    s0, _, short_now = _reported_window(best, t, ctx.probe)
+    if short_now:
+        k_now = best.k
+    else:
+        off = _line(all_bins.since(s0))
+        k_now = 1.0 / (4.0 * math.pi * off.a) if off is not None and off.a > 0 else k_line
+    model = max(abs(k_now / _reported_k(m, T, ctx.probe) - 1.0) for m in media) if t < T else 0.0
+    alpha_hi = max(m.alpha for m in media)
+    terms = {"model": model, "statistical": stat, "drift": drift}
+    bound = model + COVERAGE * math.hypot(stat, drift)
+
+    def refuse(reason: str) -> Judgement:
+        return no(reason, terms, bound, k_now)
+
+    if not explained:
+        return refuse("the line bends in a way the probe's transient does not explain (a boundary, moisture "
+                      "moving, drift?)")
+    if ctx.probe.length_m:
+        t_ax = win.axial_end_s(ctx.probe.length_m, alpha_hi, AXIAL_TOL, ctx.probe.axial_m)
+        if t_ax < T:
+            return refuse(f"axial loss would bend the line from about {t_ax:.0f} s, before the planned end at "
+                          f"{T:.0f} s (plan at most {t_ax:.0f} s of heating with this probe)")
+    if bound > tol:
+        return refuse(f"k could still move by up to {100 * bound:.1f} % (tolerance {100 * tol:g} %)")
+    if t >= T:
+        return refuse("the planned heating is over")
+    plan = _recovery_plan(t, media, ctx, rate)
+    if plan is None:
+        return refuse("stopping now would leave no recovery window for the heat–cool cross-check")
+    return Judgement(t, True, k_now * ctx.k_scale, bound, terms, f"k will not move by more than "
+                     f"{100 * bound:.1f} % (tolerance {100 * tol:g} %)", recover_s=(RECOVERY_END_FACTOR - 1.0) * t,
+                     recovery_window_s=plan)
+
+
+def _recovery_plan(t_h: float, media: list[_Medium], ctx: _Context, rate: float) -> tuple[float, float] | None:
+    """The recovery window the reduction would use after stopping at t_h, for every admissible medium; the one
+    that starts latest and ends earliest (None when one of them leaves none)."""
+    p = ctx.probe
+    assert p.radius_m is not None
+    n = int(min(max((RECOVERY_END_FACTOR - 1.0) * t_h * rate, 8), 2000))
+    t_rec = t_h + (RECOVERY_END_FACTOR - 1.0) * t_h * np.arange(1, n + 1) / n
+    start, end = 0.0, math.inf
+    for m in media:
+        aj = 2.0 * m.rho_c / p.probe_C_J_per_m3K if p.probe_C_J_per_m3K else None
+        model = win.StepModel(m.k / m.rho_c, p.radius_m, aj, m.h, p.length_m, p.axial_m)
+        level, _ = win.recovery_errors(t_rec, np.array([0.0, t_h]), np.array([1.0, -1.0]), model)
+        try:
+            cw = choose_recovery_window(t_rec, level, t_h, FLOOR * t_h)
+        except ValueError:
+            return None
+        start, end = max(start, cw.t_start), min(end, cw.t_end)
+    return (start, end) if end > start else None
+
+
+# --- the streaming part: prefix sums at checkpoints -----------------------------------------------------------
+def _rows(t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray, prev: tuple[float, float] | None
+          ) -> np.ndarray:
+    """Per-sample columns (see the column list); ``prev`` is the (u, y) of the sample before the first."""
+    u = u - _U0
+    out = np.empty((t.size, _COLS))
+    out[:, _N] = 1.0
+    out[:, _U], out[:, _Y], out[:, _UU], out[:, _UY], out[:, _YY] = u, y, u * u, u * y, y * y
+    out[:, _T], out[:, _W], out[:, _WU] = t, w, w * u
+    up = np.empty_like(u)
+    yp = np.empty_like(y)
+    up[1:], yp[1:] = u[:-1], y[:-1]
+    lag = np.ones_like(u)
+    if prev is None:
+        up[0] = yp[0] = lag[0] = 0.0
+    else:
+        up[0], yp[0] = prev[0] - _U0, prev[1]
+    out[:, _PYY], out[:, _PYU], out[:, _PUY] = yp * y * lag, yp * u * lag, up * y * lag
+    out[:, _PUU], out[:, _PU], out[:, _PY] = up * u * lag, (up + u) * lag, (yp + y) * lag
+    return out
+
+
+class StopRule:
+    """Feed heating samples (t > 0, in order) as arrays of any length; read ``verdict``.
+
+    u = X/Q and y = ΔT/Q are the superposition regressors (``live``), w = t/Q. The rule keeps the prefix sums at
+    its checkpoints only, so a long record costs one pass and a few hundred judgements.
+    """
+
+    def __init__(self, probe: ProbeFacts, settings: StopSettings, drift_u_K_per_s: float | None,
+                 q_W_per_m: float, planned_heat_s: float, calibration_factor: float = 1.0,
+                 noise_infl: float = 1.0, noise: tuple[float, float] = (0.0, 0.0)) -> None:
+        """``noise``: the baseline's residual variance (K²) and degrees of freedom; ``noise_infl`` its AR(1)
+        variance inflation."""
+        self.ctx = _Context(probe, settings, planned_heat_s, drift_u_K_per_s, q_W_per_m, calibration_factor,
+                            noise_infl, noise)
+        self._total = np.zeros(_COLS)
+        self._prev: tuple[float, float] | None = None
+        self._cp_t: list[float] = []            # checkpoint sample times
+        self._cp_before: list[np.ndarray] = []  # prefix sums before the checkpoint sample
+        self._cp_incl: list[np.ndarray] = []    # … and including it
+        self._next_grid = -math.inf
+        self.judgements: list[Judgement] = []
+        power = q_W_per_m * probe.length_m if probe.length_m else None
+        self.verdict = Verdict(settings.tolerance, planned_heat_s, power_W=power)
+
+    @property
+    def planned_heat_s(self) -> float:
+        return self.ctx.planned_s
+
+    def feed(self, t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray, chunk: int = 262_144) -> Verdict:
+        """Take samples in time order (t > 0); judge at every checkpoint crossed."""
+        t, u, y, w = (np.asarray(a, dtype=float) for a in (t, u, y, w))
+        for s in range(0, t.size, chunk):
+            self._feed_chunk(t[s:s + chunk], u[s:s + chunk], y[s:s + chunk], w[s:s + chunk])
+        return self.verdict
+
+    def _feed_chunk(self, t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray) -> None:
+        if t.size == 0:
+            return
+        rows = _rows(t, u, y, w, self._prev)
+        # summed from the running total, one sample after another: a sample-by-sample feed gives the same bits
+        incl = np.cumsum(np.vstack([self._total[None, :], rows]), axis=0)[1:]
+        idx = 0
+        while idx < t.size:
+            # the next checkpoint: the first sample at or after the next grid time
+            j = idx + int(np.searchsorted(t[idx:], self._next_grid, side="left"))
+            if j >= t.size:
+                break
+            before = incl[j - 1] if j > 0 else self._total
+            self._checkpoint(float(t[j]), before.copy(), incl[j].copy())
+            idx = j + 1
+        self._total = incl[-1].copy()
+        self._prev = (float(u[-1]), float(y[-1]))
+
+    def _checkpoint(self, t: float, before: np.ndarray, incl: np.ndarray) -> None:
+        self._next_grid = 10.0 ** ((math.floor(math.log10(t) * GRID_PER_DECADE + 1e-9) + 1) / GRID_PER_DECADE)
+        self._cp_t.append(t)
+        self._cp_before.append(before)
+        self._cp_incl.append(incl)
+        cp_t = np.asarray(self._cp_t)
+        i = min(int(np.searchsorted(cp_t, FLOOR * t, side="left")), len(self._cp_t) - 1)
+        i_all = min(int(np.searchsorted(cp_t, SHAPE_FROM * t, side="left")), i)
+        # bins: the first sample alone, then each stretch up to the next checkpoint
+        rows = [self._cp_incl[i_all] - self._cp_before[i_all]]
+        rows += [self._cp_incl[m] - self._cp_incl[m - 1] for m in range(i_all + 1, len(self._cp_t))]
+        S = np.array(rows)
+        S[0, _PYY:] = 0.0  # its lag products pair it with a sample outside
+        j = judge(_Bins(S), i - i_all, self._cp_t[i], t, self.ctx)
+        self.judgements.append(j)
+        self.verdict = _update(self.verdict, j)
+
+
+def _update(v: Verdict, j: Judgement) -> Verdict:
+    """Fold one judgement into the verdict: latch the first, withdraw when k has moved beyond the tolerance."""
+    v = replace(v, judged_at_s=j.t_s, can_stop=j.can_stop, bound_rel=j.bound_rel, terms=dict(j.terms),
+                reason=j.reason)
+    if j.can_stop and not v.stands:
+        return replace(v, first_at_s=v.first_at_s if v.first_at_s is not None else j.t_s, at_s=j.t_s,
+                       k_at_W_per_mK=j.k_W_per_mK, moved_rel=0.0, withdrawn=False, recover_s=j.recover_s,
+                       recovery_window_s=j.recovery_window_s)
+    if v.at_s is not None and v.k_at_W_per_mK and math.isfinite(j.k_W_per_mK):
+        moved = j.k_W_per_mK / v.k_at_W_per_mK - 1.0
+        v = replace(v, moved_rel=moved)
+        if abs(moved) > v.tolerance and not v.withdrawn:
+            v = replace(v, withdrawn=True)
+    return v
