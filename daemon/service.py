@@ -617,7 +617,7 @@ class RigService:
 
         probe = self.s.probe
         lim = self.s.limits.max_rise_K
-        return lambda: LiveReducer(probe=probe, sensor=sensor, max_rise_K=lim)
+        return lambda stop: LiveReducer(probe=probe, sensor=sensor, stop=stop, max_rise_K=lim)
 
 
 def _profile_dict(p: ProbeProfile) -> dict[str, Any]:

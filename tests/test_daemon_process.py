@@ -88,7 +88,7 @@ def test_operator_stop_abort_and_refusals(rig) -> None:
     d.request("stop_heating")
     assert d.wait_state(rid, {"recovering", "done"}) in ("recovering", "done")
     run = d.request("run", run_id=rid)["run"]
-    assert any(e["reason"] == "operator stopped heating before the estimate was stable" for e in run["events"])
+    assert any(e["reason"].startswith("operator stopped heating before the verdict") for e in run["events"])
     ops = [json.loads(e["data"]) for e in run["events"] if e["kind"] == "operator"]
     assert ops and ops[0]["peer"]["uid"] is not None  # who asked is on record
     d.wait_state(rid, "done")

@@ -395,12 +395,13 @@ def planned_heat_of_record(t_s: np.ndarray, q_W_per_m: np.ndarray) -> float | No
 
 
 def record_verdict(t_s: np.ndarray, temp: np.ndarray, q_W_per_m: np.ndarray, probe: ProbeProfile | None = None,
-                   sensor: str = "heater", stop: StopSettings | None = None, calibration_factor: float = 1.0
-                   ) -> Verdict | None:
+                   sensor: str = "heater", stop: StopSettings | None = None, calibration_factor: float = 1.0, *,
+                   X: np.ndarray | None = None, Q: np.ndarray | None = None) -> Verdict | None:
     """The verdict ``replay`` reaches on a record, from whole arrays in one pass (bounded memory, no estimates).
 
     The regressors are those ``LiveReducer.add`` builds sample by sample: the baseline fitted to every row before
-    t = 0, the power's steps from t = 0 on, X and Q over the steps strictly before each row.
+    t = 0, the power's steps from t = 0 on, X and Q over the steps strictly before each row (``X``, ``Q``: the
+    same over the whole record, when the caller has them already).
     """
     t_s = np.asarray(t_s, dtype=float)
     temp = np.asarray(temp, dtype=float)
@@ -416,13 +417,16 @@ def record_verdict(t_s: np.ndarray, temp: np.ndarray, q_W_per_m: np.ndarray, pro
     rule = _stop_rule(settings, probe, sensor, baseline, float(q[i0]), calibration_factor, t_s[base], temp[base])
     if rule is None:
         return None
-    th, Th, qh = t_s[i0:i1 + 1], temp[i0:i1 + 1], q[i0:i1 + 1]
-    steps_t, steps_dq = power_steps(th, qh)
-    X, Q = log_time_regressor(th, steps_t, steps_dq)
-    use = (th > 0) & (Q > 0)
-    th, X, Q = th[use], X[use], Q[use]
+    th, Th = t_s[i0:i1 + 1], temp[i0:i1 + 1]
+    if X is None or Q is None:
+        steps_t, steps_dq = power_steps(th, q[i0:i1 + 1])
+        Xh, Qh = log_time_regressor(th, steps_t, steps_dq)
+    else:
+        Xh, Qh = np.asarray(X, dtype=float)[i0:i1 + 1], np.asarray(Q, dtype=float)[i0:i1 + 1]
+    use = (th > 0) & (Qh > 0)
+    th, Xh, Qh = th[use], Xh[use], Qh[use]
     dT = Th[use] - baseline.at(th)
-    rule.feed(th, X / Q, dT / Q, th / Q)
+    rule.feed(th, Xh / Qh, dT / Qh, th / Qh)
     return rule.verdict
 
 

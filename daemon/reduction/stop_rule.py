@@ -53,14 +53,14 @@ SHORT_SPAN_LN = math.log(2.0)
 COVERAGE = 2.0              # k = 2 on the random part of the change (≈ 95 %)
 # The media a probe meets: dry sand ≈ 1.3, moist soils 2–3 MJ/(m³·K) (de Vries 1963), water 4.18 (IAPWS-95);
 # 1.0 leaves room below dry sand (common practice, no source).
-RHO_C_RANGE = np.geomspace(1.0e6, 4.2e6, 13)
+RHO_C_RANGE = np.geomspace(1.0e6, 4.2e6, 9)
 START_TOL = 0.01            # the reduction's window: slope error at its start (linesource.START_TOL) …
 END_FLOOR = 0.3             # … the axial limit never before 0.3·t (linesource.END_FLOOR) …
 HALF_DECADE_LN = 0.5        # … and at least half a decade kept (linesource.choose_window)
-SHAPE_BINS = 48             # the media are judged on at most this many bins
+SHAPE_BINS = 32             # the media are judged on at most this many bins
 ADMIT_CHI2 = 4.0            # a ρc is admissible when its fit's SSE is within 2² noise variances of the best (≈ 95 %)
-SHAPE_FROM = 0.01           # the medium is judged on the heating since 0.01·t (earlier: only the probe heats)
-MISFIT = 0.003              # model imperfection allowed, in ln-time units of rise (added to the noise; no source)
+SHAPE_FROM = 0.03           # the media are judged on the heating since 0.03·t (earlier: the probe's own details)
+MISFIT = 0.01               # model imperfection allowed: 1 % of the rise per ln-unit, as extra noise (no source)
 AXIAL_TOL = 0.01            # the offline window's axial-loss end criterion (linesource.END_TOL)
 H_MAX = 5.0
 _NODES = 48
@@ -164,7 +164,7 @@ class Verdict:
                 "terms": {k: clean(v) for k, v in self.terms.items()}, "reason": self.reason,
                 "first_at_s": self.first_at_s, "at_s": self.at_s, "k_at_W_per_mK": clean(self.k_at_W_per_mK),
                 "moved_rel": clean(self.moved_rel), "withdrawn": self.withdrawn, "saved_s": self.saved_s(),
-                "saved_Wh": clean(self.saved_Wh()), "recover_s": self.recover_s,
+                "saved_Wh": clean(self.saved_Wh()), "power_W": clean(self.power_W), "recover_s": self.recover_s,
                 "recovery_window_s": list(self.recovery_window_s) if self.recovery_window_s else None}
 
 
@@ -181,46 +181,46 @@ def recovery_after_stop_s(heated_s: float, planned_heat_s: float, planned_recove
 
 
 # --- the physics the prediction uses ------------------------------------------------------------------------------
-def _deviation(t: np.ndarray, k: float, rho_c: float, h: float, probe: ProbeFacts) -> np.ndarray:
+def _deviation(t: np.ndarray, k: np.ndarray, rho_c: np.ndarray, h: np.ndarray, probe: ProbeFacts) -> np.ndarray:
     """E(t) for a unit step: 4πk·ΔT/q = ln t + ln(α/r²) + E (probe) or ln t + ln(4α/r²) + E (ideal line at r).
 
     E carries the probe's transient, its late constant (ln 4 − γ + 2h) and the axial loss −∫(1 − F) d ln t,
-    the integral started at the first time given (only its shape within one window matters there).
+    the integral started at the first time given (only its shape within one window matters there). k, ρc and h
+    are columns (one medium a row), t one row or one row per medium: the result has a row per medium.
     """
-    alpha = k / rho_c
+    alpha = np.asarray(k, dtype=float) / rho_c
     r = probe.radius_m
     assert r is not None
+    t = np.broadcast_to(t, np.broadcast_shapes(np.shape(t), np.shape(alpha)))
     if probe.probe_C_J_per_m3K:
         tau = alpha * t / (r * r)
-        e = response_stehfest(tau, 2.0 * rho_c / probe.probe_C_J_per_m3K, h) - np.log(tau)
+        aj = 2.0 * np.asarray(rho_c, dtype=float) / probe.probe_C_J_per_m3K
+        # one more axis for the Stehfest terms, so each medium's α_J and h meet its own row of τ
+        e = response_stehfest(tau, aj[..., None], np.asarray(h, dtype=float)[..., None]) - np.log(tau)
     else:
         x = r * r / (4.0 * alpha * t)
         e = exp1(x) + np.log(x)
     if probe.length_m:
         loss = 1.0 - win.axial_slope_factor(t, probe.length_m, alpha, probe.axial_m)
         lt = np.log(t)
-        e = e - np.concatenate(([0.0], np.cumsum(0.5 * (loss[1:] + loss[:-1]) * np.diff(lt))))
+        steps = 0.5 * (loss[..., 1:] + loss[..., :-1]) * np.diff(lt, axis=-1)
+        e = e - np.concatenate([np.zeros((*steps.shape[:-1], 1)), np.cumsum(steps, axis=-1)], axis=-1)
     return e
-
-
-def _ln_offset(k: float, rho_c: float, probe: ProbeFacts) -> float:
-    """The constant between 4πk·ΔT/q and ln t + E in ``_deviation``."""
-    r = probe.radius_m
-    assert r is not None
-    alpha = k / rho_c
-    return math.log(alpha / (r * r)) if probe.probe_C_J_per_m3K else math.log(4.0 * alpha / (r * r))
 
 
 def _nodes(t0: float, t1: float) -> np.ndarray:
     return np.linspace(t0, t1, _NODES)
 
 
-def _line_bias(t0: float, t1: float, m: _Medium, probe: ProbeFacts) -> float:
-    """Relative slope error of the straight line fitted to the response over [t0, t1] (samples even in t)."""
-    t = _nodes(t0, t1)
-    e = _deviation(t, m.k, m.rho_c, m.h, probe)
-    du = np.log(t) - np.mean(np.log(t))
-    return float(du @ (e - e.mean())) / float(du @ du)
+def _line_biases(windows: np.ndarray, media: list[_Medium], probe: ProbeFacts) -> np.ndarray:
+    """Relative slope error of the straight line fitted to each medium's response over its own window
+    (``windows`` a row [t0, t1] per medium; samples even in t)."""
+    t = windows[:, :1] + (windows[:, 1:] - windows[:, :1]) * np.linspace(0.0, 1.0, _NODES)[None, :]
+    col = np.array([[m.k, m.rho_c, m.h] for m in media])
+    e = _deviation(t, col[:, :1], col[:, 1:2], col[:, 2:], probe)
+    du = np.log(t) - np.log(t).mean(axis=1, keepdims=True)
+    de = e - e.mean(axis=1, keepdims=True)
+    return (du * de).sum(axis=1) / (du * du).sum(axis=1)
 
 
 def _window_stats(t: np.ndarray) -> tuple[float, float, float]:
@@ -308,58 +308,82 @@ class _Medium:
         return self.k / self.rho_c
 
 
-def _shape_fit(bins: _Bins, rho_c: float, k0: float, probe: ProbeFacts) -> _Medium:
-    """y = a·(u + E(t; ρc, h)) + c over the bins, the within-bin scatter kept; h from the intercept.
+def _shape_fits(bins: _Bins, rho_c: np.ndarray, k0: float, probe: ProbeFacts) -> list[_Medium]:
+    """For each ρc: y = a·(u + E(t; ρc, h)) + c over the bins, the within-bin scatter kept; h from the intercept.
 
     A probe-model fit with ρc given: the slope gives k, and h is moved until the intercept is the one the
     model predicts, c = a·ln(α/r²) (a few fixed-point steps; each 1 of h lifts the late response by 2).
+    All ρc at once (one row each).
     """
+    r = probe.radius_m
+    assert r is not None
     n = bins.n
     N = float(n.sum())
     ub, yb, tb = bins.means(_U) + _U0, bins.means(_Y), bins.means(_T)
     w_uu, w_uy, w_yy = bins.within(_U, _U, _UU), bins.within(_U, _Y, _UY), bins.within(_Y, _Y, _YY)
-    k, h, sse = k0, 0.0, math.inf
+    rc = np.asarray(rho_c, dtype=float)[:, None]
+    k = np.full_like(rc, k0)
+    h = np.zeros_like(rc)
+    sse = np.full(rc.shape[0], np.inf)
     for _ in range(3 if probe.probe_C_J_per_m3K else 2):
-        x = ub + _deviation(tb, k, rho_c, h, probe)
-        sx, sy = float(n @ x), float(n @ yb)
-        A = np.array([[w_uu + float(n @ (x * x)), sx], [sx, N]])
-        a, c = np.linalg.solve(A, np.array([w_uy + float(n @ (x * yb)), sy]))
-        sse = w_yy - 2 * a * w_uy + a * a * w_uu + float(n @ (yb - a * x - c) ** 2)
-        if not a > 0:
-            return _Medium(rho_c, h, k, math.inf)
-        k = 1.0 / (4.0 * math.pi * a)
+        x = ub + _deviation(tb, k, rc, h, probe)
+        sx, sy = x @ n, float(n @ yb)
+        sxx, sxy = (x * x) @ n + w_uu, (x * yb) @ n + w_uy
+        det = sxx * N - sx * sx
+        a = (sxy * N - sx * sy) / det
+        c = (sxx * sy - sx * sxy) / det
+        sse = w_yy - 2 * a * w_uy + a * a * w_uu + ((yb - a[:, None] * x - c[:, None]) ** 2) @ n
+        good = a > 0
+        k = np.where(good, 1.0 / (4.0 * math.pi * np.where(good, a, 1.0)), k[:, 0])[:, None]
         if probe.probe_C_J_per_m3K:
-            h = min(max(h + 0.5 * (c / a - _ln_offset(k, rho_c, probe)), 0.0), H_MAX)
-    return _Medium(rho_c, h, k, max(sse, 0.0))
+            offset = np.log(k[:, 0] / rc[:, 0] / (r * r))  # the model's intercept, c = a·ln(α/r²)
+            h = np.clip(h[:, 0] + 0.5 * (c / np.where(good, a, 1.0) - offset), 0.0, H_MAX)[:, None]
+        sse = np.where(good, np.maximum(sse, 0.0), np.inf)
+    return [_Medium(float(rc[i, 0]), float(h[i, 0]), float(k[i, 0]), float(sse[i])) for i in range(rc.shape[0])]
 
 
 def _admissible(fits: list[_Medium], limit: float) -> tuple[_Medium, list[_Medium]]:
-    """The best medium (the SSE's parabola through its grid neighbours) and every admissible one: grid points
-    within ``limit`` of the best SSE, and the points where the SSE crosses it between grid points."""
-    x = np.log([m.rho_c for m in fits])
-    sse = np.array([m.sse for m in fits])
+    """The best medium and the admissible ones (SSE within ``limit`` of the least).
+
+    The SSE against ln ρc is read as a parabola through the three grid points nearest to where it is needed
+    (its least, and each crossing of the limit); k and h are interpolated linearly in ln ρc. Grid points inside
+    the interval are kept as well.
+    """
+    ok = [m for m in fits if math.isfinite(m.sse)]
+    if len(ok) < 3:
+        best = min(ok or fits, key=lambda m: m.sse)
+        return best, [best]
+    x = np.log([m.rho_c for m in ok])
+    sse = np.array([m.sse for m in ok])
+    ks, hs = np.array([m.k for m in ok]), np.array([m.h for m in ok])
+
+    def parabola(j: int) -> np.ndarray:
+        j = min(max(j, 1), len(ok) - 2)
+        return np.polyfit(x[j - 1:j + 2], sse[j - 1:j + 2], 2)
+
+    def at(xv: float, sse_v: float) -> _Medium:
+        return _Medium(math.exp(xv), float(np.interp(xv, x, hs)), float(np.interp(xv, x, ks)), sse_v)
+
     i = int(np.argmin(sse))
-
-    def at(xv: float, j0: int, j1: int, sse_v: float) -> _Medium:
-        f = (xv - x[j0]) / (x[j1] - x[j0])
-        a, b = fits[j0], fits[j1]
-        return _Medium(math.exp(xv), a.h + f * (b.h - a.h), a.k + f * (b.k - a.k), sse_v)
-
-    best = fits[i]
-    if 0 < i < len(fits) - 1 and all(math.isfinite(v) for v in sse[i - 1:i + 2]):
-        c2, c1, c0 = np.polyfit(x[i - 1:i + 2], sse[i - 1:i + 2], 2)
-        if c2 > 0:
-            xv = min(max(-c1 / (2 * c2), x[i - 1]), x[i + 1])
-            j = i - 1 if xv < x[i] else i + 1
-            best = at(xv, min(i, j), max(i, j), float(c0 + c1 * xv + c2 * xv * xv))
-    thr = best.sse + limit
-    media = [best] + [m for m in fits if m.sse <= thr]
-    for j in range(len(fits) - 1):  # the edges of the admissible interval, between grid points
-        s0, s1 = sse[j], sse[j + 1]
-        if math.isfinite(s0) and math.isfinite(s1) and min(s0, s1) < thr < max(s0, s1):
-            xv = x[j] + (thr - s0) / (s1 - s0) * (x[j + 1] - x[j])
-            media.append(at(float(xv), j, j + 1, thr))
-    return best, media
+    xb, sb = x[i], sse[i]
+    c = parabola(i)
+    if c[0] > 0:
+        xv = min(max(-c[1] / (2 * c[0]), x[max(i - 1, 0)]), x[min(i + 1, len(ok) - 1)])
+        xb, sb = xv, min(float(np.polyval(c, xv)), sb)
+    thr = sb + limit
+    lo, hi = x[0], x[-1]
+    for j in range(len(ok) - 1):  # the interval's ends, where the SSE crosses the limit
+        if min(sse[j], sse[j + 1]) <= thr < max(sse[j], sse[j + 1]):
+            c = parabola(j if sse[j] < sse[j + 1] else j + 1)
+            roots = [r.real for r in np.roots(c - np.array([0.0, 0.0, thr])) if abs(r.imag) < 1e-12]
+            near = [r for r in roots if x[j] - 1e-9 <= r <= x[j + 1] + 1e-9]
+            xv = near[0] if near else x[j] + (thr - sse[j]) / (sse[j + 1] - sse[j]) * (x[j + 1] - x[j])
+            if sse[j] > thr:
+                lo = max(lo, xv) if xv <= xb else lo
+            else:
+                hi = min(hi, xv) if xv >= xb else hi
+    media = [at(xb, sb), at(lo, thr), at(hi, thr)] + [m for m, xv in zip(ok, x, strict=True) if lo < xv < hi]
+    return media[0], media
 
 
 def _reported_window(m: _Medium, horizon: float, probe: ProbeFacts) -> tuple[float, float, bool]:
@@ -382,10 +406,33 @@ def _reported_window(m: _Medium, horizon: float, probe: ProbeFacts) -> tuple[flo
     return start, end, math.log(end / start) < SHORT_SPAN_LN
 
 
-def _reported_k(m: _Medium, horizon: float, probe: ProbeFacts) -> float:
-    """The k the reduction would report after heating for ``horizon`` in medium m (noise aside)."""
-    t0, t1, short = _reported_window(m, horizon, probe)
-    return m.k if short else m.k / (1.0 + _line_bias(t0, t1, m, probe))
+def _full_heating_ks(best: _Medium, media: list[_Medium], now: tuple[float, float, bool], k_now: float, t: float,
+                     T: float, probe: ProbeFacts) -> np.ndarray:
+    """What the full heating could report, noise aside, for each admissible medium.
+
+    Where its window is long enough the reduction reports the late-time line at T. If a stop now would report
+    the line too, the line at T is the line now times the change of its slope error from the window now to
+    the window at T (the medium's shape, anchored on the data); otherwise it is the medium's k with the slope
+    error of the window at T. Where the window at T is short it reports the probe model refitted on the longer
+    record, whose k stays within the range the admissible media span now, narrowed by √(1 − t/T) (nested fits:
+    the variance that more data removes).
+    """
+    wins = [_reported_window(m, T, probe) for m in media]
+    line = np.array([not short for _, _, short in wins])
+    out: list[float] = []
+    if np.any(line):
+        on = [m for m, ok in zip(media, line, strict=True) if ok]
+        b_T = _line_biases(np.array([[w[0], w[1]] for w in wins])[line], on, probe)
+        if not now[2]:  # the line now and the line at T: its change
+            b_now = _line_biases(np.array([[now[0], now[1]]] * len(on)), on, probe)
+            out += list(k_now * (1.0 + b_now) / (1.0 + b_T))
+        else:
+            out += list(np.array([m.k for m in on]) / (1.0 + b_T))
+    if not np.all(line):
+        ks = np.array([m.k for m in media])
+        spread = float(np.max(np.abs(ks / best.k - 1.0))) * math.sqrt(max(1.0 - t / T, 0.0))
+        out += [best.k * (1.0 - spread), best.k * (1.0 + spread)]
+    return np.array(out)
 
 
 @dataclass
@@ -436,40 +483,45 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context) -> J
         ov = np.log(_nodes(lo, hi))
         cross = rate * (hi - lo) * float(np.mean((ov - um_t) * (ov - um_T))) / (sxx_t * sxx_T)
 
-    # --- the media the heating so far allows -----------------------------------------------------------------
-    coarse = all_bins.coarse(SHAPE_BINS)
-    fits = [_shape_fit(coarse, rc, k_line, ctx.probe) for rc in RHO_C_RANGE]
-    n_all, nb = float(all_bins.n.sum()), all_bins.S.shape[0]
-    w_resid = (all_bins.within(_Y, _Y, _YY)
-               - all_bins.within(_U, _Y, _UY) ** 2 / max(all_bins.within(_U, _U, _UU), 1e-300))
-    # the noise: the baseline's scatter pooled with the scatter inside the bins (both free of the transient)
+    # --- the noise: the scatter inside the bins of two or more samples about a common slope (free of the
+    # transient), pooled with the baseline's; its correlation is the baseline's (the line's own residuals are
+    # correlated by the transient it misses)
+    n_all = float(all_bins.n.sum())
+    multi = _Bins(all_bins.S[all_bins.n >= 2])
+    w_uu = multi.within(_U, _U, _UU)
+    w_resid = multi.within(_Y, _Y, _YY) - (multi.within(_U, _Y, _UY) ** 2 / w_uu if w_uu > 0 else 0.0)
     base_var, base_dof = ctx.noise[0] / ctx.q_W_per_m**2, ctx.noise[1]
-    dof = max(n_all - nb - 1, 0.0)
-    min_sse = min(m.sse for m in fits)
-    pooled = (w_resid + base_var * base_dof) / (dof + base_dof) if dof + base_dof > 0 else math.nan
-    noise2 = pooled if dof + base_dof >= MIN_POINTS else min_sse / max(n_all - 3, 1)
-    # the line's own residuals are correlated by the transient it misses: the noise's correlation is the baseline's
+    dof = max(float(multi.n.sum()) - multi.S.shape[0] - 1, 0.0) + base_dof
+    if dof < MIN_POINTS:
+        return no("too few samples yet to tell the noise")
     infl = ctx.noise_infl
-    var_eff = noise2 * infl + (MISFIT * line.a) ** 2
+    var_eff = (w_resid + base_var * base_dof) / dof * infl + (MISFIT * line.a) ** 2
+    stat = math.sqrt(max(var_eff * (1.0 / sxx_t + 1.0 / sxx_T - 2.0 * cross), 0.0)) / line.a
+    drift = ctx.drift_u_K_per_s * abs(tilt_T - tilt_t) / max(ctx.q_W_per_m, 1e-12) / line.a if t < T else 0.0
+    noise = COVERAGE * math.hypot(stat, drift)
+    if noise > tol:  # noise and drift alone rule it out: the media are not worth judging yet
+        return no(f"k could still move by up to {100 * noise:.1f} % from noise and drift alone "
+                  f"(tolerance {100 * tol:g} %)", {"statistical": stat, "drift": drift}, noise)
+
+    # --- the media the heating so far allows -----------------------------------------------------------------
+    fits = _shape_fits(all_bins.coarse(SHAPE_BINS), RHO_C_RANGE, k_line, ctx.probe)
     best, media = _admissible(fits, ADMIT_CHI2 * var_eff)
     excess = best.sse / max(n_all - 3, 1) - var_eff
     explained = excess <= 3.0 * var_eff * math.sqrt(2.0 * infl / n_all) or excess <= (2.0 * MISFIT * line.a) ** 2
 
-    sigma2 = max(best.sse / max(n_all - 3, 1), 0.0) * infl
-    stat = math.sqrt(max(sigma2 * (1.0 / sxx_t + 1.0 / sxx_T - 2.0 * cross), 0.0)) / line.a
-    drift = ctx.drift_u_K_per_s * abs(tilt_T - tilt_t) / max(ctx.q_W_per_m, 1e-12) / line.a if t < T else 0.0
-
     # --- what a stop now reports, against what the full heating would, medium by medium ----------------------
-    s0, _, short_now = _reported_window(best, t, ctx.probe)
+    now = _reported_window(best, t, ctx.probe)
+    s0, short_now = now[0], now[2]
     if short_now:
         k_now = best.k
     else:
         off = _line(all_bins.since(s0))
         k_now = 1.0 / (4.0 * math.pi * off.a) if off is not None and off.a > 0 else k_line
-    model = max(abs(k_now / _reported_k(m, T, ctx.probe) - 1.0) for m in media) if t < T else 0.0
+    full = _full_heating_ks(best, media, now, k_now, t, T, ctx.probe)
+    model = float(np.max(np.abs(k_now / full - 1.0))) if t < T else 0.0
     alpha_hi = max(m.alpha for m in media)
     terms = {"model": model, "statistical": stat, "drift": drift}
-    bound = model + COVERAGE * math.hypot(stat, drift)
+    bound = model + noise
 
     def refuse(reason: str) -> Judgement:
         return no(reason, terms, bound, k_now)

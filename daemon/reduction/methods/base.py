@@ -12,6 +12,7 @@ from typing import Any, Protocol
 
 from ..live import DEFAULT_POWER_U_REL
 from ..record import SensorRecord
+from ..stop_rule import StopSettings
 
 
 def combine(budget: dict[str, float]) -> float:
@@ -66,7 +67,7 @@ class Options:
     max_rise_K: float | None = None
     bulk_density_kg_per_m3: float | None = None
     power_u_rel: float = DEFAULT_POWER_U_REL
-    stable_rule: bool = True
+    stable_rule: bool | StopSettings = True   # the verdict's tolerance and planned heating (True: the defaults)
 
 
 class Found(dict[str, MethodResult]):
