@@ -331,10 +331,12 @@ class RunController:
         """Latch the first "heating can stop" (and stop if the plan says so); note a withdrawal once."""
         v = est.verdict or {}
         if est.stable and self.stable_at_s is None:
-            self.stable_at_s = t
+            # the verdict's own time: its checkpoint, which a judgement run off the loop may report a little later
+            self.stable_at_s = est.stable_at_s if est.stable_at_s is not None else t
             self.actions.verdict(self.last_estimate or {})
             if self.plan.auto_stop:
-                self.stop_requested = f"heating can stop at t = {t:.0f} s: automatic stop (auto_stop)"
+                self.stop_requested = (f"heating can stop since t = {self.stable_at_s:.0f} s: automatic stop "
+                                       "(auto_stop)")
         elif v.get("withdrawn") and self.stable_at_s is not None and self.withdrawn_at_s is None:
             self.withdrawn_at_s = t
             self.actions.verdict(self.last_estimate or {})

@@ -74,12 +74,14 @@ def test_a_sample_by_sample_feed_and_one_array_judge_alike() -> None:
         return StopRule(ProbeFacts.of(IDEAL, "heater"), StopSettings(0.02, 600.0), 1e-5, Q, 600.0,
                         noise=(2.5e-5, 100.0))
 
-    whole, one = rule(), rule()
+    whole, chunks, one = rule(), rule(), rule()
     whole.feed(t[heat], u, y, w)
+    chunks.feed(t[heat], u, y, w, chunk=37)
     for i in range(int(np.count_nonzero(heat))):
-        one.feed(t[heat][i:i + 1], u[i:i + 1], y[i:i + 1], w[i:i + 1])
-    assert whole.judgements == one.judgements
-    assert whole.verdict == one.verdict
+        one.feed_one(float(t[heat][i]), float(u[i]), float(y[i]), float(w[i]))
+    assert whole.judgements == chunks.judgements == one.judgements
+    assert whole.verdict == chunks.verdict == one.verdict
+    assert np.array_equal(whole._total, one._total)  # the same sums to the last bit
 
 
 def test_judged_at_a_bounded_number_of_checkpoints_whatever_the_sample_rate() -> None:

@@ -14,6 +14,7 @@ Temperatures may be in K or °C: only differences are used.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -87,8 +88,10 @@ class LiveReducer:
     def __init__(self, probe: ProbeProfile | None = None, sensor: str = "heater", *,
                  stop: StopSettings | None = None, calibration_factor: float = 1.0,
                  calibration_factor_u: float = 0.0, power_u_rel: float = DEFAULT_POWER_U_REL,
-                 max_rise_K: float | None = None) -> None:
-        """``stop``: the verdict's tolerance and the planned heating (without one, the verdict is not judged)."""
+                 max_rise_K: float | None = None, defer: Callable[[Callable[[], None]], None] | None = None) -> None:
+        """``stop``: the verdict's tolerance and the planned heating (without one, the verdict is not judged);
+        ``defer``: where the verdict's judgements run (``StopRule``; None: at once)."""
+        self.defer = defer
         self.probe = probe
         self.sensor = sensor
         self.r_m: float | None = None
@@ -143,7 +146,8 @@ class LiveReducer:
             self._heating_seen = True
             self._push_step(0.0, q_W_per_m)
             self.rule = _stop_rule(self.stop_settings, self.probe, self.sensor, self.baseline, q_W_per_m,
-                                   self.calibration_factor, np.asarray(self._base_t), np.asarray(self._base_T))
+                                   self.calibration_factor, np.asarray(self._base_t), np.asarray(self._base_T),
+                                   self.defer)
         else:
             self._push_step(t_s, q_W_per_m - self._last_q)
         self._last_q = q_W_per_m
@@ -160,7 +164,7 @@ class LiveReducer:
         self._rise = max(self._rise, dT)
         self._append(t_s, X / Q, dT / Q, t_s / Q)
         if self.rule is not None:
-            self.rule.feed(np.array([t_s]), np.array([X / Q]), np.array([dT / Q]), np.array([t_s / Q]))
+            self.rule.feed_one(t_s, X / Q, dT / Q, t_s / Q)
         est = self._estimate(t_s)
         if est is not None:
             self.last = est
@@ -359,8 +363,8 @@ class LiveReducer:
 
 
 def _stop_rule(settings: StopSettings | None, probe: ProbeProfile | None, sensor: str, baseline: Baseline | None,
-               q_W_per_m: float, calibration_factor: float, base_t: np.ndarray, base_T: np.ndarray
-               ) -> StopRule | None:
+               q_W_per_m: float, calibration_factor: float, base_t: np.ndarray, base_T: np.ndarray,
+               defer: Callable[[Callable[[], None]], None] | None = None) -> StopRule | None:
     """The verdict for one heating: the drift's uncertainty and the noise's correlation from the baseline, the
     power switched on at t = 0."""
     if settings is None or settings.planned_heat_s is None or not q_W_per_m > 0:
@@ -372,7 +376,7 @@ def _stop_rule(settings: StopSettings | None, probe: ProbeProfile | None, sensor
         infl = ar1_inflation(lag1_autocorrelation(resid))
         noise = (float(resid @ resid) / (base_t.size - 2), float(base_t.size - 2))
     return StopRule(ProbeFacts.of(probe, sensor), settings, drift_u, q_W_per_m, settings.planned_heat_s,
-                    calibration_factor, infl, noise)
+                    calibration_factor, infl, noise, defer)
 
 
 def _heating_rows(t_s: np.ndarray, q_W_per_m: np.ndarray) -> tuple[int, int]:

@@ -34,6 +34,7 @@ verdict by more than the tolerance, the verdict is withdrawn (shown until the ru
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -42,28 +43,30 @@ from scipy.special import exp1
 
 from . import window as win
 from .cooling import RECOVERY_END_FACTOR, choose_recovery_window
-from .probe_model import response_stehfest
+from .probe_model import long_time_response, response_stehfest
 from .stats import ar1_inflation
 
 DEFAULT_TOLERANCE = 0.02
-GRID_PER_DECADE = 64
+GRID_PER_DECADE = 32
+WATCH_EVERY = 4             # once a verdict stands, every 4th checkpoint is judged (for a withdrawal)
 FLOOR = 0.1                 # window [0.1·t, t]: the offline line's floor (linesource.FLOOR_FRACTION)
 MIN_POINTS = 20             # the offline line's "short" (linesource.MIN_POINTS)
 SHORT_SPAN_LN = math.log(2.0)
 COVERAGE = 2.0              # k = 2 on the random part of the change (≈ 95 %)
 # The media a probe meets: dry sand ≈ 1.3, moist soils 2–3 MJ/(m³·K) (de Vries 1963), water 4.18 (IAPWS-95);
 # 1.0 leaves room below dry sand (common practice, no source).
-RHO_C_RANGE = np.geomspace(1.0e6, 4.2e6, 9)
+RHO_C_RANGE = np.geomspace(1.0e6, 4.2e6, 7)
 START_TOL = 0.01            # the reduction's window: slope error at its start (linesource.START_TOL) …
 END_FLOOR = 0.3             # … the axial limit never before 0.3·t (linesource.END_FLOOR) …
 HALF_DECADE_LN = 0.5        # … and at least half a decade kept (linesource.choose_window)
-SHAPE_BINS = 32             # the media are judged on at most this many bins
+SHAPE_BINS = 16             # the media are judged on at most this many bins
 ADMIT_CHI2 = 4.0            # a ρc is admissible when its fit's SSE is within 2² noise variances of the best (≈ 95 %)
 SHAPE_FROM = 0.03           # the media are judged on the heating since 0.03·t (earlier: the probe's own details)
 MISFIT = 0.01               # model imperfection allowed: 1 % of the rise per ln-unit, as extra noise (no source)
 AXIAL_TOL = 0.01            # the offline window's axial-loss end criterion (linesource.END_TOL)
 H_MAX = 5.0
-_NODES = 48
+LATE_TAU = 200.0            # past this dimensionless time the probe's response is taken from its expansion
+_NODES = 24
 _U0 = 5.0                   # u is summed as u − 5 (≈ ln 150 s): smaller powers, better-conditioned moments
 
 # prefix-sum columns: per sample, then lag-1 products (pair of a sample with the one before it)
@@ -194,9 +197,15 @@ def _deviation(t: np.ndarray, k: np.ndarray, rho_c: np.ndarray, h: np.ndarray, p
     t = np.broadcast_to(t, np.broadcast_shapes(np.shape(t), np.shape(alpha)))
     if probe.probe_C_J_per_m3K:
         tau = alpha * t / (r * r)
-        aj = 2.0 * np.asarray(rho_c, dtype=float) / probe.probe_C_J_per_m3K
-        # one more axis for the Stehfest terms, so each medium's α_J and h meet its own row of τ
-        e = response_stehfest(tau, aj[..., None], np.asarray(h, dtype=float)[..., None]) - np.log(tau)
+        aj = np.broadcast_to(2.0 * np.asarray(rho_c, dtype=float) / probe.probe_C_J_per_m3K, tau.shape)
+        hh = np.broadcast_to(np.asarray(h, dtype=float), tau.shape)
+        # late on, the two-term long-time expansion (error ~ (ln τ)²/τ², under 1e-3 past τ = 200) spares the
+        # Laplace inversion; each τ meets its own medium's α_J and h (one more axis for the Stehfest terms)
+        e = long_time_response(np.maximum(tau, LATE_TAU), aj, hh) - np.log(tau)
+        early = tau < LATE_TAU
+        if np.any(early):
+            e[early] = (response_stehfest(tau[early], aj[early][:, None], hh[early][:, None])
+                        - np.log(tau[early]))
     else:
         x = r * r / (4.0 * alpha * t)
         e = exp1(x) + np.log(x)
@@ -308,12 +317,13 @@ class _Medium:
         return self.k / self.rho_c
 
 
-def _shape_fits(bins: _Bins, rho_c: np.ndarray, k0: float, probe: ProbeFacts) -> list[_Medium]:
+def _shape_fits(bins: _Bins, rho_c: np.ndarray, k0: float, probe: ProbeFacts,
+                h0: np.ndarray | None = None) -> list[_Medium]:
     """For each ρc: y = a·(u + E(t; ρc, h)) + c over the bins, the within-bin scatter kept; h from the intercept.
 
     A probe-model fit with ρc given: the slope gives k, and h is moved until the intercept is the one the
     model predicts, c = a·ln(α/r²) (a few fixed-point steps; each 1 of h lifts the late response by 2).
-    All ρc at once (one row each).
+    All ρc at once (one row each); ``h0``, the contacts found at the checkpoint before, saves steps.
     """
     r = probe.radius_m
     assert r is not None
@@ -323,9 +333,10 @@ def _shape_fits(bins: _Bins, rho_c: np.ndarray, k0: float, probe: ProbeFacts) ->
     w_uu, w_uy, w_yy = bins.within(_U, _U, _UU), bins.within(_U, _Y, _UY), bins.within(_Y, _Y, _YY)
     rc = np.asarray(rho_c, dtype=float)[:, None]
     k = np.full_like(rc, k0)
-    h = np.zeros_like(rc)
+    h = np.zeros_like(rc) if h0 is None else np.asarray(h0, dtype=float).reshape(rc.shape)
     sse = np.full(rc.shape[0], np.inf)
-    for _ in range(3 if probe.probe_C_J_per_m3K else 2):
+    steps = 1 if not probe.probe_C_J_per_m3K else (2 if h0 is not None else 3)
+    for _ in range(steps):
         x = ub + _deviation(tb, k, rc, h, probe)
         sx, sy = x @ n, float(n @ yb)
         sxx, sxy = (x * x) @ n + w_uu, (x * yb) @ n + w_uy
@@ -357,27 +368,44 @@ def _admissible(fits: list[_Medium], limit: float) -> tuple[_Medium, list[_Mediu
     sse = np.array([m.sse for m in ok])
     ks, hs = np.array([m.k for m in ok]), np.array([m.h for m in ok])
 
-    def parabola(j: int) -> np.ndarray:
+    def parabola(j: int) -> tuple[float, float, float]:
+        """SSE ≈ c2·x² + c1·x + c0 through the grid points j − 1, j, j + 1 (Newton's divided differences)."""
         j = min(max(j, 1), len(ok) - 2)
-        return np.polyfit(x[j - 1:j + 2], sse[j - 1:j + 2], 2)
+        (x0, x1, x2), (y0, y1, y2) = x[j - 1:j + 2], sse[j - 1:j + 2]
+        d01, d12 = (y1 - y0) / (x1 - x0), (y2 - y1) / (x2 - x1)
+        c2 = (d12 - d01) / (x2 - x0)
+        c1 = d01 - c2 * (x0 + x1)
+        return c2, c1, y0 - c1 * x0 - c2 * x0 * x0
+
+    def crossing(c: tuple[float, float, float], level: float, lo_x: float, hi_x: float) -> float | None:
+        """Where the parabola meets ``level`` within [lo_x, hi_x], if it does."""
+        c2, c1, c0 = c
+        if abs(c2) < 1e-300:
+            return None if c1 == 0 else (level - c0) / c1
+        disc = c1 * c1 - 4 * c2 * (c0 - level)
+        if disc < 0:
+            return None
+        for r in ((-c1 - math.sqrt(disc)) / (2 * c2), (-c1 + math.sqrt(disc)) / (2 * c2)):
+            if lo_x - 1e-9 <= r <= hi_x + 1e-9:
+                return r
+        return None
 
     def at(xv: float, sse_v: float) -> _Medium:
         return _Medium(math.exp(xv), float(np.interp(xv, x, hs)), float(np.interp(xv, x, ks)), sse_v)
 
     i = int(np.argmin(sse))
-    xb, sb = x[i], sse[i]
+    xb, sb = float(x[i]), float(sse[i])
     c = parabola(i)
     if c[0] > 0:
         xv = min(max(-c[1] / (2 * c[0]), x[max(i - 1, 0)]), x[min(i + 1, len(ok) - 1)])
-        xb, sb = xv, min(float(np.polyval(c, xv)), sb)
+        xb, sb = xv, min(c[0] * xv * xv + c[1] * xv + c[2], sb)
     thr = sb + limit
-    lo, hi = x[0], x[-1]
+    lo, hi = float(x[0]), float(x[-1])
     for j in range(len(ok) - 1):  # the interval's ends, where the SSE crosses the limit
         if min(sse[j], sse[j + 1]) <= thr < max(sse[j], sse[j + 1]):
-            c = parabola(j if sse[j] < sse[j + 1] else j + 1)
-            roots = [r.real for r in np.roots(c - np.array([0.0, 0.0, thr])) if abs(r.imag) < 1e-12]
-            near = [r for r in roots if x[j] - 1e-9 <= r <= x[j + 1] + 1e-9]
-            xv = near[0] if near else x[j] + (thr - sse[j]) / (sse[j + 1] - sse[j]) * (x[j + 1] - x[j])
+            xv = crossing(parabola(j if sse[j] < sse[j + 1] else j + 1), thr, x[j], x[j + 1])
+            if xv is None:
+                xv = x[j] + (thr - sse[j]) / (sse[j + 1] - sse[j]) * (x[j + 1] - x[j])
             if sse[j] > thr:
                 lo = max(lo, xv) if xv <= xb else lo
             else:
@@ -447,29 +475,35 @@ class _Context:
     noise: tuple[float, float] = (0.0, 0.0)  # the baseline's residual variance (K²) and its degrees of freedom
 
 
-def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context) -> Judgement:
+def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: np.ndarray | None = None,
+          want_plan: bool = True) -> tuple[Judgement, np.ndarray | None]:
     """The rule at one checkpoint: pure, no state. ``all_bins`` cover the heating since ``SHAPE_FROM``·t (the
-    media are judged on them); from bin ``first`` on they are the window [t0 ≈ 0.1·t, t1 = t]."""
+    media are judged on them); from bin ``first`` on they are the window [t0 ≈ 0.1·t, t1 = t]. ``h0``: the
+    contacts of the checkpoint before (a warm start); ``want_plan``: work out the stop plan's recovery window
+    (only needed while no verdict stands). Returns the judgement and the contacts found."""
     t, T, tol = t1, ctx.planned_s, ctx.settings.tolerance
     bins = _Bins(all_bins.S[first:].copy())
     bins.S[0, _PYY:] = 0.0
     S = bins.total
     line = _line(S)
     if line is None or line.a <= 0:
-        return Judgement(t, False, math.nan, math.inf, {}, "no rise yet")
+        return Judgement(t, False, math.nan, math.inf, {}, "no rise yet"), h0
     k_line = 1.0 / (4.0 * math.pi * line.a)
 
     def no(reason: str, terms: dict[str, float] | None = None, bound: float = math.inf,
            k: float = k_line) -> Judgement:
         return Judgement(t, False, k * ctx.k_scale, bound, terms or {}, reason)
 
+    def no_h(*args: Any) -> tuple[Judgement, np.ndarray | None]:
+        return no(*args), h0
+
     n = float(S[_N])
     if n < MIN_POINTS or math.log(t1 / t0) < SHORT_SPAN_LN:
-        return no("too few samples yet for a window of a factor 2 in time")
+        return no_h("too few samples yet for a window of a factor 2 in time")
     if ctx.probe.radius_m is None:
-        return no("the probe's radius is unknown: its transient cannot be predicted")
+        return no_h("the probe's radius is unknown: its transient cannot be predicted")
     if ctx.drift_u_K_per_s is None:
-        return no("no baseline before heating: the ground's drift is unknown")
+        return no_h("no baseline before heating: the ground's drift is unknown")
 
     # --- statistical and drift parts of the change (samples even in time, rate from the data) ---------------
     nodes_t, nodes_T = _nodes(t0, t), _nodes(FLOOR * T, T)
@@ -493,18 +527,19 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context) -> J
     base_var, base_dof = ctx.noise[0] / ctx.q_W_per_m**2, ctx.noise[1]
     dof = max(float(multi.n.sum()) - multi.S.shape[0] - 1, 0.0) + base_dof
     if dof < MIN_POINTS:
-        return no("too few samples yet to tell the noise")
+        return no_h("too few samples yet to tell the noise")
     infl = ctx.noise_infl
     var_eff = (w_resid + base_var * base_dof) / dof * infl + (MISFIT * line.a) ** 2
     stat = math.sqrt(max(var_eff * (1.0 / sxx_t + 1.0 / sxx_T - 2.0 * cross), 0.0)) / line.a
     drift = ctx.drift_u_K_per_s * abs(tilt_T - tilt_t) / max(ctx.q_W_per_m, 1e-12) / line.a if t < T else 0.0
     noise = COVERAGE * math.hypot(stat, drift)
     if noise > tol:  # noise and drift alone rule it out: the media are not worth judging yet
-        return no(f"k could still move by up to {100 * noise:.1f} % from noise and drift alone "
+        return no_h(f"k could still move by up to {100 * noise:.1f} % from noise and drift alone "
                   f"(tolerance {100 * tol:g} %)", {"statistical": stat, "drift": drift}, noise)
 
     # --- the media the heating so far allows -----------------------------------------------------------------
-    fits = _shape_fits(all_bins.coarse(SHAPE_BINS), RHO_C_RANGE, k_line, ctx.probe)
+    fits = _shape_fits(all_bins.coarse(SHAPE_BINS), RHO_C_RANGE, k_line, ctx.probe, h0)
+    h_found = np.array([m.h for m in fits])
     best, media = _admissible(fits, ADMIT_CHI2 * var_eff)
     excess = best.sse / max(n_all - 3, 1) - var_eff
     explained = excess <= 3.0 * var_eff * math.sqrt(2.0 * infl / n_all) or excess <= (2.0 * MISFIT * line.a) ** 2
@@ -524,7 +559,7 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context) -> J
     bound = model + noise
 
     def refuse(reason: str) -> Judgement:
-        return no(reason, terms, bound, k_now)
+        return no_h(reason, terms, bound, k_now)
 
     if not explained:
         return refuse("the line bends in a way the probe's transient does not explain (a boundary, moisture "
@@ -538,12 +573,12 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context) -> J
         return refuse(f"k could still move by up to {100 * bound:.1f} % (tolerance {100 * tol:g} %)")
     if t >= T:
         return refuse("the planned heating is over")
-    plan = _recovery_plan(t, media, ctx, rate)
-    if plan is None:
+    plan = _recovery_plan(t, media, ctx, rate) if want_plan else None
+    if want_plan and plan is None:
         return refuse("stopping now would leave no recovery window for the heat–cool cross-check")
     return Judgement(t, True, k_now * ctx.k_scale, bound, terms, f"k will not move by more than "
                      f"{100 * bound:.1f} % (tolerance {100 * tol:g} %)", recover_s=(RECOVERY_END_FACTOR - 1.0) * t,
-                     recovery_window_s=plan)
+                     recovery_window_s=plan), h_found
 
 
 def _recovery_plan(t_h: float, media: list[_Medium], ctx: _Context, rate: float) -> tuple[float, float] | None:
@@ -597,9 +632,12 @@ class StopRule:
 
     def __init__(self, probe: ProbeFacts, settings: StopSettings, drift_u_K_per_s: float | None,
                  q_W_per_m: float, planned_heat_s: float, calibration_factor: float = 1.0,
-                 noise_infl: float = 1.0, noise: tuple[float, float] = (0.0, 0.0)) -> None:
+                 noise_infl: float = 1.0, noise: tuple[float, float] = (0.0, 0.0),
+                 defer: Callable[[Callable[[], None]], None] | None = None) -> None:
         """``noise``: the baseline's residual variance (K²) and degrees of freedom; ``noise_infl`` its AR(1)
-        variance inflation."""
+        variance inflation. ``defer``: runs each checkpoint's judgement later, in order (the daemon hands them to
+        a worker thread so the loop never waits); the verdict is then the same, only known a little later."""
+        self._defer = defer
         self.ctx = _Context(probe, settings, planned_heat_s, drift_u_K_per_s, q_W_per_m, calibration_factor,
                             noise_infl, noise)
         self._total = np.zeros(_COLS)
@@ -608,6 +646,8 @@ class StopRule:
         self._cp_before: list[np.ndarray] = []  # prefix sums before the checkpoint sample
         self._cp_incl: list[np.ndarray] = []    # … and including it
         self._next_grid = -math.inf
+        self._h: np.ndarray | None = None     # contacts per ρc at the last checkpoint (a warm start)
+        self._watch = 0                        # checkpoints since the verdict
         self.judgements: list[Judgement] = []
         power = q_W_per_m * probe.length_m if probe.length_m else None
         self.verdict = Verdict(settings.tolerance, planned_heat_s, power_W=power)
@@ -621,6 +661,22 @@ class StopRule:
         t, u, y, w = (np.asarray(a, dtype=float) for a in (t, u, y, w))
         for s in range(0, t.size, chunk):
             self._feed_chunk(t[s:s + chunk], u[s:s + chunk], y[s:s + chunk], w[s:s + chunk])
+        return self.verdict
+
+    def feed_one(self, t: float, u: float, y: float, w: float) -> Verdict:
+        """One sample (the live path): the same sums as ``feed`` to the last bit, without the array set-up."""
+        uc = u - _U0
+        if self._prev is None:
+            up = yp = lag = 0.0
+        else:
+            up, yp, lag = self._prev[0] - _U0, self._prev[1], 1.0
+        row = np.array((1.0, uc, y, uc * uc, uc * y, y * y, t, w, w * uc, yp * y * lag, yp * uc * lag,
+                        up * y * lag, up * uc * lag, (up + uc) * lag, (yp + y) * lag))
+        before = self._total
+        self._total = before + row
+        self._prev = (u, y)
+        if t >= self._next_grid:
+            self._checkpoint(t, before, self._total.copy())
         return self.verdict
 
     def _feed_chunk(self, t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray) -> None:
@@ -654,9 +710,32 @@ class StopRule:
         rows += [self._cp_incl[m] - self._cp_incl[m - 1] for m in range(i_all + 1, len(self._cp_t))]
         S = np.array(rows)
         S[0, _PYY:] = 0.0  # its lag products pair it with a sample outside
-        j = judge(_Bins(S), i - i_all, self._cp_t[i], t, self.ctx)
+        job = _Job(_Bins(S), i - i_all, self._cp_t[i], t)
+        if self._defer is None:
+            self._judge(job)
+        else:
+            self._defer(lambda: self._judge(job))
+
+    def _judge(self, job: _Job) -> None:
+        """One checkpoint's judgement, folded into the verdict (in checkpoint order, whoever runs it). Once a
+        verdict stands only every ``WATCH_EVERY``-th checkpoint is judged: enough to see k move away."""
+        if self.verdict.stands:
+            self._watch += 1
+            if self._watch % WATCH_EVERY:
+                return
+        else:
+            self._watch = 0
+        j, self._h = judge(job.bins, job.first, job.t0, job.t1, self.ctx, self._h, not self.verdict.stands)
         self.judgements.append(j)
         self.verdict = _update(self.verdict, j)
+
+
+@dataclass(frozen=True)
+class _Job:
+    bins: _Bins
+    first: int
+    t0: float
+    t1: float
 
 
 def _update(v: Verdict, j: Judgement) -> Verdict:
