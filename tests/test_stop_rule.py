@@ -89,8 +89,7 @@ def test_judged_at_a_bounded_number_of_checkpoints_whatever_the_sample_rate() ->
     r = StopRule(ProbeFacts.of(IDEAL, "heater"), StopSettings(0.02, 2000.0), 1e-5, Q, 2000.0, noise=(1e-5, 100.0))
     r.feed(t, np.log(t), np.log(t) / (4 * math.pi * K), t / Q, chunk=30_000)
     decades = math.log10(t[-1] / t[0])
-    assert len(r.judgements) <= GRID_PER_DECADE * (decades + 1)
-    assert len(r._cp_t) == len(r.judgements)  # prefix sums kept at the checkpoints only
+    assert len(r.judgements) <= len(r._cp_t) <= GRID_PER_DECADE * (decades + 1)  # prefix sums only there
 
 
 def test_the_verdict_on_a_line_source_comes_early_and_its_k_holds() -> None:

@@ -434,33 +434,45 @@ def _reported_window(m: _Medium, horizon: float, probe: ProbeFacts) -> tuple[flo
     return start, end, math.log(end / start) < SHORT_SPAN_LN
 
 
-def _full_heating_ks(best: _Medium, media: list[_Medium], now: tuple[float, float, bool], k_now: float, t: float,
-                     T: float, probe: ProbeFacts) -> np.ndarray:
-    """What the full heating could report, noise aside, for each admissible medium.
+def _change(best: _Medium, media: list[_Medium], bins: _Bins, k_line: float, t: float, T: float,
+            probe: ProbeFacts) -> tuple[float, float]:
+    """The k a stop now reports (in the best medium) and the largest change to what the full heating would
+    report, over the admissible media, noise aside.
 
-    Where its window is long enough the reduction reports the late-time line at T. If a stop now would report
-    the line too, the line at T is the line now times the change of its slope error from the window now to
-    the window at T (the medium's shape, anchored on the data); otherwise it is the medium's k with the slope
-    error of the window at T. Where the window at T is short it reports the probe model refitted on the longer
-    record, whose k stays within the range the admissible media span now, narrowed by √(1 − t/T) (nested fits:
-    the variance that more data removes).
+    In each medium the reduction reports the late-time line over its window, or the probe model where that window
+    is short (a window short at T is short now too). The model's k is the data's best fit now; at T the model is
+    refitted on the longer record, so its k stays within the range the admissible media span now, narrowed by
+    √(1 − t/T) (nested fits: the variance that more data removes). The line now is read off the data; the line at
+    T is the line now times the change of its slope error from the window now to the window at T (the medium's
+    shape, anchored on the data), or, where the line is not reported now, the medium's k with the slope error of
+    its window at T.
     """
-    wins = [_reported_window(m, T, probe) for m in media]
-    line = np.array([not short for _, _, short in wins])
-    out: list[float] = []
-    if np.any(line):
-        on = [m for m, ok in zip(media, line, strict=True) if ok]
-        b_T = _line_biases(np.array([[w[0], w[1]] for w in wins])[line], on, probe)
-        if not now[2]:  # the line now and the line at T: its change
-            b_now = _line_biases(np.array([[now[0], now[1]]] * len(on)), on, probe)
-            out += list(k_now * (1.0 + b_now) / (1.0 + b_T))
+    now = [_reported_window(m, t, probe) for m in media]
+    at_T = [_reported_window(m, T, probe) for m in media]
+    lines_now = []
+    for s0, _, short in now:
+        fit = None if short else _line(bins.since(s0))
+        lines_now.append(1.0 / (4.0 * math.pi * fit.a) if fit is not None and fit.a > 0 else k_line)
+    reported_now = [best.k if short else k for (_, _, short), k in zip(now, lines_now, strict=True)]
+    spread = float(np.max(np.abs(np.array([m.k for m in media]) / best.k - 1.0))) * math.sqrt(max(1.0 - t / T, 0.0))
+    line_T = [i for i, w in enumerate(at_T) if not w[2]]
+    b_T = _line_biases(np.array([at_T[i][:2] for i in line_T]), [media[i] for i in line_T], probe) if line_T else []
+    anchored = [i for i in line_T if not now[i][2]]
+    b_now = (_line_biases(np.array([now[i][:2] for i in anchored]), [media[i] for i in anchored], probe)
+             if anchored else [])
+    b_T_of, b_now_of = dict(zip(line_T, b_T, strict=True)), dict(zip(anchored, b_now, strict=True))
+    worst = 0.0
+    for i, m in enumerate(media):
+        S = reported_now[i]
+        if at_T[i][2]:
+            full = [best.k * (1.0 - spread), best.k * (1.0 + spread)]
+        elif i in b_now_of:
+            full = [S * (1.0 + b_now_of[i]) / (1.0 + b_T_of[i])]
         else:
-            out += list(np.array([m.k for m in on]) / (1.0 + b_T))
-    if not np.all(line):
-        ks = np.array([m.k for m in media])
-        spread = float(np.max(np.abs(ks / best.k - 1.0))) * math.sqrt(max(1.0 - t / T, 0.0))
-        out += [best.k * (1.0 - spread), best.k * (1.0 + spread)]
-    return np.array(out)
+            full = [m.k / (1.0 + b_T_of[i])]
+        worst = max(worst, max(abs(S / f - 1.0) for f in full))
+    best_now = media.index(best) if best in media else 0
+    return reported_now[best_now], worst
 
 
 @dataclass
@@ -545,15 +557,8 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: 
     explained = excess <= 3.0 * var_eff * math.sqrt(2.0 * infl / n_all) or excess <= (2.0 * MISFIT * line.a) ** 2
 
     # --- what a stop now reports, against what the full heating would, medium by medium ----------------------
-    now = _reported_window(best, t, ctx.probe)
-    s0, short_now = now[0], now[2]
-    if short_now:
-        k_now = best.k
-    else:
-        off = _line(all_bins.since(s0))
-        k_now = 1.0 / (4.0 * math.pi * off.a) if off is not None and off.a > 0 else k_line
-    full = _full_heating_ks(best, media, now, k_now, t, T, ctx.probe)
-    model = float(np.max(np.abs(k_now / full - 1.0))) if t < T else 0.0
+    k_now, model = _change(best, media, all_bins, k_line, t, T, ctx.probe)
+    model = model if t < T else 0.0
     alpha_hi = max(m.alpha for m in media)
     terms = {"model": model, "statistical": stat, "drift": drift}
     bound = model + noise
