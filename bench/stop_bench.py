@@ -21,13 +21,18 @@ Record sets:
 Targets (issue 12): median verdict ≤ 40 % of T; |Δk| ≤ tolerance in ≥ 95 % of verdicts and never beyond twice it;
 no verdict in a bending record.
 
-Run: .venv/bin/python bench/stop_bench.py [--quick] [--tolerance PCT]
+Also, for long records (``--rows N``): the verdict over one heating of N samples (an ideal line source at 10 Hz
+with noise), time and peak memory of ``live.record_verdict``; its cost grows with the decades of time, not the
+samples.
+
+Run: .venv/bin/python bench/stop_bench.py [--quick] [--tolerance PCT] [--rows N]
 """
 
 from __future__ import annotations
 
 import argparse
 import math
+import resource
 import statistics
 import sys
 import time
@@ -39,7 +44,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from linerig.daemon.probe import ProbeProfile, load_probe_profile
+from linerig.daemon.probe import ProbeProfile, SensorPosition, load_probe_profile
 from linerig.daemon.reduction import window as win
 from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
@@ -195,11 +200,38 @@ def pct(x: float | None) -> str:
     return "    —  " if x is None or not math.isfinite(x) else f"{100 * x:+6.2f}%"
 
 
+def long_record(rows: int) -> None:
+    """One heating of ``rows`` samples at 10 Hz (E1 line source, k 1.5, α 0.7 mm²/s, 5 W/m, 5 mK noise)."""
+    from scipy.special import exp1
+
+    dt = 0.1
+    base = min(3000, rows // 10)
+    t = (np.arange(rows, dtype=float) - base) * dt
+    rng = np.random.default_rng(1)
+    temp = 15.0 + 0.005 * rng.standard_normal(rows)
+    on = t > 0
+    temp[on] += 5.0 / (4 * math.pi * 1.5) * exp1(0.635e-3**2 / (4 * 0.7e-6 * t[on]))
+    q = np.where(t >= 0, 5.0, 0.0)
+    probe = ProbeProfile(name="ideal", radius_mm=0.635, heater_length_mm=None, sensors=(SensorPosition("heater"),))
+    before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    s = time.perf_counter()
+    v = record_verdict(t, temp, q, probe, "heater")
+    el = time.perf_counter() - s
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    print(f"long record: {rows:,} samples ({t[-1]:.0f} s of heating at 10 Hz): record_verdict {el:.2f} s, "
+          f"peak RSS {peak / 1024:.0f} MB ({(peak - before) / 1024:.0f} MB above the record itself); verdict at "
+          f"{v.first_at_s if v else None} s")
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--quick", action="store_true", help="a few records per set")
     p.add_argument("--tolerance", type=float, default=2.0, help="stop tolerance, %% (default 2)")
+    p.add_argument("--rows", type=int, default=0, help="only time the verdict on one heating of this many samples")
     args = p.parse_args(argv)
+    if args.rows:
+        long_record(args.rows)
+        return 0
     tol = args.tolerance / 100.0
     sets: list[tuple[str, list[Case]]] = [("simulator materials", sim_cases(args.quick))]
     print("reference records (tests/reference/): not on this branch yet; the simulator set only")

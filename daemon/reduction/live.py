@@ -391,6 +391,9 @@ def _heating_rows(t_s: np.ndarray, q_W_per_m: np.ndarray) -> tuple[int, int]:
     return i0, int(off[0]) if off.size else t_s.size - 1
 
 
+_CHUNK = 262_144
+
+
 def planned_heat_of_record(t_s: np.ndarray, q_W_per_m: np.ndarray) -> float | None:
     """The heating a record shows (heater on to the first zero-power row, or its last row): the plan offline."""
     t_s = np.asarray(t_s, dtype=float)
@@ -427,10 +430,11 @@ def record_verdict(t_s: np.ndarray, temp: np.ndarray, q_W_per_m: np.ndarray, pro
         Xh, Qh = log_time_regressor(th, steps_t, steps_dq)
     else:
         Xh, Qh = np.asarray(X, dtype=float)[i0:i1 + 1], np.asarray(Q, dtype=float)[i0:i1 + 1]
-    use = (th > 0) & (Qh > 0)
-    th, Xh, Qh = th[use], Xh[use], Qh[use]
-    dT = Th[use] - baseline.at(th)
-    rule.feed(th, Xh / Qh, dT / Qh, th / Qh)
+    for s in range(0, th.size, _CHUNK):  # in pieces, so a long record never has all its regressors at once
+        tc, Qc = th[s:s + _CHUNK], Qh[s:s + _CHUNK]
+        use = (tc > 0) & (Qc > 0)
+        tc, Xc, Qc, Tc = tc[use], Xh[s:s + _CHUNK][use], Qc[use], Th[s:s + _CHUNK][use]
+        rule.feed(tc, Xc / Qc, (Tc - baseline.at(tc)) / Qc, tc / Qc)
     return rule.verdict
 
 

@@ -607,14 +607,10 @@ def _recovery_plan(t_h: float, media: list[_Medium], ctx: _Context, rate: float)
 
 
 # --- the streaming part: prefix sums at checkpoints -----------------------------------------------------------
-def _rows(t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray, prev: tuple[float, float] | None
-          ) -> np.ndarray:
-    """Per-sample columns (see the column list); ``prev`` is the (u, y) of the sample before the first."""
+def _columns(t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray, prev: tuple[float, float] | None
+             ) -> list[np.ndarray]:
+    """Per-sample columns, one array each (see the column list); ``prev`` is the (u, y) of the sample before."""
     u = u - _U0
-    out = np.empty((t.size, _COLS))
-    out[:, _N] = 1.0
-    out[:, _U], out[:, _Y], out[:, _UU], out[:, _UY], out[:, _YY] = u, y, u * u, u * y, y * y
-    out[:, _T], out[:, _W], out[:, _WU] = t, w, w * u
     up = np.empty_like(u)
     yp = np.empty_like(y)
     up[1:], yp[1:] = u[:-1], y[:-1]
@@ -623,9 +619,13 @@ def _rows(t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray, prev: tupl
         up[0] = yp[0] = lag[0] = 0.0
     else:
         up[0], yp[0] = prev[0] - _U0, prev[1]
-    out[:, _PYY], out[:, _PYU], out[:, _PUY] = yp * y * lag, yp * u * lag, up * y * lag
-    out[:, _PUU], out[:, _PU], out[:, _PY] = up * u * lag, (up + u) * lag, (yp + y) * lag
-    return out
+    return [np.ones_like(u), u, y, u * u, u * y, y * y, t, w, w * u, yp * y * lag, yp * u * lag, up * y * lag,
+            up * u * lag, (up + u) * lag, (yp + y) * lag]
+
+
+def _next_grid(t: float) -> float:
+    """The grid time after the one ``t`` reached: 10^(j/GRID_PER_DECADE)."""
+    return 10.0 ** ((math.floor(math.log10(t) * GRID_PER_DECADE + 1e-9) + 1) / GRID_PER_DECADE)
 
 
 class StopRule:
@@ -687,23 +687,34 @@ class StopRule:
     def _feed_chunk(self, t: np.ndarray, u: np.ndarray, y: np.ndarray, w: np.ndarray) -> None:
         if t.size == 0:
             return
-        rows = _rows(t, u, y, w, self._prev)
-        # summed from the running total, one sample after another: a sample-by-sample feed gives the same bits
-        incl = np.cumsum(np.vstack([self._total[None, :], rows]), axis=0)[1:]
-        idx = 0
+        # the samples that are checkpoints: the first at or after each grid time
+        marks: list[int] = []
+        idx, grid = 0, self._next_grid
         while idx < t.size:
-            # the next checkpoint: the first sample at or after the next grid time
-            j = idx + int(np.searchsorted(t[idx:], self._next_grid, side="left"))
+            j = idx + int(np.searchsorted(t[idx:], grid, side="left"))
             if j >= t.size:
                 break
-            before = incl[j - 1] if j > 0 else self._total
-            self._checkpoint(float(t[j]), before.copy(), incl[j].copy())
+            marks.append(j)
+            grid = _next_grid(float(t[j]))
             idx = j + 1
-        self._total = incl[-1].copy()
+        # each column summed from the running total, one sample after another (a 1-D cumulative sum is
+        # sequential): a sample-by-sample feed gives the same bits; only the sums at the marks are kept
+        at = np.array(marks, dtype=int)
+        incl = np.empty((at.size, _COLS))
+        before = np.empty((at.size, _COLS))
+        last = np.empty(_COLS)
+        for c, col in enumerate(_columns(t, u, y, w, self._prev)):
+            run = np.cumsum(np.concatenate(([self._total[c]], col)))
+            incl[:, c] = run[at + 1]
+            before[:, c] = run[at]
+            last[c] = run[-1]
+        for k, j in enumerate(marks):
+            self._checkpoint(float(t[j]), before[k], incl[k])
+        self._total = last
         self._prev = (float(u[-1]), float(y[-1]))
 
     def _checkpoint(self, t: float, before: np.ndarray, incl: np.ndarray) -> None:
-        self._next_grid = 10.0 ** ((math.floor(math.log10(t) * GRID_PER_DECADE + 1e-9) + 1) / GRID_PER_DECADE)
+        self._next_grid = _next_grid(t)
         self._cp_t.append(t)
         self._cp_before.append(before)
         self._cp_incl.append(incl)
