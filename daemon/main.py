@@ -107,7 +107,7 @@ def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
     db = store.reader
 
     async def status(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
-        return svc.status()
+        return {**svc.status(), "db": str(store.path)}   # clients that write (qualifications) write here
 
     async def ping(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         return {"pong": True, "pid": os.getpid()}
@@ -225,7 +225,7 @@ def supply_limits(cfg: RigConfig, probe: ProbeProfile) -> SupplyLimits:
 
 
 async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None,
-                supply_url: str | None = None) -> int:
+                supply_url: str | None = None, sim_firmware: str | None = None) -> int:
     from linerig.daemon.probe import load_probe_profile
 
     probe = load_probe_profile(args.probe) if args.probe else cfg.probe
@@ -265,8 +265,12 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         store.close()
         return 1
     await api.start()
-    log.info("linerigd ready: socket %s, database %s, front end %s", api.path, db_path, frontend_url)
-    print(json.dumps({"ready": True, "socket": str(api.path), "db": str(db_path), "pid": os.getpid()}), flush=True)
+    log.info("linerigd ready: socket %s, database %s, front end %s%s", api.path, db_path, frontend_url,
+             f" (simulated, firmware under {sim_firmware})" if sim_firmware else "")
+    ready = {"ready": True, "socket": str(api.path), "db": str(db_path), "pid": os.getpid()}
+    if sim_firmware:  # which interpreter runs the simulated board's firmware (linerig-sim --firmware)
+        ready["firmware"] = sim_firmware
+    print(json.dumps(ready), flush=True)
     sdnotify.notify("READY=1\nSTATUS=idle, heater off")
     await svc.stop_requested.wait()
     sdnotify.notify("STOPPING=1")
@@ -390,6 +394,7 @@ def main(argv: list[str] | None = None) -> int:
         return 0 if ok else 1
     sim: subprocess.Popen[str] | None = None
     material = None
+    sim_firmware: str | None = None
     if args.supply and args.simulate is None:
         print("linerigd: --supply goes with --simulate; for a real supply set [devices] supply in the configuration",
               file=sys.stderr)
@@ -417,6 +422,7 @@ def main(argv: list[str] | None = None) -> int:
         sim, info = start_simulator(args, args.probe)
         frontend_url = info["frontend"]
         supply_url = info.get("supply")
+        sim_firmware = info.get("firmware")
     elif args.frontend or cfg.devices.frontend:
         frontend_url = args.frontend or cfg.devices.frontend
         supply_url = cfg.devices.supply
@@ -425,7 +431,7 @@ def main(argv: list[str] | None = None) -> int:
               f"[devices] frontend in {args.config or DEFAULT_CONFIG_PATH}, or use --simulate", file=sys.stderr)
         return 2
     try:
-        return asyncio.run(serve(args, cfg, frontend_url, material, supply_url))
+        return asyncio.run(serve(args, cfg, frontend_url, material, supply_url, sim_firmware))
     except BaseException:
         # the loop itself died: whatever happened, the heater goes off before the process ends
         safe_off(frontend_url, supply_url, cfg.devices.frontend_baud, cfg.devices.supply_baud, timeout_s=0.5)

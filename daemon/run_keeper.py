@@ -207,7 +207,7 @@ class RunKeeper:
                 "sensor_names": json.dumps(names), "heater_length_m": rig.s.probe.length_m,
                 "plan_json": json.dumps(plan.to_dict()), "series_id": series.series_id if series else None,
                 "cycle": cycle, "q_timing": "reading",
-                "frontend_boot_id": rig.frontend.identity.boot_id if rig.frontend.identity else None})
+                **_frontend_fields(rig.frontend.identity)})
         except StoreError as exc:
             rig.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
@@ -250,10 +250,13 @@ class RunKeeper:
         red = await in_daemon_thread(reduce_run, data, rig.s.probe, max_rise_K=rig.s.limits.max_rise_K,
                                      stable_rule=stop)
         out = {}
+        ended_early = str(run.state) if str(run.state) in ("aborted", "faulted") else None
         for name, res in red.sensors.items():
             j = res.to_json()
             if run.not_settled and "not_settled" not in j["flags"]:
                 j["flags"] = [*j["flags"], "not_settled"]
+            if ended_early and ended_early not in j["flags"]:
+                j["flags"] = [*j["flags"], ended_early]
             rig.store.add_result(run.run_id, name, j, source="final")
             out[name] = j
         return out
@@ -301,6 +304,12 @@ class RunKeeper:
         if series is not None and last:
             rig.hub.publish({"event": "series_finished", "series_id": series.series_id,
                              "state": series.schedule.series_state(state), "cycles_done": series.schedule.done})
+
+
+def _frontend_fields(ident: Any) -> dict[str, Any]:
+    """The front end's identity frame as run columns (all None before the first identity frame)."""
+    return {"frontend_boot_id": getattr(ident, "boot_id", None), "frontend_model": getattr(ident, "model", None),
+            "frontend_serial": getattr(ident, "serial", None), "frontend_firmware": getattr(ident, "firmware", None)}
 
 
 class _Actions:

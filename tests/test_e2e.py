@@ -19,6 +19,7 @@ import pytest
 from simulated_daemon import simulated_daemon
 
 from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+from tests.daemon_harness import _json_request, wait_for
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -105,6 +106,9 @@ def test_time_zero_is_the_firmwares_own_switch_on(tmp_path: Path) -> None:
                               text=True)
     try:
         assert daemon.stdout is not None and json.loads(daemon.stdout.readline()).get("ready")
+        assert info["firmware"] == "micropython"  # its own process, as on a board
+        # the firmware's process boots after the simulator's start-up line: wait for the link as an operator would
+        wait_for(lambda: _json_request(sock, {"op": "status"}).get("link_up"), 20, "the front end link")
         cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(sock), "start", "--heat-s", "300",
                "--recover-s", "200", "--baseline-s", BASELINE_S, "--wait", "--json"]
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)

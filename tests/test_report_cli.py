@@ -44,10 +44,10 @@ def test_run_report_html_is_self_contained(demo: tuple[Path, dict[str, Any]], tm
     rc, _, err = _cli(capsys, "report", str(ids["bh1"][2]), "--db", str(db), "-o", str(out))
     assert rc == 0, err
     html = out.read_text(encoding="utf-8")
-    assert html.count("data:image/png;base64,") >= 3          # fit, estimate history, cooling
+    assert html.count("data:image/svg+xml;base64,") >= 3          # fit, estimate history, cooling: vector
     assert "http://" not in html and "https://" not in html and "<script" not in html
-    for needle in ("Calibration traceability", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
-                   "Blackwell", "U (k=2)", SITE):
+    for needle in ("Calibration", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
+                   "Blackwell", "U (k = 2)", "Report number", "Method statement", "ASTM D5334", "Sign-off", SITE):
         assert needle in html, needle
 
 

@@ -151,7 +151,19 @@ def reduce_record(rec: RunRecord, **kwargs: Any) -> RunReduction:
     rd, w = finite(rec.detail.get("dry_density_kg_per_m3")), finite(rec.detail.get("moisture_pct"))
     if rd and w is not None:
         kwargs.setdefault("bulk_density_kg_per_m3", rd * (1.0 + w / 100.0))
-    return reduce_run(rec.data, rec.probe, **kwargs)
+    return mark_ended_early(reduce_run(rec.data, rec.probe, **kwargs), rec.detail.get("state"))
+
+
+ENDED_EARLY = ("aborted", "faulted")   # final states whose result rests on a shortened record (flag of that name)
+
+
+def mark_ended_early(red: RunReduction, state: Any) -> RunReduction:
+    """An aborted or faulted run's result says so in its flags, wherever it is reduced."""
+    if state in ENDED_EARLY:
+        for r in red.sensors.values():
+            if state not in r.flags:
+                r.flags.append(str(state))
+    return red
 
 
 def cycle_data(rec: RunRecord) -> list[tuple[int, RunData]]:

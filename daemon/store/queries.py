@@ -13,8 +13,12 @@ from linerig.daemon.reduction.alignment import power_held_from_each_sample
 
 def list_runs(db: sqlite_utils.Database, limit: int = 100, site: str | None = None) -> list[dict[str, Any]]:
     where, params = ("WHERE site = ?", [site]) if site else ("", [])
-    sql = (f"SELECT id, created_utc, ended_utc, state, end_reason, site, location, sample, material, probe_serial, "
-           f"series_id, cycle FROM runs {where} ORDER BY id DESC LIMIT ?")
+    # the first sensor's latest result rides along, so a list can show k without a request per run
+    first = "(SELECT {col} FROM results WHERE results.run_id = runs.id ORDER BY results.id DESC LIMIT 1)"
+    sql = (f"SELECT id, created_utc, ended_utc, state, end_reason, site, location, depth_m, sample, material, "
+           f"probe_serial, series_id, cycle, {first.format(col='sensor')} AS sensor, "
+           f"{first.format(col='k_W_per_mK')} AS k_W_per_mK, {first.format(col='k_u_W_per_mK')} AS k_u_W_per_mK "
+           f"FROM runs {where} ORDER BY id DESC LIMIT ?")
     return list(db.query(sql, [*params, limit]))
 
 

@@ -70,7 +70,13 @@ def _v3(db: sqlite_utils.Database) -> None:
     db["runs"].add_column("q_timing", str)
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3]
+def _v4(db: sqlite_utils.Database) -> None:
+    """Which front end made a run (model, serial and firmware from its identity frame), for the test report."""
+    for name in ("frontend_model", "frontend_serial", "frontend_firmware"):
+        db["runs"].add_column(name, str)
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

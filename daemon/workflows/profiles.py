@@ -49,6 +49,7 @@ class ProfilePoint:
     def to_dict(self) -> dict[str, object]:
         d = asdict(self)
         d["flags"] = list(self.flags)
+        d["sensor_depth_m"] = self.depth_m   # depth_m is the sensor's depth (not the tip's): said by name too
         d["resistivity_mK_per_W"] = self.resistivity_mK_per_W
         d["resistivity_Ccm_per_W"] = 100.0 * self.resistivity_mK_per_W
         d["resistivity_u_mK_per_W"] = self.resistivity_u_mK_per_W
@@ -56,7 +57,8 @@ class ProfilePoint:
 
 
 def sensor_depth_m(tip_depth_m: float, probe: ProbeProfile | None, sensor: str) -> float:
-    """Depth of a sensor below ground: the tip depth minus its height above the tip."""
+    """Depth of a sensor below ground: the tip depth minus its distance from the tip. The one definition of a
+    sensor's depth: reports, tables, exports and the UI all show this one, labelled "sensor depth"."""
     if probe is None:
         return tip_depth_m
     axial_mm: float | None = None
@@ -64,7 +66,7 @@ def sensor_depth_m(tip_depth_m: float, probe: ProbeProfile | None, sensor: str) 
         axial_mm = probe.sensor(sensor).axial_mm
     if axial_mm is None and probe.heater_length_mm is not None:
         axial_mm = probe.heater_length_mm / 2.0
-    return tip_depth_m - (axial_mm or 0.0) / 1000.0
+    return round(tip_depth_m - (axial_mm or 0.0) / 1000.0, 6)   # to the micrometre: 0.5, not 0.49999999999999994
 
 
 def points_from_runs(runs: Iterable[dict[str, object]], probes: dict[str, ProbeProfile]) -> list[ProfilePoint]:

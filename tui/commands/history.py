@@ -40,11 +40,21 @@ async def _run(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(shown, indent=2))
         return 0
-    for r in shown:
-        print(f"{r['id']:>5}  {str(r.get('created_utc') or '')[:16].replace('T', ' ')}  {r.get('state') or '?':<9} "
-              f"{r.get('site') or '':<24} {r.get('location') or '':<10} {r.get('sample') or ''}")
+    from linerig.tui.tables import print_table
+
+    print_table("", ("run", "started (UTC)", "state", "site", "borehole", "tip depth m", "sample", "k W/(m·K)",
+                     "± U (k = 2)"),
+                [(str(r["id"]), str(r.get("created_utc") or "")[:16].replace("T", " "), str(r.get("state") or "?"),
+                  str(r.get("site") or ""), str(r.get("location") or ""), _num(r.get("depth_m"), ".2f"),
+                  str(r.get("sample") or ""), _num(r.get("k_W_per_mK"), ".3f"),
+                  _num(2 * r["k_u_W_per_mK"] if isinstance(r.get("k_u_W_per_mK"), int | float) else None, ".3f"))
+                 for r in shown], right=(0, 5, 7, 8))
     print(f"{len(shown)} of {len(runs)} runs", file=sys.stderr)
     return 0
+
+
+def _num(v: Any, spec: str) -> str:
+    return format(v, spec) if isinstance(v, int | float) else "—"
 
 
 def _is_date(day: str) -> bool:
@@ -63,7 +73,7 @@ def _detail_text(d: dict[str, Any]) -> str:
         k, ku = r.get("k_W_per_mK"), r.get("k_u_W_per_mK")
         if isinstance(k, int | float):
             flags = ", ".join(r.get("flags") or []) or "none"
-            lines.append(f"  {name}: k = {k:.3f} ± {ku or 0:.3f} W/(m·K), flags: {flags}")
+            lines.append(f"  {name}: k = {k:.3f} ± {2 * (ku or 0):.3f} W/(m·K) (± U, k = 2), flags: {flags}")
     for ev in d.get("events") or []:
         lines.append(f"  {ev.get('wall_utc') or '':<24} {ev.get('kind') or '':<9} {ev.get('reason') or ''}")
     return "\n".join(lines)

@@ -173,6 +173,7 @@ def plot(red: RunReduction, data: RunData, probe: ProbeProfile | None, path: Pat
     import numpy as np
 
     from linerig.daemon.reduction.live import replay
+    from linerig.daemon.report.plots import model_curve
 
     names = list(red.sensors)
     fig, axes = plt.subplots(3, len(names), figsize=(5.5 * len(names), 9), squeeze=False)
@@ -184,14 +185,17 @@ def plot(red: RunReduction, data: RunData, probe: ProbeProfile | None, path: Pat
         heat = (t > 0) & (t <= (r.heating_s or t[-1]))
         ax, axr, axk = axes[0, c], axes[1, c], axes[2, c]
         ax.plot(np.log(t[heat]), dT[heat], ".", ms=2, label="ΔT")
-        if r.line is not None:
-            lt = np.log(t[heat])
-            fit = r.line.slope_K * lt + r.line.intercept_K
-            ax.plot(lt, fit, "-", lw=1, label=f"line, k = {r.line.k_W_per_mK * r.calibration_factor:.4g}")
-            w = (t[heat] >= r.line.window_s[0]) & (t[heat] <= r.line.window_s[1])
+        lt = np.log(t[heat])
+        # the fit drawn is the one behind the reported k: its method and its window
+        fit = (r.line.slope_K * lt + r.line.intercept_K if r.method == "line" and r.line is not None
+               else model_curve(data, r, probe, t[heat]) if r.method in ("model", "radial") else None)
+        if fit is not None and r.window_s is not None:
+            ax.plot(lt, fit, "-", lw=1, label=f"{r.method} fit, k = {_fmt(r.k_W_per_mK)}")
+            w = (t[heat] >= r.window_s[0]) & (t[heat] <= r.window_s[1])
             axr.plot(lt[w], (dT[heat] - fit)[w] * 1e3, ".", ms=2)
-            for edge in r.line.window_s:
-                ax.axvline(math.log(edge), color="grey", ls="--", lw=0.8)
+            for edge in r.window_s:
+                if edge > 0:
+                    ax.axvline(math.log(edge), color="grey", ls="--", lw=0.8)
         ax.set_title(f"{name}: {r.method}, k = {_fmt(r.k_W_per_mK)} W/(m·K)")
         ax.set_xlabel("ln(t / s)")
         ax.set_ylabel("ΔT (K)")

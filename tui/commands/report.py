@@ -115,7 +115,7 @@ def _run_report(args: argparse.Namespace) -> tuple[object, str]:
     rep = run_report(rec.detail, rec.data, red, rec.probe, calibration=status, calibration_row=row,
                      stored=rec.stored_results, source=str(db_path(args)))
     if len(parts) > 1:
-        rep.blocks.insert(2, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
+        rep.blocks.insert(0, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
                                   f"below are for the last one. `linerig cycles {args.run_id}` summarises them all "
                                   "(mean, repeatability, outliers).", "caution"))
     return rep, f"run-{args.run_id}.html"
@@ -131,7 +131,7 @@ def _site_report(args: argparse.Namespace) -> tuple[object, str]:
                               f"(its boreholes: {', '.join(holes) or 'none recorded'})")
         known = ", ".join(s["site"] for s in list_sites(db)) or "none"
         raise SourceError(f"no runs for site {args.site!r} (sites on record: {known})")
-    pts = points_from_runs(runs, probe_profiles(db))
+    pts = points_from_runs(runs, probe_profiles(db))  # sensor depths from each run's probe profile
     serials = sorted({str(r.get("probe_serial")) for r in runs if r.get("probe_serial")})
     cals = [c for s in serials for c in calibration_history(db, s)]
     figs: dict[int, bytes] = {}
@@ -145,8 +145,8 @@ def _site_report(args: argparse.Namespace) -> tuple[object, str]:
             except ReductionError:
                 continue
             first = next(iter(red.sensors.values()))
-            figs[rec.run_id] = plots.heating_fit(rec.data, first)
-    rep = site_report(args.site, runs, pts, cals, args.borehole, figs)
+            figs[rec.run_id] = plots.svg_bytes(plots.heating_fit(rec.data, first, rec.probe))
+    rep = site_report(args.site, runs, pts, cals, args.borehole, figs, probe_profiles(db))
     name = _safe(args.site) + (f"-{_safe(args.borehole)}" if args.borehole else "")
     return rep, f"site-{name}.html"
 

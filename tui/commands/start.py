@@ -149,7 +149,7 @@ def _print_run(out: dict[str, Any]) -> None:
     print(f"run {out['run_id']} {out['state']}: {out['end_reason']}")
     for name, r in out["results"].items():
         if r.get("k_W_per_mK") is not None:
-            print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {r['k_u_W_per_mK'] or 0:.3f} W/(m·K), "
+            print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {2 * (r['k_u_W_per_mK'] or 0):.3f} W/(m·K) (± U, k = 2), "
                   f"ρ = {r['resistivity_mK_per_W']:.3f} m·K/W, flags: {', '.join(r['flags']) or 'none'}")
 
 
