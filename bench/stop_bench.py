@@ -7,8 +7,10 @@ stopped and the full run's final k (and between their late-time lines), the ener
 at the planned power, and why there was no verdict where there was none.
 
 Record sets:
-- the reference records of the reduction work (``tests/reference/``, an independent resolved-probe solver), when
-  this branch has them;
+- the reference records of the reduction work (``tests/reference/``: an independent solver of a *resolved*
+  probe, heater core, filler and sheath, finite heated length), their own instrument layer (noise, AR(1) noise,
+  quantisation, a 120 s baseline) at seed 1. A stopped run cannot be re-solved here, so "Δk final" compares the
+  reduction of the heating cut at the verdict (no recovery) with that of the full record;
 - the simulator's materials (``daemon/sim/materials.py``) with the simulator's own (r, z) finite-volume model of
   the three probe kinds: the lab needle (T half the time axial loss takes to bend its line by 1 %, within
   60–600 s: what a careful operator plans without knowing α), the field rod (30 min, with a 10 min baseline),
@@ -146,8 +148,51 @@ def sim_cases(quick: bool) -> list[Case]:
 
 
 @dataclass
+class RefCase:
+    """A reference record with its planned heating (the record's own) and probe profile."""
+
+    name: str
+    rec: Any
+    profile: ProbeProfile
+    sensor: str = "heater"
+    seed: int = 1
+
+    @property
+    def heat_s(self) -> float:
+        return float(self.rec.true["t_heat_s"])
+
+    @property
+    def q_W_per_m(self) -> float:
+        return float(self.rec.true["power"]["q_W_per_m"][0])
+
+    def record(self, end_s: float | None = None) -> RunData:
+        a = self.rec.arrays(seed=self.seed, end_s=end_s)
+        return RunData(a.time_s, a.q_W_per_m, a.temps_C)
+
+    def bends_at_s(self) -> float:
+        """When the truth's axial loss bends the line by 1 % (the record's medium α, the profile's heater)."""
+        s = self.profile.sensor(self.sensor)
+        alpha = float(self.rec.true["alpha_m2_per_s"])
+        return win.axial_end_s(self.profile.length_m or math.inf, alpha, 0.01,
+                               s.axial_mm * 1e-3 if s.axial_mm is not None else None)
+
+
+def reference_cases() -> list[RefCase]:
+    try:
+        from tests.reference import load, records
+    except ImportError:
+        return []
+    out = []
+    for name in records():
+        rec = load(name)
+        if rec.true["sensors"].get("heater", {}).get("r_m", 1.0) == 0.0:  # the heater sensor drives the verdict
+            out.append(RefCase(name, rec, load_probe_profile(rec.profile_path)))
+    return out
+
+
+@dataclass
 class Row:
-    case: Case
+    case: Any
     bends: bool
     at_s: float | None
     reason: str
@@ -196,6 +241,37 @@ def run_case(c: Case, tol: float) -> Row:
     return row
 
 
+def run_ref_case(c: RefCase, tol: float) -> Row:
+    T = c.heat_s
+    full = c.record()
+    v = record_verdict(full.time_s, full.temps_C[c.sensor], full.q_W_per_m, c.profile, c.sensor,
+                       StopSettings(tol, T))
+    bends = c.bends_at_s() < T
+    k_true = float(c.rec.true["k_W_per_mK"])
+    try:
+        rf = reduce_run(full, c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
+    except ReductionError as e:
+        return Row(c, bends, v.first_at_s if v else None, f"full run not reduced: {e}")
+    row = Row(c, bends, v.first_at_s if v else None, v.reason if v else "no verdict",
+              err_full=(rf.k_W_per_mK or math.nan) / k_true - 1)
+    if v is None or v.first_at_s is None:
+        return row
+    t_v = v.first_at_s
+    row.saved_Wh = c.q_W_per_m * (c.profile.length_m or 1.0) * (T - t_v) / 3600.0
+    try:
+        rs = reduce_run(c.record(end_s=t_v), c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
+    except ReductionError as e:
+        row.note = f"cut run not reduced: {e}"
+        return row
+    row.dk = (rs.k_W_per_mK or math.nan) / (rf.k_W_per_mK or math.nan) - 1
+    if rs.line and rf.line:
+        row.dk_line = rs.line.k_W_per_mK / rf.line.k_W_per_mK - 1
+    if v.k_at_W_per_mK and rf.k_W_per_mK:
+        row.dk_rule = v.k_at_W_per_mK / rf.k_W_per_mK - 1
+    row.note = f"{rs.method}/{rf.method}"
+    return row
+
+
 def pct(x: float | None) -> str:
     return "    —  " if x is None or not math.isfinite(x) else f"{100 * x:+6.2f}%"
 
@@ -233,12 +309,17 @@ def main(argv: list[str] | None = None) -> int:
         long_record(args.rows)
         return 0
     tol = args.tolerance / 100.0
-    sets: list[tuple[str, list[Case]]] = [("simulator materials", sim_cases(args.quick))]
-    print("reference records (tests/reference/): not on this branch yet; the simulator set only")
+    refs = reference_cases()
+    sets: list[tuple[str, list[Any]]] = [("reference records (resolved probe, tests/reference/)",
+                                          refs[:4] if args.quick else refs),
+                                         ("simulator materials", sim_cases(args.quick))]
+    if not refs:
+        print("reference records (tests/reference/): not on this branch; the simulator set only")
     all_rows: list[Row] = []
     for set_name, cases in sets:
-        print(f"\n{set_name}: tolerance {100 * tol:g} %, baseline {BASELINE_S:.0f} s (rod 600 s), "
-              "cooling planned = heating")
+        if not cases:
+            continue
+        print(f"\n{set_name}: tolerance {100 * tol:g} %, baseline {BASELINE_S:.0f} s (rod 600 s)")
         hdr = (f"{'record':42} {'T s':>6} {'bend':>4} {'verdict':>8} {'of T':>5} {'k full':>8} {'Δk final':>8} "
                f"{'Δk line':>8} {'Δk rule':>8} {'saved Wh':>8} {'s':>5}  methods / why not")
         print(hdr)
@@ -246,7 +327,7 @@ def main(argv: list[str] | None = None) -> int:
         rows = []
         for c in cases:
             s = time.perf_counter()
-            r = run_case(c, tol)
+            r = run_case(c, tol) if isinstance(c, Case) else run_ref_case(c, tol)
             el = time.perf_counter() - s
             rows.append(r)
             at = f"{r.at_s:8.0f}" if r.at_s is not None else f"{'never':>8}"
@@ -256,6 +337,9 @@ def main(argv: list[str] | None = None) -> int:
                   f"{(r.saved_Wh if r.saved_Wh is not None else 0):8.3f} {el:5.1f}  {why[:70]}")
         summary(rows, tol)
         all_rows += rows
+    if len(sets) > 1 and refs:
+        print("\nboth sets together")
+        summary(all_rows, tol)
     return 0
 
 

@@ -49,6 +49,7 @@ from .stats import ar1_inflation
 DEFAULT_TOLERANCE = 0.02
 GRID_PER_DECADE = 32
 WATCH_EVERY = 4             # once a verdict stands, every 4th checkpoint is judged (for a withdrawal)
+CHECK_BACK = 0.5            # predictions since half the elapsed time are held to what happened (no source)
 FLOOR = 0.1                 # window [0.1·t, t]: the offline line's floor (linesource.FLOOR_FRACTION)
 MIN_POINTS = 20             # the offline line's "short" (linesource.MIN_POINTS)
 SHORT_SPAN_LN = math.log(2.0)
@@ -553,8 +554,11 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: 
     fits = _shape_fits(all_bins.coarse(SHAPE_BINS), RHO_C_RANGE, k_line, ctx.probe, h0)
     h_found = np.array([m.h for m in fits])
     best, media = _admissible(fits, ADMIT_CHI2 * var_eff)
-    excess = best.sse / max(n_all - 3, 1) - var_eff
-    explained = excess <= 3.0 * var_eff * math.sqrt(2.0 * infl / n_all) or excess <= (2.0 * MISFIT * line.a) ** 2
+    # explained: what the best medium leaves beyond the noise is within the model's own imperfection, or is
+    # not told from the noise at all
+    noise_var = var_eff - (MISFIT * line.a) ** 2
+    misfit2 = best.sse / max(n_all - 3, 1) - noise_var
+    explained = misfit2 <= (MISFIT * line.a) ** 2 or misfit2 <= 3.0 * noise_var * math.sqrt(2.0 * infl / n_all)
 
     # --- what a stop now reports, against what the full heating would, medium by medium ----------------------
     k_now, model = _change(best, media, all_bins, k_line, t, T, ctx.probe)
@@ -653,6 +657,7 @@ class StopRule:
         self._next_grid = -math.inf
         self._h: np.ndarray | None = None     # contacts per ρc at the last checkpoint (a warm start)
         self._watch = 0                        # checkpoints since the verdict
+        self._past: list[tuple[float, float, float]] = []  # (t, k, bound) of the latest judgements
         self.judgements: list[Judgement] = []
         power = q_W_per_m * probe.length_m if probe.length_m else None
         self.verdict = Verdict(settings.tolerance, planned_heat_s, power_W=power)
@@ -742,8 +747,29 @@ class StopRule:
         else:
             self._watch = 0
         j, self._h = judge(job.bins, job.first, job.t0, job.t1, self.ctx, self._h, not self.verdict.stands)
+        j = self._held_to_account(j)
         self.judgements.append(j)
         self.verdict = _update(self.verdict, j)
+
+
+    def _held_to_account(self, j: Judgement) -> Judgement:
+        """A prediction is checked against what has happened since: if k has already moved, since a checkpoint
+        in the latest half of the heating, by more than was predicted there for the whole remaining heating,
+        the media do not describe this record (a probe unlike the model, moisture moving) and it cannot stop."""
+        if "model" not in j.terms or not math.isfinite(j.k_W_per_mK):
+            return j
+        recent = [(tp, kp, bp) for tp, kp, bp in self._past if tp >= CHECK_BACK * j.t_s]
+        self._past = [*recent, (j.t_s, j.k_W_per_mK, j.bound_rel)]
+        if not j.can_stop:
+            return j
+        for tp, kp, bp in recent:
+            moved = j.k_W_per_mK / kp - 1.0
+            if abs(moved) > bp:
+                return replace(j, can_stop=False, recover_s=None, recovery_window_s=None,
+                               reason=f"k has moved {100 * moved:+.1f} % since {tp:.0f} s, more than the "
+                                      f"{100 * bp:.1f} % predicted there: the probe's model does not describe "
+                                      "this heating well enough")
+        return j
 
 
 @dataclass(frozen=True)
