@@ -82,6 +82,17 @@ class Case:
     def axial(self) -> bool:
         return bool(self.rig.get("axial_loss", True))
 
+    @property
+    def k_true(self) -> float:
+        return get_material(self.material).k_W_per_mK
+
+    def full_record(self) -> RunData:
+        return self.record(self.heat_s, self.heat_s)  # the presets cool as long as they heat
+
+    def stopped_record(self, t_v: float) -> RunData:
+        """Heated to the verdict, then the cooling the stop plan asks for."""
+        return self.record(t_v, recovery_after_stop_s(t_v, self.heat_s, self.heat_s))
+
     def record(self, heat_s: float, recover_s: float) -> RunData:
         kw = {"axial_loss": True, **self.rig}
         rig = SimulatedRig(get_material(self.material), self.spec, seed=self.seed, **kw)
@@ -165,6 +176,17 @@ class RefCase:
     def q_W_per_m(self) -> float:
         return float(self.rec.true["power"]["q_W_per_m"][0])
 
+    @property
+    def k_true(self) -> float:
+        return float(self.rec.true["k_W_per_mK"])
+
+    def full_record(self) -> RunData:
+        return self.record()
+
+    def stopped_record(self, t_v: float) -> RunData:
+        """The solver cannot be rerun here: the record cut at the verdict, no recovery."""
+        return self.record(end_s=t_v)
+
     def record(self, end_s: float | None = None) -> RunData:
         a = self.rec.arrays(seed=self.seed, end_s=end_s)
         return RunData(a.time_s, a.q_W_per_m, a.temps_C)
@@ -208,60 +230,28 @@ class Row:
         return 1.0 if self.at_s is None else self.at_s / self.case.heat_s
 
 
-def run_case(c: Case, tol: float) -> Row:
+def run_case(c: Case | RefCase, tol: float) -> Row:
+    """The verdict on the full record, then the stopped run reduced like the full one."""
     T = c.heat_s
-    rec_plan = T  # the presets cool as long as they heat
-    full = c.record(T, rec_plan)
-    d = full.temps_C[c.sensor]
-    v = record_verdict(full.time_s, d, full.q_W_per_m, c.profile, c.sensor, StopSettings(tol, T))
-    bends = c.bends_at_s() < T
-    k_true = get_material(c.material).k_W_per_mK
-    try:
-        rf = reduce_run(full, c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
-    except ReductionError as e:
-        return Row(c, bends, v.first_at_s if v else None, f"full run not reduced: {e}")
-    row = Row(c, bends, v.first_at_s if v else None, v.reason if v else "no verdict",
-              err_full=(rf.k_W_per_mK or math.nan) / k_true - 1)
-    if v is None or v.first_at_s is None:
-        return row
-    t_v = v.first_at_s
-    row.saved_Wh = c.q_W_per_m * (c.profile.length_m or 1.0) * (T - t_v) / 3600.0
-    stopped = c.record(t_v, recovery_after_stop_s(t_v, T, rec_plan))
-    try:
-        rs = reduce_run(stopped, c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
-    except ReductionError as e:
-        row.note = f"stopped run not reduced: {e}"
-        return row
-    row.dk = (rs.k_W_per_mK or math.nan) / (rf.k_W_per_mK or math.nan) - 1
-    if rs.line and rf.line:
-        row.dk_line = rs.line.k_W_per_mK / rf.line.k_W_per_mK - 1
-    if v.k_at_W_per_mK and rf.k_W_per_mK:
-        row.dk_rule = v.k_at_W_per_mK / rf.k_W_per_mK - 1
-    row.note = f"{rs.method}/{rf.method}"
-    return row
-
-
-def run_ref_case(c: RefCase, tol: float) -> Row:
-    T = c.heat_s
-    full = c.record()
+    full = c.full_record()
     v = record_verdict(full.time_s, full.temps_C[c.sensor], full.q_W_per_m, c.profile, c.sensor,
                        StopSettings(tol, T))
     bends = c.bends_at_s() < T
-    k_true = float(c.rec.true["k_W_per_mK"])
     try:
         rf = reduce_run(full, c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
     except ReductionError as e:
         return Row(c, bends, v.first_at_s if v else None, f"full run not reduced: {e}")
     row = Row(c, bends, v.first_at_s if v else None, v.reason if v else "no verdict",
-              err_full=(rf.k_W_per_mK or math.nan) / k_true - 1)
+              err_full=(rf.k_W_per_mK or math.nan) / c.k_true - 1)
     if v is None or v.first_at_s is None:
         return row
     t_v = v.first_at_s
     row.saved_Wh = c.q_W_per_m * (c.profile.length_m or 1.0) * (T - t_v) / 3600.0
     try:
-        rs = reduce_run(c.record(end_s=t_v), c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
+        rs = reduce_run(c.stopped_record(t_v), c.profile, sensors=[c.sensor],
+                        stable_rule=False).sensors[c.sensor]
     except ReductionError as e:
-        row.note = f"cut run not reduced: {e}"
+        row.note = f"stopped run not reduced: {e}"
         return row
     row.dk = (rs.k_W_per_mK or math.nan) / (rf.k_W_per_mK or math.nan) - 1
     if rs.line and rf.line:
@@ -327,7 +317,7 @@ def main(argv: list[str] | None = None) -> int:
         rows = []
         for c in cases:
             s = time.perf_counter()
-            r = run_case(c, tol) if isinstance(c, Case) else run_ref_case(c, tol)
+            r = run_case(c, tol)
             el = time.perf_counter() - s
             rows.append(r)
             at = f"{r.at_s:8.0f}" if r.at_s is not None else f"{'never':>8}"
