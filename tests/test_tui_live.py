@@ -108,9 +108,10 @@ async def test_the_prompt_the_stop_the_logged_recovery_and_the_final_result(slow
         assert isinstance(form, StartScreen)
         form.query_one("#f-site").focus()
         await pilot.press(*"Pond edge")
-        # 900 s planned at 50× speed: 18 s of wall time for the whole heating; a 300 s baseline bounds the
-        # ground's drift well enough for an early verdict
-        form.query_one("#f-heat_s").value = "900"
+        # 500 s planned at 50× speed: 10 s of wall time for the whole heating, well inside what the 100 mm needle
+        # can use in glycerol even for the largest α the early data allow; a 300 s baseline bounds the ground's
+        # drift well enough for an early verdict
+        form.query_one("#f-heat_s").value = "500"
         form.query_one("#f-baseline_s").value = "300"
         form.query_one("#f-stop_tolerance_pct").value = "3"
         await until(pilot, lambda: "✓ READY" in text_of(form.query_one("#arm-line")), "the form to be ready")
@@ -139,7 +140,7 @@ async def test_the_prompt_the_stop_the_logged_recovery_and_the_final_result(slow
         await pilot.press("s")  # the prompt itself is the confirmation
         await until(pilot, lambda: live.run_state == "recovering", "heating to stop")
         heated = live.trace.heat_off_t_s if live.trace is not None else None
-        assert heated is not None and heated < 900
+        assert heated is not None and heated < 500
         # the stop plan: the cooling to 3·t_h (the screen counts the heating from when heat was asked for, the
         # daemon from time zero, the sample before the heater showed on: a few samples apart)
         assert live.recover_s == pytest.approx(2 * heated, abs=6.0)
