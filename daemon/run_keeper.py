@@ -23,6 +23,7 @@ from linerig.daemon.api import Peer, RequestError
 from linerig.daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
 from linerig.daemon.reduction.alignment import power_held_from_each_sample
 from linerig.daemon.safety import check_plan
+from linerig.daemon.store.queries import HEATER_OFF_EVENT
 from linerig.daemon.store.writer import StoreError, utc_now
 from linerig.daemon.threads import in_daemon_thread
 
@@ -92,6 +93,7 @@ class RunKeeper:
         self.rig = rig
         self.run: RunController | None = None
         self.series: Series | None = None
+        self.calibration: tuple[float, float] = (1.0, 0.0)  # the current run's probe factor and its u
 
     # -- requests -----------------------------------------------------------
     def make_plan(self, preset: str | None, changes: dict[str, Any]) -> RunPlan:
@@ -212,16 +214,33 @@ class RunKeeper:
             rig.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
         rig.begin_run_samples()
+        self.calibration, cal_event = self._probe_calibration()
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=rig.reducer_factory(plan.sensor), cycle=cycle,
+                                 reducer_factory=rig.reducer_factory(plan.sensor, *self.calibration), cycle=cycle,
                                  reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}
         rig.record_event(run_id, "state", "checking", why, data)
+        rig.record_event(run_id, "calibration", *cal_event)
         rig.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
                          "device_s": rig.device_s, **self._cycle_fields(cycle)})
         sdnotify.notify(f"STATUS=run {run_id} checking")
         return run_id
+
+    def _probe_calibration(self) -> tuple[tuple[float, float], tuple[str | None, str, dict[str, Any]]]:
+        """The probe's accepted calibration when a run opens, (factor, u), applied live and in the final result;
+        and the event that records which one, or that there is none (factor 1)."""
+        from linerig.daemon.store.queries import calibrations_of
+        from linerig.daemon.workflows.calibration import calibration_status
+
+        rig = self.rig
+        try:
+            st = calibration_status(calibrations_of(rig.store.reader, rig.s.probe.serial))
+        except (ValueError, TypeError, KeyError) as exc:  # a calibration row that does not parse: say so, use none
+            return (1.0, 0.0), (None, f"probe calibration unreadable ({exc}): factor 1", {})
+        factor, factor_u = (st.factor, st.factor_u or 0.0) if st.factor else (1.0, 0.0)
+        return (factor, factor_u), (st.state, st.message, {"calibration_id": st.calibration_id, "factor": factor,
+                                                            "factor_u": factor_u})
 
     def _cycle_fields(self, cycle: int) -> dict[str, Any]:
         s = self.series
@@ -242,13 +261,17 @@ class RunKeeper:
         if not usable:
             return {}
         off = run.device_off_s - run.heat_start_s if run.device_off_s is not None else None
+        if run.device_off_s is not None:  # so that a reduction from the store splits the same interval
+            rig.record_event(run.run_id, HEATER_OFF_EVENT, None, "the front end's own switch-off time",
+                             {"device_s": run.device_off_s})
         q = power_held_from_each_sample(t, np.asarray(arr["q"]), heater_off_s=off)
         data = RunData(time_s=t, q_W_per_m=q, temps_C=usable)
+        factor, factor_u = self.calibration
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
         stop = StopSettings(run.plan.stop_tolerance, run.plan.heat_s)  # the verdict as the run was judged
         red = await in_daemon_thread(reduce_run, data, rig.s.probe, max_rise_K=rig.s.limits.max_rise_K,
-                                     stable_rule=stop)
+                                     calibration_factor=factor, calibration_factor_u=factor_u, stable_rule=stop)
         out = {}
         ended_early = str(run.state) if str(run.state) in ("aborted", "faulted") else None
         for name, res in red.sensors.items():

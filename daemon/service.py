@@ -616,14 +616,17 @@ class RigService:
         self._loss.reset()  # a burst that is over does not count against a new run; the window refills
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
 
-    def reducer_factory(self, sensor: str) -> Any:
-        """The live reducer for one sensor of this rig's probe, within its temperature-rise limit."""
+    def reducer_factory(self, sensor: str, factor: float = 1.0, factor_u: float = 0.0) -> Any:
+        """The live reducer for one sensor of this rig's probe, within its temperature-rise limit, with the
+        probe's calibration factor applied."""
         from linerig.daemon.reduction.live import LiveReducer
 
         probe = self.s.probe
         lim = self.s.limits.max_rise_K
         worker = self._verdict_worker
-        return lambda stop: LiveReducer(probe=probe, sensor=sensor, stop=stop, max_rise_K=lim, defer=worker.submit)
+        return lambda stop: LiveReducer(probe=probe, sensor=sensor, stop=stop, max_rise_K=lim,
+                                        calibration_factor=factor, calibration_factor_u=factor_u,
+                                        defer=worker.submit)
 
 
 def _profile_dict(p: ProbeProfile) -> dict[str, Any]:

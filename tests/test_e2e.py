@@ -85,7 +85,15 @@ def test_repeat_cycles_are_followed_to_the_end_of_the_series(daemon: dict) -> No
     con = sqlite3.connect(daemon["db"])
     cycles = con.execute("SELECT cycle FROM runs WHERE series_id = ? ORDER BY id", [out["series_id"]]).fetchall()
     assert [c[0] for c in cycles] == [1, 2]
-    assert all(r["results"]["heater"]["k_W_per_mK"] > 0 for r in out["runs"])
+    # each cycle reduced on its own: the first to the simulated material's conductivity (its input, not a fitted
+    # number); a later one starts on ground still cooling from the one before (its residual is not modelled,
+    # DEVELOPERS.md), so it must either read within 5 % too or say why it may not (drift, recovery disagreeing)
+    k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
+    res = [r["results"]["heater"] for r in out["runs"]]
+    assert abs(res[0]["k_W_per_mK"] / k_true - 1) < 0.05, res[0]
+    for r in res[1:]:
+        ok = abs(r["k_W_per_mK"] / k_true - 1) < 0.05
+        assert ok or {"drift", "not_settled", "heat_cool_disagree"} & set(r["flags"]), (r["k_W_per_mK"], r["flags"])
     # the heater went on and off once per cycle
     events = [json.loads(line)["heater_on"] for line in daemon["heater_log"].read_text().splitlines()]
     assert events == [True, False, True, False]

@@ -46,13 +46,25 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
     if not names:
         raise ReductionError("the run has no temperature columns (T_<sensor>_C)")
     run = HeatingRecord.of(data)
-    out = {name: reduce_sensor(SensorRecord.of(data, run, name, probe), opts) for name in names}
+    out: dict[str, SensorResult] = {}
+    failed: list[ReductionError] = []
+    for name in names:
+        try:
+            out[name] = reduce_sensor(SensorRecord.of(data, run, name, probe), opts)
+        except ReductionError as e:  # one sensor that cannot give a result does not take the others with it
+            failed.append(e)
+            out[name] = SensorResult(name=name, method="none", method_reason=str(e), heating_s=run.heating_s,
+                                     calibration_factor=opts.calibration_factor,
+                                     calibration_factor_u=opts.calibration_factor_u, flags=["no_result"],
+                                     notes=[str(e)])
+    if len(failed) == len(names):
+        raise failed[0]
     return RunReduction(out, run.heating_s)
 
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
     """Methods, then the selector, then the live verdict replayed on the same record."""
-    found = run_methods(rec, opts)
+    found, rec = run_methods(rec, opts)
     chosen, reason = choose(rec, opts, found)
     res = sensor_result(rec, opts, found, chosen, reason)
     res.stable_at_s = stable_at(rec, opts) if opts.stable_rule else None

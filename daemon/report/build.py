@@ -18,7 +18,7 @@ from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.reduction.api import RunReduction, SensorResult
 from linerig.daemon.reduction.data import RunData
 from linerig.daemon.workflows.calibration import CalibrationStatus
-from linerig.daemon.workflows.profiles import ProfilePoint, group_profiles, sensor_depth_m, summarise_depths
+from linerig.daemon.workflows.profiles import ProfilePoint, group_profiles, row_label, sensor_depth_m, summarise_depths
 
 from . import plots
 from .model import Block, Bullets, Figure, Heading, Para, Report, SignOff, Table
@@ -309,7 +309,7 @@ def _factor(red: RunReduction | None, stored: dict[str, dict[str, Any]] | None) 
 
 def site_report(site: str, runs: Sequence[dict[str, Any]], points: Sequence[ProfilePoint],
                 calibrations: Sequence[dict[str, Any]], borehole: str | None = None,
-                run_figures: dict[int, bytes] | None = None, probes: dict[str, ProbeProfile] | None = None
+                run_figures: dict[str, bytes] | None = None, probes: dict[str, ProbeProfile] | None = None
                 ) -> Report:
     """A site (or one borehole): every run's result, depth profiles with plots, calibrations used, cautions."""
     what = f"{site}, borehole {borehole}" if borehole else site
@@ -330,12 +330,12 @@ def site_report(site: str, runs: Sequence[dict[str, Any]], points: Sequence[Prof
         for sensor, res in (r.get("results") or {}).items():
             flags_seen.update(res.get("flags") or [])
             k = res.get("k_W_per_mK")
-            rows.append((str(r["id"]), when(r.get("created_utc")), str(r.get("location") or "—"),
+            rows.append((row_label(r), when(r.get("created_utc")), str(r.get("location") or "—"),
                          depth_text(r, probe, sensor), str(r.get("probe_serial") or "—"), sensor, f(k),
                          f(2 * res["k_u_W_per_mK"] if res.get("k_u_W_per_mK") else None, 2),
                          f(100 / k if k else None), ", ".join(res.get("flags") or []) or "none"))
         if not r.get("results"):
-            rows.append((str(r["id"]), when(r.get("created_utc")), str(r.get("location") or "—"),
+            rows.append((row_label(r), when(r.get("created_utc")), str(r.get("location") or "—"),
                          f(r.get("depth_m"), 3), str(r.get("probe_serial") or "—"), "—", "—", "—", "—",
                          f"no result ({r.get('state') or '?'})"))
     rep.add(Heading("Runs"), Table(("run", "started", "borehole", "sensor depth m", "probe", "sensor", "k W/(m·K)",
@@ -365,7 +365,7 @@ def site_report(site: str, runs: Sequence[dict[str, Any]], points: Sequence[Prof
     rep.add(Heading("Calibrations of the probes used"))
     if calibrations:
         rep.add(Table(("probe", "id", "made", "reference", "factor F", "U (k = 2)", "accepted", "valid until"), tuple(
-            (str(c.get("probe_serial")), str(c.get("id")), when(c.get("created_utc")),
+            (str(c.get("probe_serial")), row_label(c), when(c.get("created_utc")),
              str(c.get("reference") or ""), f(c.get("factor"), 5),
              f(2 * c["factor_u"] if c.get("factor_u") is not None else None, 2),
              "yes" if c.get("accepted") else "no", when(c.get("expires_utc"))) for c in calibrations)))

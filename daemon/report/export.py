@@ -8,12 +8,13 @@ import io
 import json
 import math
 from collections.abc import Sequence
+from dataclasses import asdict
 from typing import Any
 
 import sqlite_utils
 
 from linerig.daemon.probe import ProbeProfile
-from linerig.daemon.runcsv import write_run_csv
+from linerig.daemon.runcsv import CAL_FACTOR, CAL_FACTOR_U, CAL_SOURCE, PROBE_PROFILE, PROBE_SERIAL, write_run_csv
 from linerig.daemon.workflows.profiles import sensor_depth_m
 
 from .sources import RunRecord
@@ -103,14 +104,23 @@ def _event(e: dict[str, Any]) -> dict[str, Any]:
 
 
 def samples_run_csv(rec: RunRecord) -> str:
-    """The run CSV format (time_s, q_W_per_m, T_<sensor>_C), so ``linerig reduce`` reads it back."""
+    """The run CSV format (time_s, q_W_per_m, T_<sensor>_C), so ``linerig reduce`` reads it back.
+
+    The header carries what the stored result was reduced with: the probe (serial and profile) and the probe
+    factor with its standard uncertainty, so the file reduces to the stored result on its own.
+    """
     if rec.data is None:
         raise ValueError(f"run {rec.run_id} has no samples")
     d = rec.detail
     comments = [f"linerig run {rec.run_id}"]
     comments += [f"{k}: {d[k]}" for k in ("site", "location", "depth_m", "sample", "material", "moisture_pct",
-                                          "dry_density_kg_per_m3", "probe_serial", "created_utc")
+                                          "dry_density_kg_per_m3", PROBE_SERIAL, "created_utc")
                  if d.get(k) not in (None, "")]
+    cal = rec.applied_calibration()
+    comments += [f"{CAL_FACTOR}: {cal.factor!r}", f"{CAL_FACTOR_U}: {cal.factor_u!r}",
+                 f"{CAL_SOURCE}: {' '.join(cal.source.split())}"]
+    if rec.probe is not None:
+        comments.append(f"{PROBE_PROFILE}: {json.dumps(asdict(rec.probe), allow_nan=False)}")
     buf = io.StringIO()
     write_run_csv(rec.data, buf, comments)
     return buf.getvalue()

@@ -9,11 +9,12 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import sys
 from pathlib import Path
 
 from linerig.daemon.report import plots
-from linerig.daemon.report.cli import add_db_option, db_path, fail
-from linerig.daemon.report.sources import SourceError, list_sites, open_db, probe_profiles, site_runs
+from linerig.daemon.report.cli import add_central_option, add_db_option, fail, run_source
+from linerig.daemon.report.sources import RunSource, SourceError
 from linerig.daemon.workflows.profiles import group_profiles, points_from_runs, summarise_depths
 from linerig.tui.tables import print_table
 
@@ -27,6 +28,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("--site", help="site name as recorded with the runs (omit to list the sites)")
     p.add_argument("--borehole", help="only this borehole (runs.location)")
     add_db_option(p)
+    add_central_option(p)
     p.add_argument("--plot", type=Path, metavar="FILE.png", help="write the depth plot")
     p.add_argument("--json", action="store_true", help="print the points as JSON")
     p.add_argument("--tolerance-m", type=float, default=0.05, help="pool readings this close in depth (m)")
@@ -34,25 +36,36 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
 
 
 def run(args: argparse.Namespace) -> int:
+    from linerig.daemon.central.errors import CentralError
+
     if not (args.tolerance_m >= 0 and math.isfinite(args.tolerance_m)):
         return fail(CMD, f"--tolerance-m must be a finite distance >= 0 m, got {args.tolerance_m}")
     try:
-        db = open_db(db_path(args))
+        with run_source(args) as src:
+            return _profile(args, src)
+    except CentralError as e:
+        print(f"linerig {CMD}: error: {e}", file=sys.stderr)
+        return e.exit_code
     except SourceError as e:
         return fail(CMD, str(e))
+
+
+def _profile(args: argparse.Namespace, src: RunSource) -> int:
     if not args.site:
-        sites = list_sites(db)
+        sites = src.list_sites()
         if not sites:
             return fail(CMD, "no run in the database has a site; record the site with each field run")
-        print_table("Sites", ("site", "runs", "boreholes"),
-                    [(str(s["site"]), str(s["runs"]), str(s["boreholes"])) for s in sites], right=(1, 2))
+        rigs = any("rigs" in s for s in sites)  # read from the central database: how many rigs measured each
+        print_table("Sites", ("site", "runs", "boreholes", *(("rigs",) if rigs else ())),
+                    [(str(s["site"]), str(s["runs"]), str(s["boreholes"]), *((str(s["rigs"]),) if rigs else ()))
+                     for s in sites], right=(1, 2, 3))
         return 0
-    runs = site_runs(db, args.site, args.borehole)
+    runs = src.site_runs(args.site, args.borehole)
     if not runs:
-        known = ", ".join(s["site"] for s in list_sites(db)) or "none"
+        known = ", ".join(s["site"] for s in src.list_sites()) or "none"
         return fail(CMD, f"no runs for site {args.site!r}" + (f" borehole {args.borehole!r}" if args.borehole else "")
                     + f" (sites on record: {known})")
-    pts = points_from_runs(runs, probe_profiles(db))
+    pts = points_from_runs(runs, src.probe_profiles())
     if not pts:
         return fail(CMD, f"site {args.site!r}: no run has both a depth and a result")
     groups = group_profiles(pts)
@@ -64,7 +77,7 @@ def run(args: argparse.Namespace) -> int:
         for (_s, bh), v in groups.items():
             print_table(f"{args.site} — borehole {bh} (sensor depth = tip depth − sensor's distance from the tip)",
                         ("sensor depth m", "run", "sensor", "k W/(m·K)", "ρ °C·cm/W", "U(ρ) (k = 2)", "flags"),
-                        [(f"{p.depth_m:.2f}", str(p.run_id), p.sensor, f"{p.k_W_per_mK:.4f}",
+                        [(f"{p.depth_m:.2f}", p.run_label, p.sensor, f"{p.k_W_per_mK:.4f}",
                           f"{100 * p.resistivity_mK_per_W:.1f}",
                           f"{200 * p.resistivity_u_mK_per_W:.1f}" if p.resistivity_u_mK_per_W else "—",
                           ", ".join(p.flags) or "—") for p in v], right=(0, 1, 3, 4, 5))

@@ -21,7 +21,7 @@ if TYPE_CHECKING:
 
 # (field, label, placeholder) in the order the Tab key visits them
 PLAN_INPUTS = (("heat_s", "Heat, s", "600"), ("recover_s", "Cooling, s", "600"),
-               ("power_W_per_m", "Power, W/m", "5"), ("baseline_s", "Baseline, s", "60"),
+               ("power_W_per_m", "Power, W/m", "5"), ("baseline_s", "Baseline, s", "120"),
                ("cycles", "Cycles", "1"), ("stop_tolerance_pct", "Stop tol., %", "2"))
 META_INPUTS = (("site", "Site *", "e.g. North paddock"), ("location", "Borehole/spot", "e.g. BH-3"),
                ("depth_m", "Tip depth, m", "probe tip, below ground"), ("sample", "Sample", "e.g. S-14"),
