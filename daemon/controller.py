@@ -19,6 +19,10 @@ from typing import Any, Protocol
 
 import numpy as np
 
+from .reduction.stop_rule import DEFAULT_TOLERANCE, StopSettings, recovery_after_stop_s
+
+MAX_STOP_TOLERANCE = 0.2
+"""Beyond 20 % an early stop is no longer a measurement worth reporting (common practice, no source)."""
 
 class RunState(enum.StrEnum):
     CHECKING = "checking"
@@ -71,7 +75,9 @@ PLAN_HELP: dict[str, str] = {
     "baseline_s": "baseline logged before heating, and the span the drift is measured over, s",
     "settle_timeout_s": "longest wait for the drift to fall under max_drift_K_per_min before heating anyway, s",
     "max_drift_K_per_min": "baseline drift that counts as settled, K/min",
-    "auto_stop": "stop heating by itself once the estimate is stable (otherwise the operator confirms)",
+    "auto_stop": "stop heating by itself once the verdict says it can (otherwise the operator confirms)",
+    "stop_tolerance": "the change of k an early stop may cause, as a fraction (0.02 = 2 %): heating can stop when "
+                      "the k of a stop now is predicted within this of the full heating's",
     "cycles": "heating–recovery cycles in a series",
     "reequilibrate_s": "extra wait before the baseline of a later cycle (or a resumed series), s",
     "min_rest_ratio": "before a later cycle heats, the ground rests at least this many heating times since the heater "
@@ -89,6 +95,7 @@ class RunPlan:
     settle_timeout_s: float = 600.0
     max_drift_K_per_min: float = 0.02
     auto_stop: bool = False
+    stop_tolerance: float = DEFAULT_TOLERANCE
     cycles: int = 1
     reequilibrate_s: float = 0.0
     min_rest_ratio: float = 4.0
@@ -125,6 +132,8 @@ def plan_problem(name: str, value: object) -> str | None:
         return "a finite number"
     if name in ("reequilibrate_s", "min_rest_ratio"):
         return None if value >= 0 else "a number ≥ 0"
+    if name == "stop_tolerance":
+        return None if 0 < value <= MAX_STOP_TOLERANCE else f"a fraction above 0 and at most {MAX_STOP_TOLERANCE:g}"
     return None if value > 0 else "a number > 0"
 
 
@@ -173,7 +182,7 @@ class RunController:
     plan: RunPlan
     actions: RunActions
     sensor_index: int = 0
-    reducer_factory: Any = None  # callable -> LiveReducer
+    reducer_factory: Any = None  # callable(StopSettings) -> LiveReducer
     cycle: int = 1
     reequilibrate: bool = False  # a later cycle or a resumed series: wait plan.reequilibrate_s first
     state: RunState = RunState.CHECKING
@@ -188,6 +197,8 @@ class RunController:
     stop_requested: str | None = None
     last_estimate: dict[str, Any] | None = None
     stable_at_s: float | None = None
+    withdrawn_at_s: float | None = None
+    recover_s: float | None = None  # the cooling logged after this heating (the stop plan after an early stop)
     not_settled: bool = False
     reducer: Any = None
     _recent: deque[tuple[float, float]] = field(default_factory=deque)
@@ -229,10 +240,12 @@ class RunController:
         """The operator confirms heating can stop; acted on at the next sample."""
         if self.state != RunState.HEATING:
             return False
-        if self.stable_at_s is not None:
-            self.stop_requested = f"operator stopped heating: estimate stable since t = {self.stable_at_s:.0f} s"
+        if self.stable_at_s is not None and self.withdrawn_at_s is None:
+            self.stop_requested = f"operator stopped heating: heating could stop since t = {self.stable_at_s:.0f} s"
+        elif self.stable_at_s is not None:
+            self.stop_requested = "operator stopped heating after the verdict was withdrawn"
         else:
-            self.stop_requested = "operator stopped heating before the estimate was stable"
+            self.stop_requested = "operator stopped heating before the verdict"
         return True
 
     def precheck_failed(self, problems: list[str], device_s: float) -> None:
@@ -251,9 +264,13 @@ class RunController:
             self._settle(device_s, temp_C)
         elif st == RunState.HEATING:
             self._heat(device_s, temp_C, q_W_per_m, heater_on)
-        elif st == RunState.RECOVERING and device_s - self.phase_start_s >= self.plan.recover_s:
+        elif st == RunState.RECOVERING and device_s - self.phase_start_s >= self.recovery_s():
             self.transition(RunState.DONE, "recovery logged", device_s)
         self._prev_device_s = device_s
+
+    def recovery_s(self) -> float:
+        """How long the cooling is logged: as planned, or what the stop plan set when heating stopped early."""
+        return self.recover_s if self.recover_s is not None else self.plan.recover_s
 
     def rest_before_baseline_s(self) -> float:
         """The wait before a later cycle's baseline. The previous heating's residual decays like 1/t and a
@@ -302,15 +319,30 @@ class RunController:
             if est is not None:
                 self.last_estimate = estimate_dict(est)
                 self.actions.estimate(self.last_estimate)
-                if est.stable and self.stable_at_s is None:
-                    self.stable_at_s = t
-                    self.actions.verdict(self.last_estimate)
-                    if self.plan.auto_stop:
-                        self.stop_requested = f"estimate stable at t = {t:.0f} s: automatic stop (auto_stop)"
+                self._follow_verdict(t, est)
         if self.stop_requested:
-            self.transition(RunState.RECOVERING, self.stop_requested, device_s)
+            self.recover_s = recovery_after_stop_s(t, self.plan.heat_s, self.plan.recover_s)
+            self.transition(RunState.RECOVERING, f"{self.stop_requested}; the cooling is logged for "
+                            f"{self.recover_s:.0f} s for the heat–cool cross-check", device_s)
         elif t >= self.plan.heat_s:
             self.transition(RunState.RECOVERING, f"planned heating time {self.plan.heat_s:.0f} s reached", device_s)
+
+    def _follow_verdict(self, t: float, est: Any) -> None:
+        """Latch the first "heating can stop" (and stop if the plan says so); note a withdrawal once."""
+        v = est.verdict or {}
+        if est.stable and self.stable_at_s is None:
+            # the verdict's own time: its checkpoint, which a judgement run off the loop may report a little later
+            self.stable_at_s = est.stable_at_s if est.stable_at_s is not None else t
+            self.actions.verdict(self.last_estimate or {})
+            if self.plan.auto_stop:
+                self.stop_requested = (f"heating can stop since t = {self.stable_at_s:.0f} s: automatic stop "
+                                       "(auto_stop)")
+        elif v.get("withdrawn") and self.stable_at_s is not None and self.withdrawn_at_s is None:
+            self.withdrawn_at_s = t
+            self.actions.verdict(self.last_estimate or {})
+        elif est.stable and self.withdrawn_at_s is not None:
+            self.withdrawn_at_s = None  # given again
+            self.actions.verdict(self.last_estimate or {})
 
     def _heater_came_on(self, q_W_per_m: float, device_s: float) -> None:
         """The heater went on between the previous sample and this one. Time zero is the instant the front end
@@ -320,7 +352,8 @@ class RunController:
         on = self.device_on_s
         t0 = on if on is not None and prev - 1e-6 <= on <= device_s + 1e-6 else prev
         self.heat_start_s = t0
-        self.reducer = self.reducer_factory() if self.reducer_factory else None
+        stop = StopSettings(self.plan.stop_tolerance, self.plan.heat_s)
+        self.reducer = self.reducer_factory(stop) if self.reducer_factory else None
         if self.reducer is not None:
             lo = (self.arm_device_s or prev) - self.plan.baseline_s
             for t, temp in self._recent:
@@ -344,7 +377,7 @@ class RunController:
         return {"id": self.run_id, "state": str(self.state), "plan": self.plan.to_dict(), "cycle": self.cycle,
                 "heat_start_device_s": self.heat_start_s, "estimate": self.last_estimate,
                 "phase_start_device_s": self.phase_start_s, "stable_at_s": self.stable_at_s,
-                "not_settled": self.not_settled}
+                "withdrawn_at_s": self.withdrawn_at_s, "recover_s": self.recovery_s(), "not_settled": self.not_settled}
 
 
 @dataclass

@@ -251,6 +251,7 @@ class RunKeeper:
             return {}
         from linerig.daemon.reduction.api import reduce_run
         from linerig.daemon.reduction.data import RunData
+        from linerig.daemon.reduction.stop_rule import StopSettings
 
         rig = self.rig
         t = np.asarray(arr["device_s"]) - run.heat_start_s
@@ -268,8 +269,9 @@ class RunKeeper:
         factor, factor_u = self.calibration
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
+        stop = StopSettings(run.plan.stop_tolerance, run.plan.heat_s)  # the verdict as the run was judged
         red = await in_daemon_thread(reduce_run, data, rig.s.probe, max_rise_K=rig.s.limits.max_rise_K,
-                                     calibration_factor=factor, calibration_factor_u=factor_u)
+                                     calibration_factor=factor, calibration_factor_u=factor_u, stable_rule=stop)
         out = {}
         ended_early = str(run.state) if str(run.state) in ("aborted", "faulted") else None
         for name, res in red.sensors.items():
@@ -360,8 +362,9 @@ class _Actions:
         except StoreError as exc:
             rig.note_store_failure(str(exc))
         rig.record_event(self.run_id, "state", str(state), reason)
+        extra = {"recover_s": run.recovery_s()} if run is not None and state == RunState.RECOVERING else {}
         rig.hub.publish({"event": "state", "run_id": self.run_id, "state": str(state), "reason": reason,
-                         "device_s": device_s, **self.keeper._cycle_fields(run.cycle if run else 1)})
+                         "device_s": device_s, **extra, **self.keeper._cycle_fields(run.cycle if run else 1)})
         sdnotify.notify(f"STATUS=run {self.run_id} {state}")
 
     def heating_started(self, device_s: float) -> None:
@@ -386,10 +389,19 @@ class _Actions:
 
     def verdict(self, est: dict[str, Any]) -> None:
         rig = self.rig
-        why = (f"estimate stable: k = {est.get('k_W_per_mK') or float('nan'):.3f} W/(m·K) at t = "
-               f"{est.get('t_s') or 0:.0f} s; heating can stop")
+        v = est.get("verdict") or {}
+        if v.get("withdrawn"):
+            why = (f"verdict withdrawn at t = {est.get('t_s') or 0:.0f} s: k has moved "
+                   f"{100 * (v.get('moved_rel') or 0):+.1f} % since {v.get('at_s') or 0:.0f} s, beyond the "
+                   f"{100 * (v.get('tolerance') or 0):g} % tolerance")
+        else:
+            why = (f"heating can stop at t = {est.get('t_s') or 0:.0f} s: k = "
+                   f"{v.get('k_at_W_per_mK') or est.get('k_W_per_mK') or float('nan'):.3f} W/(m·K) is predicted "
+                   f"within {100 * (v.get('bound_rel') or 0):.1f} % of the full heating's "
+                   f"(tolerance {100 * (v.get('tolerance') or 0):g} %)")
         rig.record_event(self.run_id, "verdict", None, why, {"estimate": est})
-        rig.hub.publish({"event": "stable", "run_id": self.run_id, "reason": why, **est})
+        rig.hub.publish({"event": "withdrawn" if v.get("withdrawn") else "stable", "run_id": self.run_id,
+                         "reason": why, **est})
 
     def finished(self, state: RunState) -> None:
         run = self.keeper.run

@@ -8,7 +8,9 @@ with a failure code, so systemd restarts it in the safe state):
 - watch: stale data, frame loss, arming and heating-time limits; pings the systemd watchdog while healthy.
 - flush: commits pending samples every FLUSH_INTERVAL_S and publishes what is committed.
 The run controller is the only thing that asks for heater power; ``trip`` is the
-one path to the safe state and may be called any number of times.
+one path to the safe state and may be called any number of times. Besides the store's writer and the final
+reduction, one more thread: the stop verdict's judgements (``OrderedWorker``), in checkpoint order, so a fast
+simulated rig never holds the loop (the verdict's time is its checkpoint's, whenever the judgement finishes).
 
 The rig service owns the devices, the sample pipeline and the safe state. Runs and series (checking a request,
 opening a run, the next cycle, the final reduction) belong to the run keeper (``daemon/run_keeper.py``); the
@@ -54,6 +56,7 @@ from linerig.daemon.safety import (
     check_sample,
 )
 from linerig.daemon.store.writer import FLUSH_INTERVAL_S, Store, StoreError
+from linerig.daemon.threads import OrderedWorker
 
 log = logging.getLogger("linerigd")
 
@@ -107,6 +110,8 @@ class RigService:
         self.last_sample_wall = time.monotonic()
         self.device_s = 0.0
         self.samples_seen = 0
+        # the stop verdict's judgements (numpy/scipy, a few ms each, many a second on a fast simulated rig)
+        self._verdict_worker = OrderedWorker("linerigd-verdict")
         self._ms_offset = 0
         self._last_ms: int | None = None
         self._n = 0
@@ -692,8 +697,10 @@ class RigService:
 
         probe = self.s.probe
         lim = self.s.limits.max_rise_K
-        return lambda: LiveReducer(probe=probe, sensor=sensor, max_rise_K=lim, calibration_factor=factor,
-                                   calibration_factor_u=factor_u)
+        worker = self._verdict_worker
+        return lambda stop: LiveReducer(probe=probe, sensor=sensor, stop=stop, max_rise_K=lim,
+                                        calibration_factor=factor, calibration_factor_u=factor_u,
+                                        defer=worker.submit)
 
 
 def _profile_dict(p: ProbeProfile) -> dict[str, Any]:

@@ -157,6 +157,23 @@ def test_start_options_reach_the_request_and_bad_metadata_is_exit_2(capsys: pyte
     assert rc == 2 and "--meta 'depth=1'" in err
 
 
+def test_start_takes_the_stop_tolerance_in_per_cent_within_the_daemons_ceiling(
+        capsys: pytest.CaptureFixture[str]) -> None:
+    import argparse
+
+    from linerig.daemon.controller import MAX_STOP_TOLERANCE, RunPlan
+    from linerig.tui.commands import start
+
+    parser = argparse.ArgumentParser()
+    start.add_parser(parser.add_subparsers())
+    req = start.start_request(parser.parse_args(["start", "--stop-tolerance", "1.5"]))
+    assert req["stop_tolerance"] == pytest.approx(0.015)
+    assert RunPlan().with_changes({"stop_tolerance": req["stop_tolerance"]}).stop_tolerance == req["stop_tolerance"]
+    assert pytest.approx(100 * MAX_STOP_TOLERANCE) == start.MAX_STOP_TOLERANCE_PCT  # one ceiling, said twice
+    rc, _, err = _cli(capsys, "--socket", "/nonexistent/linerigd.sock", "start", "--stop-tolerance", "25")
+    assert rc == 2 and "--stop-tolerance" in err and "20" in err
+
+
 def test_cycles_of_a_series_show_each_cycles_own_flags(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     """Three cycles stored as a series the way linerigd stores them; the third starts 0.5 K warm (the ground not
     cooled back) and the second drifts strongly, so its reduction flags it."""

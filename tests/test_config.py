@@ -43,6 +43,7 @@ baseline_s = 120
 [presets.quick]
 heat_s = 300
 auto_stop = true
+stop_tolerance = 0.03
 
 [presets."long soak"]
 heat_s = 1800
@@ -62,6 +63,7 @@ def test_a_full_file_is_read(tmp_path: Path) -> None:
     assert cfg.limits.max_probe_C == 85.0  # unset limits keep their defaults
     assert cfg.plan.heat_s == 900 and cfg.plan.baseline_s == 120
     assert cfg.presets["quick"].heat_s == 300 and cfg.presets["quick"].auto_stop
+    assert cfg.presets["quick"].stop_tolerance == 0.03 and cfg.plan.stop_tolerance == 0.02
     assert cfg.presets["quick"].baseline_s == 120  # a preset starts from [run]
     assert cfg.presets["long soak"].cycles == 3
 
@@ -74,7 +76,7 @@ def test_defaults_without_any_file() -> None:
 
 def test_key_line_finds_tables_dotted_and_quoted_keys() -> None:
     assert key_line(GOOD, ["limits", "max_rise_K"]) == 18
-    assert key_line(GOOD, ["presets", "long soak", "cycles"]) == 31
+    assert key_line(GOOD, ["presets", "long soak", "cycles"]) == 32
     assert key_line(GOOD, ["presets", "quick"]) == 25
     assert key_line("a.b = 1\n[c]\nd = 2\n", ["a", "b"]) == 1
     assert key_line("[x]\ny = 1", ["x", "z"]) is None
@@ -96,7 +98,9 @@ def test_key_line_finds_tables_dotted_and_quoted_keys() -> None:
     ("heat_s = 900", "heat_s = 0", 22, "run.heat_s: expected a number > 0"),
     ("heat_s = 900", "heat_s = 4000", 22, "run.heat_s: heating time 4000 s is above the limit 3600 s"),
     ("auto_stop = true", 'auto_stop = "yes"', 27, "presets.quick.auto_stop: expected true or false"),
-    ("cycles = 3", "cycles = 0", 31, "expected a whole number from 1 to 1000"),
+    ("cycles = 3", "cycles = 0", 32, "expected a whole number from 1 to 1000"),
+    ("stop_tolerance = 0.03", "stop_tolerance = 2", 28, "presets.quick.stop_tolerance: expected a fraction above 0 "
+                                                        "and at most 0.2"),
     ("rate_hz = 2", "rate_hz = 50", 5, "devices.rate_hz: expected a sample rate from 0.1 to 20 Hz"),
     ('frontend = "/dev/linerig-frontend"', 'frontend = "ttyACM0"', 3, "absolute device path or a pyserial URL"),
     ('active = "DEMO-0001"', 'active = "NOPE-1"', 14, "probes.active: expected the serial or name of a listed"),

@@ -200,33 +200,55 @@ def test_operator_stop_is_acted_on_at_the_next_sample_and_says_whether_it_was_st
     assert c.state == RunState.HEATING
     c.on_sample(22.0, 12.6, 5.0, True)
     assert c.state == RunState.RECOVERING
-    assert rec.log[-1][:3] == ("state", "recovering", "operator stopped heating before the estimate was stable")
+    assert rec.log[-1][:2] == ("state", "recovering")
+    assert rec.log[-1][2].startswith("operator stopped heating before the verdict; the cooling is logged for")
 
 
-def test_line_source_record_reaches_a_stable_verdict_and_stops_itself() -> None:
-    # Infinite line source (Carslaw & Jaeger 1959, §10.4): ΔT = q/(4πk)·E1(r²/(4αt)); E1 from scipy.special
-    # as the outside reference. k = 1.5 W/(m·K), α = 0.7 mm²/s, r = 0.635 mm; a needle with no heat capacity.
-    k, alpha, r, q = 1.5, 0.7e-6, 0.635e-3, 5.0
-    probe = ProbeProfile(name="ideal", radius_mm=0.635, heater_length_mm=100.0, sensors=(SensorPosition("heater"),))
+def _line_source_run(probe: ProbeProfile, heat_s: float = 900.0) -> tuple[RunController, Recorder]:
+    """A heating that follows the infinite line source (Carslaw & Jaeger 1959, §10.4): ΔT = q/(4πk)·E1(r²/(4αt)),
+    E1 from scipy.special as the outside reference; k = 1.5 W/(m·K), α = 0.7 mm²/s, r = 0.635 mm, no probe heat
+    capacity. An automatic stop is planned."""
+    k, alpha, r, q = LINE_K, 0.7e-6, 0.635e-3, 5.0
     rec = Recorder()
-    plan = RunPlan(heat_s=900, recover_s=10, baseline_s=20, power_W_per_m=q, auto_stop=True,
+    plan = RunPlan(heat_s=heat_s, recover_s=10, baseline_s=20, power_W_per_m=q, auto_stop=True,
                    max_drift_K_per_min=0.05)
-    c = RunController(3, plan, rec, reducer_factory=lambda: LiveReducer(probe=probe, sensor="heater"))
+    c = RunController(3, plan, rec, reducer_factory=lambda stop: LiveReducer(probe=probe, sensor="heater", stop=stop))
     feed(c, 0, 21, 12.0)
     assert c.state == RunState.HEATING
     t_on = 21.0
     c.on_sample(t_on, 12.0, 0.0, False)
-    for t in np.arange(t_on + 1, t_on + 900):
+    for t in np.arange(t_on + 1, t_on + heat_s + 1):
         if c.state != RunState.HEATING:
             break
         dt = t - t_on
         c.on_sample(float(t), 12.0 + q / (4 * math.pi * k) * exp1(r * r / (4 * alpha * dt)), q, True)
+    return c, rec
+
+
+LINE_K = 1.5
+
+
+def test_line_source_record_reaches_the_verdict_early_and_stops_itself_with_the_stop_plan() -> None:
+    probe = ProbeProfile(name="ideal", radius_mm=0.635, heater_length_mm=None, sensors=(SensorPosition("heater"),))
+    c, rec = _line_source_run(probe)
     assert c.state == RunState.RECOVERING
-    assert c.stable_at_s is not None and c.stable_at_s < 900
-    assert "automatic stop" in [e for e in rec.log if e[0] == "state"][-1][2]
+    assert c.stable_at_s is not None and c.stable_at_s < 0.4 * 900
+    stop = [e for e in rec.log if e[0] == "state"][-1][2]
+    assert "automatic stop" in stop and f"logged for {2 * c.stable_at_s:.0f} s" in stop
+    assert c.recovery_s() == pytest.approx(2 * c.stable_at_s)  # the recovery window ends at 3·t_h
     assert ("verdict", c.stable_at_s) in rec.log
-    assert c.last_estimate is not None
-    assert c.last_estimate["k_W_per_mK"] == pytest.approx(k, rel=0.03)
+    assert c.last_estimate is not None and c.last_estimate["verdict"]["tolerance"] == 0.02
+    assert c.last_estimate["verdict"]["k_at_W_per_mK"] == pytest.approx(LINE_K, rel=0.02)
+
+
+def test_no_verdict_when_the_heater_is_too_short_for_the_planned_heating() -> None:
+    # The same line source read by a 100 mm heater: the finite-line factor ½[erf(z/2√(αt)) + erf((L−z)/2√(αt))]
+    # takes 1 % of the slope at L²/(53.1·α) ≈ 270 s (window.axial_end_s), so a
+    # 900 s plan would bend the line before its end: the rule never says "can stop" and says why.
+    probe = ProbeProfile(name="short", radius_mm=0.635, heater_length_mm=100.0, sensors=(SensorPosition("heater"),))
+    c, _ = _line_source_run(probe)
+    assert c.stable_at_s is None and c.state == RunState.RECOVERING  # heated to the plan
+    assert c.last_estimate is not None and "axial loss" in c.last_estimate["verdict"]["reason"]
 
 
 def test_abort_and_fault_end_any_live_state_once() -> None:
@@ -278,7 +300,7 @@ def test_time_zero_is_the_sample_before_the_heater_showed_on_and_the_power_start
     probe = ProbeProfile(name="ideal", radius_mm=0.635, heater_length_mm=100.0, sensors=(SensorPosition("heater"),))
     rec = Recorder()
     plan = RunPlan(heat_s=300, recover_s=10, baseline_s=20, power_W_per_m=q, max_drift_K_per_min=0.05)
-    c = RunController(4, plan, rec, reducer_factory=lambda: LiveReducer(probe=probe, sensor="heater"))
+    c = RunController(4, plan, rec, reducer_factory=lambda stop: LiveReducer(probe=probe, sensor="heater", stop=stop))
     feed(c, 0, 21, 12.0)
     t_on = 23.0
     for t in (21.0, 22.0, t_on):

@@ -23,20 +23,21 @@ from linerig.tui.client import Client
 from linerig.tui.screens.confirm import Confirm
 from linerig.tui.screens.live import LiveScreen
 from linerig.tui.screens.start import StartScreen
-from linerig.tui.widgets.readouts import EstimateReadout, RunBar, StopPrompt
+from linerig.tui.widgets.readouts import EstimateReadout, RunBar, StopPrompt, VerdictReadout
 
 pytestmark = pytest.mark.timeout(90)
 
 
 class Daemon:
-    def __init__(self, tmp: Path) -> None:
+    def __init__(self, tmp: Path, speed: float = 200.0) -> None:
         self.socket = tmp / "d.sock"
         self.db = tmp / "runs.db"
+        self.speed = speed
         self.proc: subprocess.Popen[str] | None = None
 
     def start(self) -> None:
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "linerig.daemon.main", "--simulate", "glycerol", "--speed", "200",
+            [sys.executable, "-m", "linerig.daemon.main", "--simulate", "glycerol", "--speed", f"{self.speed:g}",
              "--socket", str(self.socket), "--db", str(self.db)],
             stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
         assert self.proc.stdout is not None
@@ -56,6 +57,15 @@ class Daemon:
 @pytest.fixture
 def daemon(tmp_path: Path) -> Iterator[Daemon]:
     d = Daemon(tmp_path)
+    d.start()
+    yield d
+    d.stop()
+
+
+@pytest.fixture
+def slower_daemon(tmp_path: Path) -> Iterator[Daemon]:
+    """50× speed: time for an operator (the pilot) to read a prompt and act on it while the heater is on."""
+    d = Daemon(tmp_path, speed=50.0)
     d.start()
     yield d
     d.stop()
@@ -83,7 +93,11 @@ def text_of(widget: object) -> str:
     return str(widget.render())  # type: ignore[attr-defined]
 
 
-async def test_start_see_estimate_stop_when_steady_then_abort(daemon: Daemon) -> None:
+async def test_the_prompt_the_stop_the_logged_recovery_and_the_final_result(slower_daemon: Daemon) -> None:
+    daemon = slower_daemon
+    """A run started from the form with a 3 % stop tolerance: the prompt says when heating could stop and against
+    what, the operator stops, the cooling is logged as long as the stop plan says (2 × the heating), and the
+    final result replaces the live estimate."""
     app = LinerigApp(daemon.socket)
     async with app.run_test(size=(80, 24)) as pilot:
         live = app.live
@@ -94,43 +108,64 @@ async def test_start_see_estimate_stop_when_steady_then_abort(daemon: Daemon) ->
         assert isinstance(form, StartScreen)
         form.query_one("#f-site").focus()
         await pilot.press(*"Pond edge")
-        form.query_one("#f-heat_s").value = "1800"  # long enough that only the operator ends the heating
-        form.query_one("#f-baseline_s").value = "30"
-        # 200× speed: the default 600 s cooling passes in 3 s of wall time, which a busy machine can spend between
-        # the abort key and the daemon hearing it; a long cooling keeps the run active for the abort to land on
-        form.query_one("#f-recover_s").value = "6000"
+        # 500 s planned at 50× speed: 10 s of wall time for the whole heating, well inside what the 100 mm needle
+        # can use in glycerol even for the largest α the early data allow; a 300 s baseline bounds the ground's
+        # drift well enough for an early verdict
+        form.query_one("#f-heat_s").value = "500"
+        form.query_one("#f-baseline_s").value = "300"
+        form.query_one("#f-stop_tolerance_pct").value = "3"
         await until(pilot, lambda: "✓ READY" in text_of(form.query_one("#arm-line")), "the form to be ready")
         await pilot.press("ctrl+s")
         await until(pilot, lambda: isinstance(app.screen, Confirm), "the arming question")
         await pilot.press("y")
         await until(pilot, lambda: isinstance(app.screen, LiveScreen) and live.run_id is not None, "the live screen")
         run_id = live.run_id
-
-        await until(pilot, lambda: live.estimate is not None, "a running estimate")
         screen = app.screen
         assert isinstance(screen, LiveScreen)
+
+        await until(pilot, lambda: live.estimate is not None, "a running estimate")
         screen.redraw()
         assert "W/(m·K)" in text_of(screen.query_one(EstimateReadout))
-        assert live.run_state != "heating" or "HEATING" in text_of(screen.query_one(RunBar))
 
-        await until(pilot, lambda: live.can_stop_heating, "the 'heating can stop' verdict", timeout=60)
+        await until(pilot, lambda: live.can_stop_heating or live.run_state != "heating",
+                    "the 'heating can stop' verdict", timeout=60)
+        assert live.can_stop_heating, f"no verdict while heating: {live.state_reason}; {live.verdict}"
         screen.redraw()
         prompt = screen.query_one(StopPrompt)
-        assert prompt.display and "HEATING CAN STOP" in text_of(prompt)
+        words = text_of(prompt)
+        assert prompt.display and "HEATING CAN STOP" in words and "within 3 %" in words
+        v = live.verdict or {}
+        assert f"since {v.get('at_s') or 0:.0f} s" in words and "Stopping now saves" in words and " Wh" in words
+        assert "CAN HEATING STOP?" in text_of(screen.query_one(VerdictReadout))
         await pilot.press("s")  # the prompt itself is the confirmation
         await until(pilot, lambda: live.run_state == "recovering", "heating to stop")
-        assert live.trace is not None and live.trace.heat_off_t_s is not None
+        heated = live.trace.heat_off_t_s if live.trace is not None else None
+        assert heated is not None and heated < 500
+        # the stop plan: the cooling to 3·t_h (the screen counts the heating from when heat was asked for, the
+        # daemon from time zero, the sample before the heater showed on: a few samples apart)
+        assert live.recover_s == pytest.approx(2 * heated, abs=6.0)
+        assert "logged for" in live.state_reason
+        screen.redraw()
+        assert not screen.query_one(StopPrompt).display
+        assert "stopped at" in text_of(screen.query_one(VerdictReadout))
 
-        await pilot.press("a")
-        await until(pilot, lambda: isinstance(app.screen, Confirm), "the abort question")
-        await pilot.press("y")
-        await until(pilot, lambda: live.run_state == "aborted", "the run to be aborted")
+        await until(pilot, lambda: live.run_state == "done", "the recovery to be logged", timeout=60)
+        await until(pilot, lambda: bool(live.finished and live.finished.get("results")), "the final result",
+                    timeout=60)
+        screen.redraw()
+        assert "final" in text_of(screen.query_one(EstimateReadout))
 
     async with Client(daemon.socket) as client:
         detail = (await client.request("run", run_id=run_id))["run"]
-    assert detail["state"] == "aborted" and detail["site"] == "Pond edge"
+    assert detail["state"] == "done" and detail["site"] == "Pond edge"
+    assert detail["plan"]["stop_tolerance"] == pytest.approx(0.03)
     kinds = [(e["kind"], e["state"]) for e in detail["events"]]
-    assert ("operator", None) in kinds and ("state", "recovering") in kinds
+    assert ("verdict", None) in kinds and ("state", "recovering") in kinds and ("state", "done") in kinds
+    t_on = next(e["device_s"] for e in detail["events"] if e["kind"] == "state" and e["state"] == "recovering")
+    t_done = next(e["device_s"] for e in detail["events"] if e["kind"] == "state" and e["state"] == "done")
+    assert t_done - t_on == pytest.approx(live.recover_s, abs=2.0)  # the recovery really logged that long
+    final = detail["results"]["heater"]
+    assert final["stable_at_s"] is not None and abs(final["k_W_per_mK"] / 0.286 - 1) < 0.05  # glycerol
 
 
 async def test_closing_and_reopening_the_ui_leaves_the_run_alone(daemon: Daemon) -> None:

@@ -39,6 +39,9 @@ EXIT_HUNG_UP = 128 + signal.SIGHUP
 BACKOFF_MAX_S = 5.0
 REQUEST_TIMEOUT_S = 15.0
 AUTOSTART_METADATA = {"site": "demo bench", "sample": "demo sample", "notes": "started automatically by the UI"}
+# A heating the default 100 mm needle can use in moist soil (its line bends with axial loss after 2–3 min), a
+# 2 min baseline and 10 W/m, so the demo shows the "heating can stop" verdict well before the planned end.
+AUTOSTART_PLAN = {"heat_s": 120.0, "baseline_s": 120.0, "recover_s": 240.0, "power_W_per_m": 10.0}
 
 
 def _live_screen() -> Screen[Any]:
@@ -272,7 +275,7 @@ class LinerigApp(App[int]):
 
     async def _autostart(self) -> None:
         try:
-            await self.start_run({}, dict(AUTOSTART_METADATA))
+            await self.start_run(dict(AUTOSTART_PLAN), dict(AUTOSTART_METADATA))
         except DaemonError as exc:
             self.notify(f"Could not start the demo run: {exc}", severity="error", timeout=10)
 

@@ -14,11 +14,12 @@ import math
 
 from ..probe import ProbeProfile
 from .data import ReductionError, RunData
-from .live import DEFAULT_POWER_U_REL, replay
+from .live import DEFAULT_POWER_U_REL, record_verdict
 from .methods import Options
 from .record import HeatingRecord, SensorRecord
 from .result import RunReduction, SensorResult
 from .select import METHODS, choose, run_methods, sensor_result
+from .stop_rule import StopSettings
 
 __all__ = ["METHODS", "RunReduction", "SensorResult", "reduce_run", "reduce_sensor"]
 
@@ -27,8 +28,11 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
                calibration_factor: float = 1.0, calibration_factor_u: float = 0.0,
                window_s: tuple[float, float] | None = None, max_rise_K: float | None = None,
                bulk_density_kg_per_m3: float | None = None, *, power_u_rel: float = DEFAULT_POWER_U_REL,
-               sensors: list[str] | None = None, stable_rule: bool = True) -> RunReduction:
-    """Reduce every sensor of a run. Raises ReductionError when the record cannot give any result."""
+               sensors: list[str] | None = None, stable_rule: bool | StopSettings = True) -> RunReduction:
+    """Reduce every sensor of a run. Raises ReductionError when the record cannot give any result.
+
+    ``stable_rule``: judge the "heating can stop" verdict (``stable_at_s``) against these settings (True: 2 %
+    and the heating the record shows; False: not at all)."""
     if method not in METHODS:
         raise ReductionError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
     if not (calibration_factor > 0 and math.isfinite(calibration_factor)):
@@ -68,7 +72,9 @@ def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
 
 
 def stable_at(rec: SensorRecord, opts: Options) -> float | None:
-    """When the live "heating can stop" rule would have told the operator (the live reducer replayed)."""
-    _, ests = replay(rec.run.t, rec.T, rec.run.q, rec.probe, rec.name, calibration_factor=opts.calibration_factor,
-                     calibration_factor_u=opts.calibration_factor_u, power_u_rel=opts.power_u_rel)
-    return ests[-1].stable_at_s if ests else None
+    """When the live "heating can stop" rule would have told the operator: the same rule over the whole record
+    (``live.record_verdict``: the live reducer's answer, in one pass)."""
+    stop = opts.stable_rule if isinstance(opts.stable_rule, StopSettings) else None
+    v = record_verdict(rec.run.t, rec.T, rec.run.q, rec.probe, rec.name, stop, opts.calibration_factor,
+                       X=rec.run.X, Q=rec.run.Q)
+    return v.first_at_s if v is not None else None

@@ -4,7 +4,9 @@ Each heating sample is turned into the superposition regressors (see ``superposi
 ln t", exactly ln t at constant power) and y = ΔT/Q, so y = u/(4πk) + c whatever the power did. Prefix sums of
 u, y, their products and lag-1 products let any window [start, now] be fitted in O(1): slope, intercept,
 residual RMS, lag-1 autocorrelation of the residuals and a quadratic-curvature test. The window is chosen by
-the same rule as offline (``window``); the verdict by ``stability``. Only the heating phase is handled here.
+the same rule as offline (``window``); the "heating can stop" verdict by ``stop_rule``, fed the same regressors
+(``record_verdict`` gives it for a whole record at once, with the same answer). Only the heating phase is handled
+here.
 
 Temperatures may be in K or °C: only differences are used.
 """
@@ -12,6 +14,7 @@ Temperatures may be in K or °C: only differences are used.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -21,8 +24,9 @@ from ..probe import ProbeProfile
 from . import window as win
 from .drift import Baseline, fit_baseline, no_baseline
 from .linesource import ALPHA_MIN
-from .stability import StabilityTracker
-from .stats import ar1_inflation, combine
+from .stats import ar1_inflation, combine, lag1_autocorrelation
+from .stop_rule import ProbeFacts, StopRule, StopSettings, Verdict
+from .superposition import log_time_regressor, power_steps
 
 MIN_POINTS = 10
 MIN_SPAN_LN = 0.25          # window must cover at least this much ln t before an estimate is published
@@ -59,8 +63,8 @@ class LiveEstimate:
     slope_K: float
     intercept_K: float
     window_s: tuple[float, float]
-    stable: bool
-    stable_at_s: float | None
+    stable: bool                 # the "heating can stop" verdict stands (given, not withdrawn)
+    stable_at_s: float | None    # when it was first given
     residual_rms_K: float
     n_used: int
     flags: tuple[str, ...]
@@ -68,6 +72,7 @@ class LiveEstimate:
     q_mean_W_per_m: float
     rise_K: float
     rho1: float
+    verdict: dict[str, Any] | None = None  # ``stop_rule.Verdict.to_dict``: why, when, the bound, the stop plan
 
     def to_dict(self) -> dict[str, object]:
         d = asdict(self)
@@ -82,10 +87,13 @@ class LiveEstimate:
 class LiveReducer:
     """Feed samples with ``add``; get a ``LiveEstimate`` once a window can be fitted."""
 
-    def __init__(self, probe: ProbeProfile | None = None, sensor: str = "heater", tolerance: float = 0.01,
-                 target_rel_u: float = 0.02, *, calibration_factor: float = 1.0,
+    def __init__(self, probe: ProbeProfile | None = None, sensor: str = "heater", *,
+                 stop: StopSettings | None = None, calibration_factor: float = 1.0,
                  calibration_factor_u: float = 0.0, power_u_rel: float = DEFAULT_POWER_U_REL,
-                 max_rise_K: float | None = None) -> None:
+                 max_rise_K: float | None = None, defer: Callable[[Callable[[], None]], None] | None = None) -> None:
+        """``stop``: the verdict's tolerance and the planned heating (without one, the verdict is not judged);
+        ``defer``: where the verdict's judgements run (``StopRule``; None: at once)."""
+        self.defer = defer
         self.probe = probe
         self.sensor = sensor
         self.r_m: float | None = None
@@ -105,7 +113,8 @@ class LiveReducer:
         self.calibration_factor_u = calibration_factor_u
         self.power_u_rel = power_u_rel
         self.max_rise_K = max_rise_K
-        self.tracker = StabilityTracker(tolerance=tolerance, target_rel_u=target_rel_u)
+        self.stop_settings = stop
+        self.rule: StopRule | None = None
         self._base_t: list[float] = []
         self._base_T: list[float] = []
         self.baseline: Baseline | None = None
@@ -138,6 +147,9 @@ class LiveReducer:
         if not self._heating_seen:  # first row at t >= 0: heater on is t = 0 by definition of the time axis
             self._heating_seen = True
             self._push_step(0.0, q_W_per_m)
+            self.rule = _stop_rule(self.stop_settings, self.probe, self.sensor, self.baseline, q_W_per_m,
+                                   self.calibration_factor, np.asarray(self._base_t), np.asarray(self._base_T),
+                                   self.defer)
         else:
             self._push_step(t_s, q_W_per_m - self._last_q)
         self._last_q = q_W_per_m
@@ -153,10 +165,10 @@ class LiveReducer:
         dT = temp_K - float(self.baseline.at(t_s))
         self._rise = max(self._rise, dT)
         self._append(t_s, X / Q, dT / Q, t_s / Q)
+        if self.rule is not None:
+            self.rule.feed_one(t_s, X / Q, dT / Q, t_s / Q)
         est = self._estimate(t_s)
-        if est is None:
-            self.tracker.reset()
-        else:
+        if est is not None:
             self.last = est
         return est
 
@@ -326,13 +338,14 @@ class LiveReducer:
             flags.append("noise_high")
         if self.max_rise_K is not None and self._rise > self.max_rise_K:
             flags.append("rise_above_limit")
-        stable = self.tracker.update(t_now, k, rel_stat, flags)
+        v = self.verdict
         return LiveEstimate(t_s=t_now, k_W_per_mK=k, k_u_W_per_mK=k * rel_tot, k_u_stat_W_per_mK=k * rel_stat,
-                            slope_K=slope_K, intercept_K=b * q_mean, window_s=(t0, t1), stable=stable,
-                            stable_at_s=self.tracker.stable_at_s, residual_rms_K=rms_K, n_used=n,
+                            slope_K=slope_K, intercept_K=b * q_mean, window_s=(t0, t1),
+                            stable=bool(v and v.stands), stable_at_s=v.first_at_s if v else None,
+                            residual_rms_K=rms_K, n_used=n, flags=tuple(flags),
                             # the intercept's α carries e^{2h} (contact, the probe's own resistance): not α
-                            flags=tuple(flags), alpha_m2_per_s=None,
-                            q_mean_W_per_m=q_mean, rise_K=self._rise, rho1=rho)
+                            alpha_m2_per_s=None, q_mean_W_per_m=q_mean, rise_K=self._rise, rho1=rho,
+                            verdict=v.to_dict() if v else None)
 
     def _with_drift(self, i: int, j: int, a: float, s2: float, rel_stat: float) -> tuple[float, float]:
         """The slope with the drift as a third parameter, anchored by the baseline's own fit of it, and the part
@@ -374,14 +387,106 @@ class LiveReducer:
         return float(w @ levels) / tot if tot > 0 else float(levels[-1])
 
     @property
+    def verdict(self) -> Verdict | None:
+        return self.rule.verdict if self.rule is not None else None
+
+    @property
     def stable_at_s(self) -> float | None:
-        return self.tracker.stable_at_s
+        v = self.verdict
+        return v.first_at_s if v is not None else None
+
+
+def _stop_rule(settings: StopSettings | None, probe: ProbeProfile | None, sensor: str, baseline: Baseline | None,
+               q_W_per_m: float, calibration_factor: float, base_t: np.ndarray, base_T: np.ndarray,
+               defer: Callable[[Callable[[], None]], None] | None = None) -> StopRule | None:
+    """The verdict for one heating: the drift's uncertainty and the noise's correlation from the baseline, the
+    power switched on at t = 0."""
+    if settings is None or settings.planned_heat_s is None or not q_W_per_m > 0:
+        return None
+    # the reduction fits the drift as a parameter around the baseline's own slope (``driftfit``): what stays
+    # unknown is that slope's standard uncertainty
+    drift_u = None
+    if baseline is not None and baseline.present:
+        drift_u = baseline.fitted_rate_u_K_per_s or baseline.rate_u_K_per_s
+    infl, noise = 1.0, (0.0, 0.0)
+    if base_t.size >= 3 and float(np.ptp(base_t)) > 0:
+        resid = base_T - np.polyval(np.polyfit(base_t, base_T, 1), base_t)
+        infl = ar1_inflation(lag1_autocorrelation(resid))
+        noise = (float(resid @ resid) / (base_t.size - 2), float(base_t.size - 2))
+    return StopRule(ProbeFacts.of(probe, sensor), settings, drift_u, q_W_per_m, settings.planned_heat_s,
+                    calibration_factor, infl, noise, defer)
+
+
+def _heating_rows(t_s: np.ndarray, q_W_per_m: np.ndarray) -> tuple[int, int]:
+    """[first row at t >= 0, last row fed] as ``replay`` feeds a record: through the first zero-power row after
+    the heater came on (its temperature was still heated), or to the end."""
+    on = np.nonzero((t_s >= 0) & (q_W_per_m > 0))[0]
+    i0 = int(np.searchsorted(t_s, 0.0, side="left"))
+    if on.size == 0:
+        return i0, i0 - 1
+    off = np.nonzero((t_s > 0) & (q_W_per_m <= 0))[0]
+    off = off[off > on[0]]
+    return i0, int(off[0]) if off.size else t_s.size - 1
+
+
+_CHUNK = 262_144
+
+
+def planned_heat_of_record(t_s: np.ndarray, q_W_per_m: np.ndarray) -> float | None:
+    """The heating a record shows (heater on to the first zero-power row, or its last row): the plan offline."""
+    t_s = np.asarray(t_s, dtype=float)
+    i0, i1 = _heating_rows(t_s, np.asarray(q_W_per_m, dtype=float))
+    return float(t_s[i1]) if i1 > i0 and t_s[i1] > 0 else None
+
+
+def record_verdict(t_s: np.ndarray, temp: np.ndarray, q_W_per_m: np.ndarray, probe: ProbeProfile | None = None,
+                   sensor: str = "heater", stop: StopSettings | None = None, calibration_factor: float = 1.0, *,
+                   X: np.ndarray | None = None, Q: np.ndarray | None = None) -> Verdict | None:
+    """The verdict ``replay`` reaches on a record, from whole arrays in one pass (bounded memory, no estimates).
+
+    The regressors are those ``LiveReducer.add`` builds sample by sample: the baseline fitted to every row before
+    t = 0, the power's steps from t = 0 on, X and Q over the steps strictly before each row (``X``, ``Q``: the
+    same over the whole record, when the caller has them already).
+    """
+    t_s = np.asarray(t_s, dtype=float)
+    temp = np.asarray(temp, dtype=float)
+    q = np.asarray(q_W_per_m, dtype=float)
+    settings = stop or StopSettings()
+    if settings.planned_heat_s is None:
+        settings = StopSettings(settings.tolerance, planned_heat_of_record(t_s, q))
+    i0, i1 = _heating_rows(t_s, q)
+    if i1 < i0 or settings.planned_heat_s is None:
+        return None
+    base = t_s < 0
+    baseline = fit_baseline(t_s[base], temp[base]) if np.any(base) else no_baseline(float(temp[i0]))
+    rule = _stop_rule(settings, probe, sensor, baseline, float(q[i0]), calibration_factor, t_s[base], temp[base])
+    if rule is None:
+        return None
+    th, Th = t_s[i0:i1 + 1], temp[i0:i1 + 1]
+    if X is None or Q is None:
+        steps_t, steps_dq = power_steps(th, q[i0:i1 + 1])
+        Xh, Qh = log_time_regressor(th, steps_t, steps_dq)
+    else:
+        Xh, Qh = np.asarray(X, dtype=float)[i0:i1 + 1], np.asarray(Q, dtype=float)[i0:i1 + 1]
+    for s in range(0, th.size, _CHUNK):  # in pieces, so a long record never has all its regressors at once
+        tc, Qc = th[s:s + _CHUNK], Qh[s:s + _CHUNK]
+        use = (tc > 0) & (Qc > 0)
+        tc, Xc, Qc, Tc = tc[use], Xh[s:s + _CHUNK][use], Qc[use], Th[s:s + _CHUNK][use]
+        rule.feed(tc, Xc / Qc, (Tc - baseline.at(tc)) / Qc, tc / Qc)
+    return rule.verdict
 
 
 def replay(t_s: np.ndarray, temp: np.ndarray, q_W_per_m: np.ndarray, probe: ProbeProfile | None = None,
-           sensor: str = "heater", **kwargs: float) -> tuple[LiveReducer, list[LiveEstimate]]:
-    """Run the live reducer over a recorded heating phase (up to the first zero-power sample after it)."""
-    red = LiveReducer(probe, sensor, **kwargs)  # type: ignore[arg-type]
+           sensor: str = "heater", stop: StopSettings | None = None, **kwargs: float
+           ) -> tuple[LiveReducer, list[LiveEstimate]]:
+    """Run the live reducer over a recorded heating phase (up to the first zero-power sample after it).
+
+    The verdict is judged against ``stop`` (default: 2 % and the heating the record shows, as offline)."""
+    settings = stop or StopSettings()
+    if settings.planned_heat_s is None:
+        settings = StopSettings(settings.tolerance, planned_heat_of_record(np.asarray(t_s, dtype=float),
+                                                                           np.asarray(q_W_per_m, dtype=float)))
+    red = LiveReducer(probe, sensor, stop=settings, **kwargs)  # type: ignore[arg-type]
     out: list[LiveEstimate] = []
     heating = False
     for t, T, q in zip(t_s, temp, q_W_per_m, strict=True):

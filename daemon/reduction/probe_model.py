@@ -78,7 +78,8 @@ def laplace_response(p: np.ndarray, alpha_J: float | None, h: float, rho: float 
         num = kve(0, rho * z) * np.exp(-(rho - 1.0) * z)
         if outer_rho is not None:
             num = num - c * (_ie(0, rho * z) if cplx else i0e(rho * z)) * np.exp((rho - 1.0) * z)
-    cap = 0.0 if alpha_J is None or not math.isfinite(alpha_J) else p / alpha_J
+    # α_J and h may be arrays broadcasting against p (several probes or media at once)
+    cap = 0.0 if alpha_J is None or (np.ndim(alpha_J) == 0 and not math.isfinite(alpha_J)) else p / alpha_J
     return (2.0 / p) * num / (cap * probe_term + z * k1)
 
 

@@ -9,9 +9,11 @@ from linerig.daemon.sim.rig_model import SimulatedRig
 
 
 def recorded_run(rig: SimulatedRig, *, baseline_s: float, heat_s: float, recover_s: float, q_W_per_m: float,
-                 dt_s: float = 1.0) -> RunData:
-    """Baseline, heating at ``q_W_per_m`` from t = 0, recovery; the heater sensor's record and the power the rig
-    delivered over each step (held from each sample on, as the reduction takes it)."""
+                 dt_s: float = 1.0, sensor: str | None = None) -> RunData:
+    """Baseline, heating at ``q_W_per_m`` from t = 0, recovery; one sensor's record (the first channel, column
+    "heater", unless ``sensor`` names one) and the power the rig delivered over each step (held from each
+    sample on, as the reduction takes it)."""
+    channel = 0 if sensor is None else rig.channel_names.index(sensor)
     ts, qs, temps = [], [], []
     for i in range(round((baseline_s + heat_s + recover_s) / dt_s) + 1):
         t = i * dt_s - baseline_s
@@ -22,6 +24,6 @@ def recorded_run(rig: SimulatedRig, *, baseline_s: float, heat_s: float, recover
         s = rig.sample()
         ts.append(t)
         qs.append(s.delivered_W_per_m)
-        temps.append(s.channels[0].temp_C)
+        temps.append(s.channels[channel].temp_C)
         rig.advance(dt_s)
-    return RunData(np.array(ts), np.array(qs), {"heater": np.array(temps)})
+    return RunData(np.array(ts), np.array(qs), {sensor or "heater": np.array(temps)})

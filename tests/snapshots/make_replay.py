@@ -3,7 +3,8 @@
 An invented three-sensor rod in an invented test pit. Temperatures follow the ideal line source,
 ΔT = q/(4πk)·E1(r²/4αt) (Carslaw & Jaeger 1959 §10.4; E1 from scipy.special.exp1), plus seeded noise; the
 estimates come from the daemon's own live reducer at the time of writing. The file is committed so the
-snapshots do not move when the reducer is tuned.
+snapshots do not move when the reducer is tuned. The stop verdict is judged as the daemon would, against the plan's
+600 s and 2 %.
 
     .venv/bin/python tests/snapshots/make_replay.py
 """
@@ -17,21 +18,37 @@ from pathlib import Path
 import numpy as np
 from scipy.special import exp1
 
+from linerig.daemon.probe import ProbeProfile, SensorPosition
 from linerig.daemon.reduction.live import LiveReducer
+from linerig.daemon.reduction.stop_rule import StopSettings
 
 K, RHO_C, Q, T0 = 1.20, 2.0e6, 5.0, 11.80
 ALPHA = K / RHO_C
 SENSORS = {"heater": 0.635e-3, "r6": 6.0e-3, "r12": 12.0e-3}
-BASELINE_S, HEAT_UNTIL_S = 60, 240
-START_DEV = 1000.0
+BASELINE_S, HEAT_UNTIL_S = 120, 240
+NOISE_K = 0.003
+ROD = ProbeProfile(name="three-sensor rod", radius_mm=0.635, heater_length_mm=None,
+                   sensors=tuple(SensorPosition(n, r * 1e3) for n, r in SENSORS.items()))
+START_DEV = 940.0  # heater on at 1061 s
 
 
 def temps(t: float, rng: np.random.Generator) -> list[float]:
     out = []
     for r in SENSORS.values():
         rise = Q / (4 * math.pi * K) * float(exp1(r * r / (4 * ALPHA * t))) if t > 0 else 0.0
-        out.append(round(T0 + rise + float(rng.normal(0, 0.003)), 4))
+        out.append(round(T0 + rise + float(rng.normal(0, NOISE_K)), 4))
     return out
+
+
+def _short(v: object) -> object:
+    """Six significant digits, so the file stays small and diffs read."""
+    if isinstance(v, float):
+        return float(f"{v:.6g}")
+    if isinstance(v, dict):
+        return {k: _short(x) for k, x in v.items()}
+    if isinstance(v, list):
+        return [_short(x) for x in v]
+    return v
 
 
 def main() -> None:
@@ -40,7 +57,8 @@ def main() -> None:
               "max_heating_s": 3600.0, "heater_ohm_tolerance": 0.25, "min_supply_V": 10.5,
               "max_bad_frames_per_min": 20, "stale_after_s": 2.0, "lease_s": 1.0}
     plan = {"heat_s": 600.0, "recover_s": 600.0, "power_W_per_m": Q, "baseline_s": float(BASELINE_S),
-            "settle_timeout_s": 600.0, "max_drift_K_per_min": 0.02, "auto_stop": False, "cycles": 1,
+            "settle_timeout_s": 600.0, "max_drift_K_per_min": 0.02, "auto_stop": False, "stop_tolerance": 0.02,
+            "cycles": 1,
             "reequilibrate_s": 0.0, "sensor": "heater"}
     idle = {"device_s": START_DEV, "temps_C": temps(0, rng), "faults": [0, 0, 0], "sensors": list(SENSORS),
             "q_W_per_m": 0.0, "heater_on": False, "heater_V": 0.0, "heater_A": 0.0, "supply_V": 12.61, "cj_C": 17.2}
@@ -52,7 +70,7 @@ def main() -> None:
               "limits": limits, "simulated_material": None, "run": None, "counters": {}}
     run_id = 17
     events: list[dict] = [{"event": "state", "run_id": run_id, "state": "checking", "reason": "run requested"}]
-    red = LiveReducer(None, "heater")
+    red = LiveReducer(ROD, "heater", stop=StopSettings(plan["stop_tolerance"], plan["heat_s"]))
     dev = START_DEV
     heat_on = START_DEV + 1 + BASELINE_S
     events.append({"event": "state", "run_id": run_id, "state": "settling", "reason": "pre-checks passed",
@@ -73,7 +91,7 @@ def main() -> None:
                        "heater_A": 0.0791 if on else 0.0, "supply_V": 12.58 if on else 12.61, "cj_C": 17.2})
         est = red.add(t, tc[0] + 273.15, q)
         if est is not None and on and t > 0:
-            d = {k: float(f"{v:.6g}") if isinstance(v, float) else v for k, v in est.to_dict().items()}
+            d = {k: _short(v) for k, v in est.to_dict().items()}
             d["window_s"] = [float(f"{v:.6g}") for v in d["window_s"]]
             events.append({"event": "estimate", "run_id": run_id, **d})
     detail = {"id": run_id, "created_utc": "2031-05-14T09:12:03.000+00:00",
@@ -84,11 +102,11 @@ def main() -> None:
               "dry_density_kg_per_m3": 1640.0, "notes": "overcast, pit shaded", "operator": "field crew B",
               "plan": plan, "n_samples": 1262,
               "events": [
-                  {"wall_utc": "2031-05-14T09:12:03", "device_s": 1000.0, "kind": "state", "state": "checking",
+                  {"wall_utc": "2031-05-14T09:12:03", "device_s": 940.0, "kind": "state", "state": "checking",
                    "reason": "run requested", "data": None},
-                  {"wall_utc": "2031-05-14T09:12:04", "device_s": 1001.0, "kind": "state", "state": "settling",
+                  {"wall_utc": "2031-05-14T09:12:04", "device_s": 941.0, "kind": "state", "state": "settling",
                    "reason": "pre-checks passed", "data": None},
-                  {"wall_utc": "2031-05-14T09:13:04", "device_s": 1061.0, "kind": "state", "state": "heating",
+                  {"wall_utc": "2031-05-14T09:14:04", "device_s": 1061.0, "kind": "state", "state": "heating",
                    "reason": "baseline settled: drift 0.0041 K/min", "data": None},
                   {"wall_utc": "2031-05-14T09:19:52", "device_s": 1469.0, "kind": "operator", "state": None,
                    "reason": "operator asked to stop heating", "data": None},
@@ -141,7 +159,7 @@ def main() -> None:
     out.write_text(json.dumps(doc, separators=(",", ":"), default=lambda o: o.item()) + "\n")
     n_est = sum(e["event"] == "estimate" for e in events)
     stable = next((e["t_s"] for e in events if e["event"] == "estimate" and e["stable"]), None)
-    print(f"wrote {out}: {len(events)} events, {n_est} estimates, steady from {stable} s")
+    print(f"wrote {out}: {len(events)} events, {n_est} estimates, heating could stop from {stable} s")
 
 
 if __name__ == "__main__":

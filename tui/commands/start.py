@@ -10,6 +10,8 @@ from typing import Any
 
 from linerig.tui.client import Client, DaemonError
 
+MAX_STOP_TOLERANCE_PCT = 20.0
+"""The daemon's ceiling (``controller.MAX_STOP_TOLERANCE``) in per cent, kept here so ``start`` stays light."""
 METADATA = ("site", "location", "depth_m", "sample", "material", "moisture_pct", "dry_density_kg_per_m3", "notes",
             "operator")
 
@@ -20,7 +22,10 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.add_argument("--recover-s", type=float, help="recovery (cooling) logging time, s")
     p.add_argument("--power", type=float, dest="power_W_per_m", help="heater power per metre, W/m")
     p.add_argument("--baseline-s", type=float, help="minimum baseline before heating, s")
-    p.add_argument("--auto-stop", action="store_true", help="stop heating when the estimate has stabilised")
+    p.add_argument("--auto-stop", action="store_true",
+                   help="stop heating by itself once k is predicted within the stop tolerance of a full heating")
+    p.add_argument("--stop-tolerance", type=float, metavar="PCT",
+                   help="the change of k an early stop may cause, %% (default 2; the stop verdict is judged on it)")
     p.add_argument("--cycles", type=int, help="heating–recovery cycles")
     p.add_argument("--reequilibrate-s", type=float, metavar="S",
                    help="with --cycles: extra wait before each later cycle's baseline, s (the ground must cool back; "
@@ -68,6 +73,11 @@ def start_request(args: argparse.Namespace) -> dict[str, Any]:
     req: dict[str, Any] = {k: getattr(args, k) for k in PLAN_OPTIONS if getattr(args, k) is not None}
     if args.auto_stop:
         req["auto_stop"] = True
+    if args.stop_tolerance is not None:
+        if not 0 < args.stop_tolerance <= MAX_STOP_TOLERANCE_PCT:
+            raise StartOptionError(f"--stop-tolerance must be a percentage above 0 and at most "
+                                   f"{MAX_STOP_TOLERANCE_PCT:g}, got {args.stop_tolerance:g}")
+        req["stop_tolerance"] = args.stop_tolerance / 100.0
     req["metadata"] = metadata(args.meta)
     return req
 

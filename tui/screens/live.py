@@ -1,4 +1,4 @@
-"""The operator's live screen: the plot, the running estimate, steadiness, power, limits and sensors.
+"""The operator's live screen: the plot, the running estimate, the stop verdict, power, limits and sensors.
 
 It never waits on the daemon: it reads the app's ``LiveState`` on a timer (at most ``REDRAW_S`` apart, and
 only when something changed), and sends requests from workers.
@@ -97,7 +97,7 @@ class LiveScreen(Screen[None]):
         with self.app.batch_update():
             self.query_one(RunBar).show(live)
             self.query_one(FaultBanner).show(live)
-            self.query_one(StopPrompt).show(live, bool(live.plan.get("auto_stop")))
+            self.query_one(StopPrompt).show(live, bool(live.plan.get("auto_stop")), self.rig.unit)
             plot = self.query_one(RunPlot)
             view = plot.choice or auto_view(live.run_state)
             spec = build_spec(live.trace, view)
@@ -148,8 +148,11 @@ class LiveScreen(Screen[None]):
             if yes:
                 self._send("stop_heating", "Heating stopped early; logging the cooling.")
 
-        self.app.push_screen(Confirm("Stop heating now?",
-                                     "The estimate is not steady yet, so the result will be less certain."), answered)
+        why = ("The verdict was withdrawn: k has moved by more than the tolerance since."
+               if live.verdict_withdrawn else
+               "Heating cannot stop yet: k may still move by more than the tolerance.")
+        self.app.push_screen(Confirm("Stop heating now?", why + " The cooling is still logged for the "
+                                     "heat–cool cross-check."), answered)
 
     def action_abort(self) -> None:
         live = self.rig.live

@@ -184,6 +184,8 @@ class LiveState:
     events_seen: int = 0
     pending_plan: dict[str, Any] | None = None
     """The plan this client just asked for, shown with a new run until a status reply confirms it."""
+    recover_s: float | None = None
+    """The cooling the daemon logs after this heating (the stop plan's, after an early stop)."""
 
     # -- inputs ----------------------------------------------------------------------------------------------
     def apply_status(self, st: dict[str, Any], fresh: bool = False) -> None:
@@ -219,6 +221,8 @@ class LiveState:
                 tr.baseline_hint_C = float(run["baseline_mean_C"])
             if run.get("estimate"):
                 tr.add_estimate(run["estimate"])
+            if isinstance(run.get("recover_s"), int | float):
+                self.recover_s = float(run["recover_s"])
         self.version += 1
 
     def mark_lost(self, reason: str) -> None:
@@ -260,6 +264,7 @@ class LiveState:
         dev = ev.get("device_s")
         if rid != self.run_id:  # a new run
             self.run_id = rid
+            self.recover_s = None
             self.finished = None
             self.fault = None
             self.cycle = 1
@@ -268,6 +273,8 @@ class LiveState:
         prev = self.run_state
         self.run_state = state
         self.state_reason = str(ev.get("reason") or "")
+        if isinstance(ev.get("recover_s"), int | float):
+            self.recover_s = float(ev["recover_s"])
         self.phase_start_device_s = dev if dev is not None else self.device_s
         tr = self.trace
         if tr is None:
@@ -341,7 +348,7 @@ class LiveState:
         if st == "heating":
             return max(0.0, heat - (self.heating_elapsed_s or 0.0)) + rec + later, bool(p.get("auto_stop"))
         if st == "recovering":
-            return max(0.0, rec - el) + later, False
+            return max(0.0, (self.recover_s if self.recover_s is not None else rec) - el) + later, False
         return None, False
 
     @property
@@ -350,20 +357,44 @@ class LiveState:
 
     @property
     def stable_at_s(self) -> float | None:
-        """When the daemon's live rule first found the estimate steady in this heating (latched, as the
-        daemon's own verdict and its ``auto_stop`` are); None before that."""
+        """When the daemon first said heating can stop in this heating (latched, as its ``auto_stop`` is);
+        None before that."""
         est = self.estimate
         at = _num(est.get("stable_at_s")) if est is not None else math.nan
         return at if math.isfinite(at) else None
 
     @property
-    def can_stop_heating(self) -> bool:
-        """The daemon has given its "heating can stop" verdict and the heater is still on.
+    def verdict(self) -> dict[str, Any] | None:
+        """The daemon's "heating can stop" verdict as of the latest estimate (``stop_rule.Verdict.to_dict``)."""
+        est = self.estimate
+        v = est.get("verdict") if est is not None else None
+        return v if isinstance(v, dict) else None
 
-        Latched rather than following each estimate's ``stable`` flag: near the tolerance that flag can flicker
-        from one sample to the next, and a prompt that comes and goes under the operator's finger turns a
-        deliberate key press into a question about a different state."""
-        return self.run_state == "heating" and self.stable_at_s is not None
+    @property
+    def verdict_withdrawn(self) -> bool:
+        """A verdict was given and k has since moved by more than the tolerance."""
+        v = self.verdict
+        return bool(v and v.get("withdrawn"))
+
+    @property
+    def can_stop_heating(self) -> bool:
+        """The daemon has said heating can stop, the heater is still on, and the verdict stands.
+
+        Latched rather than following each judgement: near the tolerance the judgement can flicker from one
+        checkpoint to the next, and a prompt that comes and goes under the operator's finger turns a deliberate
+        key press into a question about a different state. Only a withdrawal (k moved beyond the tolerance)
+        takes it away."""
+        return self.run_state == "heating" and self.stable_at_s is not None and not self.verdict_withdrawn
+
+    def stop_now_saves(self) -> tuple[float, float | None] | None:
+        """Heating time and heater energy (Wh, None when the heater length is unknown) a stop now saves."""
+        v, el = self.verdict, self.heating_elapsed_s
+        heat = _num(self.plan.get("heat_s"))
+        if self.run_state != "heating" or el is None or not math.isfinite(heat):
+            return None
+        left = max(heat - el, 0.0)
+        power = _num((v or {}).get("power_W"))
+        return left, (power * left / 3600.0 if math.isfinite(power) else None)
 
     def supply_V(self) -> float | None:
         s = self.last_sample

@@ -10,27 +10,35 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+from linerig.daemon.controller import MAX_STOP_TOLERANCE
 from linerig.daemon.run_keeper import METADATA_RANGES
 from linerig.tui.screens.live_state import LiveState
 
 # Presets: plain starting points, each editable after choosing it. The heating times follow the usual
 # minutes-long needle-probe tests on soil; a lower power on dry soil keeps the needle from drying it
 # (ASTM D5334-14 §1.2 warns that too much heat drives moisture away; the exact numbers are common practice).
+# The stop tolerance (%) is the change of k an early stop may cause; a calibration asks for less.
 PRESETS: dict[str, dict[str, Any]] = {
     "standard": {"label": "Standard soil: 10 min heat, 10 min cooling",
-                 "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 120, "cycles": 1},
+                 "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 120, "cycles": 1,
+                 "stop_tolerance_pct": 2},
     "quick": {"label": "Quick check: 3 min heat, 3 min cooling",
-              "heat_s": 180, "recover_s": 180, "power_W_per_m": 5.0, "baseline_s": 30, "cycles": 1},
+              "heat_s": 180, "recover_s": 180, "power_W_per_m": 5.0, "baseline_s": 30, "cycles": 1,
+              "stop_tolerance_pct": 2},
     "dry": {"label": "Dry soil, gentle: low power, 15 min heat",
-            "heat_s": 900, "recover_s": 900, "power_W_per_m": 2.5, "baseline_s": 120, "cycles": 1},
+            "heat_s": 900, "recover_s": 900, "power_W_per_m": 2.5, "baseline_s": 120, "cycles": 1,
+            "stop_tolerance_pct": 2},
     "repeat": {"label": "Repeat three times (cycles)",
-               "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 120, "cycles": 3},
+               "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 120, "cycles": 3,
+               "stop_tolerance_pct": 2},
     "calibration": {"label": "Calibration in a reference medium",
-                    "heat_s": 300, "recover_s": 300, "power_W_per_m": 3.0, "baseline_s": 120, "cycles": 1},
+                    "heat_s": 300, "recover_s": 300, "power_W_per_m": 3.0, "baseline_s": 120, "cycles": 1,
+                    "stop_tolerance_pct": 1},
 }
 DEFAULT_PRESET = "standard"
 
-PLAN_FIELDS = ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles")
+PLAN_FIELDS = ("heat_s", "recover_s", "power_W_per_m", "baseline_s", "cycles", "stop_tolerance_pct")
+MAX_STOP_TOLERANCE_PCT = 100.0 * MAX_STOP_TOLERANCE  # the daemon's own ceiling, in per cent
 META_TEXT = ("site", "location", "sample", "material", "notes", "operator")
 META_NUMBERS = METADATA_RANGES  # (lowest, highest, what is expected): the daemon's own limits
 MAX_TEXT = 200
@@ -71,6 +79,12 @@ def check_form(values: dict[str, str], limits: dict[str, Any], auto_stop: bool =
             errors[name] = f"{what} {v:g} is above the limit {hi:g}"
         else:
             plan[name] = v
+    tol = _number(values.get("stop_tolerance_pct", "2") or "2")
+    if tol is None or not 0 < tol <= MAX_STOP_TOLERANCE_PCT:
+        errors["stop_tolerance_pct"] = f"stop tolerance must be a percentage above 0 and at most " \
+                                       f"{MAX_STOP_TOLERANCE_PCT:g}"
+    else:
+        plan["stop_tolerance"] = tol / 100.0
     cyc = values.get("cycles", "1").strip() or "1"
     if not cyc.isdigit() or not 1 <= int(cyc) <= 20:
         errors["cycles"] = "cycles must be a whole number from 1 to 20"

@@ -22,7 +22,7 @@ if TYPE_CHECKING:
 # (field, label, placeholder) in the order the Tab key visits them
 PLAN_INPUTS = (("heat_s", "Heat, s", "600"), ("recover_s", "Cooling, s", "600"),
                ("power_W_per_m", "Power, W/m", "5"), ("baseline_s", "Baseline, s", "120"),
-               ("cycles", "Cycles", "1"))
+               ("cycles", "Cycles", "1"), ("stop_tolerance_pct", "Stop tol., %", "2"))
 META_INPUTS = (("site", "Site *", "e.g. North paddock"), ("location", "Borehole/spot", "e.g. BH-3"),
                ("depth_m", "Tip depth, m", "probe tip, below ground"), ("sample", "Sample", "e.g. S-14"),
                ("material", "Material", "e.g. silty sand"), ("moisture_pct", "Moisture, %", "by mass"),
@@ -30,7 +30,7 @@ META_INPUTS = (("site", "Site *", "e.g. North paddock"), ("location", "Borehole/
                ("notes", "Notes", ""))
 KEPT_FOR_NEXT_SAMPLE = ("operator",)   # the person stays; the sample, place, moisture and density do not
 RECHECK_S = 0.5
-AUTO_STOP_LABEL = "Stop heating by itself once the estimate is steady: "
+AUTO_STOP_LABEL = "Stop heating by itself once k is within the stop tolerance: "
 
 
 class StartScreen(Screen[None]):
@@ -184,7 +184,8 @@ class StartScreen(Screen[None]):
         p = form.plan
         detail = (f"Baseline at least {p['baseline_s']:g} s, then {p['heat_s']:g} s heating at "
                   f"{p['power_W_per_m']:g} W/m and {p['recover_s']:g} s cooling"
-                  + (f", {p['cycles']} cycles" if p.get("cycles", 1) > 1 else "") + ".")
+                  + (f", {p['cycles']} cycles" if p.get("cycles", 1) > 1 else "")
+                  + f"; heating may stop early once k is within {100 * p['stop_tolerance']:g} % of a full heating.")
 
         def answered(yes: bool | None) -> None:
             if yes:

@@ -1,4 +1,4 @@
-"""The text readouts of the live screen: run bar, estimate, steadiness verdict, power, sensors, banners.
+"""The text readouts of the live screen: run bar, estimate, the stop verdict, power, sensors, banners.
 
 Each widget has ``show(live, …)`` that rebuilds its text from ``LiveState``; none of them holds state of its
 own, so redrawing at any rate gives the same picture. Every colour is paired with a word or a symbol.
@@ -13,7 +13,7 @@ import numpy as np
 from rich.text import Text
 from textual.widgets import Static
 
-from linerig.daemon.reduction.stability import STRETCH_LN
+from linerig.daemon.reduction.stop_rule import recovery_after_stop_s
 from linerig.tui.screens.live_state import STATE_SYMBOLS, STATE_WORDS, LiveState, RunTrace
 from linerig.tui.units import DisplayUnit, companion, duration, show
 from linerig.tui.widgets.advice import fault_advice, flag_words
@@ -125,18 +125,6 @@ def _primary_name(live: LiveState) -> str:
     return str(live.plan.get("sensor") or "heater")
 
 
-def k_spread(estimates: list[tuple[float, float, float, bool]]) -> float | None:
-    """Largest relative move of k over the latest stretch of ln t (the span the steadiness rule looks at)."""
-    if not estimates:
-        return None
-    t_now, k_now = estimates[-1][0], estimates[-1][1]
-    t_from = t_now * math.exp(-STRETCH_LN)
-    if estimates[0][0] > t_from or not k_now:
-        return None
-    ks = [k for t, k, _, _ in estimates if t >= t_from]
-    return max(max(ks) - k_now, k_now - min(ks)) / abs(k_now)
-
-
 def baseline_drift_K_per_min(tr: RunTrace | None) -> float | None:
     """Slope of the fit sensor over the latest baseline span, as the daemon judges settling (K/min)."""
     if tr is None or len(tr.device_s) < 3:
@@ -151,13 +139,58 @@ def baseline_drift_K_per_min(tr: RunTrace | None) -> float | None:
     return float(np.polyfit(x[ok] - x[ok][0], y[ok], 1)[0] * 60.0)
 
 
+def _pct(x: Any) -> str:
+    return f"{100 * _f(x):.1f} %"
+
+
+def _tol(v: dict[str, Any]) -> str:
+    return f"{100 * _f(v.get('tolerance')):g} %"
+
+
+def verdict_lines(live: LiveState) -> list[tuple[str, str]]:
+    """The verdict in plain words, a (text, style) pair per line, for the side readout."""
+    v = live.verdict
+    if v is None:
+        return [("○ not judged: the daemon has no plan to judge against", "dim")]
+    at, tol = v.get("at_s"), _tol(v)
+    out: list[tuple[str, str]] = []
+    heating = live.run_state == "heating"
+    if v.get("withdrawn"):
+        out.append((f"✗ WITHDRAWN: k moved {100 * _f(v.get('moved_rel')):+.1f} % since {_f(at):.0f} s", "bold red"))
+        out.append((f"  more than the {tol} tolerance", "red"))
+    elif at is not None:
+        out.append((f"● can stop since {_f(at):.0f} s", "bold green"))
+        out.append((f"  k {_f(v.get('k_at_W_per_mK')):.3f} within {_pct(v.get('bound_rel'))} of a full heating",
+                    ""))
+    elif heating:
+        out.append(("◔ not yet", "yellow"))
+        out.append((f"  {v.get('reason') or ''}", ""))
+    else:
+        out.append(("○ no verdict in this heating", "dim"))
+        out.append((f"  {v.get('reason') or ''}", "dim"))
+    out.append((f"  tolerance {tol}", "dim"))
+    terms = {k: _f(x) for k, x in (v.get("terms") or {}).items()}
+    if heating and terms:
+        words = {"model": "model", "statistical": "noise", "drift": "drift"}
+        out.append(("  " + " · ".join(f"{words.get(k, k)} {100 * x:.1f}" for k, x in terms.items()
+                                      if math.isfinite(x)) + " %", "dim"))
+    off = live.trace.heat_off_t_s if live.trace is not None else None
+    heat = _f(live.plan.get("heat_s"))
+    if off is not None and math.isfinite(heat) and off < heat - 1.0:
+        saved = heat - off
+        power = _f(v.get("power_W"))
+        energy = f", {power * saved / 3600:.2f} Wh" if math.isfinite(power) else ""
+        out.append((f"■ stopped at {off:.0f} s: saved {duration(saved)}{energy}", "bold"))
+    return out
+
+
 class VerdictReadout(Static):
-    """Whether heating can stop yet, and why not."""
+    """Whether heating can stop, against which tolerance, and why not yet."""
 
     DEFAULT_CSS = "VerdictReadout { height: auto; }"
 
     def show(self, live: LiveState) -> None:
-        text = Text("STEADINESS", style=HEADING)
+        text = Text("CAN HEATING STOP?", style=HEADING)
         est = live.estimate
         tr = live.trace
         if est is None:
@@ -172,20 +205,8 @@ class VerdictReadout(Static):
                 text.append("\n ○ no estimate yet", style="dim")
             self.update(text)
             return
-        stable_at = est.get("stable_at_s")
-        if est.get("stable"):
-            text.append(f"\n ● STEADY since {stable_at:.0f} s" if stable_at is not None else "\n ● STEADY",
-                        style="bold green")
-        elif stable_at is not None:
-            text.append(f"\n ◑ steady at {stable_at:.0f} s, then moved", style="yellow")
-        else:
-            text.append("\n ◔ not yet steady", style="yellow")
-        spread = k_spread(tr.estimates) if tr is not None else None
-        text.append(f"\n k moved {100 * spread:.1f} %" if spread is not None else "\n k moved —")
-        ku_stat = _f(est.get("k_u_stat_W_per_mK"))
-        k = _f(est.get("k_W_per_mK"))
-        if math.isfinite(ku_stat) and k:
-            text.append(f" · scatter {100 * ku_stat / k:.1f} %")
+        for line, style in verdict_lines(live):
+            text.append("\n " + line, style=style)
         words = flag_words(est.get("flags"))
         if words:
             text.append("\n ⚑ " + "; ".join(words), style="yellow")
@@ -241,42 +262,49 @@ class SensorReadout(Static):
         self.update(text)
 
 
-def _moved_since(live: LiveState, at_s: float) -> float | None:
-    """Relative change of k from the estimate at ``at_s`` to the latest one, from this client's record."""
-    tr = live.trace
-    if tr is None or not tr.estimates:
+def stop_prompt(live: LiveState, auto_stop: bool, unit: DisplayUnit) -> Text | None:
+    """The prompt over the plots while heating: the verdict and what a stop now saves, or its withdrawal."""
+    v = live.verdict or {}
+    if live.run_state != "heating" or live.stable_at_s is None:
         return None
-    then = min(tr.estimates, key=lambda e: abs(e[0] - at_s))
-    now = tr.estimates[-1]
-    return (now[1] - then[1]) / then[1] if then[1] else None
+    at, tol = _f(v.get("at_s")), _tol(v)
+    if v.get("withdrawn"):
+        text = Text(" ✗ VERDICT WITHDRAWN ", style="bold reverse red")
+        text.append(f" k has moved {100 * _f(v.get('moved_rel')):+.1f} % since heating could stop at {at:.0f} s, "
+                    f"more than the {tol} tolerance. Keep heating: the verdict comes back if k settles again.",
+                    style="bold")
+        return text
+    text = Text(" ▶ HEATING CAN STOP ", style="bold reverse green")
+    k = show(_f(v.get("k_at_W_per_mK")), None, unit).text()
+    text.append(f" since {at:.0f} s: {k} will stay within {tol} of what the full heating would give "
+                f"(predicted ≤ {_pct(v.get('bound_rel'))}). ")
+    saves = live.stop_now_saves()
+    if saves is not None:
+        secs, wh = saves
+        text.append(f"Stopping now saves {duration(secs)}" + (f" and {wh:.2f} Wh" if wh is not None else "") + "; ")
+        el, heat = live.heating_elapsed_s or 0.0, _f(live.plan.get("heat_s"))
+        rec = recovery_after_stop_s(el, heat, _f(live.plan.get("recover_s")))
+        text.append(f"the cooling is then logged for {duration(rec)} for the heat–cool cross-check. ")
+    if auto_stop:
+        text.append("The run will stop heating by itself.")
+    else:
+        text.append("Press ")
+        text.append(" s ", style="bold reverse")
+        text.append(" to stop heating.")
+    return text
 
 
 class StopPrompt(Static):
-    """The 'heating can stop' prompt; shown only while it applies."""
+    """The 'heating can stop' prompt, or its withdrawal; shown only while the heater is on and it applies."""
 
     DEFAULT_CSS = "StopPrompt { height: auto; display: none; }"
 
-    def show(self, live: LiveState, auto_stop: bool) -> None:
-        visible = live.can_stop_heating
-        self.display = visible
-        if not visible:
-            return
-        est = live.estimate or {}
-        at = live.stable_at_s
-        text = Text(" ▶ HEATING CAN STOP ", style="bold reverse green")
-        if est.get("stable"):
-            text.append(f" the estimate has held steady since {at:.0f} s. ")
-        else:
-            since = _moved_since(live, at)
-            moved = f" (k {100 * since:+.1f} % since)" if since is not None else ""
-            text.append(f" the estimate was steady at {at:.0f} s and has moved since{moved}. ")
-        if auto_stop:
-            text.append("The run will stop heating by itself.")
-        else:
-            text.append("Press ")
-            text.append(" s ", style="bold reverse")
-            text.append(" to stop heating and log the cooling.")
-        self.update(text)
+    def show(self, live: LiveState, auto_stop: bool, unit: DisplayUnit = DisplayUnit.CONDUCTIVITY) -> None:
+        text = stop_prompt(live, auto_stop, unit)
+        self.display = text is not None
+        self.set_class(live.verdict_withdrawn, "-withdrawn")
+        if text is not None:
+            self.update(text)
 
 
 class FaultBanner(Static):

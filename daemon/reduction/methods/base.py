@@ -13,6 +13,7 @@ from ..driftfit import DriftFit
 from ..live import DEFAULT_POWER_U_REL
 from ..record import SensorRecord
 from ..stats import combine
+from ..stop_rule import StopSettings
 
 
 @dataclass(frozen=True)
@@ -65,7 +66,7 @@ class Options:
     max_rise_K: float | None = None
     bulk_density_kg_per_m3: float | None = None
     power_u_rel: float = DEFAULT_POWER_U_REL
-    stable_rule: bool = True
+    stable_rule: bool | StopSettings = True   # the verdict's tolerance and planned heating (True: the defaults)
 
 
 class Found(dict[str, MethodResult]):
