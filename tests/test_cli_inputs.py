@@ -24,7 +24,7 @@ from linerig.tui.cli import main
 from tests.test_qualify import FAST_SETTINGS  # the short procedure the qualification tests run
 
 ROOT = Path(__file__).resolve().parent.parent
-EXAMPLES = ROOT / "examples" / "harrowgate-fen"
+EXAMPLES = ROOT / "examples" / "examplemoor"
 RUN_CSV = EXAMPLES / "run_BH1_1.5m.csv"
 NEEDLE = EXAMPLES / "FN-0412.toml"
 
@@ -95,9 +95,9 @@ def test_plots_to_unwritable_places_are_errors(tmp_path: Path, capsys: pytest.Ca
     nowhere = tmp_path / "missing-folder" / "x.png"
     rc, _, err = _cli(capsys, "reduce", str(RUN_CSV), "--plot", str(tmp_path / "x.txt"))
     assert rc == 2 and "cannot write plot" in err and "txt" in err
-    for argv in (["dryout", "--csv", str(EXAMPLES / "dryout_fen_sand.csv")],
-                 ["cylinder", str(EXAMPLES / "cylinder_mould_FB3.csv"), "--radius-mm", "25.4", "--height-mm",
-                  "101.6"]):
+    for argv in (["dryout", "--csv", str(EXAMPLES / "dryout_moor_sand.csv")],
+                 ["cylinder", str(EXAMPLES / "cylinder_mould_FB3.csv"), "--radius-mm", "35", "--height-mm",
+                  "90"]):
         rc, _, err = _cli(capsys, *argv, "--plot", str(nowhere))
         assert rc == 2 and "missing-folder" in err, (argv, err)
 
@@ -115,7 +115,7 @@ def test_report_refuses_a_negative_factor_uncertainty(tmp_path: Path, capsys: py
     (["--design-density", "3000"], "--design-density"),   # denser than the solids (2650 kg/m³ default)
 ])
 def test_dryout_refuses_impossible_readings(extra: list[str], named: str, capsys: pytest.CaptureFixture[str]) -> None:
-    rc, _, err = _cli(capsys, "dryout", "--csv", str(EXAMPLES / "dryout_fen_sand.csv"), *extra)
+    rc, _, err = _cli(capsys, "dryout", "--csv", str(EXAMPLES / "dryout_moor_sand.csv"), *extra)
     assert rc == 2 and named in err
 
 
@@ -125,7 +125,7 @@ def test_dryout_refuses_impossible_readings(extra: list[str], named: str, capsys
 ])
 def test_cylinder_refuses_impossible_numbers(extra: list[str], named: str,
                                              capsys: pytest.CaptureFixture[str]) -> None:
-    rc, _, err = _cli(capsys, "cylinder", str(EXAMPLES / "cylinder_mould_FB3.csv"), "--radius-mm", "25.4", *extra)
+    rc, _, err = _cli(capsys, "cylinder", str(EXAMPLES / "cylinder_mould_FB3.csv"), "--radius-mm", "35", *extra)
     assert rc == 2 and named in err
 
 

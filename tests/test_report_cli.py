@@ -16,13 +16,13 @@ import pytest
 from linerig.daemon.runcsv import read_run_csv
 from linerig.tui.cli import main
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "harrowgate_fen.py"
-SITE = "Harrowgate Fen substation"
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "examplemoor.py"
+SITE = "Examplemoor substation"
 
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
-    spec = importlib.util.spec_from_file_location("harrowgate_fen", EXAMPLES)
+    spec = importlib.util.spec_from_file_location("examplemoor", EXAMPLES)
     assert spec and spec.loader
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
@@ -78,7 +78,7 @@ def test_site_report_and_profile(demo: tuple[Path, dict[str, Any]], tmp_path: Pa
     # the invented ground gets more conductive with depth (peat over sand)
     assert bh1[0]["resistivity_Ccm_per_W"] > bh1[-1]["resistivity_Ccm_per_W"]
     rod = {p["sensor"]: p["depth_m"] for p in doc["boreholes"]["BH2"]}
-    assert rod == pytest.approx({"low": 1.4, "mid": 0.9, "high": 0.4})
+    assert rod == pytest.approx({"tip300": 1.3, "tip600": 1.0, "tip900": 0.7, "tip1200": 0.4})
     assert (tmp_path / "p.png").read_bytes().startswith(b"\x89PNG")
 
 
@@ -88,7 +88,7 @@ def test_export_results_csv_and_samples_roundtrip(demo: tuple[Path, dict[str, An
     rc, text, err = _cli(capsys, "export", "--site", SITE, "--db", str(db))
     assert rc == 0, err
     rows = list(csv.DictReader(io.StringIO(text)))
-    assert len(rows) == 5 + 3
+    assert len(rows) == 5 + 4   # five needle runs in BH1, four rod junctions in BH2
     assert all(float(r["resistivity_Ccm_per_W"]) == pytest.approx(100 / float(r["k_W_per_mK"])) for r in rows)
     out = tmp_path / "s.csv"
     rc, _, err = _cli(capsys, "export", str(ids["bh1"][1]), "--what", "samples", "--db", str(db), "-o", str(out))
@@ -150,12 +150,12 @@ def test_calibrate_from_runs_stores_history(demo: tuple[Path, dict[str, Any]], t
 
 def test_dryout_from_database_runs(demo: tuple[Path, dict[str, Any]], capsys: pytest.CaptureFixture[str]) -> None:
     db, _ = demo
-    rc, text, err = _cli(capsys, "dryout", "--material", "Fen sand backfill", "--db", str(db), "--model",
+    rc, text, err = _cli(capsys, "dryout", "--material", "Moor sand backfill", "--db", str(db), "--model",
                          "cote-konrad", "--quartz", "0.55", "--json")
     assert rc == 0, err
     doc = json.loads(text)
     assert len(doc["points"]) == 12
-    # invented truth λ_s = 4.6, κ = 3.2, dry scale 1.1 (examples/harrowgate_fen.py)
+    # invented truth λ_s = 4.6, κ = 3.2, dry scale 1.1 (examples/examplemoor.py)
     fit = doc["fits"]["cote-konrad"]
     assert fit["lambda_s_W_per_mK"] == pytest.approx(4.6, rel=0.1)
     assert fit["rms_rel"] < 0.05

@@ -179,7 +179,7 @@ def test_adiabatic_sample_stores_every_joule() -> None:
 def test_cylinder_centre_reaches_half_at_fourier_0_2005() -> None:
     # a cylinder at uniform temperature with its surface stepped: the centre has moved half-way at
     # Fo = κt/R² = 0.200524 (series solution, Carslaw & Jaeger §7.4; roots from scipy jn_zeros)
-    k, rho_c, R = 0.598, 4.177e6, 0.0254
+    k, rho_c, R = 0.598, 4.177e6, 0.030
     lam = jn_zeros(0, 60)
     fo = 0.200524
     series = float(np.sum(2 / (lam * j1(lam)) * np.exp(-lam * lam * fo)))  # remaining fraction at the centre
@@ -291,7 +291,7 @@ def test_axial_model_conserves_energy_in_insulated_sample() -> None:
 def test_finite_cylinder_centre_follows_the_product_solution(height_over_diameter: float) -> None:
     # finite cylinder with its whole surface stepped: (1 − θ) = (1 − θ_cyl)(1 − θ_slab) (Newman product of the
     # Carslaw & Jaeger §7.4 cylinder and §3.3 slab series); at H/D = 2 the centre is half-way at Fo = 0.199971
-    k, rho_c, R = 0.598, 4.177e6, 0.0254
+    k, rho_c, R = 0.598, 4.177e6, 0.030
     kappa, half_h = k / rho_c, height_over_diameter * R
     lam, n = jn_zeros(0, 200), np.arange(400)
 

@@ -12,11 +12,11 @@ from linerig.daemon.workflows.cylinder import SurfaceSteps, model_centre_C
 from linerig.daemon.workflows.dryout import Material, conductivity
 from linerig.tui.cli import main
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "harrowgate-fen"
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "examplemoor"
 
 
 def test_dryout_csv_with_critical_moisture_and_report(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    rc = main(["dryout", "--csv", str(EXAMPLES / "dryout_fen_sand.csv"), "--quartz", "0.55", "--json",
+    rc = main(["dryout", "--csv", str(EXAMPLES / "dryout_moor_sand.csv"), "--quartz", "0.55", "--json",
                "--report", str(tmp_path / "d.html"), "--plot", str(tmp_path / "d.png")])
     out = capsys.readouterr()
     assert rc == 0, out.err
@@ -54,7 +54,7 @@ def test_dryout_bad_csv(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> N
 
 
 def test_cylinder_example_record(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    rc = main(["cylinder", str(EXAMPLES / "cylinder_mould_FB3.csv"), "--radius-mm", "25.4", "--height-mm", "101.6",
+    rc = main(["cylinder", str(EXAMPLES / "cylinder_mould_FB3.csv"), "--radius-mm", "35", "--height-mm", "90",
                "--json", "--report", str(tmp_path / "c.pdf")])
     out = capsys.readouterr()
     assert rc == 0, out.err
@@ -65,16 +65,17 @@ def test_cylinder_example_record(tmp_path: Path, capsys: pytest.CaptureFixture[s
 
 
 def test_cylinder_with_given_bath(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    t = np.arange(0.0, 1500.0, 10.0)
-    # water in a 2-inch mould (κ = 1.455e-7): t₅₀ = 889 s for an infinite cylinder (Fo₅₀ 0.200524)
-    y = model_centre_C(t, 1.455e-7, 0.0254, None, SurfaceSteps.single(40.0, 0.0), 20.0)
+    t = np.arange(0.0, 2500.0, 10.0)
+    # water in a 60 mm bore (κ = 1.455e-7): t₅₀ = 0.200524·R²/κ = 1240.3 s for an infinite cylinder (Fo₅₀ 0.200524,
+    # Carslaw & Jaeger §7.4 series)
+    y = model_centre_C(t, 1.455e-7, 0.030, None, SurfaceSteps.single(40.0, 0.0), 20.0)
     p = tmp_path / "w.csv"
     p.write_text("time_s,T_centre_C\n" + "".join(f"{a},{b}\n" for a, b in zip(t, y, strict=True)), encoding="utf-8")
-    rc = main(["cylinder", str(p), "--radius-mm", "25.4", "--bath-C", "40", "--initial-C", "20", "--no-lag", "--json"])
+    rc = main(["cylinder", str(p), "--radius-mm", "30", "--bath-C", "40", "--initial-C", "20", "--no-lag", "--json"])
     doc = json.loads(capsys.readouterr().out)
     assert rc == 0
     assert doc["alpha_mm2_per_s"] == pytest.approx(0.1455, rel=1e-4)
-    assert doc["t50_s"] == pytest.approx(889, abs=2)
+    assert doc["t50_s"] == pytest.approx(1240.3, abs=2)
 
 
 def test_cylinder_needs_a_bath(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:

@@ -63,8 +63,9 @@ _ALL = [
         "field values).",
     ),
     Material(
-        "thermal-backfill", "Fluidised thermal backfill (moist)", 1.80, 2.01e6, 1900.0,
-        "Dense sand-aggregate-cement backfill used around buried cables: typically 50-75 C cm/W when moist "
+        "thermal-backfill", "Flowable cement-sand backfill (moist)", 1.80, 2.01e6, 1900.0,
+        "A lean mix of sand, fine aggregate and a little cement placed as a slurry around buried cables: "
+        "typically 50-75 C cm/W when moist "
         "(k 1.3-2.0; value from memory, unconfirmed); 1.8 W/(m K) = 56 C cm/W. C = 1.92*0.72 + 4.18*0.15 = "
         "2.01 MJ/(m3 K) (de Vries 1963 mix at porosity 0.28, theta 0.15).",
     ),

@@ -7,7 +7,7 @@ above the daemon's configured limits, which sit above each run's plan (DESIGN.md
 LEASE_MAX_MS = 1000  # longest lease the host may ask for; the heater is off ≤ this after the host goes quiet
 T_PROBE_MAX_C = 95.0  # any valid channel above this turns the heater off (keep pore water from boiling)
 T_REARM_MARGIN_K = 5.0  # after that, P is refused until every valid channel is this far below the limit
-POWER_MAX_W = 45.0  # measured heater power (a 1 m field rod at 40 W/m plus margin)
+POWER_MAX_W = 45.0  # measured heater power (a 1.5 m field rod at up to 30 W/m)
 POWER_MAX_W_PER_M = 60.0  # largest power per metre a P command may ask for
 POWER_TRIP_MARGIN = 1.10  # measured power above POWER_MAX_W × this ...
 POWER_TRIP_COUNT = 3  # ... for this many control cycles in a row trips OVERPOWER

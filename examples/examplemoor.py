@@ -1,16 +1,16 @@
-"""Invented demo data: a made-up ground survey for a made-up "Harrowgate Fen substation", and a lab programme on
+"""Invented demo data: a made-up ground survey for a made-up "Examplemoor substation", and a lab programme on
 its made-up backfill. Every number here is synthetic (probe model plus noise); no real site or sample.
 
-    .venv/bin/python examples/harrowgate_fen.py [OUT_DIR]
+    .venv/bin/python examples/examplemoor.py [OUT_DIR]
 
-writes OUT_DIR/harrowgate-fen.db (a linerig database: probes, a calibration, field runs in two boreholes, a
+writes OUT_DIR/examplemoor.db (a linerig database: probes, a calibration, field runs in two boreholes, a
 three-cycle run, a dry-out series) and refreshes the CSVs beside this script. Then try, for example:
 
-    linerig report --db OUT_DIR/harrowgate-fen.db --site "Harrowgate Fen substation" -o site.html
-    linerig profile --db OUT_DIR/harrowgate-fen.db --site "Harrowgate Fen substation" --plot profile.png
-    linerig cycles --db OUT_DIR/harrowgate-fen.db 10
-    linerig dryout --csv examples/harrowgate-fen/dryout_fen_sand.csv --critical-moisture 4
-    linerig cylinder examples/harrowgate-fen/cylinder_mould_FB3.csv --radius-mm 25.4 --height-mm 101.6
+    linerig report --db OUT_DIR/examplemoor.db --site "Examplemoor substation" -o site.html
+    linerig profile --db OUT_DIR/examplemoor.db --site "Examplemoor substation" --plot profile.png
+    linerig cycles --db OUT_DIR/examplemoor.db 10
+    linerig dryout --csv examples/examplemoor/dryout_moor_sand.csv --critical-moisture 4
+    linerig cylinder examples/examplemoor/cylinder_mould_FB3.csv --radius-mm 35 --height-mm 90
 """
 
 from __future__ import annotations
@@ -31,8 +31,8 @@ from linerig.daemon.workflows import cylinder as cyl
 from linerig.daemon.workflows.calibration import Measurement, evaluate_calibration, reference_value
 from linerig.daemon.workflows.dryout import Material, ModelParams, conductivity
 
-SITE = "Harrowgate Fen substation"
-HERE = Path(__file__).resolve().parent / "harrowgate-fen"
+SITE = "Examplemoor substation"
+HERE = Path(__file__).resolve().parent / "examplemoor"
 
 NEEDLE_TOML = """[probe]
 name = "field needle FN-0412"
@@ -46,32 +46,25 @@ name = "heater"
 radial_mm = 0.0
 axial_mm = 75.0
 """
+ROD_JUNCTIONS_MM = (300.0, 600.0, 900.0, 1200.0)   # from the tip; each junction is named after its distance
 ROD_TOML = """[probe]
-name = "profiling rod HR-2"
-serial = "HR-2"
+name = "profiling rod RX15-2"
+serial = "RX15-2"
 kind = "rod"
-heater_length_mm = 1400.0
+heater_length_mm = 1500.0
 radius_mm = 4.0
-heat_capacity_MJ_per_m3K = 3.0
-[[sensor]]
-name = "low"
+heat_capacity_MJ_per_m3K = 3.5
+""" + "".join(f"""[[sensor]]
+name = "tip{z:.0f}"
 radial_mm = 0.0
-axial_mm = 200.0
-[[sensor]]
-name = "mid"
-radial_mm = 0.0
-axial_mm = 700.0
-[[sensor]]
-name = "high"
-radial_mm = 0.0
-axial_mm = 1200.0
-"""
+axial_mm = {z}
+""" for z in ROD_JUNCTIONS_MM)
 NEEDLE = ProbeProfile(name="field needle FN-0412", serial="FN-0412", radius_mm=1.2, heater_length_mm=150.0,
                       heat_capacity_MJ_per_m3K=3.0, sensors=(SensorPosition("heater", 0.0, 75.0),))
-ROD = ProbeProfile(name="profiling rod HR-2", serial="HR-2", kind="rod", radius_mm=4.0, heater_length_mm=1400.0,
-                   heat_capacity_MJ_per_m3K=3.0, sensors=(SensorPosition("low", 0.0, 200.0),
-                                                           SensorPosition("mid", 0.0, 700.0),
-                                                           SensorPosition("high", 0.0, 1200.0)))
+ROD = ProbeProfile(name="profiling rod RX15-2", serial="RX15-2", kind="rod", radius_mm=4.0, heater_length_mm=1500.0,
+                   heat_capacity_MJ_per_m3K=3.5,
+                   sensors=tuple(SensorPosition(f"tip{z:.0f}", 0.0, z) for z in ROD_JUNCTIONS_MM))
+MOULD_R_M, MOULD_H_M = 0.035, 0.090   # the example's own mould: 70 mm bore, 90 mm high
 SAND = Material(rho_s=2650.0, quartz=0.55, coarse=True, ck_soil="medium-fine-sand")
 SAND_TRUE = ModelParams(lambda_s=4.6, shape=3.2, dry_scale=1.1)
 
@@ -121,7 +114,7 @@ def build_demo_db(path: Path) -> dict[str, object]:
     store = Store(path)
     try:
         store.upsert_probe("FN-0412", NEEDLE.name, "single", NEEDLE_TOML)
-        store.upsert_probe("HR-2", ROD.name, "rod", ROD_TOML)
+        store.upsert_probe("RX15-2", ROD.name, "rod", ROD_TOML)
         bias = 0.96   # the invented needle reads 4 % high; its calibration corrects that
         # calibration in agar-gelled water at 20 °C: three runs
         kw = reference_value("agar-water", 20.0).k_W_per_mK
@@ -137,15 +130,16 @@ def build_demo_db(path: Path) -> dict[str, object]:
         out = evaluate_calibration("FN-0412", reference_value("agar-water", 20.0), cal_meas)
         cal_id = record_calibration(store.db, out, {"bath_C": 20.0})
         factor = out.factor
-        # borehole BH1: repeated insertions, deepened between runs; fen peat over clay over sand
+        # borehole BH1: repeated insertions, deepened between runs; peat over clay over sand
         bh1 = []
         for depth, k in ((0.5, 0.55), (1.0, 0.80), (1.5, 1.15), (2.0, 1.60), (2.5, 1.75)):
             d = _run(k / bias, 2.6e6, NEEDLE, rng)
             bh1.append(_store_run(store, d, NEEDLE, {"site": SITE, "location": "BH1", "depth_m": depth + 0.075,
                                                      "sample": f"in situ, {depth:.1f} m", "operator": "demo"},
                                   factor=factor))
-        # borehole BH2: the rod pushed to 1.6 m, three sensors along it
-        d = _run(1.0, 2.6e6, ROD, rng, sensors=("low", "mid", "high"), ks={"low": 1.45, "mid": 0.95, "high": 0.62})
+        # borehole BH2: the rod's tip pushed to 1.6 m, four junctions along it (1.3, 1.0, 0.7 and 0.4 m deep)
+        ks = {"tip300": 1.45, "tip600": 1.15, "tip900": 0.80, "tip1200": 0.62}
+        d = _run(1.0, 2.6e6, ROD, rng, sensors=tuple(ks), ks=ks)
         bh2 = _store_run(store, d, ROD, {"site": SITE, "location": "BH2", "depth_m": 1.6, "sample": "rod profile",
                                          "operator": "demo"})
         # one run, three heating-recovery cycles on the backfill FB-3
@@ -161,7 +155,7 @@ def build_demo_db(path: Path) -> dict[str, object]:
         last_on = float(parts[-1][0][np.argmax(parts[-1][1] > 0)])
         multi = RunData(t - last_on, np.concatenate([p[1] for p in parts]),
                         {"heater": np.concatenate([p[2] for p in parts])})
-        cyc = _store_run(store, multi, NEEDLE, {"sample": "FB-3 backfill, compacted", "material": "Fen sand backfill",
+        cyc = _store_run(store, multi, NEEDLE, {"sample": "FB-3 backfill, compacted", "material": "Moor sand backfill",
                                                 "moisture_pct": 9.0, "dry_density_kg_per_m3": 1700.0,
                                                 "notes": "three cycles"}, phase=phase, reduce=False)
         # dry-out series on the backfill: lab runs at several moistures and two densities
@@ -171,7 +165,7 @@ def build_demo_db(path: Path) -> dict[str, object]:
                 k = float(conductivity("cote-konrad", w / 100, rho_d, SAND, SAND_TRUE)) * float(rng.normal(1, 0.01))
                 d = _run(k / bias, 2.4e6, NEEDLE, rng, q=4.0, t0_C=20.0)
                 dry.append(_store_run(store, d, NEEDLE, {"sample": f"FB-3 at {w:g} %, {rho_d:.0f} kg/m³",
-                                                         "material": "Fen sand backfill", "moisture_pct": w,
+                                                         "material": "Moor sand backfill", "moisture_pct": w,
                                                          "dry_density_kg_per_m3": rho_d}, factor=factor))
     finally:
         store.close()
@@ -183,19 +177,20 @@ def write_csvs(out: Path = HERE) -> None:
     """The moisture series, a cylinder-mould record and a field run, as CSV files."""
     rng = np.random.default_rng(7)
     out.mkdir(parents=True, exist_ok=True)
-    lines = ["# Invented dry-out series, made-up Fen sand backfill FB-3 (synthetic: Côté-Konrad shape, 1 % noise)",
+    lines = ["# Invented dry-out series, made-up Moor sand backfill FB-3 (synthetic: Côté-Konrad shape, 1 % noise)",
              "moisture_pct,dry_density_kg_per_m3,k_W_per_mK,k_u_W_per_mK"]
     for rho_d in (1600.0, 1750.0):
         for w in (0.3, 0.7, 1.5, 2.5, 4.0, 6.0, 9.0, 13.0, 17.0):
             k = float(conductivity("cote-konrad", w / 100, rho_d, SAND, SAND_TRUE)) * float(rng.normal(1, 0.01))
             lines.append(f"{w},{rho_d:.0f},{k:.4f},{0.015 * k:.4f}")
-    (out / "dryout_fen_sand.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    # cylinder mould: R = 25.4 mm, H = 101.6 mm, heated in a 45 °C bath, then cooled in a 15 °C bath
-    t = np.arange(-60.0, 2400.0, 5.0)
-    steps = cyl.SurfaceSteps(np.array([0.0, 1200.0]), np.array([45.0, 15.0]))
-    centre = cyl.model_centre_C(t, 4.1e-7, 0.0254, 2.0, steps, 18.0, lag_s=8.0) + rng.normal(0, 0.01, t.size)
-    bath = np.where(t < 0, 18.0, np.where(t < 1200, 45.0, 15.0)) + rng.normal(0, 0.02, t.size)
-    rows = ["# Invented surface-step test: FB-3 in a 2-inch mould (R 25.4 mm, H 101.6 mm), synthetic",
+    (out / "dryout_moor_sand.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    # cylinder mould: 70 mm bore, 90 mm high (R = 35 mm, H/D = 1.29), heated in a 45 °C bath, then a 15 °C one
+    t = np.arange(-60.0, 4800.0, 5.0)
+    steps = cyl.SurfaceSteps(np.array([0.0, 2400.0]), np.array([45.0, 15.0]))
+    centre = (cyl.model_centre_C(t, 4.1e-7, MOULD_R_M, MOULD_H_M / (2 * MOULD_R_M), steps, 18.0, lag_s=8.0)
+              + rng.normal(0, 0.01, t.size))
+    bath = np.where(t < 0, 18.0, np.where(t < 2400, 45.0, 15.0)) + rng.normal(0, 0.02, t.size)
+    rows = ["# Invented surface-step test: FB-3 in a 70 mm x 90 mm mould (R 35 mm, H 90 mm), synthetic",
             "time_s,T_centre_C,T_bath_C"]
     rows += [f"{a:.1f},{b:.4f},{c:.3f}" for a, b, c in zip(t, centre, bath, strict=True)]
     (out / "cylinder_mould_FB3.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
@@ -208,6 +203,6 @@ def write_csvs(out: Path = HERE) -> None:
 if __name__ == "__main__":
     dest = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(".")
     dest.mkdir(parents=True, exist_ok=True)
-    ids = build_demo_db(dest / "harrowgate-fen.db")
+    ids = build_demo_db(dest / "examplemoor.db")
     write_csvs()
     print(json.dumps(ids, indent=2))
