@@ -212,9 +212,10 @@ class RunKeeper:
             rig.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
         rig.begin_run_samples()
+        # a pulse has no live line fit and so no "heating can stop" verdict: it heats for its planned time
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=rig.reducer_factory(plan.sensor), cycle=cycle,
-                                 reequilibrate=reequilibrate)
+                                 reducer_factory=None if plan.pulse else rig.reducer_factory(plan.sensor),
+                                 cycle=cycle, reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}
         rig.record_event(run_id, "state", "checking", why, data)

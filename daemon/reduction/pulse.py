@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 from scipy.optimize import least_squares
 
-from .pulse_model import PulseGeometry, axial_factor, sensor_rise
+from .pulse_model import PulseGeometry, sensor_rise
 from .radial import pulse_inverse
 from .stats import ar1_inflation, lag1_autocorrelation
 
@@ -33,6 +33,8 @@ from .stats import ar1_inflation, lag1_autocorrelation
 NEEDLE_C_U_REL = 0.15      # a needle's volumetric heat capacity (steel tube, epoxy, wires: judgement, no source)
 AXIAL_U_FRACTION = 0.3     # of the finite-length correction: exact for a line in a whole space, but where the needles
                            # enter the ground the surface returns heat the model lets escape (judgement, no source)
+CONTACT_U_M2K_PER_W = 1.0 / 3000.0  # a heater's contact resistance when not known: a snug needle in moist granular
+                           # soil (the simulator's default, common practice, no source), taken as one standard u
 AXIAL_MIN = 0.95           # the fit ends where the finite length has taken 5 % of a line pulse's signal (no source)
 MIN_END_PEAK_TIMES = 2.0   # ... but never before two peak times
 # Model-form error of lumped needles in perfect contact against needles resolved as sheath and filler, from the
@@ -251,24 +253,11 @@ def pulse_energy(step_t: np.ndarray, step_dq: np.ndarray) -> tuple[float, float]
     return heat, off
 
 
-def axial_end_s(geometry: PulseGeometry, alpha_m2_per_s: float, minimum: float = AXIAL_MIN) -> float:
-    """Latest t at which the finite heater still delivers ``minimum`` of a line pulse's signal to the sensor."""
-    g = geometry
-    if g.length_m is None or not alpha_m2_per_s > 0:
-        return math.inf
-    r = g.spacing_m
-    tau = np.logspace(-2, 4, 1200)
-    ok = axial_factor(tau, g.length_m / r, None if g.axial_m is None else g.axial_m / r) >= minimum
-    bad = np.nonzero(~ok)[0]
-    if not bad.size:
-        return math.inf
-    return float(tau[max(bad[0] - 1, 0)]) * r * r / alpha_m2_per_s
-
-
 def fit_pulse(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.ndarray, geometry: PulseGeometry,
               *, spacing_u_m: float = 0.0, power_u_rel: float = 0.0, level_u_K: float = 0.0,
               drift_u_K_per_s: float = 0.0, rho_c_fixed: float | None = None, rho_c_fixed_u_rel: float = 0.0,
               heater_C_u_rel: float = NEEDLE_C_U_REL, sensor_C_u_rel: float = NEEDLE_C_U_REL,
+              contact_u_m2K_per_W: float = CONTACT_U_M2K_PER_W,
               model_u_rel: dict[str, float] | None = None, start: tuple[float, float] | None = None,
               t_end_s: float | None = None, noise_K: float | None = None, max_points: int = MAX_POINTS) -> PulseFit:
     """Fit the pulse model to ΔT(t) of a sensor needle (t > 0: rise, peak and decay; baseline already removed).
@@ -313,20 +302,21 @@ def fit_pulse(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.nda
     return _result(prob, res, tf, t_all[t_all <= t_end], y_all[t_all <= t_end], heat, t_off,
                    spacing_u_m=spacing_u_m, power_u_rel=power_u_rel, level_u_K=level_u_K,
                    drift_u_K_per_s=drift_u_K_per_s, rho_c_fixed_u_rel=rho_c_fixed_u_rel,
-                   heater_C_u_rel=heater_C_u_rel, sensor_C_u_rel=sensor_C_u_rel,
+                   heater_C_u_rel=heater_C_u_rel, sensor_C_u_rel=sensor_C_u_rel, contact_u=contact_u_m2K_per_W,
                    model_u=dict(MODEL_U_REL if model_u_rel is None else model_u_rel), noise_K=noise_K)
 
 
 def _window_end(prob: _Problem, x: np.ndarray, t_all: np.ndarray) -> float:
-    """Where the finite length takes 1 − AXIAL_MIN of the signal, not before MIN_END_PEAK_TIMES peak times."""
-    k, rc = prob.props(x)
-    geo = prob.geo_of(x)
-    end = axial_end_s(geo, k / rc)
-    if not math.isfinite(end):
+    """Where the finite length has taken 1 − AXIAL_MIN of the signal, not before MIN_END_PEAK_TIMES peak times."""
+    if prob.geometry.length_m is None:
         return float(t_all[-1])
-    curve = sensor_rise(t_all, prob.step_t, prob.step_dq, k, rc, geo)
-    t_peak = float(t_all[int(np.argmax(curve))])
-    return max(end, MIN_END_PEAK_TIMES * t_peak)
+    with_ends = prob.model(x, t_all)
+    endless = prob.model(x, t_all, axial=False)
+    i_peak = int(np.argmax(with_ends))
+    ratio = with_ends / np.where(endless > 0, endless, 1.0)
+    short = np.nonzero((np.arange(t_all.size) > i_peak) & (ratio < AXIAL_MIN))[0]
+    end = float(t_all[short[0]]) if short.size else float(t_all[-1])
+    return max(end, MIN_END_PEAK_TIMES * float(t_all[i_peak]))
 
 
 class _Problem:
@@ -389,7 +379,7 @@ class _Problem:
 
 def _result(prob: _Problem, res: Any, tf: np.ndarray, t_win: np.ndarray, y_win: np.ndarray, heat: float,
             t_off: float, *, spacing_u_m: float, power_u_rel: float, level_u_K: float, drift_u_K_per_s: float,
-            rho_c_fixed_u_rel: float, heater_C_u_rel: float, sensor_C_u_rel: float,
+            rho_c_fixed_u_rel: float, heater_C_u_rel: float, sensor_C_u_rel: float, contact_u: float,
             model_u: dict[str, float], noise_K: float | None) -> PulseFit:
     """The fit's values, its budget (linearised refits for every input taken as known) and the peak check."""
     x, J, resid = res.x, res.jac, res.fun
@@ -441,6 +431,9 @@ def _result(prob: _Problem, res: Any, tf: np.ndarray, t_win: np.ndarray, y_win: 
     if g0.sensor_C_J_per_m3K and g0.sensor_radius_m and sensor_C_u_rel > 0:
         add("needles", prob.model(x, tf, geo=replace(geo, sensor_C_J_per_m3K=g0.sensor_C_J_per_m3K
                                                      * (1 + sensor_C_u_rel))) - base)
+    if g0.heater_C_J_per_m3K and g0.heater_radius_m and contact_u > 0:
+        add("contact", prob.model(x, tf, geo=replace(geo, heater_contact_m2K_per_W=geo.heater_contact_m2K_per_W
+                                                     + contact_u)) - base)
     if g0.length_m is not None:
         add("axial", (base - prob.model(x, tf, axial=False)) * AXIAL_U_FRACTION)
     quantities = ("k", "alpha", "spacing") if calibrating else QUANTITIES

@@ -5,8 +5,9 @@ solution superposed twice: ΔT = q/(4πk)·[E1(r²/4αt) − E1(r²/4α(t − t0
 capacity, and are a few spacings long. This model keeps the same superposition (over every measured power step,
 Duhamel) but replaces E1 by the step response of
 
-* the heater as a perfectly conducting cylinder of radius a with heat capacity S_h = πa²·C_h per metre (Blackwell
-  1954; Carslaw & Jaeger 1959 §13.7), whose field in the medium at r is B·K0(βr), β = √(s/α);
+* the heater as a perfectly conducting cylinder of radius a with heat capacity S_h = πa²·C_h per metre behind a
+  contact resistance R (Blackwell 1954; Jaeger 1956; Carslaw & Jaeger 1959 §13.7), whose field in the medium at r
+  is B·K0(βr), β = √(s/α). The contact matters only with the heat capacity: it delays the charging of the needle;
 * the sensor needle as a perfectly conducting cylinder of radius b and heat capacity S_s = πb²·C_s, bathed in
   that field. Its monopole response (the field's mean over the needle, to first order in the needle's size) in
   the Laplace domain is θ̄_s = θ̄_inc / [1 + (ζ/α_s)·K0(ζ)/K1(ζ)], ζ = βb, α_s = 2ρc/C_s: from continuity of
@@ -27,7 +28,8 @@ model error in ``pulse``.
 In τ = αt/r², P the Laplace variable of τ, Z = √P, ρ_a = a/r, ρ_b = b/r, α_h = 2ρc/C_h (α_J of the probe model):
 
     L{4πk·ΔT/q per unit step}(P) = 2·K0(Z)·Λ(ρ_b Z) / (P·D(P)),
-    D = (ρ_a²P/α_h)·K0(ρ_a Z) + ρ_a Z·K1(ρ_a Z),   Λ(ζ) = 1/[1 + (ζ/α_s)·K0(ζ)/K1(ζ)],
+    D = (ρ_a²P/α_h)·[K0(ρ_a Z) + h·ρ_a Z·K1(ρ_a Z)] + ρ_a Z·K1(ρ_a Z),   h = kR/a,
+    Λ(ζ) = 1/[1 + (ζ/α_s)·K0(ζ)/K1(ζ)],
 
 which is 2K0(Z)/P, the transform of E1(1/4τ), for thin massless needles. Inversion: Gaver–Stehfest (as the probe
 model) of the monotone step response, tabulated on a log-τ grid and splined; pulses are differences of steps.
@@ -59,6 +61,7 @@ class PulseGeometry:
     sensor_C_J_per_m3K: float | None = None
     length_m: float | None = None
     axial_m: float | None = None
+    heater_contact_m2K_per_W: float = 0.0
 
     def __post_init__(self) -> None:
         if not (self.spacing_m > 0 and math.isfinite(self.spacing_m)):
@@ -84,7 +87,7 @@ class PulseGeometry:
 
 
 def laplace_step(P: np.ndarray, rho_a: float, alpha_h: float | None, rho_b: float,
-                 alpha_s: float | None) -> np.ndarray:
+                 alpha_s: float | None, h: float = 0.0) -> np.ndarray:
     """The transform above for real P > 0 (scaled Bessel functions: finite for any P)."""
     P = np.asarray(P, dtype=float)
     Z = np.sqrt(P)
@@ -92,7 +95,8 @@ def laplace_step(P: np.ndarray, rho_a: float, alpha_h: float | None, rho_b: floa
     if rho_a > 0:
         za = rho_a * Z
         cap = 0.0 if alpha_h is None else rho_a * rho_a * P / alpha_h
-        den = cap * k0e(za) + za * k1e(za)                    # × e^(−ρ_a Z)
+        k1a = k1e(za)
+        den = cap * (k0e(za) + h * za * k1a) + za * k1a       # × e^(−ρ_a Z)
         out = num / den * np.exp(-(1.0 - rho_a) * Z)
     else:
         out = num * np.exp(-Z)
@@ -103,11 +107,11 @@ def laplace_step(P: np.ndarray, rho_a: float, alpha_h: float | None, rho_b: floa
 
 
 def step_response_stehfest(tau: np.ndarray, rho_a: float, alpha_h: float | None, rho_b: float,
-                           alpha_s: float | None) -> np.ndarray:
+                           alpha_s: float | None, h: float = 0.0) -> np.ndarray:
     """4πk·ΔT/q at the sensor for a unit step of power at τ = 0 (Gaver–Stehfest, N = 14)."""
     tau = np.asarray(tau, dtype=float)
     P = np.multiply.outer(LN2 / tau, _K)
-    return (LN2 / tau) * (laplace_step(P, rho_a, alpha_h, rho_b, alpha_s) @ _V)
+    return (LN2 / tau) * (laplace_step(P, rho_a, alpha_h, rho_b, alpha_s, h) @ _V)
 
 
 def axial_factor(tau: np.ndarray, length_over_r: float, axial_over_r: float | None) -> np.ndarray:
@@ -120,7 +124,8 @@ def axial_factor(tau: np.ndarray, length_over_r: float, axial_over_r: float | No
 class StepTable:
     """The sensor's unit-step response G(τ) on a log grid, splined in ln τ; zero before ``TAU_MIN``."""
 
-    def __init__(self, geometry: PulseGeometry, rho_c: float, tau_max: float, *, axial: bool = True) -> None:
+    def __init__(self, geometry: PulseGeometry, k: float, rho_c: float, tau_max: float, *,
+                 axial: bool = True) -> None:
         g = geometry
         r = g.spacing_m
         ah, as_ = g.alpha_ratios(rho_c)
@@ -128,9 +133,10 @@ class StepTable:
         lo = math.floor(math.log10(TAU_MIN) * PER_DECADE)
         self.ln_tau = np.arange(lo, hi + 1) / PER_DECADE * math.log(10.0)
         tau = np.exp(self.ln_tau)
-        thin = g.heater_radius_m == 0 and (as_ is None)
+        thin = g.heater_radius_m == 0 and as_ is None
+        h = k * g.heater_contact_m2K_per_W / g.heater_radius_m if g.heater_radius_m else 0.0
         G = exp1(0.25 / tau) if thin else step_response_stehfest(tau, g.heater_radius_m / r, ah,
-                                                                 g.sensor_radius_m / r, as_)
+                                                                 g.sensor_radius_m / r, as_, h)
         G = np.maximum.accumulate(np.clip(G, 0.0, None))      # a step response never falls: drop inversion ripple
         if axial and g.length_m is not None:
             a_mid = axial_factor(np.sqrt(tau[1:] * tau[:-1]), g.length_m / r,
@@ -158,7 +164,7 @@ def sensor_rise(t: np.ndarray, step_t: np.ndarray, step_dq: np.ndarray, k: float
     per_s = alpha / geometry.spacing_m**2
     age = t[:, None] - np.asarray(step_t, dtype=float)[None, :]
     age = np.where(age > 0, age, 0.0) * per_s
-    table = StepTable(geometry, rho_c, max(float(age.max(initial=0.0)), 1.0), axial=axial)
+    table = StepTable(geometry, k, rho_c, max(float(age.max(initial=0.0)), 1.0), axial=axial)
     return table(age) @ np.asarray(step_dq, dtype=float) / (4.0 * math.pi * k)
 
 
