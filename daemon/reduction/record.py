@@ -1,0 +1,131 @@
+"""What every method sees of one sensor: its samples, the measured power as steps, the baseline and the geometry.
+
+Built once per run (``HeatingRecord``: power steps, superposition regressors, heating span) and once per sensor
+(``SensorRecord``: baseline removed, geometry from the probe profile), so the methods never repeat that work or
+disagree about it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..probe import ProbeProfile
+from .data import ReductionError, RunData
+from .drift import Baseline, fit_baseline, no_baseline
+from .superposition import log_time_regressor, power_steps
+
+MIN_HEATING_SAMPLES = 10
+
+
+@dataclass(frozen=True)
+class Geometry:
+    """Where a sensor sits and what the probe around it is made of (SI; None where the profile does not say)."""
+
+    probe_radius_m: float | None
+    sensor_radius_m: float
+    sensor_radius_u_m: float
+    on_heater: bool
+    axial_m: float | None
+    probe_C_J_per_m3K: float | None
+    length_m: float | None
+    known: bool       # a probe profile was given (r is a measured radius, not a stand-in)
+    in_profile: bool  # the profile names this sensor (else it is taken as inside the heated needle)
+
+    @classmethod
+    def of(cls, probe: ProbeProfile | None, name: str) -> Geometry:
+        if probe is None:
+            return cls(None, 0.0, 0.0, True, None, None, None, False, False)
+        cap, length = probe.heat_capacity_J_per_m3K, probe.length_m
+        if probe.has_sensor(name):
+            s = probe.sensor(name)
+            axial = s.axial_mm * 1e-3 if s.axial_mm is not None else None
+            return cls(probe.radius_m, probe.sensor_radius_m(name), probe.sensor_radius_u_m(name), s.is_on_heater,
+                       axial, cap, length, True, True)
+        return cls(probe.radius_m, probe.radius_m, probe.radius_u_m, True, None, cap, length, True, False)
+
+    @property
+    def line_radius_m(self) -> float | None:
+        """The radius the late-time line's intercept refers to (None without a profile: no intercept α)."""
+        return self.sensor_radius_m if self.known else None
+
+    @property
+    def radial_m(self) -> float:
+        return 0.0 if self.on_heater else self.sensor_radius_m
+
+
+@dataclass(frozen=True)
+class HeatingRecord:
+    """The run's power as steps (Duhamel), its superposition regressors and the heating span, shared by sensors."""
+
+    t: np.ndarray
+    q: np.ndarray
+    steps_t: np.ndarray
+    steps_dq: np.ndarray
+    X: np.ndarray
+    Q: np.ndarray
+    heat: np.ndarray      # heating samples used by every heating fit (t > 0, power on, before switch-off)
+    t_off: float | None   # heater switch-off (None: still heating at the end of the record)
+    heating_s: float
+
+    @classmethod
+    def of(cls, data: RunData) -> HeatingRecord:
+        t = data.time_s
+        _, i1 = data.heating_span()
+        t_off = data.heater_off_s()
+        steps_t, steps_dq = power_steps(t, data.q_W_per_m)
+        X, Q = log_time_regressor(t, steps_t, steps_dq)
+        heat = (t > 0) & (Q > 0) & (np.arange(t.size) < i1)
+        n = int(np.count_nonzero(heat))
+        if n < MIN_HEATING_SAMPLES:
+            raise ReductionError(f"only {n} heating samples; at least {MIN_HEATING_SAMPLES} are needed")
+        heating_s = t_off if t_off is not None else float(t[heat][-1])
+        return cls(t, data.q_W_per_m, steps_t, steps_dq, X, Q, heat, t_off, heating_s)
+
+
+@dataclass(frozen=True)
+class SensorRecord:
+    """One sensor: raw temperatures, ΔT above the baseline, and views of the heating samples for the line fits."""
+
+    name: str
+    run: HeatingRecord
+    probe: ProbeProfile | None
+    T: np.ndarray
+    dT: np.ndarray
+    baseline: Baseline
+    geometry: Geometry
+
+    @classmethod
+    def of(cls, data: RunData, run: HeatingRecord, name: str, probe: ProbeProfile | None) -> SensorRecord:
+        if name not in data.temps_C:
+            raise ReductionError(f"no column T_{name}_C in the run")
+        t, T = run.t, data.temps_C[name]
+        base = t < 0
+        baseline = fit_baseline(t[base], T[base]) if np.any(base) else no_baseline(float(T[run.heat][0]))
+        return cls(name, run, probe, T, T - baseline.at(t), baseline, Geometry.of(probe, name))
+
+    # heating samples, and y = ΔT/Q against u = X/Q (the superposed late-time line; see superposition.py)
+    @property
+    def th(self) -> np.ndarray:
+        return self.run.t[self.run.heat]
+
+    @property
+    def dTh(self) -> np.ndarray:
+        return self.dT[self.run.heat]
+
+    @property
+    def Qh(self) -> np.ndarray:
+        return self.run.Q[self.run.heat]
+
+    @property
+    def u(self) -> np.ndarray:
+        return self.run.X[self.run.heat] / self.Qh
+
+    @property
+    def y(self) -> np.ndarray:
+        return self.dTh / self.Qh
+
+    @property
+    def rise_K(self) -> float:
+        return float(np.max(self.dTh))
