@@ -198,3 +198,53 @@ def test_checks_fire_when_a_bath_wall_shapes_the_decay(seed: int) -> None:
     fit = fit_pulse(t, y + 0.01 * np.random.default_rng(seed + 1).standard_normal(t.size), *PULSE,
                     PulseGeometry(R, A, NEEDLE_C), spacing_u_m=0.08e-3, noise_K=0.01)
     assert not {"pulse_peak_disagree", "residual_trend"} & set(fit.flags)
+
+
+def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None) -> tuple[object, object]:
+    """A pulse on the simulated dual needle ((r, z) finite volumes, heater contact, lagging sensing needle), as
+    the reduction gets it: baseline, the profile's [pulse] plan, the decay; 10 mK noise, 1 Hz."""
+    from pathlib import Path
+
+    from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.reduction.data import RunData
+    from linerig.daemon.sim.main import bent
+    from linerig.daemon.sim.materials import get_material
+    from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
+
+    profile = load_probe_profile(Path(__file__).resolve().parent.parent / "hardware" / "probes" / "dual-needle.toml")
+    assert profile.pulse is not None
+    spec = ProbeSpec.from_profile(profile)
+    if bend_mm is not None:
+        spec = bent(spec, [f"needle8={bend_mm}"])
+    rig = SimulatedRig(get_material(material), spec, seed=seed)
+    p = profile.pulse
+    ts, qs, rows = [], [], []
+    for i in range(-120, int(p.record_s)):
+        if i == 0:
+            rig.set_heater(True, p.power_W_per_m)
+        if i == int(p.pulse_s):
+            rig.set_heater(False)
+        s = rig.sample()
+        ts.append(float(i))
+        qs.append(s.delivered_W_per_m)
+        rows.append([c.temp_C for c in s.channels])
+        rig.advance(1.0)
+    temps = np.array(rows)
+    return RunData(np.array(ts), np.array(qs), {"heater": temps[:, 0], "needle8": temps[:, 1]}), profile
+
+
+def test_reduce_run_reads_a_simulated_pulse_with_uncertainty_that_covers() -> None:
+    from linerig.daemon.reduction.api import reduce_run
+    from linerig.daemon.sim.materials import get_material
+
+    data, profile = _simulated_pulse_run("moist-clay", 3)
+    res = reduce_run(data, profile).sensors["needle8"]  # type: ignore[arg-type]
+    mat = get_material("moist-clay")
+    assert res.method == "pulse" and res.stable_at_s is None and not res.flags
+    for got, u, true in ((res.k_W_per_mK, res.k_u_W_per_mK, mat.k_W_per_mK),
+                         (res.alpha_m2_per_s, res.alpha_u_m2_per_s, mat.diffusivity_m2_per_s),
+                         (res.rho_c_J_per_m3K, res.rho_c_u_J_per_m3K, mat.rho_c_J_per_m3K)):
+        assert got is not None and u is not None
+        assert abs(got - true) < 2 * u and abs(got / true - 1) < 0.05
+    j = res.to_json()
+    assert j["pulse_check"] is not None and j["pulse_fit"]["budget"]["rho_c"]["spacing"] > 0  # type: ignore[index]

@@ -11,6 +11,7 @@ See METHODS.md for the methods, the window rule, the budget and what each flag m
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 from ..probe import ProbeProfile
 from .data import ReductionError, RunData
@@ -47,11 +48,17 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
 
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
-    """Methods, then the selector, then the live verdict replayed on the same record."""
+    """Methods, then the selector, then the live verdict replayed on the same record (never for a pulse: a pulse
+    heats for its planned time and has no stop verdict)."""
+    asked_pulse = opts.method == "pulse" and rec.geometry.on_heater
+    if asked_pulse:  # the pulse is read at radial sensors; the heated needle's own record by the usual rule
+        opts = replace(opts, method="auto")
     found = run_methods(rec, opts)
     chosen, reason = choose(rec, opts, found)
     res = sensor_result(rec, opts, found, chosen, reason)
-    res.stable_at_s = stable_at(rec, opts) if opts.stable_rule else None
+    if asked_pulse:
+        res.notes.append("the pulse method reads radial sensors: this heater sensor was reduced by auto")
+    res.stable_at_s = stable_at(rec, opts) if opts.stable_rule and chosen.name != "pulse" else None
     return res
 
 

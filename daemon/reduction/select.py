@@ -21,7 +21,7 @@ from .methods import (
     MethodResult,
     Options,
     ProbeModelMethod,
-    PulseCheckMethod,
+    PulseMethod,
     RadialMethod,
     RecoveryMethod,
     combine,
@@ -29,13 +29,13 @@ from .methods import (
 from .record import SensorRecord
 from .result import SensorResult
 
-METHODS = ("auto", "line", "model", "radial")
+METHODS = ("auto", "line", "model", "radial", "pulse")
 
 # The methods tried for a sensor in the heater and for one in the medium, in the order they run (a later method
 # may start from an earlier one's answer: the line's window from the probe model, the recovery from both).
 HEATER_METHODS: tuple[Method, ...] = (ProbeModelMethod(), LineMethod(), RecoveryMethod(), JointMethod())
-RADIAL_METHODS: tuple[Method, ...] = (RadialMethod(), LineMethod(), PulseCheckMethod())
-AUTO_ORDER = {"heater": ("line", "model"), "radial": ("radial",)}
+RADIAL_METHODS: tuple[Method, ...] = (RadialMethod(), LineMethod(), PulseMethod())
+AUTO_ORDER = {"heater": ("line", "model"), "radial": ("pulse", "radial")}
 BLOCKING = frozenset({"window_short", "residual_trend"})  # a result so flagged yields to the next under auto
 
 HEAT_COOL_REL = 0.03   # heating and recovery k differ by > 3 % and > 2 combined u: heat_cool_disagree (no source)
@@ -81,6 +81,8 @@ def choose(rec: SensorRecord, opts: Options, found: Found) -> tuple[MethodResult
                              + (f" ({got.why})" if got and got.why else ""))
     if want == "radial":
         return got, _radial_reason(rec)
+    if want == "pulse":
+        return got, _pulse_reason(rec, got)
     return got, f"method {want} requested" + (f" ({got.why})" if want == "line" else "")
 
 
@@ -88,10 +90,17 @@ def _radial_reason(rec: SensorRecord) -> str:
     return f"sensor {rec.geometry.sensor_radius_m * 1e3:.3g} mm from the heater: response fitted for k and α"
 
 
+def _pulse_reason(rec: SensorRecord, pick: MethodResult) -> str:
+    return (f"heat pulse read {rec.geometry.sensor_radius_m * 1e3:.4g} mm from the heater: the pulse model fitted "
+            f"over rise, peak and decay for k, α and ρc ({pick.why})")
+
+
 def _auto_reason(rec: SensorRecord, pick: MethodResult, found: Found) -> str:
     line = found.converged("line")
     if pick.name == "radial":
         return _radial_reason(rec)
+    if pick.name == "pulse":
+        return _pulse_reason(rec, pick)
     if pick.name == "line":
         return f"late-time line: straight part of ΔT vs ln t ({pick.why})"
     if pick.name == "model" and line is not None:
@@ -128,10 +137,18 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
     budget = {"statistical": chosen.k.budget.get("statistical", 0.0),
               "drift": chosen.k.budget.get("drift", lf.drift_u_rel if lf is not None else 0.0),
               "power": opts.power_u_rel, "calibration": cal_u / cal}
+    if chosen.rho_c is not None:
+        # a method that fits ρc itself (the pulse) brings every term, power included. The probe factor calibrates
+        # the heated needle's own reading, not a pulse read at a spacing; the spacing calibration (in the
+        # geometry) is its counterpart.
+        cal, cal_u = 1.0, 0.0
+        res.calibration_factor = 1.0
+        budget = dict(chosen.k.budget)
     rel = combine(budget)
     res.u_budget_rel = budget
     res.k_raw_W_per_mK = k_raw
-    res.k_raw_u_W_per_mK = k_raw * math.hypot(budget["statistical"], budget["drift"], budget["power"])
+    res.k_raw_u_W_per_mK = k_raw * math.hypot(budget["statistical"], budget.get("drift", 0.0),
+                                              budget.get("power", 0.0))
     res.k_W_per_mK = k_raw * cal
     res.k_u_W_per_mK = res.k_W_per_mK * rel
     res.window_s, res.residual_rms_K, res.n_used = chosen.window_s, chosen.residual_rms_K, chosen.n_used
@@ -144,10 +161,14 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
         alpha = model.alpha
     elif line is not None and line.alpha is not None:
         alpha = line.alpha
+    if chosen.rho_c is not None:
+        alpha = chosen.alpha
     if alpha is not None:
         res.alpha_m2_per_s, res.alpha_u_m2_per_s, res.alpha_source = alpha.value, alpha.u, alpha.source
         res.rho_c_J_per_m3K = res.k_W_per_mK / alpha.value
         res.rho_c_u_J_per_m3K = res.rho_c_J_per_m3K * math.hypot(rel, alpha.u_rel)
+        if chosen.rho_c is not None:  # k, α and ρc of one fit are correlated: its own ρc budget
+            res.rho_c_J_per_m3K, res.rho_c_u_J_per_m3K = chosen.rho_c.value, chosen.rho_c.u
         if opts.bulk_density_kg_per_m3 is not None:
             res.specific_heat_J_per_kgK = units.specific_heat_J_per_kgK(res.rho_c_J_per_m3K,
                                                                         opts.bulk_density_kg_per_m3)
@@ -194,7 +215,7 @@ def _flags(rec: SensorRecord, opts: Options, found: Found, chosen: MethodResult,
         flags.append("contact_resistance_high")
     recovery = found.converged("recovery")
     if recovery is not None and heat_cool_disagree(recovery.fit, chosen.k.value if chosen.k else math.nan,
-                                                   budget["statistical"], budget["drift"],
+                                                   budget["statistical"], budget.get("drift", 0.0),
                                                    line.fit if line is not None else None,
                                                    rec.baseline.rate_u_K_per_s):
         flags.append("heat_cool_disagree")

@@ -53,6 +53,7 @@ class MethodResult:
     flags: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     fit: Any = None            # the underlying fit object (LateTimeFit, ModelFit, CoolingFit …) for plots
+    rho_c: Estimate | None = None  # a method that fits ρc itself (pulse): with its own budget, not k/α's
 
 
 @dataclass(frozen=True)
