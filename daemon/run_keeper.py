@@ -21,8 +21,10 @@ import numpy as np
 from linerig.daemon import sdnotify
 from linerig.daemon.api import Peer, RequestError
 from linerig.daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
+from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.reduction.alignment import power_held_from_each_sample
 from linerig.daemon.safety import check_plan
+from linerig.daemon.store.spacings import apply_spacings, spacing_history
 from linerig.daemon.store.writer import StoreError, utc_now
 from linerig.daemon.threads import in_daemon_thread
 
@@ -92,6 +94,7 @@ class RunKeeper:
         self.rig = rig
         self.run: RunController | None = None
         self.series: Series | None = None
+        self.run_probe: dict[int, ProbeProfile] = {}  # the probe as each run reduces it (calibrated spacings)
 
     # -- requests -----------------------------------------------------------
     def make_plan(self, preset: str | None, changes: dict[str, Any]) -> RunPlan:
@@ -212,6 +215,7 @@ class RunKeeper:
             rig.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
         rig.begin_run_samples()
+        self._apply_spacings(run_id)
         # a pulse has no live line fit and so no "heating can stop" verdict: it heats for its planned time
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
                                  reducer_factory=None if plan.pulse else rig.reducer_factory(plan.sensor),
@@ -223,6 +227,28 @@ class RunKeeper:
                          "device_s": rig.device_s, **self._cycle_fields(cycle)})
         sdnotify.notify(f"STATUS=run {run_id} checking")
         return run_id
+
+    def _apply_spacings(self, run_id: int) -> None:
+        """The probe this run is reduced with: each radial sensor at its latest accepted spacing calibration (a
+        dual needle's spacing sets its ρc as 1/r²), recorded as an event."""
+        rig = self.rig
+        probe = rig.s.probe
+        try:
+            history = spacing_history(rig.store.reader, probe.serial)
+        except Exception as exc:  # sqlite3 errors: the nominal spacing is still a result, say why
+            log.warning("spacing calibrations not read: %s", exc)
+            history = []
+        probe, used = apply_spacings(probe, history, None)
+        self.run_probe[run_id] = probe
+        for old in sorted(self.run_probe)[:-4]:  # a finishing cycle still reduces while the next one opens
+            del self.run_probe[old]
+        for st in used:
+            rig.record_event(run_id, "calibration", None, f"spacing calibration applied: {st.message}",
+                             {"calibration_id": st.calibration_id, "spacing_m": st.spacing_m,
+                              "spacing_u_m": st.spacing_u_m, "state": st.state})
+
+    def probe_for(self, run_id: int) -> ProbeProfile:
+        return self.run_probe.get(run_id, self.rig.s.probe)
 
     def _cycle_fields(self, cycle: int) -> dict[str, Any]:
         s = self.series
@@ -246,7 +272,7 @@ class RunKeeper:
         data = RunData(time_s=t, q_W_per_m=q, temps_C=usable)
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
-        red = await in_daemon_thread(reduce_run, data, rig.s.probe, max_rise_K=rig.s.limits.max_rise_K)
+        red = await in_daemon_thread(reduce_run, data, self.probe_for(run.run_id), max_rise_K=rig.s.limits.max_rise_K)
         out = {}
         for name, res in red.sensors.items():
             j = res.to_json()

@@ -200,7 +200,9 @@ def test_checks_fire_when_a_bath_wall_shapes_the_decay(seed: int) -> None:
     assert not {"pulse_peak_disagree", "residual_trend"} & set(fit.flags)
 
 
-def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None) -> tuple[object, object]:
+def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None, *,
+                         power_W_per_m: float | None = None, pulse_s: int | None = None,
+                         record_s: int | None = None) -> tuple[object, object]:
     """A pulse on the simulated dual needle ((r, z) finite volumes, heater contact, lagging sensing needle), as
     the reduction gets it: baseline, the profile's [pulse] plan, the decay; 10 mK noise, 1 Hz."""
     from pathlib import Path
@@ -218,11 +220,13 @@ def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None)
         spec = bent(spec, [f"needle8={bend_mm}"])
     rig = SimulatedRig(get_material(material), spec, seed=seed)
     p = profile.pulse
+    q = power_W_per_m or p.power_W_per_m
+    on = pulse_s or int(p.pulse_s)
     ts, qs, rows = [], [], []
-    for i in range(-120, int(p.record_s)):
+    for i in range(-120, record_s or int(p.record_s)):
         if i == 0:
-            rig.set_heater(True, p.power_W_per_m)
-        if i == int(p.pulse_s):
+            rig.set_heater(True, q)
+        if i == on:
             rig.set_heater(False)
         s = rig.sample()
         ts.append(float(i))

@@ -55,7 +55,7 @@ def test_the_simulated_dual_needle_sees_the_ends_of_its_heater() -> None:
     endless = sensor_rise(t, np.array([0.0, 50.0]), np.array([20.0, -20.0]), mat.k_W_per_mK, mat.rho_c_J_per_m3K,
                           g, axial=False)
     peak = float(np.max(model))
-    assert np.max(np.abs(sim - model)) < 0.003 * peak      # finite volumes on an 80-ring grid against the model
+    assert np.max(np.abs(sim - model)) < 0.005 * peak      # finite volumes on a 60-ring grid against the model
     assert np.max(np.abs(sim - endless)) > 0.04 * peak     # the ends matter: 4 % of the peak and more
 
 

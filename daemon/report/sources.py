@@ -22,6 +22,7 @@ from linerig.daemon.probe import ProbeProfile, stored_profile
 from linerig.daemon.reduction.api import RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.store.queries import run_arrays, run_detail
+from linerig.daemon.store.spacings import apply_spacings, spacing_history
 from linerig.daemon.workflows.calibration import CalibrationOutcome, CalibrationStatus, calibration_status
 from linerig.daemon.workflows.cycles import split_cycles
 
@@ -133,6 +134,9 @@ def load_run(db: sqlite_utils.Database, run_id: int) -> RunRecord:
             data = None
         phase = list(arr["phase"])
     probe = probe_profiles(db).get(str(detail.get("probe_serial") or ""))
+    if probe is not None:  # a dual needle's radial sensors at the spacing calibrated when the run was made
+        probe, _ = apply_spacings(probe, spacing_history(db, str(detail.get("probe_serial") or "")),
+                                  detail.get("created_utc"))
     return RunRecord(run_id, detail, data, probe, calibration_history(db, str(detail.get("probe_serial") or "")),
                      phase)
 

@@ -66,7 +66,8 @@ _RIG_FAULTS = ("cj_fault", "heater_open", "heater_short", "heater_drift", "batte
 DRY_OUT_K_FRACTION = 0.35
 """Conductivity left in the dried zone: partly dried sand keeps roughly a third of its moist k (de Vries 1963
 gives 0.24-0.29 dry against 2.1 at theta 0.2; partial drying sits in between; no source for the exact value)."""
-DUAL_OUTER_RADIUS_M = 0.25
+DUAL_OUTER_RADIUS_M = 0.2
+DUAL_GRID = {"n_radial": 60, "n_axial_heater": 12, "n_axial_beyond": 16}
 DRY_OUT_TIME_S = 300.0
 """The dried zone's radius grows as a·(1 + √(t_heating/DRY_OUT_TIME_S)): 3a after 20 minutes (no source)."""
 
@@ -426,8 +427,9 @@ class SimulatedRig:
     ) -> RadialModel | AxialRadialModel:
         p = self.probe
         if self._axial:
-            # a dual probe is read millimetres away: a finer radial grid out to 0.25 m (heat needs ~2 h to get
-            # there in wet soil) resolves the pulse at the sensing needle to ~1 mK (tests/test_sim_pulse.py)
+            # a dual probe is read millimetres away: a finer radial grid out to 0.2 m (heat needs over an hour to
+            # get there in wet soil) resolves a pulse at the sensing needle to 0.3 % of its peak at half the cost of
+            # a finer one (tests/test_sim_pulse.py)
             fine = p.kind == "dual"
             outer = sample_radius_m if sample_radius_m is not None or not fine else DUAL_OUTER_RADIUS_M
             half = 0.5 * sample_height_m if sample_height_m is not None else (
@@ -435,7 +437,7 @@ class SimulatedRig:
             return AxialRadialModel(
                 mat.k_W_per_mK, mat.rho_c_J_per_m3K, p.radius_m, p.probe_rho_c, p.heater_length_m,
                 contact_conductance=p.contact_conductance, outer_radius_m=outer, outer_half_height_m=half,
-                boundary=boundary, **({"n_radial": 80} if fine else {}),
+                boundary=boundary, **(DUAL_GRID if fine else {}),
             )
         return RadialModel(
             mat.k_W_per_mK, mat.rho_c_J_per_m3K, p.radius_m, p.probe_rho_c,

@@ -3,6 +3,7 @@
     linerig calibrate --probe SERIAL --reference water --run RUN_ID [--run RUN_ID ...] [--bath-C T]
     linerig calibrate --probe SERIAL --reference glycerol --csv FILE.csv [--probe-profile PROFILE.toml]
     linerig calibrate --probe SERIAL --history
+    linerig calibrate --probe SERIAL --spacing SENSOR --reference agar-water --run RUN_ID   (calibrate_spacing.py)
 
 The runs are reduced without any factor (the factor must come from the raw probe reading). The bath
 temperature defaults to the mean baseline temperature of the runs. Every calibration is stored, rejected ones
@@ -24,6 +25,7 @@ from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.report.cli import add_db_option, db_path, fail
 from linerig.daemon.report.sources import SourceError, calibration_history, load_run, open_db, record_calibration
 from linerig.daemon.runcsv import RunCsvError, read_run_csv
+from linerig.daemon.store.spacings import spacing_history
 from linerig.daemon.workflows.calibration import (
     FACTOR_LIMITS,
     MAX_FACTOR_U_REL,
@@ -36,6 +38,8 @@ from linerig.daemon.workflows.calibration import (
     evaluate_calibration,
     reference_value,
 )
+from linerig.tui.commands.calibrate_spacing import print_history as print_spacing_history
+from linerig.tui.commands.calibrate_spacing import run_spacing
 
 CMD = "calibrate"
 
@@ -56,6 +60,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
                    help="probe profile for CSV runs (default: the one stored with the probe)")
     p.add_argument("--bath-C", type=float, metavar="T", help="bath temperature (default: mean baseline of the runs)")
     p.add_argument("--sensor", default=None, help="sensor to calibrate (default: the first on the heater)")
+    p.add_argument("--spacing", metavar="SENSOR",
+                   help="calibrate the spacing of this radial sensor from heat pulses in water or agar-gelled water "
+                        "(ρc known from IAPWS-95) instead of the probe factor")
     add_db_option(p)
     p.add_argument("--dry-run", action="store_true", help="evaluate but do not store")
     p.add_argument("--history", action="store_true", help="show the probe's calibrations and exit")
@@ -105,11 +112,17 @@ def run(args: argparse.Namespace) -> int:
         return fail(CMD, str(e))
     hist = calibration_history(db, args.probe)
     if args.history:
+        spacings = spacing_history(db, args.probe)
         if args.json:
-            print(json.dumps(hist, indent=2))
+            print(json.dumps({"factor": hist, "spacing": spacings} if spacings else hist, indent=2))
         else:
             _print_history(args.probe, hist)
+            print_spacing_history(args.probe, spacings)
         return 0
+    if args.spacing:
+        if not args.reference:
+            return fail(CMD, "give --reference agar-water (or water): the spacing needs a medium of known ρc")
+        return run_spacing(args, db)
     if not args.reference:
         return fail(CMD, f"give --reference ({', '.join(MEDIA)})")
     if not args.run and not args.csv:

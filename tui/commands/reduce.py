@@ -31,7 +31,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("--probe-heat-capacity", metavar="MJ_PER_M3K", type=float,
                    help="volumetric heat capacity of the needle (overrides the profile)")
     p.add_argument("--spacing", metavar="SENSOR=MM", action="append", default=[],
-                   help="radial distance of a sensor from the heater axis (repeatable)")
+                   help="radial distance of a sensor from the heater axis (repeatable); a dual needle's calibrated "
+                        "spacing (linerig calibrate --spacing) goes here")
+    p.add_argument("--spacing-u", metavar="SENSOR=MM", action="append", default=[],
+                   help="standard uncertainty of a sensor's spacing (default: the profile's radial_u_mm, else 1 %%)")
     p.add_argument("--calibration-factor", metavar="F", type=float, default=1.0, help="probe factor to apply")
     p.add_argument("--calibration-factor-u", metavar="U", type=float, default=0.0,
                    help="standard uncertainty of the probe factor")
@@ -76,6 +79,19 @@ def build_probe(args: argparse.Namespace) -> ProbeProfile | None:
         if probe is None:
             raise ProbeProfileError("--spacing needs --radius-mm or --probe (the heater radius)")
         probe = probe.with_sensor(name, dist)
+    for item in args.spacing_u:
+        name, sep, mm = item.partition("=")
+        try:
+            u = float(mm)
+        except ValueError:
+            u = math.nan
+        if not sep or not name or not (math.isfinite(u) and u >= 0):
+            raise ProbeProfileError(f"--spacing-u {item!r}: expected SENSOR=MM with MM >= 0, e.g. --spacing-u "
+                                    "needle8=0.03")
+        if probe is None or not probe.has_sensor(name) or probe.sensor(name).is_on_heater:
+            raise ProbeProfileError(f"--spacing-u {item!r}: {name!r} is not a radial sensor of the probe (give "
+                                    "--probe or --spacing for it)")
+        probe = probe.with_sensor(name, probe.sensor(name).radial_mm, u)
     return probe
 
 

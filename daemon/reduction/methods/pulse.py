@@ -78,3 +78,20 @@ def _result(name: str, rec: SensorRecord, fit: PulseFit) -> MethodResult:
     return MethodResult(name, est["k"], est["alpha"], window_s=fit.window_s, residual_rms_K=fit.resid_rms_K,
                         n_used=fit.n, q_mean_W_per_m=q_mean, flags=list(fit.flags), notes=notes, fit=fit,
                         rho_c=est["rho_c"], why=f"pulse model over {fit.window_s[0]:.0f}–{fit.window_s[1]:.0f} s")
+
+
+def spacing_fit(rec: SensorRecord, rho_c: float, rho_c_u_rel: float, power_u_rel: float) -> PulseFit:
+    """The effective spacing of a radial sensor from a pulse in a medium of known ρc (spacing calibration)."""
+    if rec.geometry.on_heater:
+        raise PulseFitError(f"sensor {rec.name!r} is in the heated needle: a spacing is calibrated at a radial sensor")
+    if not is_pulse_record(rec):
+        raise PulseFitError("no decay to read: the heater must go off and the record run on for at least the heating "
+                            f"time and {MIN_DECAY_SAMPLES} samples")
+    geo = pulse_geometry(rec) or PulseGeometry(rec.geometry.sensor_radius_m)
+    b = rec.baseline
+    fit = fit_pulse(rec.run.t, rec.dT, rec.run.steps_t, rec.run.steps_dq, geo, power_u_rel=power_u_rel,
+                    level_u_K=b.offset_u_K, drift_u_K_per_s=b.rate_u_K_per_s,
+                    noise_K=b.resid_rms_K if b.present else None, rho_c_fixed=rho_c, rho_c_fixed_u_rel=rho_c_u_rel)
+    if not fit.success:
+        raise PulseFitError(f"the spacing fit did not converge ({fit.message})")
+    return fit
