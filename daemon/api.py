@@ -77,7 +77,7 @@ def encode(obj: dict[str, Any]) -> bytes:
     return (text + "\n").encode()
 
 
-LOSSY_EVENTS = frozenset({"sample", "estimate", "committed"})  # superseded by the next one of their kind
+LOSSY_EVENTS = frozenset({"sample", "estimate", "committed", "pulse_fit"})  # superseded by the next one of their kind
 MAX_KEPT = 10_000  # state changes, faults... held for one subscriber; past this it is too far behind and is cut off
 
 

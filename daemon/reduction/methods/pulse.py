@@ -11,9 +11,12 @@ import math
 
 import numpy as np
 
+from ...probe import ProbeProfile
+from ..data import RunData
+from ..live import DEFAULT_POWER_U_REL
 from ..pulse import PulseFit, PulseFitError, fit_pulse
 from ..pulse_model import PulseGeometry
-from ..record import SensorRecord
+from ..record import HeatingRecord, SensorRecord
 from .base import Estimate, Found, MethodResult, Options
 
 MIN_DECAY_SAMPLES = 10
@@ -95,3 +98,25 @@ def spacing_fit(rec: SensorRecord, rho_c: float, rho_c_u_rel: float, power_u_rel
     if not fit.success:
         raise PulseFitError(f"the spacing fit did not converge ({fit.message})")
     return fit
+
+
+def live_pulse_fit(data: RunData, probe: ProbeProfile | None, sensor: str,
+                   power_u_rel: float = DEFAULT_POWER_U_REL) -> PulseFit:
+    """The pulse fit on a record still being made (after switch-off, before the decay is as long as the pulse):
+    the same fit as the final reduction's, without waiting for the record to qualify as a pulse record."""
+    rec = SensorRecord.of(data, HeatingRecord.of(data), sensor, probe)
+    if rec.geometry.on_heater:
+        raise PulseFitError(f"sensor {sensor!r} is in the heated needle: a pulse is read at a radial sensor")
+    if rec.run.t_off is None or np.count_nonzero(rec.run.t > rec.run.t_off) < MIN_DECAY_SAMPLES:
+        raise PulseFitError("the pulse is not over yet")
+    geo = pulse_geometry(rec) or PulseGeometry(rec.geometry.sensor_radius_m)
+    b = rec.baseline
+    return fit_pulse(rec.run.t, rec.dT, rec.run.steps_t, rec.run.steps_dq, geo,
+                     spacing_u_m=rec.geometry.sensor_radius_u_m, power_u_rel=power_u_rel, level_u_K=b.offset_u_K,
+                     drift_u_K_per_s=b.rate_u_K_per_s, noise_K=b.resid_rms_K if b.present else None)
+
+
+def curve_points(fit: PulseFit, t_end_s: float, n: int = 120) -> dict[str, list[float]]:
+    """The fitted ΔT on an even grid from heater on to ``t_end_s``, for plotting (JSON-ready)."""
+    t = np.linspace(0.0, max(t_end_s, 1.0), n)
+    return {"t_s": [float(x) for x in t], "dT_K": [float(y) for y in fit.curve(t)]}
