@@ -111,6 +111,7 @@ class PulseFit:
     flags: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     calibrating: bool = False
+    drift_K_per_s: float | None = None   # the slope fitted jointly with the pulse (relative to the baseline's)
     step_t: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
     step_dq: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
 
@@ -133,6 +134,7 @@ class PulseFit:
                 "budget": {q: dict(b) for q, b in self.budget.items()}, "spacing_mm": self.spacing_m * 1e3,
                 "spacing_u_mm": self.spacing_u_m * 1e3, "resid_rms_K": self.resid_rms_K, "n": self.n,
                 "window_s": list(self.window_s), "peak_check": self.peak.to_dict() if self.peak else None,
+                "drift_fitted_K_per_h": None if self.drift_K_per_s is None else self.drift_K_per_s * 3600.0,
                 "flags": list(self.flags)}
 
 
@@ -259,8 +261,12 @@ def fit_pulse(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.nda
               heater_C_u_rel: float = NEEDLE_C_U_REL, sensor_C_u_rel: float = NEEDLE_C_U_REL,
               contact_u_m2K_per_W: float = CONTACT_U_M2K_PER_W,
               model_u_rel: dict[str, float] | None = None, start: tuple[float, float] | None = None,
-              t_end_s: float | None = None, noise_K: float | None = None, max_points: int = MAX_POINTS) -> PulseFit:
-    """Fit the pulse model to ΔT(t) of a sensor needle (t > 0: rise, peak and decay; baseline already removed).
+              t_end_s: float | None = None, noise_K: float | None = None, fit_drift: bool = True,
+              max_points: int = MAX_POINTS) -> PulseFit:
+    """Fit the pulse model to ΔT(t) of a sensor needle: rise, peak and decay (t > 0), and with ``fit_drift`` the
+    baseline (t ≤ 0) too, with a straight line c0 + c1·t fitted jointly — the decay is long and small, so a drift
+    left from a short baseline (or a slow wander taken for one) would otherwise lean on k; fitted, its uncertainty
+    is in the covariance and ``level_u_K``/``drift_u_K_per_s`` are not used.
 
     The fit runs to the end of the record, or earlier where the heater's finite length has taken more than
     1 − ``AXIAL_MIN`` of the signal (never before two peak times); ``t_end_s`` overrides that.
@@ -271,17 +277,19 @@ def fit_pulse(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.nda
     """
     t = np.asarray(t, dtype=float)
     dT = np.asarray(dT, dtype=float)
-    sel = (t > 0) & np.isfinite(dT)
-    if np.count_nonzero(sel) < 10:
-        raise PulseFitError(f"only {np.count_nonzero(sel)} samples after the heater came on; at least 10 are needed")
+    pos = (t > 0) & np.isfinite(dT)
+    if np.count_nonzero(pos) < 10:
+        raise PulseFitError(f"only {np.count_nonzero(pos)} samples after the heater came on; at least 10 are needed")
     step_t = np.asarray(step_t, dtype=float)
     step_dq = np.asarray(step_dq, dtype=float)
     if step_t.size == 0:
         raise PulseFitError("no heating: the power column never rises above 0")
+    drift = fit_drift and np.count_nonzero((t <= 0) & np.isfinite(dT)) >= 5
+    sel = np.isfinite(dT) if drift else pos
     t_all, y_all = t[sel], dT[sel]
     heat, t_off = pulse_energy(step_t, step_dq)
-    prob = _Problem(step_t, step_dq, geometry, rho_c_fixed)
-    x = prob.start(t_all, y_all, heat, t_off, start)
+    prob = _Problem(step_t, step_dq, geometry, rho_c_fixed, float(t_all[-1]) if drift else None)
+    x = prob.start(t[pos], dT[pos], heat, t_off, start)
     t_end = float(t_all[-1]) if t_end_s is None else min(float(t_end_s), float(t_all[-1]))
     res = None
     for _ in range(4):
@@ -299,9 +307,10 @@ def fit_pulse(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.nda
             break
         t_end = min(new_end, float(t_all[-1]))
     assert res is not None
-    return _result(prob, res, tf, t_all[t_all <= t_end], y_all[t_all <= t_end], heat, t_off,
-                   spacing_u_m=spacing_u_m, power_u_rel=power_u_rel, level_u_K=level_u_K,
-                   drift_u_K_per_s=drift_u_K_per_s, rho_c_fixed_u_rel=rho_c_fixed_u_rel,
+    win = (t_all > 0) & (t_all <= t_end)
+    return _result(prob, res, tf, t_all[win], y_all[win], heat, t_off,
+                   spacing_u_m=spacing_u_m, power_u_rel=power_u_rel, level_u_K=0.0 if drift else level_u_K,
+                   drift_u_K_per_s=0.0 if drift else drift_u_K_per_s, rho_c_fixed_u_rel=rho_c_fixed_u_rel,
                    heater_C_u_rel=heater_C_u_rel, sensor_C_u_rel=sensor_C_u_rel, contact_u=contact_u_m2K_per_W,
                    model_u=dict(MODEL_U_REL if model_u_rel is None else model_u_rel), noise_K=noise_K)
 
@@ -310,8 +319,8 @@ def _window_end(prob: _Problem, x: np.ndarray, t_all: np.ndarray) -> float:
     """Where the finite length has taken 1 − AXIAL_MIN of the signal, not before MIN_END_PEAK_TIMES peak times."""
     if prob.geometry.length_m is None:
         return float(t_all[-1])
-    with_ends = prob.model(x, t_all)
-    endless = prob.model(x, t_all, axial=False)
+    with_ends = prob.pulse(x, t_all)
+    endless = prob.pulse(x, t_all, axial=False)
     i_peak = int(np.argmax(with_ends))
     ratio = with_ends / np.where(endless > 0, endless, 1.0)
     short = np.nonzero((np.arange(t_all.size) > i_peak) & (ratio < AXIAL_MIN))[0]
@@ -320,11 +329,13 @@ def _window_end(prob: _Problem, x: np.ndarray, t_all: np.ndarray) -> float:
 
 
 class _Problem:
-    """The parameter vector and the model: (ln α, ln ρc), or (ln α, ln r) when ρc is known (calibration)."""
+    """The parameter vector and the model: (ln α, ln ρc), or (ln α, ln r) when ρc is known (calibration), then
+    with a fitted drift the level c0 (K) and the slope as its change c1·T over the record's length T (K)."""
 
     def __init__(self, step_t: np.ndarray, step_dq: np.ndarray, geometry: PulseGeometry,
-                 rho_c_fixed: float | None) -> None:
+                 rho_c_fixed: float | None, drift_span_s: float | None = None) -> None:
         self.step_t, self.step_dq, self.geometry, self.rho_c_fixed = step_t, step_dq, geometry, rho_c_fixed
+        self.drift_span_s = drift_span_s
 
     @property
     def calibrating(self) -> bool:
@@ -338,10 +349,20 @@ class _Problem:
         rc = self.rho_c_fixed if self.rho_c_fixed is not None else math.exp(x[1])
         return math.exp(x[0]) * rc, rc
 
-    def model(self, x: np.ndarray, t: np.ndarray, geo: PulseGeometry | None = None, axial: bool = True
+    def pulse(self, x: np.ndarray, t: np.ndarray, geo: PulseGeometry | None = None, axial: bool = True
               ) -> np.ndarray:
+        """The pulse's rise at the sensor (no drift)."""
         k, rc = self.props(x)
         return sensor_rise(t, self.step_t, self.step_dq, k, rc, geo or self.geo_of(x), axial=axial)
+
+    def drift(self, x: np.ndarray, t: np.ndarray) -> np.ndarray:
+        if self.drift_span_s is None:
+            return np.zeros_like(t)
+        return x[2] + x[3] * t / self.drift_span_s
+
+    def model(self, x: np.ndarray, t: np.ndarray, geo: PulseGeometry | None = None, axial: bool = True
+              ) -> np.ndarray:
+        return self.pulse(x, t, geo, axial) + self.drift(x, t)
 
     def start(self, t: np.ndarray, y: np.ndarray, heat: float, t_off: float,
               given: tuple[float, float] | None) -> np.ndarray:
@@ -357,22 +378,25 @@ class _Problem:
                         alpha0, rc0 = v["alpha"], v["rho_c"]
                 except (ValueError, ZeroDivisionError, OverflowError):
                     pass
+        extra = [0.0, 0.0] if self.drift_span_s is not None else []
         if self.rho_c_fixed is None:
-            return np.array([math.log(alpha0), math.log(rc0)])
+            return np.array([math.log(alpha0), math.log(rc0), *extra])
         # the ideal solution depends on r²/α only: ρc known means r = r0·√(ρc_start/ρc_known), α = k/ρc_known
         return np.array([math.log(alpha0 * rc0 / self.rho_c_fixed),
-                         math.log(r0 * math.sqrt(rc0 / self.rho_c_fixed))])
+                         math.log(r0 * math.sqrt(rc0 / self.rho_c_fixed)), *extra])
 
     def bounds(self, x0: np.ndarray) -> tuple[list[float], list[float]]:
+        free = [-np.inf, -np.inf] if self.drift_span_s is not None else []
         if self.rho_c_fixed is None:
-            return [x0[0] - 6, math.log(1e4)], [x0[0] + 6, math.log(1e8)]
+            return [x0[0] - 6, math.log(1e4), *free], [x0[0] + 6, math.log(1e8), *(-v for v in free)]
         g = self.geometry
         r_lo = max(0.5 * g.spacing_m, 1.5 * max(g.heater_radius_m, g.sensor_radius_m), 1e-4)
-        return [x0[0] - 5, math.log(r_lo)], [x0[0] + 5, math.log(2.0 * g.spacing_m)]
+        return [x0[0] - 5, math.log(r_lo), *free], [x0[0] + 5, math.log(2.0 * g.spacing_m), *(-v for v in free)]
 
     def solve(self, t: np.ndarray, y: np.ndarray, x0: np.ndarray) -> Any:
         lo, hi = self.bounds(x0)
         x0 = np.clip(x0, np.array(lo) + 1e-6, np.array(hi) - 1e-6)
+        x0[2:] = np.nan_to_num(x0[2:])
         return least_squares(lambda x: self.model(x, t) - y, x0, bounds=(lo, hi), x_scale="jac", method="trf",
                              xtol=1e-10, ftol=1e-10, max_nfev=200, diff_step=1e-6)
 
@@ -391,7 +415,7 @@ def _result(prob: _Problem, res: Any, tf: np.ndarray, t_win: np.ndarray, y_win: 
     gain = JtJ_inv @ J.T                                         # δx = gain @ δm for a model change δm
     k, rc = prob.props(x)
     geo = prob.geo_of(x)
-    base = prob.model(x, tf)
+    base = prob.pulse(x, tf)
     calibrating = prob.calibrating
     g0 = prob.geometry
 
@@ -414,7 +438,7 @@ def _result(prob: _Problem, res: Any, tf: np.ndarray, t_win: np.ndarray, y_win: 
                 "k": math.sqrt(max(cov[0, 0] + cov[1, 1] + 2 * cov[0, 1], 0))}
     terms["statistical"] = [stat]
     if not calibrating and spacing_u_m > 0:
-        add("spacing", prob.model(x, tf, geo=geo.with_spacing(geo.spacing_m + spacing_u_m)) - base)
+        add("spacing", prob.pulse(x, tf, geo=geo.with_spacing(geo.spacing_m + spacing_u_m)) - base)
     if calibrating and rho_c_fixed_u_rel > 0:
         # the known ρc is itself uncertain: the model with the medium's ρc (and k) scaled by 1 + u
         add("reference", sensor_rise(tf, prob.step_t, prob.step_dq, k * (1 + rho_c_fixed_u_rel),
@@ -426,16 +450,16 @@ def _result(prob: _Problem, res: Any, tf: np.ndarray, t_win: np.ndarray, y_win: 
     if drift_u_K_per_s > 0:
         add("baseline", tf * drift_u_K_per_s)
     if g0.heater_C_J_per_m3K and g0.heater_radius_m and heater_C_u_rel > 0:
-        add("needles", prob.model(x, tf, geo=replace(geo, heater_C_J_per_m3K=g0.heater_C_J_per_m3K
+        add("needles", prob.pulse(x, tf, geo=replace(geo, heater_C_J_per_m3K=g0.heater_C_J_per_m3K
                                                      * (1 + heater_C_u_rel))) - base)
     if g0.sensor_C_J_per_m3K and g0.sensor_radius_m and sensor_C_u_rel > 0:
-        add("needles", prob.model(x, tf, geo=replace(geo, sensor_C_J_per_m3K=g0.sensor_C_J_per_m3K
+        add("needles", prob.pulse(x, tf, geo=replace(geo, sensor_C_J_per_m3K=g0.sensor_C_J_per_m3K
                                                      * (1 + sensor_C_u_rel))) - base)
     if g0.heater_C_J_per_m3K and g0.heater_radius_m and contact_u > 0:
-        add("contact", prob.model(x, tf, geo=replace(geo, heater_contact_m2K_per_W=geo.heater_contact_m2K_per_W
+        add("contact", prob.pulse(x, tf, geo=replace(geo, heater_contact_m2K_per_W=geo.heater_contact_m2K_per_W
                                                      + contact_u)) - base)
     if g0.length_m is not None:
-        add("axial", (base - prob.model(x, tf, axial=False)) * AXIAL_U_FRACTION)
+        add("axial", (base - prob.pulse(x, tf, axial=False)) * AXIAL_U_FRACTION)
     quantities = ("k", "alpha", "spacing") if calibrating else QUANTITIES
     budget: dict[str, dict[str, float]] = {q: {} for q in quantities}
     for name, parts in terms.items():
@@ -474,5 +498,6 @@ def _result(prob: _Problem, res: Any, tf: np.ndarray, t_win: np.ndarray, y_win: 
                          f"{pc.values['alpha'] * 1e6:.3g} against {pc.expected['alpha'] * 1e6:.3g} mm²/s")
     spacing_u = geo.spacing_m * u_rel["spacing"] if calibrating else spacing_u_m
     return PulseFit(k, math.exp(x[0]), rc, u_rel, budget, geo, spacing_u, rms, rho1,
-                    n, (float(tf[0]), float(tf[-1])), bool(res.success), str(res.message), pc, tuple(flags),
-                    tuple(notes), calibrating, prob.step_t, prob.step_dq)
+                    n, (float(tf[tf > 0][0]), float(tf[-1])), bool(res.success), str(res.message), pc, tuple(flags),
+                    tuple(notes), calibrating,
+                    None if prob.drift_span_s is None else float(x[3]) / prob.drift_span_s, prob.step_t, prob.step_dq)

@@ -63,6 +63,10 @@ def choose(rec: SensorRecord, opts: Options, found: Found) -> tuple[MethodResult
     want = opts.method
     if want == "model" and kind == "radial":
         want = "radial"  # in the medium, the probe model is the radial fit
+    if want == "auto" and kind == "radial" and found.converged("pulse") is not None:
+        # a pulse record is read by the pulse, flagged or not: the radial fit sees only the heating
+        pick = found["pulse"]
+        return pick, _auto_reason(rec, pick, found)
     if want == "auto":
         order = [found[n] for n in AUTO_ORDER[kind] if n in found]
         standing = [r for r in order if r.converged and not BLOCKING & set(r.flags)]
