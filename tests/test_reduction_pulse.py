@@ -252,3 +252,30 @@ def test_reduce_run_reads_a_simulated_pulse_with_uncertainty_that_covers() -> No
         assert abs(got - true) < 2 * u and abs(got / true - 1) < 0.05
     j = res.to_json()
     assert j["pulse_check"] is not None and j["pulse_fit"]["budget"]["rho_c"]["spacing"] > 0  # type: ignore[index]
+
+
+def test_a_classic_8_s_pulse_logged_at_1_hz_is_read_through_linerig_reduce(tmp_path: object) -> None:
+    # eight heating rows are too few for any fit at the heated needle, not for the pulse at the radial one:
+    # `linerig reduce` gives the pulse's k, α and ρc and flags the heater sensor instead of failing the run
+    import json
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    from linerig.daemon.runcsv import write_run_csv
+    from linerig.daemon.sim.materials import get_material
+
+    data, _ = _simulated_pulse_run("moist-clay", 3, power_W_per_m=50.0, pulse_s=8, record_s=300)
+    csv = Path(str(tmp_path)) / "pulse.csv"
+    write_run_csv(data, csv)  # type: ignore[arg-type]
+    profile = Path(__file__).resolve().parent.parent / "hardware" / "probes" / "dual-needle.toml"
+    done = subprocess.run([sys.executable, "-m", "linerig.tui.cli", "reduce", str(csv), "--probe", str(profile),
+                           "--json"], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    out = json.loads(done.stdout)["sensors"]
+    mat = get_material("moist-clay")
+    r = out["needle8"]
+    assert r["method"] == "pulse" and r["stable_at_s"] is None
+    assert abs(r["rho_c_MJ_per_m3K"] / (mat.rho_c_J_per_m3K / 1e6) - 1) < 0.05
+    assert abs(r["k_W_per_mK"] / mat.k_W_per_mK - 1) < 0.05
+    assert "window_short" in out["heater"]["flags"]

@@ -13,11 +13,13 @@ from __future__ import annotations
 import math
 from dataclasses import replace
 
+import numpy as np
+
 from ..probe import ProbeProfile
 from .data import ReductionError, RunData
 from .live import DEFAULT_POWER_U_REL, replay
 from .methods import Options
-from .record import HeatingRecord, SensorRecord
+from .record import MIN_HEATING_SAMPLES, HeatingRecord, SensorRecord
 from .result import RunReduction, SensorResult
 from .select import METHODS, choose, run_methods, sensor_result
 
@@ -43,8 +45,29 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
     if not names:
         raise ReductionError("the run has no temperature columns (T_<sensor>_C)")
     run = HeatingRecord.of(data)
-    out = {name: reduce_sensor(SensorRecord.of(data, run, name, probe), opts) for name in names}
-    return RunReduction(out, run.heating_s)
+    out: dict[str, SensorResult] = {}
+    failed: dict[str, ReductionError] = {}
+    for name in names:
+        rec = SensorRecord.of(data, run, name, probe)
+        try:
+            out[name] = res = reduce_sensor(rec, opts)
+            if rec.geometry.on_heater and np.count_nonzero(run.heat) < MIN_HEATING_SAMPLES:
+                res.flags = list(dict.fromkeys([*res.flags, "window_short"]))
+                res.notes.append(f"only {np.count_nonzero(run.heat)} heating samples (a short pulse): this heater "
+                                 "sensor's k is no measurement; read the pulse at the radial sensor")
+        except ReductionError as exc:
+            # a heat pulse is read at its radial sensors: the heated needle's own record of a short pulse may give
+            # nothing, and that must not cost the run its result
+            if not (rec.geometry.on_heater and run.t_off is not None):
+                raise
+            failed[name] = exc
+    if failed and not any(r.method == "pulse" for r in out.values()):
+        raise next(iter(failed.values()))
+    for name, exc in failed.items():
+        out[name] = SensorResult(name=name, method="none", method_reason=f"not reduced: {exc}",
+                                 notes=["a heat pulse is read at the radial sensors; this heater sensor's record "
+                                        "gave no result"])
+    return RunReduction({name: out[name] for name in names}, run.heating_s)
 
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
