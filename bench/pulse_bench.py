@@ -36,6 +36,7 @@ from linerig.daemon.reduction.methods.pulse import spacing_fit
 from linerig.daemon.reduction.pulse import NEEDLE_C_U_REL
 from linerig.daemon.reduction.record import HeatingRecord, SensorRecord
 from linerig.daemon.sim.materials import get_material
+from linerig.daemon.sim.records import recorded_pulse
 from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 from linerig.daemon.workflows.spacing import water_heat_capacity
 
@@ -138,21 +139,10 @@ def sim_run(material: str, seed: int, bend_mm: float | None = None) -> tuple[Run
         d = design_pulse(probe_geometry(DUAL, "needle8"), mat.k_W_per_mK, mat.rho_c_J_per_m3K, max_power_W_per_m=60,
                          max_rise_K=12)
         plan = (d.power_W_per_m, d.pulse_s, min(d.record_s, 700.0))
-    rig = SimulatedRig(mat, spec, seed=seed)
-    ts, qs, rows = [], [], []
-    for i in range(-120, int(plan[2])):
-        if i == 0:
-            rig.set_heater(True, plan[0])
-        if i == int(plan[1]):
-            rig.set_heater(False)
-        s = rig.sample()
-        ts.append(float(i))
-        qs.append(s.delivered_W_per_m)
-        rows.append([c.temp_C for c in s.channels])
-        rig.advance(1.0)
-    temps = np.array(rows)
+    data = recorded_pulse(SimulatedRig(mat, spec, seed=seed), baseline_s=120.0, pulse_s=plan[1], record_s=plan[2],
+                          q_W_per_m=plan[0])
     true = {"k": mat.k_W_per_mK, "alpha": mat.diffusivity_m2_per_s, "rho_c": mat.rho_c_J_per_m3K}
-    return RunData(np.array(ts), np.array(qs), {"heater": temps[:, 0], "needle8": temps[:, 1]}), true
+    return data, true
 
 
 def perturbed(data: RunData, probe: ProbeProfile, sensor: str, seed: int) -> tuple[RunData, ProbeProfile]:

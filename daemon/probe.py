@@ -187,6 +187,18 @@ class ProbeProfile:
         return replace(self, sensors=tuple(new if s.name == name else s for s in self.sensors))
 
 
+def sensor_mm(item: str, option: str, example: str = "needle8=8.0") -> tuple[str, float]:
+    """A command line's ``SENSOR=MM`` (``--spacing`` and the like) as (name, millimetres >= 0)."""
+    name, sep, mm = item.partition("=")
+    try:
+        value = float(mm)
+    except ValueError:
+        value = math.nan
+    if not sep or not name or not (math.isfinite(value) and value >= 0):
+        raise ProbeProfileError(f"{option} {item!r}: expected SENSOR=MM with MM >= 0, e.g. {option} {example}")
+    return name, value
+
+
 def _fail(source: str, key: str, expected: str, got: Any = None) -> ProbeProfileError:
     tail = "" if got is None else f", got {got!r}"
     return ProbeProfileError(f"{source}: {key} must be {expected}{tail}")

@@ -82,18 +82,24 @@ def test_needle_transforms_invert_like_mpmath() -> None:
     assert np.max(np.abs(step_response_stehfest(tau, ra, ah, rb, as_) - ref)) < 3e-5
 
 
+def _finite_volume_pulse(k: float, rc: float, outer_m: float | None, end_s: float = 300.0,
+                         n_cells: int = 300) -> tuple[np.ndarray, np.ndarray]:
+    """The 16 s, 50 W/m pulse at 8 mm by finite volumes (daemon/sim/physics.py), sampled each second."""
+    fv = RadialModel(k, rc, A, NEEDLE_C, contact_conductance=None, n_cells=n_cells, outer_radius_m=outer_m)
+    ts, ys = [], []
+    for i in range(1, round(end_s / 0.05) + 1):
+        fv.step(50.0 if i * 0.05 <= 16.0 + 1e-9 else 0.0, 0.05)
+        if i % 20 == 0:
+            ts.append(i * 0.05)
+            ys.append(fv.rise_at_K(R))
+    return np.array(ts), np.array(ys)
+
+
 def test_heater_cylinder_matches_a_finite_volume_solution() -> None:
     # The same physics (a lumped heater of radius a and heat capacity in a medium) by finite volumes and TR-BDF2
     # time steps (daemon/sim/physics.py): a different numerical method. The ideal line misses by ~4 mK here.
     k, rc = 1.2, 2.4e6
-    fv = RadialModel(k, rc, A, NEEDLE_C, contact_conductance=None, n_cells=400)
-    ts, ys = [], []
-    for i in range(1, 2401):
-        fv.step(50.0 if i * 0.05 <= 16.0 + 1e-9 else 0.0, 0.05)
-        if i % 40 == 0:
-            ts.append(i * 0.05)
-            ys.append(fv.rise_at_K(R))
-    t, y_fv = np.array(ts), np.array(ys)
+    t, y_fv = _finite_volume_pulse(k, rc, None, end_s=120.0, n_cells=400)
     ours = sensor_rise(t, *PULSE, k, rc, PulseGeometry(R, A, NEEDLE_C))
     assert np.max(np.abs(ours - y_fv)) < 2e-4
     assert np.max(np.abs(ideal_pulse(t, 50.0, 16.0, k, rc, R) - y_fv)) > 2e-3
@@ -125,15 +131,8 @@ def _record(k: float, rc: float, geometry: PulseGeometry, noise: float, seed: in
 def test_fit_recovers_a_finite_volume_pulse_within_its_uncertainty() -> None:
     # finite-volume record (heater with heat capacity, no sensor needle, infinite length), 10 mK noise, 1 Hz
     k, rc = 0.9, 2.2e6
-    fv = RadialModel(k, rc, A, NEEDLE_C, contact_conductance=None, n_cells=400)
-    ts, ys = [], []
-    for i in range(1, 6001):
-        fv.step(50.0 if i * 0.05 <= 16.0 + 1e-9 else 0.0, 0.05)
-        if i % 20 == 0:
-            ts.append(i * 0.05)
-            ys.append(fv.rise_at_K(R))
-    t = np.array(ts)
-    y = np.array(ys) + 0.01 * np.random.default_rng(7).standard_normal(t.size)
+    t, y = _finite_volume_pulse(k, rc, None, n_cells=400)
+    y = y + 0.01 * np.random.default_rng(7).standard_normal(t.size)
     fit = fit_pulse(t, y, *PULSE, PulseGeometry(R, A, NEEDLE_C), spacing_u_m=0.0, power_u_rel=0.0)
     for name, true, got in (("k", k, fit.k_W_per_mK), ("alpha", k / rc, fit.alpha_m2_per_s),
                             ("rho_c", rc, fit.rho_c_J_per_m3K)):
@@ -172,17 +171,6 @@ def replace_spacing(g: PulseGeometry, r: float) -> PulseGeometry:
     return g.with_spacing(r)
 
 
-def _finite_volume_pulse(k: float, rc: float, outer_m: float | None) -> tuple[np.ndarray, np.ndarray]:
-    fv = RadialModel(k, rc, A, NEEDLE_C, contact_conductance=None, n_cells=300, outer_radius_m=outer_m)
-    ts, ys = [], []
-    for i in range(1, 6001):
-        fv.step(50.0 if i * 0.05 <= 16.0 + 1e-9 else 0.0, 0.05)
-        if i % 20 == 0:
-            ts.append(i * 0.05)
-            ys.append(fv.rise_at_K(R))
-    return np.array(ts), np.array(ys)
-
-
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_checks_fire_when_a_bath_wall_shapes_the_decay(seed: int) -> None:
     # A sample 32 mm across in a bath (the wall held at the initial temperature, 8 mm beyond the sensor) speeds the
@@ -208,9 +196,9 @@ def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None,
     from pathlib import Path
 
     from linerig.daemon.probe import load_probe_profile
-    from linerig.daemon.reduction.data import RunData
     from linerig.daemon.sim.main import bent
     from linerig.daemon.sim.materials import get_material
+    from linerig.daemon.sim.records import recorded_pulse
     from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 
     profile = load_probe_profile(Path(__file__).resolve().parent.parent / "hardware" / "probes" / "dual-needle.toml")
@@ -218,23 +206,11 @@ def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None,
     spec = ProbeSpec.from_profile(profile)
     if bend_mm is not None:
         spec = bent(spec, [f"needle8={bend_mm}"])
-    rig = SimulatedRig(get_material(material), spec, seed=seed)
     p = profile.pulse
-    q = power_W_per_m or p.power_W_per_m
-    on = pulse_s or int(p.pulse_s)
-    ts, qs, rows = [], [], []
-    for i in range(-120, record_s or int(p.record_s)):
-        if i == 0:
-            rig.set_heater(True, q)
-        if i == on:
-            rig.set_heater(False)
-        s = rig.sample()
-        ts.append(float(i))
-        qs.append(s.delivered_W_per_m)
-        rows.append([c.temp_C for c in s.channels])
-        rig.advance(1.0)
-    temps = np.array(rows)
-    return RunData(np.array(ts), np.array(qs), {"heater": temps[:, 0], "needle8": temps[:, 1]}), profile
+    data = recorded_pulse(SimulatedRig(get_material(material), spec, seed=seed), baseline_s=120.0,
+                          pulse_s=pulse_s or p.pulse_s, record_s=record_s or p.record_s,
+                          q_W_per_m=power_W_per_m or p.power_W_per_m)
+    return data, profile
 
 
 def test_reduce_run_reads_a_simulated_pulse_with_uncertainty_that_covers() -> None:

@@ -6,14 +6,12 @@ The model test feeds ``LiveState`` events by hand; the live test drives the real
 
 from __future__ import annotations
 
-import json
-import subprocess
-import sys
 from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
 import pytest
+from simulated_daemon import simulated_daemon
 from test_tui_live import front_end_linked, until
 
 from linerig.tui.app import LinerigApp
@@ -76,20 +74,8 @@ def test_before_the_heater_goes_on_the_pulse_view_says_so() -> None:
 
 @pytest.fixture
 def dual_daemon(tmp_path: Path) -> Iterator[Path]:
-    sock = tmp_path / "d.sock"
-    proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "moist-clay", "--probe",
-                             str(DUAL), "--speed", "30", "--socket", str(sock), "--db", str(tmp_path / "runs.db")],
-                            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
-    assert proc.stdout is not None
-    assert json.loads(proc.stdout.readline() or "{}").get("ready"), "linerigd did not report ready"
-    try:
-        yield sock
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
+    with simulated_daemon(tmp_path, 30, "moist-clay", "--probe", str(DUAL)) as d:
+        yield d["socket"]
 
 
 @pytest.mark.timeout(180)

@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import asyncio
 import json
-import math
 import os
 import signal
 import sys
@@ -83,14 +82,10 @@ def _probe(path: Path | None) -> ProbeSpec:
 
 def bent(probe: ProbeSpec, items: list[str]) -> ProbeSpec:
     """The probe with the sensors of ``--spacing SENSOR=MM`` moved; ValueError names a bad item."""
+    from linerig.daemon.probe import sensor_mm
+
     for item in items:
-        name, sep, mm = item.partition("=")
-        try:
-            value = float(mm)
-        except ValueError:
-            value = math.nan
-        if not sep or not name or not math.isfinite(value):
-            raise ValueError(f"--spacing {item!r}: expected SENSOR=MM, e.g. --spacing needle8=8.2")
+        name, value = sensor_mm(item, "--spacing", "needle8=8.2")  # a ProbeProfileError is a ValueError
         try:
             probe = probe.with_spacing(name, value * 1e-3)
         except ModelConfigError as exc:

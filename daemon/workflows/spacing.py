@@ -17,7 +17,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from .calibration import REMIND_DAYS, VALID_DAYS, CalibrationError
+from .calibration import REMIND_DAYS, VALID_DAYS, CalibrationError, _utc, days_left, repeat_mean
 
 # acceptance (judgement, no source unless named)
 MAX_CHANGE_REL = 0.10       # an effective spacing more than 10 % from the nominal one is a bent needle: repair it
@@ -113,11 +113,6 @@ class SpacingOutcome:
         return d
 
 
-def _utc(now: dt.datetime | None) -> dt.datetime:
-    now = now or dt.datetime.now(dt.UTC)
-    return now if now.tzinfo else now.replace(tzinfo=dt.UTC)
-
-
 def evaluate_spacing(probe_serial: str, sensor: str, nominal_m: float, reference: HeatCapacityReference,
                      pulses: Sequence[SpacingPulse], *, previous_m: float | None = None,
                      now: dt.datetime | None = None, valid_days: int = VALID_DAYS) -> SpacingOutcome:
@@ -133,9 +128,7 @@ def evaluate_spacing(probe_serial: str, sensor: str, nominal_m: float, reference
     if np.any(~np.isfinite(rs)) or np.any(rs <= 0):
         raise CalibrationError("a reference pulse gave no spacing: reduce it first, or leave it out")
     n = rs.size
-    mean = float(rs.mean())
-    cv = float(np.std(rs, ddof=1) / mean) if n >= 2 else None
-    u = math.sqrt((float(np.var(rs, ddof=1)) / n if n >= 2 else 0.0) + float(np.mean(us)) ** 2)
+    mean, u, cv = repeat_mean(rs, us)
     reasons: list[str] = []
     warnings: list[str] = []
     change = mean / nominal_m - 1.0
@@ -190,9 +183,7 @@ def spacing_status(history: Sequence[dict[str, object]], sensor: str, now: dt.da
     exp_s = str(last.get("expires_utc") or "")
     if not exp_s:
         return SpacingStatus("valid", head, r, u, cid)
-    exp = dt.datetime.fromisoformat(exp_s)
-    exp = exp if exp.tzinfo else exp.replace(tzinfo=dt.UTC)
-    left = (exp - _utc(now)).total_seconds() / 86400.0
+    left = days_left(exp_s, now)
     if left < 0:
         return SpacingStatus("expired", f"{head} expired {-left:.0f} days ago: recalibrate the spacing", r, u, cid)
     if left <= remind_days:

@@ -11,7 +11,7 @@ import math
 import sys
 from pathlib import Path
 
-from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile
+from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, sensor_mm
 from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.runcsv import RunCsvError, read_run_csv
@@ -69,25 +69,12 @@ def build_probe(args: argparse.Namespace) -> ProbeProfile | None:
             raise ProbeProfileError(f"--{opt.replace('_', '-')} needs --radius-mm or --probe")
         probe = _replace(probe, **{field: v})
     for item in args.spacing:
-        name, sep, mm = item.partition("=")
-        try:
-            dist = float(mm)
-        except ValueError:
-            dist = math.nan
-        if not sep or not name or not math.isfinite(dist):
-            raise ProbeProfileError(f"--spacing {item!r}: expected SENSOR=MM, e.g. --spacing far=6.0")
+        name, dist = sensor_mm(item, "--spacing", "far=6.0")
         if probe is None:
             raise ProbeProfileError("--spacing needs --radius-mm or --probe (the heater radius)")
         probe = probe.with_sensor(name, dist)
     for item in args.spacing_u:
-        name, sep, mm = item.partition("=")
-        try:
-            u = float(mm)
-        except ValueError:
-            u = math.nan
-        if not sep or not name or not (math.isfinite(u) and u >= 0):
-            raise ProbeProfileError(f"--spacing-u {item!r}: expected SENSOR=MM with MM >= 0, e.g. --spacing-u "
-                                    "needle8=0.03")
+        name, u = sensor_mm(item, "--spacing-u", "needle8=0.03")
         if probe is None or not probe.has_sensor(name) or probe.sensor(name).is_on_heater:
             raise ProbeProfileError(f"--spacing-u {item!r}: {name!r} is not a radial sensor of the probe (give "
                                     "--probe or --spacing for it)")
