@@ -17,6 +17,11 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from ..probe import ProbeProfile
+from ..reduction.data import RunData
+from ..reduction.live import DEFAULT_POWER_U_REL
+from ..reduction.methods.pulse import spacing_fit
+from ..reduction.record import HeatingRecord, SensorRecord
 from .calibration import REMIND_DAYS, VALID_DAYS, CalibrationError, _utc, days_left, repeat_mean
 
 # acceptance (judgement, no source unless named)
@@ -88,6 +93,24 @@ class SpacingPulse:
     spacing_u_m: float
     run_id: int | None = None
     flags: tuple[str, ...] = ()
+
+
+def measure_spacing(data: RunData, probe: ProbeProfile, sensor: str, reference: HeatCapacityReference,
+                    run_id: int | None = None, flags: tuple[str, ...] = ()) -> SpacingPulse:
+    """The effective spacing of one pulse in the reference medium (the pulse fit with ρc held at the reference's).
+
+    Raises ``reduction.pulse.PulseFitError`` (a ValueError) when the record holds no pulse to read.
+    """
+    rec = SensorRecord.of(data, HeatingRecord.of(data), sensor, probe)
+    fit = spacing_fit(rec, reference.rho_c_J_per_m3K, reference.rho_c_u_J_per_m3K / reference.rho_c_J_per_m3K,
+                      DEFAULT_POWER_U_REL)
+    return SpacingPulse(fit.spacing_m, fit.spacing_u_m, run_id, tuple(sorted({*fit.flags, *flags})))
+
+
+def baseline_temperature_C(data: RunData, sensor: str) -> float | None:
+    """Mean temperature of a sensor before the heater came on: the bath temperature of a calibration pulse."""
+    base = data.temps_C[sensor][data.time_s < 0] if sensor in data.temps_C else np.zeros(0)
+    return float(np.mean(base)) if base.size else None
 
 
 @dataclass(frozen=True)
