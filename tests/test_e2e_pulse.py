@@ -7,6 +7,7 @@ over a pseudo-terminal, writes a real SQLite file and reduces the run when it en
 
 from __future__ import annotations
 
+import asyncio
 import json
 import sqlite3
 import subprocess
@@ -15,9 +16,11 @@ from pathlib import Path
 
 import pytest
 from simulated_daemon import simulated_daemon
+from test_tui_live import front_end_linked
 
 from linerig.daemon.probe import load_probe_profile
 from linerig.daemon.sim.materials import get_material
+from linerig.tui.client import Client
 
 pytestmark = pytest.mark.timeout(300)
 
@@ -25,7 +28,18 @@ DUAL = Path(__file__).resolve().parent.parent / "hardware" / "probes" / "dual-ne
 SPEED = 30  # the (r, z) simulator costs a few ms per simulated second: room to spare on a loaded machine
 
 
+def _front_end_up(sock: Path) -> None:
+    """Return once the daemon has its front end: a daemon reports ready before the simulator's link is up."""
+    async def wait() -> None:
+        async with Client(sock) as client:
+            await client.request("subscribe")
+            await front_end_linked(client)
+
+    asyncio.run(wait())
+
+
 def _start(sock: Path, *extra: str) -> dict:
+    _front_end_up(sock)
     cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(sock), "start", "--pulse", *extra,
            "--wait", "--json"]
     done = subprocess.run(cmd, capture_output=True, text=True, timeout=240)
