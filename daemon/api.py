@@ -129,8 +129,11 @@ class Hub:
     def __init__(self) -> None:
         self._boxes: set[Outbox] = set()
         self.dropped = 0
+        self.watchers: list[Callable[[dict[str, Any]], None]] = []  # parts of the daemon that follow events
 
     def publish(self, event: dict[str, Any]) -> None:
+        for watch in self.watchers:
+            watch(event)
         if not self._boxes:
             return
         data = encode(event)  # once, whatever the number of subscribers

@@ -28,6 +28,10 @@ field operator can fix the file without reading code. Example::
 
     [presets.quick]                        # a named plan: [run] with these changes
     heat_s = 300
+
+    [sync]                                 # push ended runs to a central PostgreSQL database by itself
+    to = "service=linerig-central"         # libpq connection string; the password in ~/.pgpass, not here
+    rig = "north-rig"                      # this rig's name there (default: made once, kept in the database)
 """
 
 from __future__ import annotations
@@ -71,6 +75,17 @@ class DaemonConfig:
 
 
 @dataclass(frozen=True)
+class SyncConfig:
+    """Where and how often linerigd pushes to the central database (daemon/central/scheduler.py)."""
+
+    to: str
+    rig: str | None = None
+    interval_s: float = 300.0
+    retry_s: float = 30.0
+    max_backoff_s: float = 3600.0
+
+
+@dataclass(frozen=True)
 class RigConfig:
     source: str = "<defaults>"
     devices: DeviceConfig = field(default_factory=DeviceConfig)
@@ -80,6 +95,7 @@ class RigConfig:
     limits: Limits = field(default_factory=Limits)
     plan: RunPlan = field(default_factory=RunPlan)
     presets: dict[str, RunPlan] = field(default_factory=dict)
+    sync: SyncConfig | None = None
 
     @property
     def probe(self) -> ProbeProfile:
@@ -88,7 +104,7 @@ class RigConfig:
         return load_probe_profile(DEFAULT_PROBE_PATH)
 
 
-SECTIONS = ("devices", "daemon", "probes", "limits", "run", "presets")
+SECTIONS = ("devices", "daemon", "probes", "limits", "run", "presets", "sync")
 
 
 # -- where a key is written ----------------------------------------------------
@@ -172,6 +188,9 @@ _DEVICE_KEYS = {"frontend": "front-end port", "frontend_baud": "baud rate", "sup
 _DAEMON_KEYS = {"socket": "socket path", "database": "database path", "group": "control group",
                 "max_database_MB": "size cap, MB"}
 _PROBE_KEYS = {"profiles": "profile paths", "active": "serial or name"}
+_SYNC_KEYS = {"to": "libpq connection string", "rig": "this rig's name", "interval_s": "seconds between pushes",
+              "retry_s": "first retry after a failure, s", "max_backoff_s": "longest wait between retries, s",
+              "allow_password": "true to accept a password written in `to`"}
 
 
 def _port(src: _Src, path: list[str], value: Any) -> str:
@@ -268,6 +287,48 @@ def _probes(src: _Src, t: dict[str, Any], base: Path) -> tuple[tuple[ProbeProfil
     return tuple(profiles), active
 
 
+def _sync(src: _Src, doc: dict[str, Any]) -> SyncConfig | None:
+    if "sync" not in doc:
+        return None
+    t = _table(src, doc, "sync")
+    _only(src, t, ["sync"], _SYNC_KEYS)
+    to = t.get("to")
+    if not isinstance(to, str) or not to.strip():
+        raise src.error(["sync", "to"], "expected a libpq connection string such as \"service=linerig-central\" or "
+                                        f"\"postgresql://ROLE@HOST/DBNAME?sslmode=verify-full\", got {to!r}")
+    from linerig.daemon.central.connect import has_password
+    from linerig.daemon.central.errors import CentralError
+
+    try:
+        secret = has_password(to)
+    except CentralError as exc:
+        raise src.error(["sync", "to"], str(exc)) from None
+    allow = t.get("allow_password", False)
+    if not isinstance(allow, bool):
+        raise src.error(["sync", "allow_password"], f"expected true or false, got {allow!r}")
+    if secret and not allow:
+        raise src.error(["sync", "to"], "a password is written here, readable by anyone who can read this file: "
+                                        "put it in the service user's password file (~/.pgpass or PGPASSFILE) or a "
+                                        "service file (PGSERVICEFILE) instead, or set allow_password = true")
+    kw: dict[str, Any] = {"to": to.strip()}
+    if "rig" in t:
+        rig = t["rig"]
+        if not isinstance(rig, str) or not rig.strip() or len(rig) > 100 or not rig.isprintable():
+            raise src.error(["sync", "rig"], f"expected a name of 1 to 100 printable characters, got {rig!r}")
+        kw["rig"] = rig.strip()
+    for key, lo, hi in (("interval_s", 10.0, 86400.0), ("retry_s", 1.0, 86400.0), ("max_backoff_s", 10.0, 604800.0)):
+        if key in t:
+            v = t[key]
+            if isinstance(v, bool) or not isinstance(v, int | float) or not lo <= v <= hi:
+                raise src.error(["sync", key], f"expected seconds from {lo:g} to {hi:g}, got {v!r}")
+            kw[key] = float(v)
+    cfg = SyncConfig(**kw)
+    if cfg.max_backoff_s < cfg.retry_s:
+        raise src.error(["sync", "max_backoff_s"], f"expected at least retry_s ({cfg.retry_s:g}), "
+                                                   f"got {cfg.max_backoff_s:g}")
+    return cfg
+
+
 def _limits(src: _Src, t: dict[str, Any]) -> Limits:
     known = {f.name for f in fields(Limits)}
     _only(src, t, ["limits"], {k: "" for k in known})
@@ -328,8 +389,9 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
     if devices.frontend and not _URL.match(devices.frontend) and not devices.frontend.startswith("/"):
         raise src.error(["devices", "frontend"], "expected an absolute device path or a pyserial URL, "
                                                  f"got {devices.frontend!r}")
+    sync = _sync(src, doc)
     return RigConfig(source=source, devices=devices, daemon=daemon, probes=probes, active_probe=active,
-                     limits=limits, plan=plan, presets=presets)
+                     limits=limits, plan=plan, presets=presets, sync=sync)
 
 
 def load_config(path: Path) -> RigConfig:

@@ -89,7 +89,7 @@ class RunPlan:
     heat_s: float = 600.0
     recover_s: float = 600.0
     power_W_per_m: float = 5.0
-    baseline_s: float = 60.0
+    baseline_s: float = 120.0  # long enough that the drift it measures stays a small term (METHODS.md)
     settle_timeout_s: float = 600.0
     max_drift_K_per_min: float = 0.02
     auto_stop: bool = False

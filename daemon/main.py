@@ -21,7 +21,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import sqlite_utils
 
@@ -38,6 +38,9 @@ from linerig.daemon.service import DaemonSettings, RigService
 from linerig.daemon.sim.speed import speed_factor
 from linerig.daemon.store import queries
 from linerig.daemon.store.writer import Store
+
+if TYPE_CHECKING:
+    from linerig.daemon.central.scheduler import SyncScheduler
 
 log = logging.getLogger("linerigd")
 EXIT_INTERNAL = 70
@@ -109,11 +112,12 @@ def _int_field(req: dict[str, Any], key: str, lo: int = 1, hi: int = 2**31) -> i
     return v
 
 
-def handlers(svc: RigService, store: Store) -> dict[str, Handler]:
+def handlers(svc: RigService, store: Store, sync: SyncScheduler | None = None) -> dict[str, Handler]:
     db = store.reader
 
     async def status(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
-        return svc.status()
+        return {**svc.status(), "db": str(store.path),   # clients that write (qualifications) write here
+                "sync": sync.status() if sync is not None else None}
 
     async def ping(req: dict[str, Any], peer: Peer) -> dict[str, Any]:
         return {"pong": True, "pid": os.getpid()}
@@ -251,7 +255,7 @@ def with_pulse_preset(presets: dict[str, RunPlan], plan: RunPlan, probe: ProbePr
 
 
 async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None,
-                supply_url: str | None = None) -> int:
+                supply_url: str | None = None, sim_firmware: str | None = None) -> int:
     from linerig.daemon.probe import load_probe_profile
 
     probe = load_probe_profile(args.probe) if args.probe else cfg.probe
@@ -272,7 +276,15 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         return 2
     hub = Hub()
     svc = RigService(settings, store, hub)
-    api = ApiServer(args.socket or cfg.daemon.socket or default_socket_path(), handlers(svc, store), hub,
+    sync = None
+    if cfg.sync is not None:  # pushes to the central database in a child process of its own, after each run
+        from linerig.daemon.central.scheduler import SyncScheduler
+
+        if cfg.sync.rig:
+            store.set_rig_name(cfg.sync.rig)
+        sync = SyncScheduler(cfg.sync, db_path, hub.publish)
+        hub.watchers.append(sync.on_event)
+    api = ApiServer(args.socket or cfg.daemon.socket or default_socket_path(), handlers(svc, store, sync), hub,
                     group=args.group or cfg.daemon.group)
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
@@ -292,12 +304,20 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
         store.close()
         return 1
     await api.start()
-    log.info("linerigd ready: socket %s, database %s, front end %s", api.path, db_path, frontend_url)
-    print(json.dumps({"ready": True, "socket": str(api.path), "db": str(db_path), "pid": os.getpid()}), flush=True)
+    if sync is not None:
+        sync.start()
+    log.info("linerigd ready: socket %s, database %s, front end %s%s", api.path, db_path, frontend_url,
+             f" (simulated, firmware under {sim_firmware})" if sim_firmware else "")
+    ready = {"ready": True, "socket": str(api.path), "db": str(db_path), "pid": os.getpid()}
+    if sim_firmware:  # which interpreter runs the simulated board's firmware (linerig-sim --firmware)
+        ready["firmware"] = sim_firmware
+    print(json.dumps(ready), flush=True)
     sdnotify.notify("READY=1\nSTATUS=idle, heater off")
     await svc.stop_requested.wait()
     sdnotify.notify("STOPPING=1")
     await svc.stop(svc.fatal or "daemon stopping")
+    if sync is not None:
+        await sync.stop()
     await api.close()
     store.close()
     return EXIT_INTERNAL if svc.fatal else 0
@@ -393,8 +413,18 @@ def _describe(cfg: RigConfig) -> str:
              f"  probe: {cfg.probe.name} ({cfg.probe.serial or 'no serial'}); profiles loaded: {len(cfg.probes)}",
              f"  limits: {json.dumps(cfg.limits.to_dict())}",
              f"  default plan: {json.dumps(cfg.plan.to_dict())}",
-             f"  presets: {', '.join(sorted(cfg.presets)) or '(none)'}"]
+             f"  presets: {', '.join(sorted(cfg.presets)) or '(none)'}",
+             f"  sync: {_describe_sync(cfg)}"]
     return "\n".join(lines)
+
+
+def _describe_sync(cfg: RigConfig) -> str:
+    if cfg.sync is None:
+        return "(none: no [sync] section)"
+    from linerig.daemon.central.connect import describe
+
+    return (f"to {describe(cfg.sync.to)} as rig {cfg.sync.rig or '(the name kept in the database)'}, every "
+            f"{cfg.sync.interval_s:g} s and after each run")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -417,6 +447,7 @@ def main(argv: list[str] | None = None) -> int:
         return 0 if ok else 1
     sim: subprocess.Popen[str] | None = None
     material = None
+    sim_firmware: str | None = None
     if args.supply and args.simulate is None:
         print("linerigd: --supply goes with --simulate; for a real supply set [devices] supply in the configuration",
               file=sys.stderr)
@@ -456,6 +487,7 @@ def main(argv: list[str] | None = None) -> int:
         sim, info = start_simulator(args, args.probe)
         frontend_url = info["frontend"]
         supply_url = info.get("supply")
+        sim_firmware = info.get("firmware")
     elif args.frontend or cfg.devices.frontend:
         frontend_url = args.frontend or cfg.devices.frontend
         supply_url = cfg.devices.supply
@@ -464,7 +496,7 @@ def main(argv: list[str] | None = None) -> int:
               f"[devices] frontend in {args.config or DEFAULT_CONFIG_PATH}, or use --simulate", file=sys.stderr)
         return 2
     try:
-        return asyncio.run(serve(args, cfg, frontend_url, material, supply_url))
+        return asyncio.run(serve(args, cfg, frontend_url, material, supply_url, sim_firmware))
     except BaseException:
         # the loop itself died: whatever happened, the heater goes off before the process ends
         safe_off(frontend_url, supply_url, cfg.devices.frontend_baud, cfg.devices.supply_baud, timeout_s=0.5)

@@ -24,6 +24,7 @@ from linerig.daemon.controller import FINAL, CycleSchedule, PlanError, RunContro
 from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.reduction.alignment import power_held_from_each_sample
 from linerig.daemon.safety import check_plan
+from linerig.daemon.store.queries import HEATER_OFF_EVENT
 from linerig.daemon.store.spacings import apply_spacings, spacing_history
 from linerig.daemon.store.writer import StoreError, utc_now
 from linerig.daemon.threads import in_daemon_thread
@@ -102,6 +103,7 @@ class RunKeeper:
         self._pulse_busy = False
         self._pulse_next_t = 0.0
         self._pulse_next_wall = 0.0
+        self.calibration: tuple[float, float] = (1.0, 0.0)  # the current run's probe factor and its u
 
     # -- requests -----------------------------------------------------------
     def make_plan(self, preset: str | None, changes: dict[str, Any]) -> RunPlan:
@@ -217,20 +219,23 @@ class RunKeeper:
                 "sensor_names": json.dumps(names), "heater_length_m": rig.s.probe.length_m,
                 "plan_json": json.dumps(plan.to_dict()), "series_id": series.series_id if series else None,
                 "cycle": cycle, "q_timing": "reading",
-                "frontend_boot_id": rig.frontend.identity.boot_id if rig.frontend.identity else None})
+                **_frontend_fields(rig.frontend.identity)})
         except StoreError as exc:
             rig.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
         rig.begin_run_samples()
-        self._apply_spacings(run_id)
         self._pulse_next_t = self._pulse_next_wall = 0.0
+        self.calibration, cal_event = self._probe_calibration()
         # a pulse has no live line fit and so no "heating can stop" verdict: it heats for its planned time
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=None if plan.pulse else rig.reducer_factory(plan.sensor),
+                                 reducer_factory=None if plan.pulse else rig.reducer_factory(plan.sensor,
+                                                                                             *self.calibration),
                                  cycle=cycle, reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}
         rig.record_event(run_id, "state", "checking", why, data)
+        rig.record_event(run_id, "calibration", *cal_event)
+        self._apply_spacings(run_id)
         rig.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
                          "device_s": rig.device_s, **self._cycle_fields(cycle)})
         sdnotify.notify(f"STATUS=run {run_id} checking")
@@ -258,6 +263,22 @@ class RunKeeper:
     def probe_for(self, run_id: int) -> ProbeProfile:
         return self.run_probe.get(run_id, self.rig.s.probe)
 
+
+    def _probe_calibration(self) -> tuple[tuple[float, float], tuple[str | None, str, dict[str, Any]]]:
+        """The probe's accepted calibration when a run opens, (factor, u), applied live and in the final result;
+        and the event that records which one, or that there is none (factor 1)."""
+        from linerig.daemon.store.queries import calibrations_of
+        from linerig.daemon.workflows.calibration import calibration_status
+
+        rig = self.rig
+        try:
+            st = calibration_status(calibrations_of(rig.store.reader, rig.s.probe.serial))
+        except (ValueError, TypeError, KeyError) as exc:  # a calibration row that does not parse: say so, use none
+            return (1.0, 0.0), (None, f"probe calibration unreadable ({exc}): factor 1", {})
+        factor, factor_u = (st.factor, st.factor_u or 0.0) if st.factor else (1.0, 0.0)
+        return (factor, factor_u), (st.state, st.message, {"calibration_id": st.calibration_id, "factor": factor,
+                                                            "factor_u": factor_u})
+
     def _cycle_fields(self, cycle: int) -> dict[str, Any]:
         s = self.series
         return {"series_id": s.series_id if s else None, "cycle": cycle, "cycles": s.schedule.cycles if s else 1}
@@ -269,14 +290,23 @@ class RunKeeper:
         data = self._run_data(run, arr)
         if data is None:
             return {}
+        if run.device_off_s is not None:  # so that a reduction from the store splits the same interval
+            rig.record_event(run.run_id, HEATER_OFF_EVENT, None, "the front end's own switch-off time",
+                             {"device_s": run.device_off_s})
+        factor, factor_u = self.calibration
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
-        red = await in_daemon_thread(reduce_run, data, self.probe_for(run.run_id), max_rise_K=rig.s.limits.max_rise_K)
+        red = await in_daemon_thread(reduce_run, data, self.probe_for(run.run_id),
+                                     max_rise_K=rig.s.limits.max_rise_K, calibration_factor=factor,
+                                     calibration_factor_u=factor_u)
         out = {}
+        ended_early = str(run.state) if str(run.state) in ("aborted", "faulted") else None
         for name, res in red.sensors.items():
             j = res.to_json()
             if run.not_settled and "not_settled" not in j["flags"]:
                 j["flags"] = [*j["flags"], "not_settled"]
+            if ended_early and ended_early not in j["flags"]:
+                j["flags"] = [*j["flags"], ended_early]
             rig.store.add_result(run.run_id, name, j, source="final")
             out[name] = j
             if run.plan.pulse and name == run.plan.sensor and res.pulse is not None:
@@ -385,6 +415,12 @@ class RunKeeper:
         if series is not None and last:
             rig.hub.publish({"event": "series_finished", "series_id": series.series_id,
                              "state": series.schedule.series_state(state), "cycles_done": series.schedule.done})
+
+
+def _frontend_fields(ident: Any) -> dict[str, Any]:
+    """The front end's identity frame as run columns (all None before the first identity frame)."""
+    return {"frontend_boot_id": getattr(ident, "boot_id", None), "frontend_model": getattr(ident, "model", None),
+            "frontend_serial": getattr(ident, "serial", None), "frontend_firmware": getattr(ident, "firmware", None)}
 
 
 class _Actions:

@@ -4,6 +4,11 @@
 measured heater power per metre, held from that row until the next (0 when off); temperatures in °C. Every
 problem is reported with the file line number and the column, so a bad file never turns into a number that
 looks like a result.
+
+Comment lines of the form ``# key: value`` before the column header are the run's metadata. Those the reduction
+uses: ``probe_serial``, ``calibration_factor`` and ``calibration_factor_u`` (the probe factor applied to the
+stored result and its standard uncertainty), ``calibration`` (where that factor comes from, in words) and
+``probe_profile`` (the probe profile as one line of JSON, as linerigd stores it).
 """
 
 from __future__ import annotations
@@ -13,6 +18,7 @@ import io
 import math
 import re
 from collections.abc import Iterable
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
@@ -21,10 +27,53 @@ import numpy as np
 from .reduction.data import RunData
 
 _SENSOR_COL = re.compile(r"^T_([A-Za-z0-9_]+)_C$")
+_META = re.compile(r"^#\s*([A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*?)\s*$")
+PROBE_SERIAL, PROBE_PROFILE = "probe_serial", "probe_profile"
+CAL_FACTOR, CAL_FACTOR_U, CAL_SOURCE = "calibration_factor", "calibration_factor_u", "calibration"
 
 
 class RunCsvError(ValueError):
     """A run CSV that cannot be read; the message names the line (and row) and the column."""
+
+
+@dataclass(frozen=True)
+class HeaderValue:
+    text: str
+    line: int
+
+
+@dataclass(frozen=True)
+class FileCalibration:
+    """The probe factor a run CSV says its stored result carries."""
+
+    factor: float
+    factor_u: float
+    source: str
+
+
+def file_calibration(meta: dict[str, HeaderValue], name: str) -> FileCalibration | None:
+    """The ``calibration_factor`` (and ``_u``) of a run CSV's header; None when it names none.
+
+    Raises RunCsvError naming the line when a value is not a usable number: a factor must not be guessed.
+    """
+    if CAL_FACTOR not in meta:
+        if CAL_FACTOR_U in meta:
+            raise RunCsvError(f"{name}: line {meta[CAL_FACTOR_U].line}: {CAL_FACTOR_U} without {CAL_FACTOR}")
+        return None
+    factor = _header_number(meta[CAL_FACTOR], CAL_FACTOR, name, zero_ok=False)
+    u = _header_number(meta[CAL_FACTOR_U], CAL_FACTOR_U, name, zero_ok=True) if CAL_FACTOR_U in meta else 0.0
+    return FileCalibration(factor, u, meta[CAL_SOURCE].text if CAL_SOURCE in meta else "")
+
+
+def _header_number(v: HeaderValue, key: str, name: str, *, zero_ok: bool) -> float:
+    try:
+        x = float(v.text)
+    except ValueError:
+        x = math.nan
+    if not math.isfinite(x) or x < 0 or (x == 0 and not zero_ok):
+        raise RunCsvError(f"{name}: line {v.line}: {key} {v.text!r} is not a finite number "
+                          f"{'>= 0' if zero_ok else '> 0'}")
+    return x
 
 
 def _open_text(src: str | Path | TextIO) -> tuple[str, str]:
@@ -42,15 +91,25 @@ def _open_text(src: str | Path | TextIO) -> tuple[str, str]:
 
 def read_run_csv(src: str | Path | TextIO, *, require_baseline: bool = True) -> RunData:
     """Parse a run CSV (a path, the text itself, or an open text stream)."""
+    return read_run_file(src, require_baseline=require_baseline)[0]
+
+
+def read_run_file(src: str | Path | TextIO, *, require_baseline: bool = True
+                  ) -> tuple[RunData, dict[str, HeaderValue]]:
+    """The samples and the ``# key: value`` metadata above the column header (first value of a key wins)."""
     text, name = _open_text(src)
     header: list[str] | None = None
     header_line = 0
+    meta: dict[str, HeaderValue] = {}
     rows: list[list[float]] = []
     prev_t = -math.inf
     row_no = 0
     for line_no, raw in enumerate(text.splitlines(), start=1):
         stripped = raw.strip()
         if not stripped or stripped.startswith("#"):
+            m = _META.match(stripped)
+            if header is None and m and m.group(1) not in meta:
+                meta[m.group(1)] = HeaderValue(m.group(2), line_no)
             continue
         cells = [c.strip() for c in next(csv.reader([raw]))]
         if header is None:
@@ -91,7 +150,7 @@ def read_run_csv(src: str | Path | TextIO, *, require_baseline: bool = True) -> 
         raise RunCsvError(f"{name}: column time_s: no baseline rows (time_s < 0 before the heater came on); "
                           "record a baseline so drift can be removed")
     temps = {_SENSOR_COL.match(col).group(1): arr[:, i] for i, col in enumerate(header) if i >= 2}  # type: ignore[union-attr]
-    return RunData(time_s=t, q_W_per_m=q, temps_C=temps)
+    return RunData(time_s=t, q_W_per_m=q, temps_C=temps), meta
 
 
 def _check_header(header: list[str], name: str, line_no: int) -> None:

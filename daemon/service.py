@@ -612,13 +612,15 @@ class RigService:
         self._loss.reset()  # a burst that is over does not count against a new run; the window refills
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
 
-    def reducer_factory(self, sensor: str) -> Any:
-        """The live reducer for one sensor of this rig's probe, within its temperature-rise limit."""
+    def reducer_factory(self, sensor: str, factor: float = 1.0, factor_u: float = 0.0) -> Any:
+        """The live reducer for one sensor of this rig's probe, within its temperature-rise limit, with the
+        probe's calibration factor applied."""
         from linerig.daemon.reduction.live import LiveReducer
 
         probe = self.s.probe
         lim = self.s.limits.max_rise_K
-        return lambda: LiveReducer(probe=probe, sensor=sensor, max_rise_K=lim)
+        return lambda: LiveReducer(probe=probe, sensor=sensor, max_rise_K=lim, calibration_factor=factor,
+                                   calibration_factor_u=factor_u)
 
 
 def _profile_dict(p: ProbeProfile) -> dict[str, Any]:

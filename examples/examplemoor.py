@@ -70,7 +70,8 @@ SAND_TRUE = ModelParams(lambda_s=4.6, shape=3.2, dry_scale=1.1)
 
 
 def _store_run(store: Store, data: RunData, probe: ProbeProfile, meta: dict[str, object], *,
-               factor: float = 1.0, phase: list[str] | None = None, reduce: bool = True) -> int:
+               factor: float = 1.0, factor_u: float = 0.0, phase: list[str] | None = None,
+               reduce: bool = True) -> int:
     names = list(data.temps_C)
     rid = store.create_run({"kind": "field" if meta.get("depth_m") is not None else "lab",
                             "probe_serial": probe.serial, "sensor_names": json.dumps(names),
@@ -86,7 +87,7 @@ def _store_run(store: Store, data: RunData, probe: ProbeProfile, meta: dict[str,
     store.event(rid, "state", "heating", "baseline settled", 1000.0)
     store.event(rid, "state", "done", "recovery logged", 1000.0 + float(t[-1]))
     if reduce:
-        red = reduce_run(data, probe, calibration_factor=factor)
+        red = reduce_run(data, probe, calibration_factor=factor, calibration_factor_u=factor_u)
         for name, res in red.sensors.items():
             store.add_result(rid, name, res.to_json(), source="final")
     return rid
@@ -129,14 +130,14 @@ def build_demo_db(path: Path) -> dict[str, object]:
         from linerig.daemon.report.sources import record_calibration
         out = evaluate_calibration("FN-0412", reference_value("agar-water", 20.0), cal_meas)
         cal_id = record_calibration(store.db, out, {"bath_C": 20.0})
-        factor = out.factor
+        factor, factor_u = out.factor, out.factor_u
         # borehole BH1: repeated insertions, deepened between runs; peat over clay over sand
         bh1 = []
         for depth, k in ((0.5, 0.55), (1.0, 0.80), (1.5, 1.15), (2.0, 1.60), (2.5, 1.75)):
             d = _run(k / bias, 2.6e6, NEEDLE, rng)
             bh1.append(_store_run(store, d, NEEDLE, {"site": SITE, "location": "BH1", "depth_m": depth + 0.075,
                                                      "sample": f"in situ, {depth:.1f} m", "operator": "demo"},
-                                  factor=factor))
+                                  factor=factor, factor_u=factor_u))
         # borehole BH2: the rod's tip pushed to 1.6 m, four junctions along it (1.3, 1.0, 0.7 and 0.4 m deep)
         ks = {"tip300": 1.45, "tip600": 1.15, "tip900": 0.80, "tip1200": 0.62}
         d = _run(1.0, 2.6e6, ROD, rng, sensors=tuple(ks), ks=ks)
@@ -166,7 +167,8 @@ def build_demo_db(path: Path) -> dict[str, object]:
                 d = _run(k / bias, 2.4e6, NEEDLE, rng, q=4.0, t0_C=20.0)
                 dry.append(_store_run(store, d, NEEDLE, {"sample": f"FB-3 at {w:g} %, {rho_d:.0f} kg/m³",
                                                          "material": "Moor sand backfill", "moisture_pct": w,
-                                                         "dry_density_kg_per_m3": rho_d}, factor=factor))
+                                                         "dry_density_kg_per_m3": rho_d},
+                                      factor=factor, factor_u=factor_u))
     finally:
         store.close()
     return {"calibration_runs": cal_ids, "calibration_id": cal_id, "bh1": bh1, "bh2": bh2, "cycles_run": cyc,

@@ -52,6 +52,10 @@ def test_a_run_goes_through_every_state_and_heat_starts_when_the_front_end_says_
     assert [s for s, _ in states] == ["checking", "settling", "heating", "recovering", "done"]
     assert states[2][1].startswith("baseline settled") and states[3][1] == "planned heating time 60 s reached"
     assert run["site"] == "Test Hill" and run["depth_m"] == 1.2
+    # which front end made it, from its identity frame, for the test report
+    ident = d.request("status")["identity"]
+    assert (run["frontend_model"], run["frontend_serial"], run["frontend_firmware"]) == (
+        ident["model"], ident["serial"], ident["firmware"]) and ident["serial"]
     # the simulator's own log: on once, off once, by command; time zero is when it really went on
     on, off = sim.heater_events()
     assert (on["heater_on"], on["reason"], off["heater_on"], off["reason"]) == (True, "host command", False,
@@ -92,10 +96,15 @@ def test_operator_stop_abort_and_refusals(rig) -> None:
     ops = [json.loads(e["data"]) for e in run["events"] if e["kind"] == "operator"]
     assert ops and ops[0]["peer"]["uid"] is not None  # who asked is on record
     d.wait_state(rid, "done")
+    events = d.subscribe()
     rid2 = d.request("start", **plan)["run_id"]
     wait_for(lambda: sim.state()["heater_on"], 10, "heater on")
+    wait_for(lambda: (d.request("status")["run"] or {}).get("estimate"), 30, "a live estimate")
     d.request("abort", reason="probe hit a stone")
     assert d.wait_state(rid2, "aborted") == "aborted"
+    finished = events.next(lambda e: e.get("event") == "run_finished" and e["run_id"] == rid2, 30)
+    assert finished["results"] and all("aborted" in r["flags"] for r in finished["results"].values())
+    events.close()
     wait_for(lambda: not sim.state()["heater_on"], 2, "heater off after abort")
     assert sim.heater_events()[-1]["reason"] == "host command"
     assert d.request("run", run_id=rid2)["run"]["end_reason"] == "probe hit a stone"
@@ -312,13 +321,15 @@ def test_simulate_mode_needs_no_configuration(tmp_path: Path) -> None:
 
 
 def test_simulate_with_the_real_firmware_on_the_simulated_board(tmp_path: Path) -> None:
-    """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware."""
+    """``--simulate --firmware``: the front end the daemon talks to is the firmware in hardware/firmware, in its
+    own MicroPython process (the dev extra installs the interpreter), and the start-up line says so."""
     proc = subprocess.Popen([sys.executable, "-m", "linerig.daemon.main", "--simulate", "--firmware", "--speed", "20",
                              "--socket", str(tmp_path / "s.sock"), "--db", str(tmp_path / "r.db")],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
     try:
         assert proc.stdout is not None
-        assert json.loads(proc.stdout.readline())["ready"]
+        ready = json.loads(proc.stdout.readline())
+        assert ready["ready"] and ready["firmware"] == "micropython"
 
         def identity() -> dict | None:
             with socket.socket(socket.AF_UNIX) as s:
@@ -359,7 +370,7 @@ async def test_an_unhandled_error_turns_the_heater_off_and_stops_the_daemon(tmp_
     sim = Sim(tmp_path, speed=20)
     store = Store(tmp_path / "r.db")
     svc = RigService(DaemonSettings(frontend_url=sim.frontend, probe=load_default_probe()), store, Hub())
-    svc.reducer_factory = lambda sensor: ExplodingReducer  # type: ignore[method-assign]
+    svc.reducer_factory = lambda sensor, *calibration: ExplodingReducer  # type: ignore[method-assign]
     await svc.start()
     try:
         for _ in range(500):

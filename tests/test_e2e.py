@@ -19,6 +19,7 @@ import pytest
 from simulated_daemon import simulated_daemon
 
 from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
+from tests.daemon_harness import _json_request, wait_for
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -84,7 +85,15 @@ def test_repeat_cycles_are_followed_to_the_end_of_the_series(daemon: dict) -> No
     con = sqlite3.connect(daemon["db"])
     cycles = con.execute("SELECT cycle FROM runs WHERE series_id = ? ORDER BY id", [out["series_id"]]).fetchall()
     assert [c[0] for c in cycles] == [1, 2]
-    assert all(r["results"]["heater"]["k_W_per_mK"] > 0 for r in out["runs"])
+    # each cycle reduced on its own: the first to the simulated material's conductivity (its input, not a fitted
+    # number); a later one starts on ground still cooling from the one before (its residual is not modelled,
+    # DEVELOPERS.md), so it must either read within 5 % too or say why it may not (drift, recovery disagreeing)
+    k_true = get_material(DEFAULT_MATERIAL_KEY).k_W_per_mK
+    res = [r["results"]["heater"] for r in out["runs"]]
+    assert abs(res[0]["k_W_per_mK"] / k_true - 1) < 0.05, res[0]
+    for r in res[1:]:
+        ok = abs(r["k_W_per_mK"] / k_true - 1) < 0.05
+        assert ok or {"drift", "not_settled", "heat_cool_disagree"} & set(r["flags"]), (r["k_W_per_mK"], r["flags"])
     # the heater went on and off once per cycle
     events = [json.loads(line)["heater_on"] for line in daemon["heater_log"].read_text().splitlines()]
     assert events == [True, False, True, False]
@@ -105,6 +114,9 @@ def test_time_zero_is_the_firmwares_own_switch_on(tmp_path: Path) -> None:
                               text=True)
     try:
         assert daemon.stdout is not None and json.loads(daemon.stdout.readline()).get("ready")
+        assert info["firmware"] == "micropython"  # its own process, as on a board
+        # the firmware's process boots after the simulator's start-up line: wait for the link as an operator would
+        wait_for(lambda: _json_request(sock, {"op": "status"}).get("link_up"), 20, "the front end link")
         cmd = [sys.executable, "-m", "linerig.tui.cli", "--socket", str(sock), "start", "--heat-s", "300",
                "--recover-s", "200", "--baseline-s", BASELINE_S, "--wait", "--json"]
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=100)

@@ -299,7 +299,8 @@ def test_store_round_trip_and_report(tmp_path: Path) -> None:
     store = open_store(tmp_path / "q.db")
     try:
         qid = save_qualification(store.db, q)
-        rows = list_qualifications(store.db, q.profile.serial)
+        assert list_qualifications(store.db, q.profile.serial) == []   # simulated: never under the real serial
+        rows = list_qualifications(store.db, f"simulated:{q.profile.serial}")
         assert rows[0]["id"] == qid and rows[0]["passed"] is False and rows[0]["failed"] == ["heater_drift"]
         row = load_qualification(store.db, qid)
     finally:
@@ -311,7 +312,7 @@ def test_store_round_trip_and_report(tmp_path: Path) -> None:
     assert "NOT QUALIFIED" in text and "heater_drift" in text
     for cid in CRITERION_IDS:
         assert cid in text
-    assert text.count("data:image/png;base64,") == 5
+    assert text.count("data:image/svg+xml;base64,") == 5
     assert pdf_path.read_bytes()[:5] == b"%PDF-"
 
 

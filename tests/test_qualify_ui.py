@@ -1,5 +1,5 @@
 """The qualification screen driven by Textual's pilot: a simulated qualification with the insulation reading asked
-for in the prompt line, the verdict table filled and the result stored."""
+for in the prompt line, the verdict table filled, and nothing stored against the probe's real serial."""
 
 from __future__ import annotations
 
@@ -7,11 +7,11 @@ import asyncio
 from pathlib import Path
 
 from textual.app import App
-from textual.widgets import DataTable, Input, Static
+from textual.widgets import Checkbox, DataTable, Input, Static
 
 from linerig.daemon.qualify.config import CRITERION_IDS
 from linerig.daemon.qualify.simrig import SimSetup
-from linerig.daemon.qualify.store import list_qualifications, open_store
+from linerig.daemon.qualify.store import list_qualifications, open_store, save_qualification
 from linerig.tui.screens.qualify import QualifyScreen
 
 PROFILE = """
@@ -68,21 +68,27 @@ async def test_screen_runs_a_simulated_qualification_with_a_prompt(tmp_path: Pat
         assert table.row_count == len(q.results)
         assert {str(table.get_row_at(i)[1]) for i in range(table.row_count)} == set(CRITERION_IDS)
         assert "QUALIFIED" in str(screen.query_one("#verdict", Static).content)
+    # a simulated unit is not the probe: the screen stores nothing, and the store itself would key it apart
+    assert screen.qualification_id is None
     store = open_store(db)
     try:
-        rows = list_qualifications(store.db)
+        assert list_qualifications(store.db) == []
+        qid = save_qualification(store.db, q)
+        assert [(r["id"], r["probe_serial"]) for r in list_qualifications(store.db)] == [(qid, "simulated:QN-0077")]
+        assert list_qualifications(store.db, "QN-0077") == []
     finally:
         store.close()
-    assert [r["probe_serial"] for r in rows] == ["QN-0077"] and rows[0]["id"] == screen.qualification_id
 
 
-async def test_screen_reports_a_missing_profile(tmp_path: Path) -> None:
-    screen = QualifyScreen(tmp_path / "nowhere.toml", simulate=True, save=False)
+async def test_the_screen_starts_on_the_real_rig_and_stores_in_the_daemons_database(tmp_path: Path) -> None:
+    """A screen opened from the operator's app (F6) qualifies the real probe by default, and its store is the
+    file the daemon's status names, not a database of the UI's own."""
+    from types import SimpleNamespace
+
+    screen = QualifyScreen()
     app = _Host(screen)
+    app.live = SimpleNamespace(status={"db": str(tmp_path / "daemon.db")})  # type: ignore[attr-defined]
     async with app.run_test(size=(140, 45)) as pilot:
         await pilot.pause()
-        await pilot.click("#start")
-        await asyncio.wait_for(screen.finished.wait(), 30)
-        await pilot.pause()
-        assert screen.qualification is None
-        assert "Could not qualify" in str(screen.query_one("#verdict", Static).content)
+        assert screen.query_one("#simulate", Checkbox).value is False
+        assert screen._store_path() == tmp_path / "daemon.db"

@@ -1,5 +1,7 @@
 """Probe factor from reference media, and unit conversions at the edges."""
 
+import math
+
 import numpy as np
 import pytest
 from iapws import IAPWS95
@@ -10,6 +12,7 @@ from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.calibration import apply_factor, calibrate, probe_factor
 from linerig.daemon.reduction.data import RunData
 from linerig.daemon.reduction.synthetic import line_source_run
+from linerig.daemon.workflows.calibration import reference_value
 
 
 def _water_k(temp_C: float) -> tuple[float, float]:
@@ -36,9 +39,11 @@ def test_factor_from_water_corrects_a_glycerol_run() -> None:
     probe = ProbeProfile(name="lab needle", radius_mm=0.635)
     k_w, rc_w = _water_k(25.0)
     water = reduce_run(_run(k_w, rc_w, 0.03), probe, method="line").sensors["heater"]
-    f, f_u = probe_factor(water, k_w, 0.015 * k_w)  # IAPWS 2011 quoted uncertainty ≈ 1.5 % for liquid (from memory)
+    ref_u = reference_value("water", 25.0).k_u_W_per_mK  # the one place the water reference's u is stated
+    f, f_u = probe_factor(water, k_w, ref_u)
     assert f == pytest.approx(1 / 1.03, rel=0.005)
-    assert 0.015 / 1.03 < f_u < 0.03
+    # u(F)/F = √[(u_ref/k_ref)² + (u_meas/k_meas)²] (calibration.py, JCGM 100 §5.1.2 for a quotient)
+    assert f_u / f == pytest.approx(math.hypot(ref_u / k_w, water.k_raw_u_W_per_mK / water.k_raw_W_per_mK))
     # glycerol ≈ 0.286 W/(m·K), ρc ≈ 3.06 MJ/(m³·K) near 25 °C: handbook value [from memory, ±2 %]
     gly = reduce_run(_run(0.286, 3.06e6, 0.03), probe, method="line", calibration_factor=f,
                      calibration_factor_u=f_u).sensors["heater"]

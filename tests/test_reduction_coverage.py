@@ -1,9 +1,13 @@
-"""Coverage of the expanded (k = 2) interval on 200 noisy synthetic records (fast late-time method).
+"""Coverage of the noise terms of the budget on 200 noisy synthetic records (fast late-time method).
 
 Records: exact line-source response (Carslaw & Jaeger 1959 §10.4) of a water-like medium plus white or AR(1)
-noise and a small random drift; the interval should hold the true k in about 95 % of cases (binomial
-sd ≈ 1.5 % at n = 200, so 90–99 % is accepted).
+noise and a small random drift. The statistical and drift terms (what noise and drift do) must hold the true k
+in about 95 % of cases (binomial sd ≈ 1.5 % at n = 200, so 90–99 % is accepted). The window's model-error term is
+left out here: on an exact line source it only adds width; its coverage is measured on the resolved-probe
+reference records by bench/reference_bench.py.
 """
+
+import math
 
 import numpy as np
 
@@ -34,5 +38,6 @@ def test_expanded_interval_covers_about_95_percent() -> None:
         drift = rng.normal(0, 0.2) / 3600.0 * t
         data = RunData(t, qq, {"heater": clean + noise + drift})
         res = reduce_run(data, probe, method="line", power_u_rel=0.0, stable_rule=False).sensors["heater"]
-        inside += abs(res.k_W_per_mK - k) <= res.k_U_W_per_mK
+        u_noise = res.k_W_per_mK * math.hypot(res.u_budget_rel["statistical"], res.u_budget_rel["drift"])
+        inside += abs(res.k_W_per_mK - k) <= 2.0 * u_noise
     assert 0.90 * n <= inside <= 0.99 * n, inside

@@ -44,12 +44,21 @@ def test_case_a_two_point_bias_and_intercept_diffusivity() -> None:
     assert win.alpha_from_intercept(r, math.log(1.234156)) == pytest.approx(1.4548e-7, rel=1e-5)
 
 
-def test_case_b_local_slope() -> None:
-    # Exact local slope dΔT/d ln t = q/(4πk)·exp(−r²/4αt) (derived from the E1 solution): case B at 60 and 1000 s
+def test_case_b_window_start_is_where_the_exact_local_slope_reaches_99_percent() -> None:
+    # Case B (dry sand): the window rule's start, line_start_s, against the local slope of the exact solution
+    # dΔT/d ln t, differentiated numerically by mpmath from E1 (Carslaw & Jaeger §10.4), relative to q/(4πk)
+    import mpmath
+
     k, rho_c, q, r = CASES["B"]
     alpha = k / rho_c
-    for t, expected in [(60.0, 0.790002), (1000.0, 0.795427)]:
-        assert q / (4 * math.pi * k) * math.exp(-(r**2) / (4 * alpha * t)) == pytest.approx(expected, rel=2e-6)
+    for tol in (0.01, 0.05):
+        t1 = win.line_start_s(r, alpha, tol)
+        slope = mpmath.diff(lambda s: mpmath.e1(r * r / (4 * alpha * mpmath.exp(s))), mpmath.log(t1))
+        assert float(slope) == pytest.approx(1.0 - tol, abs=1e-9)
+        # and the fitted window of a record of case B starts no earlier than that
+        res = reduce_run(_record(k, rho_c, q, r, heat_s=600.0), ProbeProfile(name="ideal line", radius_mm=r * 1e3),
+                         method="line", stable_rule=False).sensors["heater"]
+        assert res.window_s is not None and res.window_s[0] >= win.line_start_s(r, alpha, 0.01) * 0.95
 
 
 def test_window_criteria_match_published_numbers() -> None:
@@ -85,7 +94,10 @@ def test_recovery_and_joint_fit_on_exact_record() -> None:
     # late-time recovery ΔT = q/(4πk)·ln(t/(t − t_h)) (Carslaw & Jaeger §10.4 superposition)
     assert s.recovery is not None and s.joint is not None
     assert s.recovery.k_W_per_mK == pytest.approx(k, rel=0.005)
-    assert s.joint.k_W_per_mK == pytest.approx(k, rel=0.005)
+    # the joint fit frees the drift, which takes up part of the early heating's curvature: within 1 %, and its
+    # expanded uncertainty (with the window term, the predicted departure as a rectangular distribution) holds it
+    assert s.joint.k_W_per_mK == pytest.approx(k, rel=0.01)
+    assert abs(s.joint.k_W_per_mK - k) <= 2 * s.joint.k_u_W_per_mK
     assert "heat_cool_disagree" not in s.flags
 
 

@@ -43,10 +43,19 @@ def test_incremental_fit_equals_direct_fit_on_its_window() -> None:
     red, ests = replay(t, T, data.q_W_per_m, PROBE)
     e = ests[-1]
     sel = (t >= e.window_s[0]) & (t <= e.window_s[1])
-    lf = fit_line(np.log(t[sel]), T[sel] - red.baseline.at(t[sel]))
-    assert e.k_W_per_mK == pytest.approx(5.0 / (4 * math.pi * lf.slope), rel=1e-9)
+    u, y = np.log(t[sel]), T[sel] - red.baseline.at(t[sel])
+    lf = fit_line(u, y)
     assert e.k_u_stat_W_per_mK == pytest.approx(e.k_W_per_mK * lf.slope_u / lf.slope, rel=1e-6)
     assert e.rho1 == pytest.approx(lf.rho1, abs=1e-6)
+    # k: the same window with the drift as a third parameter, the baseline's own fit of it as a prior (weighted
+    # least squares with one pseudo-row), computed directly
+    base = red.baseline
+    s2 = (lf.slope_u / lf.slope) ** 2 * lf.slope**2 * float(((u - u.mean()) ** 2).sum())  # s²·AR inflation
+    A = np.column_stack([u, np.ones_like(u), t[sel]]) / math.sqrt(s2)
+    prior = np.array([[0.0, 0.0, 1.0 / base.fitted_rate_u_K_per_s]])
+    b0 = (base.fitted_rate_K_per_s - base.rate_K_per_s) / base.fitted_rate_u_K_per_s
+    theta, *_ = np.linalg.lstsq(np.vstack([A, prior]), np.append(y / math.sqrt(s2), b0), rcond=None)
+    assert e.k_W_per_mK == pytest.approx(5.0 / (4 * math.pi * theta[0]), rel=1e-9)
 
 
 def test_offline_stable_at_is_the_live_verdict_and_close_to_final() -> None:
@@ -65,3 +74,27 @@ def test_noisy_record_is_not_stable_early() -> None:
     _, ests = replay(data.time_s, data.temps_C["heater"], data.q_W_per_m, PROBE, target_rel_u=0.005)
     assert all(not e.stable for e in ests)
     assert "noise_high" in ests[-1].flags
+
+
+def test_live_uncertainty_shrinks_as_heating_goes_on() -> None:
+    # The default plan (120 s baseline, 600 s at 5 W/m) with the default needle in the simulator's moist sand (its
+    # finite-volume solver, noise 10 mK). Before the drift became a parameter of the live fit, the ± grew from
+    # about 1.7 % after a minute to 6.4 % at the end of heating (the baseline's slope uncertainty extrapolated).
+    from pathlib import Path
+
+    from linerig.daemon.probe import load_probe_profile
+    from linerig.daemon.sim.materials import get_material
+    from linerig.daemon.sim.records import recorded_run
+    from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
+
+    needle = load_probe_profile(Path(__file__).resolve().parents[1] / "daemon" / "profiles" / "default-needle.toml")
+    for seed in (2, 3):
+        rig = SimulatedRig(get_material("moist-sand"), ProbeSpec.default_needle(), seed=seed, axial_loss=True)
+        data = recorded_run(rig, baseline_s=120.0, heat_s=600.0, recover_s=0.0, q_W_per_m=5.0)
+        _, ests = replay(data.time_s, data.temps_C["heater"], data.q_W_per_m, needle)
+        rel = {round(e.t_s): e.k_u_W_per_mK / e.k_W_per_mK for e in ests}
+        later = [v for t, v in rel.items() if t >= 60]
+        # at the end no wider than after the first minute (once axial loss bends the line the window stops there
+        # and the ± with it), and never on the way more than half as wide again
+        assert rel[max(rel)] <= 1.02 * rel[60], (seed, rel[60], rel[max(rel)])
+        assert max(later) <= 1.5 * rel[60], (seed, rel[60], max(later))

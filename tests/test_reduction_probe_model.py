@@ -8,10 +8,12 @@ import pytest
 
 from linerig.daemon.reduction.probe_model import long_time_response, response_stehfest, response_talbot
 
-# 4πk·ΔT/q of the Blackwell (1954) probe model at τ = 1, 10, 100, 1000, computed with mpmath.invertlaplace
-# (Talbot and de Hoog agreeing to 8+ digits) in the project's check-value notes. Model: Blackwell 1954,
-# J. Appl. Phys. 25:137; Jaeger 1956, Aust. J. Phys. 9:167.
-BLACKWELL_TABLE = {
+# 4πk·ΔT/q of the Blackwell (1954) probe model at τ = 1, 10, 100, 1000. Not a published table: the project's own
+# numerical inversion of the transform, with mpmath.invertlaplace (Talbot and de Hoog agreeing to 8+ digits), kept
+# in the project's check-value notes. It pins the module's inversions to those digits; the transform itself is
+# checked independently below against the real-integral form of Jaeger (1956) / Carslaw & Jaeger (1959) §13.7.
+# Model: Blackwell 1954, J. Appl. Phys. 25:137; Jaeger 1956, Aust. J. Phys. 9:167.
+PROJECT_INVERSION_TABLE = {
     (2, 0): [1.22745361, 3.16185916, 5.41926665, 7.71733430],
     (2, 0.5): [1.81621819, 4.11011261, 6.41421830, 8.71683352],
     (2, 2): [2.76015202, 6.91982616, 9.39883357, 11.71532893],
@@ -25,9 +27,9 @@ BLACKWELL_TABLE = {
 TAU = np.array([1.0, 10.0, 100.0, 1000.0])
 
 
-@pytest.mark.parametrize(("aj", "h"), list(BLACKWELL_TABLE))
-def test_inversions_match_blackwell_table(aj: float, h: float) -> None:
-    ref = np.array(BLACKWELL_TABLE[(aj, h)])
+@pytest.mark.parametrize(("aj", "h"), list(PROJECT_INVERSION_TABLE))
+def test_inversions_match_the_projects_mpmath_inversion(aj: float, h: float) -> None:
+    ref = np.array(PROJECT_INVERSION_TABLE[(aj, h)])
     assert response_talbot(TAU, aj, h) == pytest.approx(ref, rel=3e-8)   # table printed to 8 decimals
     assert response_stehfest(TAU, aj, h) == pytest.approx(ref, rel=1e-5)  # Stehfest N=14 in double precision
 
@@ -71,3 +73,17 @@ def test_finite_sample_reaches_steady_conduction() -> None:
     # shell, ΔT = q/(2πk)·ln(R/a) (Fourier's law, any heat-transfer textbook), i.e. 4πkΔT/q = 2 ln(R/a) + 2h.
     tau = np.array([1e5])
     assert response_talbot(tau, 2.0, 0.5, outer_rho=20.0)[0] == pytest.approx(2 * math.log(20) + 1.0, rel=1e-6)
+
+
+@pytest.mark.parametrize(("aj", "h"), [(2.0, 0.0), (1.0, 0.5), (0.5, 2.0)])
+def test_transform_against_jaegers_real_integral(aj: float, h: float) -> None:
+    # The real-integral solution for a perfectly conducting cylinder with heat capacity behind a contact
+    # conductance (Jaeger 1956; Carslaw & Jaeger 1959 §13.7), evaluated by quadrature in the reference solver's
+    # analytic module (tests/reference/analytic.py), which shares no code with this Laplace-domain model. With
+    # k = α = a = 1 and q = 4π it returns 4πk·ΔT/q at t = τ; S = 2πa²ρc/α_J and H = k/(a·h).
+    from tests.reference.analytic import jaeger_probe
+
+    tau = np.array([1.0, 10.0, 100.0, 1000.0])
+    ref = jaeger_probe(4 * math.pi, 1.0, 1.0, 1.0, 2 * math.pi / aj, None if h == 0 else 1.0 / h, tau)
+    assert response_talbot(tau, aj, h) == pytest.approx(ref, rel=1e-7)
+    assert response_stehfest(tau, aj, h) == pytest.approx(ref, rel=2e-5)

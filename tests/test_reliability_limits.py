@@ -32,8 +32,8 @@ stale_after_s = 0.5     # below the 0.8 s lease, so silence is caught as stale d
 
 
 class Rig:
-    def __init__(self, tmp: Path, config: str, speed: float = SPEED) -> None:
-        self.sim = Sim(tmp, speed=speed)
+    def __init__(self, tmp: Path, config: str, speed: float = SPEED, sim_extra: tuple[str, ...] = ()) -> None:
+        self.sim = Sim(tmp, speed=speed, extra=sim_extra)
         self.daemon = Daemon(tmp, self.sim.frontend, config=write_config(tmp / "rig.toml", config))
         self.daemon.wait_link()
         self.events = self.daemon.subscribe()
@@ -52,10 +52,11 @@ class Rig:
         assert ev["state"] == "faulted", ev
         return str(ev["reason"])
 
-    def assert_off_within_one_period(self, rid: int) -> None:
+    def assert_off_within_one_period(self, rid: int, by: str = "host command") -> None:
+        """``by``: the simulator's reason for the switch-off (the daemon's command, or the firmware's own trip)."""
         wait_for(lambda: not self.sim.state()["heater_on"], 2, "heater off")
         off = self.sim.heater_events()[-1]
-        assert off["heater_on"] is False and off["reason"] == "host command", off
+        assert off["heater_on"] is False and off["reason"].startswith(by), off
         con = sqlite3.connect(f"file:{self.daemon.db}?mode=ro", uri=True)
         breach_s = con.execute("SELECT device_s FROM samples WHERE run_id = ? ORDER BY n DESC LIMIT 1",
                                [rid]).fetchone()[0]
@@ -75,14 +76,29 @@ def rig_a(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Rig]:
     rig.close()
 
 
-@pytest.mark.parametrize(("fault", "kw", "words"), [
+@pytest.fixture(scope="module")
+def rig_fw(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Rig]:
+    """The same rig with the real firmware on the simulated board (its own MicroPython process)."""
+    rig = Rig(tmp_path_factory.mktemp("limits-fw"), CONFIG_A, sim_extra=("--firmware",))
+    assert rig.sim.info["firmware"] == "micropython"
+    yield rig
+    rig.close()
+
+
+PHYSICAL_FAULTS = [
     ("overpower", {"factor": 1.5}, "heater power"),
     ("heater_short", {}, "heater shorted"),
     ("heater_open", {}, "heater draws no current"),
     ("open_tc:heater", {}, "report a fault (open thermocouple?)"),
     ("battery_low", {}, "supply voltage"),
     ("poor_contact", {}, "temperature rise"),
-])
+]
+# what the firmware's own hard limits call the same faults (PROTOCOL.md §7.1), when they act first
+FIRMWARE_CODES = {"overpower": "OVERPOWER", "heater_short": "HEATER_SHORT", "heater_open": "HEATER_OPEN",
+                  "open_tc:heater": "TC_OPEN", "battery_low": "SUPPLY_LOW", "poor_contact": "OVERTEMP"}
+
+
+@pytest.mark.parametrize(("fault", "kw", "words"), PHYSICAL_FAULTS)
 def test_a_physical_fault_trips_its_limit_within_one_sample(rig_a: Rig, fault: str, kw: dict, words: str) -> None:
     rid = rig_a.heat()
     rig_a.sim.inject(fault, True, **kw)
@@ -94,6 +110,24 @@ def test_a_physical_fault_trips_its_limit_within_one_sample(rig_a: Rig, fault: s
         assert st["fault"] == reason and not st["heater_armed"]
     finally:
         rig_a.sim.inject(fault, False)
+
+
+@pytest.mark.parametrize(("fault", "kw", "words"), PHYSICAL_FAULTS)
+def test_with_the_firmware_either_layer_trips_within_one_sample(rig_fw: Rig, fault: str, kw: dict,
+                                                                 words: str) -> None:
+    """The firmware's hard limits may act before the daemon's: either is detection. The firmware's trip
+    reaches the daemon as its F frame (``front end reports CODE``) and switches the heater off by itself."""
+    rid = rig_fw.heat()
+    rig_fw.sim.inject(fault, True, **kw)
+    try:
+        reason = rig_fw.faulted(rid)
+        code = FIRMWARE_CODES[fault]
+        by_firmware = reason.startswith(f"front end reports {code}:")
+        assert by_firmware or words in reason, reason
+        rig_fw.assert_off_within_one_period(rid, by=f"fault {code}:" if by_firmware else "host command")
+        assert not rig_fw.daemon.status()["heater_armed"]
+    finally:
+        rig_fw.sim.inject(fault, False)
 
 
 def test_frame_loss_burst_trips(rig_a: Rig) -> None:

@@ -31,7 +31,7 @@ def test_report_from_csv_html_and_pdf(run_csv: Path, tmp_path: Path, capsys: pyt
     html = html_out.read_text(encoding="utf-8")
     assert "invented bench run in water" in html
     assert "Cautions" in html and "Method" in html and "References" in html
-    assert html.count("data:image/png;base64,") >= 3
+    assert html.count("data:image/svg+xml;base64,") >= 3
     pdf_out = tmp_path / "w.pdf"
     assert main(["report", "--csv", str(run_csv), "-o", str(pdf_out), "--calibration-factor", "1.01"]) == 0
     assert pdf_out.read_bytes()[:4] == b"%PDF"

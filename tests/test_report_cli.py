@@ -4,9 +4,9 @@ export, profile, cycles, calibrate and dryout from runs."""
 from __future__ import annotations
 
 import csv
-import importlib.util
 import io
 import json
+import shutil
 import sqlite3
 from pathlib import Path
 from typing import Any
@@ -16,19 +16,16 @@ import pytest
 from linerig.daemon.runcsv import read_run_csv
 from linerig.tui.cli import main
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "examplemoor.py"
 SITE = "Examplemoor substation"
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
-    spec = importlib.util.spec_from_file_location("examplemoor", EXAMPLES)
-    assert spec and spec.loader
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+def demo(example_site: tuple[Path, dict[str, Any]], tmp_path_factory: pytest.TempPathFactory
+         ) -> tuple[Path, dict[str, Any]]:
+    """A copy of the session's example store (conftest.py): these tests write calibrations into it."""
     path = tmp_path_factory.mktemp("db") / "demo.db"
-    ids = mod.build_demo_db(path)
-    return path, ids
+    shutil.copyfile(example_site[0], path)
+    return path, example_site[1]
 
 
 def _cli(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]:
@@ -44,10 +41,10 @@ def test_run_report_html_is_self_contained(demo: tuple[Path, dict[str, Any]], tm
     rc, _, err = _cli(capsys, "report", str(ids["bh1"][2]), "--db", str(db), "-o", str(out))
     assert rc == 0, err
     html = out.read_text(encoding="utf-8")
-    assert html.count("data:image/png;base64,") >= 3          # fit, estimate history, cooling
+    assert html.count("data:image/svg+xml;base64,") >= 3          # fit, estimate history, cooling: vector
     assert "http://" not in html and "https://" not in html and "<script" not in html
-    for needle in ("Calibration traceability", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
-                   "Blackwell", "U (k=2)", SITE):
+    for needle in ("Calibration", "agar-water", "IAPWS", "Cautions", "buried services", "licensed",
+                   "Blackwell", "U (k = 2)", "Report number", "Method statement", "ASTM D5334", "Sign-off", SITE):
         assert needle in html, needle
 
 
@@ -222,3 +219,61 @@ def test_report_of_a_multi_cycle_run_shows_the_last_cycle(demo: tuple[Path, dict
     rc, _, err = _cli(capsys, "report", str(ids["cycles_run"]), "--db", str(db), "-o", str(out))
     assert rc == 0, err
     assert "This run holds 3 heating–recovery cycles" in out.read_text(encoding="utf-8")
+
+
+# What `linerig reduce` prints of a result: k to 4 significant digits, U to 2 (tui/commands/reduce.py print_table).
+def _printed(res: dict[str, Any]) -> tuple[str, ...]:
+    def f(v: float | None, d: int) -> str:
+        return "—" if v is None else f"{v:.{d}g}"
+
+    return (f(res["k_W_per_mK"], 4), f(res["k_U_W_per_mK"], 2), f(res["alpha_mm2_per_s"], 3),
+            f(res["rho_c_MJ_per_m3K"], 3), res["method"], str(res["window_s"]))
+
+
+def test_exported_run_reduces_to_the_stored_result_with_its_calibration(
+        demo: tuple[Path, dict[str, Any]], tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """A calibrated run (factor from the agar-water calibration, stored with its u) exported as a run CSV and
+    reduced with no options: the file's header carries probe, factor and u, and the result is the stored one."""
+    db, ids = demo
+    run_id = ids["bh1"][2]
+    out = tmp_path / "bh1.csv"
+    rc, _, err = _cli(capsys, "export", str(run_id), "--what", "samples", "--db", str(db), "-o", str(out))
+    assert rc == 0, err
+    con = sqlite3.connect(db)
+    stored = json.loads(con.execute("SELECT data FROM results WHERE run_id = ?", [run_id]).fetchone()[0])
+    factor, factor_u = con.execute("SELECT factor, factor_u FROM calibrations WHERE accepted = 1").fetchone()
+    assert stored["calibration_factor"] == factor != 1.0 and stored["calibration_factor_u"] == factor_u > 0
+    header = out.read_text(encoding="utf-8")
+    assert "# probe_serial: FN-0412" in header and f"# calibration_factor: {factor!r}" in header
+    assert f"# calibration_factor_u: {factor_u!r}" in header and "# probe_profile: {" in header
+    rc, text, err = _cli(capsys, "reduce", str(out), "--json")
+    assert rc == 0, err
+    assert "applying the probe factor" in err and "FN-0412" in err
+    again = json.loads(text)["sensors"]["heater"]
+    assert _printed(again) == _printed(stored)
+    for key in ("k_W_per_mK", "k_u_W_per_mK", "alpha_mm2_per_s", "rho_c_MJ_per_m3K", "calibration_factor_u"):
+        assert again[key] == pytest.approx(stored[key], rel=1e-12), key
+
+
+def test_reduce_says_why_a_calibration_is_or_is_not_applied(tmp_path: Path,
+                                                           capsys: pytest.CaptureFixture[str]) -> None:
+    src = (Path(__file__).resolve().parent.parent / "examples" / "examplemoor" / "run_BH1_1.5m.csv")
+    body = "\n".join(ln for ln in src.read_text(encoding="utf-8").splitlines() if not ln.startswith("#"))
+    named = tmp_path / "named.csv"
+    named.write_text("# probe_serial: FN-0412\n" + body, encoding="utf-8")
+    rc, text, err = _cli(capsys, "reduce", str(named), "--json")
+    assert rc == 0 and "no calibration_factor" in err and "factor 1" in err
+    assert json.loads(text)["sensors"]["heater"]["calibration_factor"] == 1.0
+    bad = tmp_path / "bad.csv"
+    bad.write_text("# probe_serial: FN-0412\n# calibration_factor: 0.9x\n" + body, encoding="utf-8")
+    rc, _, err = _cli(capsys, "reduce", str(bad))
+    assert rc == 2 and "line 2" in err and "calibration_factor" in err
+    given = tmp_path / "given.csv"
+    given.write_text("# calibration_factor: 0.96\n# calibration_factor_u: 0.004\n" + body, encoding="utf-8")
+    rc, text, err = _cli(capsys, "reduce", str(given), "--json", "--calibration-factor", "1.0")
+    assert rc == 0 and "warning" in err and "0.96" in err
+    assert json.loads(text)["sensors"]["heater"]["calibration_factor"] == 1.0
+    rc, text, err = _cli(capsys, "reduce", str(given), "--json")
+    res = json.loads(text)["sensors"]["heater"]
+    assert rc == 0 and res["calibration_factor"] == 0.96 and res["calibration_factor_u"] == 0.004
+    assert res["u_budget_rel"]["calibration"] == pytest.approx(0.004 / 0.96)

@@ -26,10 +26,11 @@ from linerig.daemon.rig import its90
 from linerig.daemon.rig.framing import Frame, FrameDecoder, decode_line, encode_frame
 from linerig.daemon.rig.messages import Sample, parse_message
 from linerig.daemon.rig.transport import SerialTransport
-from linerig.daemon.sim.firmware_host import _LINK_FIELDS, MAX_CYCLES_PER_CALL, FirmwareFrontEnd, firmware_modules
+from linerig.daemon.sim.firmware_host import MAX_CYCLES_PER_CALL, FirmwareFrontEnd, firmware_modules
 from linerig.daemon.sim.materials import get_material
 from linerig.daemon.sim.rig_model import ProbeSpec, SensorSpec, SimulatedRig
 from linerig.daemon.sim.server import PtyPort
+from linerig.daemon.sim.wall_link import LINK_FIELDS
 
 DOC = Path(__file__).resolve().parents[1] / "hardware" / "PROTOCOL.md"
 TICK_S = 0.005
@@ -508,7 +509,7 @@ def test_speed_change_keeps_device_time_continuous_and_clock_stuck_freezes_sampl
 def test_the_firmware_still_has_the_fields_kept_in_wall_time() -> None:
     device, _ = firmware_modules()
     fw = device.FrontEnd(object(), lambda frame: None, "00000000")
-    for path in _LINK_FIELDS:
+    for path in LINK_FIELDS:
         obj: Any = fw
         for part in path.split("."):
             assert hasattr(obj, part), path

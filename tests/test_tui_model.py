@@ -270,7 +270,8 @@ def synthetic_run(noise_K: float = 0.0) -> RunData:
     return RunData(t, q, {"heater": 12.0 + rise + rng.normal(0, noise_K, t.size)})
 
 
-@pytest.mark.parametrize(("method", "window"), [("auto", None), ("window", (60.0, 600.0)), ("live", None)])
+@pytest.mark.parametrize(("method", "window"), [("auto", None), ("line", (60.0, 600.0)), ("auto", (60.0, 600.0)),
+                                               ("live", None)])
 def test_rereduce_recovers_the_line_source_conductivity(method: str, window: tuple[float, float] | None) -> None:
     # noise-free: the late-time line's own error at t ≥ 60 s is r²/4αt < 0.3 %
     res = rereduce(synthetic_run(), "heater", method, window)
@@ -283,9 +284,29 @@ def test_rereduce_recovers_the_line_source_conductivity(method: str, window: tup
 def test_rereduce_refuses_a_bad_window_and_an_unknown_sensor() -> None:
     data = synthetic_run()
     with pytest.raises(ValueError, match="start < end"):
-        rereduce(data, "heater", "window", (300.0, 100.0))
+        rereduce(data, "heater", "line", (300.0, 100.0))
+    with pytest.raises(ValueError, match="unknown method"):
+        rereduce(data, "heater", "window")
     with pytest.raises(ValueError, match="no sensor"):
         rereduce(data, "r99", "auto")
+
+
+def test_rereduce_gives_the_numbers_of_reduce_json(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """The screen's re-reduction and `linerig reduce --json` on the exported CSV agree, method and window too."""
+    from linerig.tui.cli import main
+
+    data = synthetic_run(noise_K=0.002)
+    paths = export_run(REPLAY["replies"]["run"]["run"], data, tmp_path)
+    for method, window in (("auto", None), ("line", (30.0, 300.0))):
+        res = rereduce(data, "heater", method, window)
+        argv = ["reduce", str(paths[1]), "--json", "--method", method, *(["--window", "30", "300"] if window else [])]
+        assert main(argv) == 0
+        cli = json.loads(capsys.readouterr().out)["sensors"]["heater"]
+        # the CSV keeps temperatures to 10 µK, so the two agree to the digits any screen shows, not to the bit
+        assert res["k_W_per_mK"] == pytest.approx(cli["k_W_per_mK"], rel=1e-4)
+        assert res["window_s"] == pytest.approx(cli["window_s"]) and res["method"] == cli["method"]
+        if window:
+            assert res["window_s"] == pytest.approx(list(window))
 
 
 def test_export_writes_the_reduce_csv_format(tmp_path: Path) -> None:

@@ -21,7 +21,7 @@ from typing import Any
 
 import pytest
 from textual.pilot import Pilot
-from textual.widgets import DataTable
+from textual.widgets import DataTable, Static
 
 from linerig.tui.app import LinerigApp
 from linerig.tui.screens.history import HistoryScreen, RunDetailScreen
@@ -200,13 +200,7 @@ def test_history_screen(replay: Callable[..., LinerigApp], snap_compare: Any, si
 @pytest.mark.parametrize("size", SIZES, ids=lambda s: f"{s[0]}x{s[1]}")
 def test_run_detail_screen(replay: Callable[..., LinerigApp], snap_compare: Any, size: tuple[int, int]) -> None:
     async def run_before(pilot: Pilot) -> None:
-        app = pilot.app
-        await pilot.press("f4")
-        await settle(pilot, lambda: isinstance(app.screen, HistoryScreen)
-                     and app.screen.query_one("#runs", DataTable).row_count == 4, "the run list")
-        await pilot.press("enter")
-        await settle(pilot, lambda: isinstance(app.screen, RunDetailScreen) and not app.screen.samples_note
-                     .startswith("loading"), "the run detail")
+        await _open_detail(pilot)
         await pilot.pause()
 
     assert snap_compare(replay(), terminal_size=size, run_before=run_before)
@@ -237,7 +231,120 @@ def test_history_and_probes_commands(tmp_path: Path, capsys: pytest.CaptureFixtu
         assert main(["--socket", str(srv.path), "history", "--since", "13/05/2031"]) == 2
         assert "YYYY-MM-DD" in capsys.readouterr().err
         assert main(["--socket", str(srv.path), "history", "17"]) == 0
-        assert "heater: k = 1.197 ± 0.014 W/(m·K)" in capsys.readouterr().out
+        assert "heater: k = 1.197 ± 0.028 W/(m·K) (± U, k = 2)" in capsys.readouterr().out
         assert main(["--socket", str(srv.path), "probes"]) == 0
         out = capsys.readouterr().out
-        assert "ROD-0003  three-sensor rod  (rod)  in use" in out and "factor 0.9828 ± 0.0061" in out
+        assert "ROD-0003  three-sensor rod  (rod)  in use" in out and "factor 0.9828 ± 0.0122 (± U, k = 2)" in out
+
+
+# -- the screens issue 14 fixed ------------------------------------------------------------------------------
+async def _open_detail(pilot: Pilot) -> RunDetailScreen:
+    app = pilot.app
+    await pilot.press("f4")
+    await settle(pilot, lambda: isinstance(app.screen, HistoryScreen)
+                 and app.screen.query_one("#runs", DataTable).row_count == 4, "the run list")
+    await pilot.press("enter")
+    await settle(pilot, lambda: isinstance(app.screen, RunDetailScreen) and not app.screen.samples_note
+                 .startswith("loading"), "the run detail")
+    screen = app.screen
+    assert isinstance(screen, RunDetailScreen)
+    return screen
+
+
+def test_rereduce_tab_offers_the_stored_method_in_a_readable_box(replay: Callable[..., LinerigApp],
+                                                                 snap_compare: Any) -> None:
+    async def run_before(pilot: Pilot) -> None:
+        from textual.widgets import TabbedContent
+
+        screen = await _open_detail(pilot)
+        screen.query_one("#detail-tabs", TabbedContent).active = "tab-rereduce"
+        await pilot.pause()
+
+    assert snap_compare(replay(), terminal_size=(100, 30), run_before=run_before)
+
+
+def test_export_asks_where_to_write(replay: Callable[..., LinerigApp], snap_compare: Any,
+                                   monkeypatch: pytest.MonkeyPatch) -> None:
+    from linerig.tui.screens.confirm import TextPrompt
+
+    monkeypatch.setenv("LINERIG_EXPORT_DIR", "/srv/field-data/exports")
+
+    async def run_before(pilot: Pilot) -> None:
+        await _open_detail(pilot)
+        await pilot.press("e")
+        await settle(pilot, lambda: isinstance(pilot.app.screen, TextPrompt), "the folder question")
+        await pilot.pause()
+
+    assert snap_compare(replay(), terminal_size=(80, 24), run_before=run_before)
+
+
+def test_calibration_question_is_not_cut(replay: Callable[..., LinerigApp], snap_compare: Any) -> None:
+    from linerig.tui.screens.confirm import TextPrompt
+
+    async def run_before(pilot: Pilot) -> None:
+        app = pilot.app
+        await pilot.press("f5")
+        await settle(pilot, lambda: isinstance(app.screen, ProbesScreen) and app.screen.cals_loaded, "the probes")
+        await pilot.press("c")
+        await settle(pilot, lambda: isinstance(app.screen, TextPrompt), "the reference question")
+        await pilot.pause()
+
+    assert snap_compare(replay(), terminal_size=(80, 24), run_before=run_before)
+
+
+def test_quit_while_heating_says_the_heater_stays_on(replay: Callable[..., LinerigApp], snap_compare: Any) -> None:
+    from linerig.tui.screens.confirm import Confirm
+
+    async def run_before(pilot: Pilot) -> None:
+        app = pilot.app
+        assert isinstance(app, LinerigApp)
+        await _live_ready(pilot)
+        assert app.live.run_state == "heating"
+        await pilot.press("ctrl+q")
+        await settle(pilot, lambda: isinstance(app.screen, Confirm), "the quit question")
+        await pilot.pause()
+
+    assert snap_compare(replay(), terminal_size=(80, 24), run_before=run_before)
+
+
+async def test_quit_question_keeps_the_app_on_no_and_function_keys_mean_one_thing(
+        replay: Callable[..., LinerigApp]) -> None:
+    from linerig.tui.screens.confirm import Confirm
+    from linerig.tui.screens.qualify import QualifyScreen
+
+    app = replay()
+    async with app.run_test(size=(100, 30)) as pilot:
+        await settle(pilot, replayed(app), "the replayed events")
+        await pilot.press("ctrl+q")
+        await settle(pilot, lambda: isinstance(app.screen, Confirm), "the quit question")
+        assert "STAYS ON" in str(app.screen.query_one("#detail", Static).content)
+        await pilot.press("n")
+        await settle(pilot, lambda: isinstance(app.screen, LiveScreen), "back on the live screen")
+        assert app.is_running
+        for key, screen_type in (("f4", HistoryScreen), ("f5", ProbesScreen), ("f6", QualifyScreen)):
+            await pilot.press(key)
+            await settle(pilot, lambda t=screen_type: isinstance(app.screen, t), f"{key} → {screen_type.__name__}")
+        for screen_type in (HistoryScreen, ProbesScreen):  # Reload is r there; F6 stays Qualify
+            keys = {b.key: b.action for b in screen_type.BINDINGS}  # type: ignore[union-attr]
+            assert keys.get("r") == "reload" and "f6" not in keys
+
+
+async def test_a_calibration_form_does_not_carry_the_last_sample_over(replay: Callable[..., LinerigApp]) -> None:
+    from textual.widgets import Input
+
+    app = replay()
+    async with app.run_test(size=(100, 30)) as pilot:
+        await settle(pilot, replayed(app), "the replayed events")
+        await pilot.press("f3")
+        await settle(pilot, lambda: isinstance(app.screen, StartScreen), "the form")
+        form = app.screen
+        for name, value in (("moisture_pct", "14.5"), ("dry_density_kg_per_m3", "1640"), ("location", "TP-2"),
+                            ("depth_m", "1.1"), ("operator", "field crew B")):
+            form.query_one(f"#f-{name}", Input).value = value
+        app.open_new_run("calibration", {"site": "lab", "sample": "calibration", "material": "glycerol"})
+        await pilot.press("f2", "f3")
+        await settle(pilot, lambda: form.query_one("#f-material", Input).value == "glycerol", "the calibration")
+        values = {n: form.query_one(f"#f-{n}", Input).value for n in ("moisture_pct", "dry_density_kg_per_m3",
+                                                                       "location", "depth_m", "operator")}
+        assert values == {"moisture_pct": "", "dry_density_kg_per_m3": "", "location": "", "depth_m": "",
+                          "operator": "field crew B"}

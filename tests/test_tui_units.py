@@ -38,11 +38,12 @@ def test_conductivity_passes_through_and_bad_k_gives_no_resistivity() -> None:
     assert math.isnan(rho) and u is None
 
 
-def test_shown_text_rounds_to_the_uncertainty() -> None:
-    assert show(1.4523, 0.0312, DisplayUnit.CONDUCTIVITY).text() == "1.452 ± 0.031 W/(m·K)"
-    assert show(1.4523, 0.0312, DisplayUnit.RESISTIVITY_TRADE).text() == "68.9 ± 1.5 °C·cm/W"
+def test_shown_text_is_the_expanded_uncertainty_rounded_to_two_figures() -> None:
+    # every ± on a screen is U = 2u (coverage factor 2, JCGM 100:2008 §6.2); u = 0.0312 gives U = 0.0624
+    assert show(1.4523, 0.0312, DisplayUnit.CONDUCTIVITY).text() == "1.452 ± 0.062 W/(m·K)"
+    assert show(1.4523, 0.0312, DisplayUnit.RESISTIVITY_TRADE).text() == "68.9 ± 3.0 °C·cm/W"
     assert show(None, None, DisplayUnit.CONDUCTIVITY).text() == "— W/(m·K)"
-    assert show(1.0, 0.05, DisplayUnit.CONDUCTIVITY).rel_u == pytest.approx(0.05)
+    assert show(1.0, 0.05, DisplayUnit.CONDUCTIVITY).rel_u == pytest.approx(0.10)
 
 
 def test_unit_names_and_cycle() -> None:

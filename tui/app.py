@@ -8,7 +8,10 @@ the UI only closes that socket; the daemon carries on with any run.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import os
+import signal
+import sys
 from pathlib import Path
 from typing import Any, ClassVar
 
@@ -26,10 +29,13 @@ from linerig.tui.messages import (
     RunFinished,
     RunStateChanged,
 )
+from linerig.tui.screens.confirm import Confirm
 from linerig.tui.screens.live_state import LiveState
 from linerig.tui.units import DisplayUnit, parse_unit
 
 BACKOFF_FIRST_S = 0.25
+TERMINAL_CHECK_S = 1.0
+EXIT_HUNG_UP = 128 + signal.SIGHUP
 BACKOFF_MAX_S = 5.0
 REQUEST_TIMEOUT_S = 15.0
 AUTOSTART_METADATA = {"site": "demo bench", "sample": "demo sample", "notes": "started automatically by the UI"}
@@ -84,14 +90,15 @@ class LinerigApp(App[int]):
         Binding("f5", "switch_mode('probes')", "Probes"),
         # for instrument builders, not operators: kept out of the footer (README lists it)
         Binding("f6", "switch_mode('qualify')", "Qualify", show=False),
-        Binding("ctrl+q", "quit", "Quit", priority=True),
+        Binding("ctrl+q", "request_quit", "Quit", priority=True),
     ]
 
     def __init__(self, socket_path: Path | None = None, autostart: bool = False,
-                 unit: DisplayUnit | None = None) -> None:
+                 unit: DisplayUnit | None = None, owns_daemon: bool = False) -> None:
         super().__init__()
         self.socket_path = socket_path
         self.autostart = autostart
+        self.owns_daemon = owns_daemon   # the demo: quitting stops the daemon and the simulator too
         self.unit = unit or parse_unit(os.environ.get("LINERIG_UNIT"))
         self.live = LiveState()
         self.client: Client | None = None
@@ -101,6 +108,31 @@ class LinerigApp(App[int]):
 
     def on_mount(self) -> None:
         self.run_worker(self._link(), name="daemon link", group="link", exclusive=True, exit_on_error=False)
+        self._watch_terminal()
+
+    def _watch_terminal(self) -> None:
+        """Leave when the terminal goes away (window closed, SSH dropped): on SIGHUP, and also when the hang-up
+        signal was ignored (nohup, some multiplexers), by noticing that stdin is no longer a terminal. Without
+        this a UI whose terminal is gone keeps running, and the demo keeps its daemon and simulator."""
+        if self.is_headless:
+            return
+        try:
+            fd = sys.__stdin__.fileno() if sys.__stdin__ is not None else -1
+        except (OSError, ValueError):
+            return
+        if fd < 0 or not os.isatty(fd):
+            return
+        with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):  # not on the main thread
+            asyncio.get_running_loop().add_signal_handler(signal.SIGHUP, self._hung_up)
+
+        def check() -> None:
+            if not os.isatty(fd):
+                self._hung_up()
+
+        self.set_interval(TERMINAL_CHECK_S, check)
+
+    def _hung_up(self) -> None:
+        self.exit(EXIT_HUNG_UP)
 
     # -- the daemon link ---------------------------------------------------------------------------------------
     async def _link(self) -> None:
@@ -207,6 +239,29 @@ class LinerigApp(App[int]):
         self.pending_preset = (preset, dict(metadata or {}))
         self.switch_mode("start")
 
+    def action_request_quit(self) -> None:
+        """Quit, but not without a word while a run is under way: say what happens to the heater, and ask."""
+        live = self.live
+        if not live.active or isinstance(self.screen, Confirm):
+            self.exit()
+            return
+        heating = live.run_state == "heating"
+        if self.owns_daemon:
+            detail = (f"Run {live.run_id} is {live.run_state}. This demo stops its daemon and simulated rig when "
+                      "you quit: the run ends and the simulated heater goes off.")
+        elif heating:
+            detail = (f"Run {live.run_id} is heating. The heater STAYS ON: linerigd carries on with the run and "
+                      "ends it by its plan and limits. Open linerig again to follow it, or abort it first (a).")
+        else:
+            detail = (f"Run {live.run_id} is {live.run_state}. linerigd carries on with it; open linerig again to "
+                      "follow it.")
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self.exit()
+
+        self.push_screen(Confirm("Quit the operator's screen?", detail), answered)
+
     # -- reactions -------------------------------------------------------------------------------------------
     def on_daemon_connected(self, msg: DaemonConnected) -> None:
         if msg.reconnected:
@@ -263,7 +318,7 @@ def _merge_samples(live: LiveState, arrays: dict[str, Any]) -> None:
     live.version += 1
 
 
-def run_app(socket_path: Path | None = None, autostart: bool = False) -> int:
+def run_app(socket_path: Path | None = None, autostart: bool = False, owns_daemon: bool = False) -> int:
     """Run the UI until the operator quits; ``autostart`` starts a default run once the daemon answers."""
-    result = LinerigApp(socket_path, autostart=autostart).run()
+    result = LinerigApp(socket_path, autostart=autostart, owns_daemon=owns_daemon).run()
     return int(result or 0)

@@ -7,6 +7,7 @@ socket, opens the UI with a run started, and stops the daemon when the UI closes
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import subprocess
 import sys
@@ -34,14 +35,15 @@ def main(argv: list[str] | None = None) -> int:
     try:
         from linerig.tui.app import run_app
 
-        code = run_app(sock, autostart=not args.no_autostart)
+        code = run_app(sock, autostart=not args.no_autostart, owns_daemon=True)
     finally:
-        daemon.terminate()
+        daemon.terminate()   # the daemon stops its simulator (which also watches the daemon's pid)
         try:
             daemon.wait(10)
         except subprocess.TimeoutExpired:
             daemon.kill()
-    print(f"demo database kept at {db} (open it again with: linerig --socket ... or linerig report --db {db})")
+    with contextlib.suppress(OSError):  # the terminal may be gone (a closed window): nothing to print to
+        print(f"demo database kept at {db} (open it again with: linerig report --db {db})")
     return code
 
 

@@ -35,9 +35,13 @@ class DisplayUnit(enum.StrEnum):
         return members[(members.index(self) + 1) % len(members)]
 
 
+COVERAGE = 2.0
+PM_LABEL = "± U (k = 2)"   # every ± on a screen is the expanded uncertainty, as in the reports
+
+
 @dataclass(frozen=True)
 class Shown:
-    """One value with its uncertainty, ready to print."""
+    """One value with its expanded uncertainty U = 2u (``u`` holds U), ready to print."""
 
     value: float
     u: float | None
@@ -54,6 +58,7 @@ class Shown:
 
     @property
     def rel_u(self) -> float | None:
+        """U relative to the value."""
         if self.u is None or not self.value:
             return None
         return abs(self.u / self.value)
@@ -81,10 +86,10 @@ def _digits(value: float, u: float | None, unit: DisplayUnit) -> int:
 
 
 def show(k_W_per_mK: float | None, k_u_W_per_mK: float | None, unit: DisplayUnit) -> Shown:
-    """The estimate in ``unit`` with a number of decimals matched to its uncertainty."""
+    """The estimate in ``unit`` ± U (k = 2) from its standard uncertainty, decimals matched to U."""
     if k_W_per_mK is None:
         return Shown(math.nan, None, unit, 3)
-    value, u = convert(k_W_per_mK, k_u_W_per_mK, unit)
+    value, u = convert(k_W_per_mK, None if k_u_W_per_mK is None else COVERAGE * k_u_W_per_mK, unit)
     return Shown(value, u, unit, _digits(value, u, unit))
 
 

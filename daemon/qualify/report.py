@@ -7,7 +7,6 @@ looks like every other linerig report and shares its HTML and PDF writers. Figur
 
 from __future__ import annotations
 
-import io
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -18,8 +17,11 @@ from matplotlib.figure import Figure
 from linerig.daemon.reduction import window as win
 from linerig.daemon.reduction.probe_model import response_stehfest
 from linerig.daemon.report import model as rm
+from linerig.daemon.report.build import identification, report_number, when
 from linerig.daemon.report.html import render_html
 from linerig.daemon.report.pdf import render_pdf
+from linerig.daemon.report.plots import svg_bytes
+from linerig.daemon.report.text import SIGN_OFF
 
 STATUS_WORDS = {"pass": "PASS", "fail": "FAIL", "warn": "WARN", "not_measured": "NOT MEASURED",
                 "not_applicable": "n/a"}
@@ -203,12 +205,6 @@ FIGURES: list[tuple[str, Callable[[dict[str, Any]], Figure | None]]] = [
 ]
 
 
-def _png(fig: Figure) -> bytes:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-    return buf.getvalue()
-
-
 def build_report(res: dict[str, Any], criteria_toml: str = "") -> rm.Report:
     """The report's content from ``Qualification.to_json()`` (as stored in the database)."""
     p = res["probe"]
@@ -216,7 +212,19 @@ def build_report(res: dict[str, Any], criteria_toml: str = "") -> rm.Report:
     passed = res["passed"]
     sim = " — simulated rig" if res.get("simulated") else ""
     rep = rm.Report(f"Probe qualification: {p['name']} ({p['serial'] or 'no serial'})",
-                    f"{res['created_utc']}{sim}")
+                    f"Acceptance of a probe design or unit in reference media{sim}",
+                    number=report_number("Q", p.get("serial") or p.get("name") or ""), kind="qualification")
+    identification(rep, "probe qualification" + (" (SIMULATED RIG: not a qualification of real hardware)"
+                                                 if res.get("simulated") else ""), "",
+                   (("Made", when(res.get("created_utc"))), ("Probe", f"{p['name']}, serial {p['serial'] or '—'}"),
+                    ("Front end", str(res.get("frontend") or "not recorded")),
+                    ("Operator", str(res.get("operator") or "not recorded"))))
+    rep.add(rm.Heading("Method statement"), rm.Para(
+        "Practice followed: the probe is run in isothermal baths (thermocouple offsets and noise), its heater "
+        "resistance is measured against temperature, and repeat heating runs are made in reference media of "
+        "known conductivity, reduced by the needle-probe practice (ASTM D5334 / IEEE Std 442) and judged "
+        "against the criteria listed with their sources. Where the criteria are linerig's own, their source "
+        "says so."))
     failed = sorted({c["id"] for c in res["criteria"] if c["status"] in ("fail", "not_measured")
                      and c.get("required", True)})
     if passed:
@@ -243,10 +251,12 @@ def build_report(res: dict[str, Any], criteria_toml: str = "") -> rm.Report:
     cal = s.get("calibration")
     if cal:
         rep.add(rm.Heading("Calibration"),
-                rm.Para(f"Probe factor F = {cal['factor']:.4f} ± {cal['factor_u']:.4f} (standard uncertainty); "
-                        "later results are multiplied by F (F = k_reference / k_measured)."),
-                rm.Table(("medium", "reference k", "runs", "mean k", "RSD", "raw bias", "bias after F"), tuple(
-                    (m["name"], f"{m['k_ref_W_per_mK']:.4f} ± {m['k_ref_u_W_per_mK']:.4f}", str(m["n"]),
+                rm.Para(f"Probe factor F = {cal['factor']:.4f} ± {2 * cal['factor_u']:.4f} (± U, k = 2; standard "
+                        f"uncertainty {cal['factor_u']:.4f}); later results are multiplied by F "
+                        "(F = k_reference / k_measured)."),
+                rm.Table(("medium", "reference k ± U (k = 2)", "runs", "mean k", "RSD", "raw bias", "bias after F"),
+                         tuple(
+                    (m["name"], f"{m['k_ref_W_per_mK']:.4f} ± {2 * m['k_ref_u_W_per_mK']:.4f}", str(m["n"]),
                      f"{m['k_mean_W_per_mK']:.4f}",
                      "—" if m["k_rel_sd"] is None else f"{100 * m['k_rel_sd']:.2f} %",
                      f"{100 * m['bias_rel']:+.2f} %", f"{100 * m['residual_bias_rel']:+.2f} %")
@@ -273,7 +283,7 @@ def build_report(res: dict[str, Any], criteria_toml: str = "") -> rm.Report:
     for title, make in FIGURES:
         fig = make(res)
         if fig is not None:
-            rep.add(rm.Figure(_png(fig), title, fig.get_figwidth(), fig.get_figheight()))
+            rep.add(rm.Figure(svg_bytes(fig), title))
 
     iu = s.get("intended_use") or {}
     if iu:
@@ -290,14 +300,19 @@ def build_report(res: dict[str, Any], criteria_toml: str = "") -> rm.Report:
             r = refs.get(v["name"], {})
             at = "" if v.get("temperature_C") is None else f" at {v['temperature_C']:.2f} °C"
             items.append(f"{v['name']} ({r.get('description', '')}): k = {v['k_W_per_mK']:.4f} ± "
-                         f"{v['k_u_W_per_mK']:.4f} W/(m·K){at}, ρc = {_fmt(r.get('rho_c_MJ_per_m3K'))} MJ/(m³·K). "
+                         f"{2 * v['k_u_W_per_mK']:.4f} W/(m·K) (± U, k = 2){at}, "
+                         f"ρc = {_fmt(r.get('rho_c_MJ_per_m3K'))} MJ/(m³·K). "
                          f"{v['source']}")
         rep.add(rm.Heading("Reference media", 3), rm.Bullets(tuple(items), "small"))
     if criteria_toml:
         rep.add(rm.Heading("Criteria and procedure used", 3),
                 rm.Para("The full settings are stored with this qualification in the database "
                         "(qualifications.criteria_toml).", "small"))
+    rep.add(rm.Heading("Uncertainty"), rm.Para(
+        "In this report the probe factor is quoted with its standard uncertainty u and its expanded uncertainty "
+        "U = 2u (coverage factor k = 2, about 95 %); reference values are quoted as ± U (k = 2)."))
     rep.add(rm.Heading("Cautions"), rm.Bullets(CAUTIONS, "caution"))
+    rep.add(rm.Heading("Sign-off"), rm.SignOff(statement=SIGN_OFF))
     return rep
 
 

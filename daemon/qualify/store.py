@@ -22,9 +22,18 @@ def open_store(path: Path) -> Store:
     return Store(path)
 
 
+SIMULATED_PREFIX = "simulated:"   # a simulated unit's key: never a real serial's history
+
+
+def qualification_key(q: Qualification) -> str:
+    """The serial a qualification is stored under: a simulated one never under the real probe's serial."""
+    serial = q.profile.serial or q.profile.name
+    return SIMULATED_PREFIX + serial if q.simulated else serial
+
+
 def save_qualification(db: sqlite_utils.Database, q: Qualification) -> int:
     """Insert one row and return its id; the criteria are kept as TOML beside the results they judged."""
-    row = {"probe_serial": q.profile.serial or q.profile.name, "created_utc": q.created_utc,
+    row = {"probe_serial": qualification_key(q), "created_utc": q.created_utc,
            "criteria_toml": q.config.text, "results": json.dumps(q.to_json(), allow_nan=False),
            "passed": int(q.passed), "notes": q.notes}
     with db.conn:

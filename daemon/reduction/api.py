@@ -46,7 +46,7 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
         raise ReductionError("the run has no temperature columns (T_<sensor>_C)")
     run = HeatingRecord.of(data)
     out: dict[str, SensorResult] = {}
-    failed: dict[str, ReductionError] = {}
+    failed: list[ReductionError] = []
     for name in names:
         rec = SensorRecord.of(data, run, name, probe)
         try:
@@ -55,19 +55,15 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
                 res.flags = list(dict.fromkeys([*res.flags, "window_short"]))
                 res.notes.append(f"only {np.count_nonzero(run.heat)} heating samples (a short pulse): this heater "
                                  "sensor's k is no measurement; read the pulse at the radial sensor")
-        except ReductionError as exc:
-            # a heat pulse is read at its radial sensors: the heated needle's own record of a short pulse may give
-            # nothing, and that must not cost the run its result
-            if not (rec.geometry.on_heater and run.t_off is not None):
-                raise
-            failed[name] = exc
-    if failed and not any(r.method == "pulse" for r in out.values()):
-        raise next(iter(failed.values()))
-    for name, exc in failed.items():
-        out[name] = SensorResult(name=name, method="none", method_reason=f"not reduced: {exc}",
-                                 notes=["a heat pulse is read at the radial sensors; this heater sensor's record "
-                                        "gave no result"])
-    return RunReduction({name: out[name] for name in names}, run.heating_s)
+        except ReductionError as e:  # one sensor that cannot give a result does not take the others with it
+            failed.append(e)
+            out[name] = SensorResult(name=name, method="none", method_reason=str(e), heating_s=run.heating_s,
+                                     calibration_factor=opts.calibration_factor,
+                                     calibration_factor_u=opts.calibration_factor_u, flags=["no_result"],
+                                     notes=[str(e)])
+    if len(failed) == len(names):
+        raise failed[0]
+    return RunReduction(out, run.heating_s)
 
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
@@ -76,7 +72,7 @@ def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
     asked_pulse = opts.method == "pulse" and rec.geometry.on_heater
     if asked_pulse:  # the pulse is read at radial sensors; the heated needle's own record by the usual rule
         opts = replace(opts, method="auto")
-    found = run_methods(rec, opts)
+    found, rec = run_methods(rec, opts)
     chosen, reason = choose(rec, opts, found)
     res = sensor_result(rec, opts, found, chosen, reason)
     if asked_pulse:

@@ -41,6 +41,7 @@ class Baseline:
     quad_z: float = 0.0
     fitted_rate_K_per_s: float | None = None  # the slope found, whether or not it was removed
     offset_u_K: float = 0.0  # standard uncertainty of the level at t = 0 (what a fit through ΔT = 0 relies on)
+    fitted_rate_u_K_per_s: float = 0.0  # the fitted slope's own standard uncertainty (noise, AR(1)-inflated)
 
     @property
     def present(self) -> bool:
@@ -115,4 +116,4 @@ def fit_baseline(t: np.ndarray, temp_C: np.ndarray) -> Baseline:
     else:
         applied, applied_u = rate, rate_u
     return Baseline(offset, applied, applied_u, n, float(t.max() - t.min()), math.sqrt(float(resid @ resid) / n),
-                    quad, quad_z, fitted_rate_K_per_s=rate, offset_u_K=offset_u)
+                    quad, quad_z, fitted_rate_K_per_s=rate, offset_u_K=offset_u, fitted_rate_u_K_per_s=rate_u)

@@ -22,12 +22,14 @@ from . import window as win
 from .drift import Baseline, fit_baseline, no_baseline
 from .linesource import ALPHA_MIN
 from .stability import StabilityTracker
-from .stats import ar1_inflation
+from .stats import ar1_inflation, combine
 
 MIN_POINTS = 10
 MIN_SPAN_LN = 0.25          # window must cover at least this much ln t before an estimate is published
 SHORT_SPAN_LN = math.log(2.0)  # shorter than a factor 2 in time: window_short (common practice, no source)
-FLOOR_FRACTION = 0.3        # window never starts before 0.3·t_end (common practice, no source)
+# The window never starts before 0.1·t_end, as offline (common practice, no source): over a factor 10 in time the
+# heating's ln t shape tells the drift from the slope, so the ± shrinks as heating goes on (METHODS.md, "Live").
+FLOOR_FRACTION = 0.1
 START_TOL = 0.02            # slope error allowed at the window start (probe criterion, see window.py)
 END_TOL = 0.02              # slope error allowed at the window end (axial loss, see window.py)
 # The intercept gives α·e^{2h}: contact resistance inflates it, and an inflated α would end the window early and
@@ -41,9 +43,9 @@ NOISE_HIGH_FRACTION = 0.05  # residual RMS above 5 % of the slope (K per ln-unit
 TREND_TOL = 0.02            # local slope drifts > 2 % over the window with z > 3: residual_trend (no source)
 DEFAULT_POWER_U_REL = 0.005  # power readback standard uncertainty (relative), common practice, no source
 
-# columns of the prefix-sum table
-_N_COLS = 16
-(_U, _Y, _UU, _UY, _YY, _U3, _U4, _U2Y, _PYY, _PYU, _PUY, _PUU, _PU, _PY, _W, _WU) = range(_N_COLS)
+# columns of the prefix-sum table (w = t/Q: the drift's regressor in y)
+_N_COLS = 18
+(_U, _Y, _UU, _UY, _YY, _U3, _U4, _U2Y, _PYY, _PYU, _PUY, _PUU, _PU, _PY, _W, _WU, _WW, _WY) = range(_N_COLS)
 
 
 @dataclass(frozen=True)
@@ -189,6 +191,8 @@ class LiveReducer:
         row[_U2Y] += uu * y
         row[_W] += w
         row[_WU] += w * u
+        row[_WW] += w * w
+        row[_WY] += w * y
         if n > 0:
             up, yp = self._u[n - 1], self._y[n - 1]
             row[_PYY] += yp * y
@@ -299,17 +303,16 @@ class LiveReducer:
         self._alpha = alpha
         q_mean = self._q_mean(t0, t1)
         s2 = sse / max(n - 2, 1)
-        var_a = s2 / sxx * ar1_inflation(rho)
+        infl = ar1_inflation(rho)
+        var_a = s2 / sxx * infl
+        rel_stat = math.sqrt(var_a) / a
+        a, rel_drift = self._with_drift(i, j, a, s2 * infl, rel_stat)
         k_raw = 1.0 / (4.0 * math.pi * a)
         self._k_raw = k_raw
         k = k_raw * self.calibration_factor
-        rel_stat = math.sqrt(var_a) / a
         rel_cal = self.calibration_factor_u / self.calibration_factor if self.calibration_factor else 0.0
-        S = self._P[j] - self._P[i]
-        cov_wu = S[_WU] - S[_W] * S[_U] / n
-        assert self.baseline is not None
-        rel_drift = abs(self.baseline.rate_u_K_per_s * cov_wu / sxx) / a
-        rel_tot = math.sqrt(rel_stat**2 + rel_drift**2 + self.power_u_rel**2 + rel_cal**2)
+        rel_tot = combine({"statistical": rel_stat, "drift": rel_drift, "power": self.power_u_rel,
+                           "calibration": rel_cal})
         slope_K = a * q_mean
         rms_K = math.sqrt(sse / n) * q_mean
         flags: list[str] = []
@@ -327,8 +330,39 @@ class LiveReducer:
         return LiveEstimate(t_s=t_now, k_W_per_mK=k, k_u_W_per_mK=k * rel_tot, k_u_stat_W_per_mK=k * rel_stat,
                             slope_K=slope_K, intercept_K=b * q_mean, window_s=(t0, t1), stable=stable,
                             stable_at_s=self.tracker.stable_at_s, residual_rms_K=rms_K, n_used=n,
-                            flags=tuple(flags), alpha_m2_per_s=alpha if self.r_m else None,
+                            # the intercept's α carries e^{2h} (contact, the probe's own resistance): not α
+                            flags=tuple(flags), alpha_m2_per_s=None,
                             q_mean_W_per_m=q_mean, rise_K=self._rise, rho1=rho)
+
+    def _with_drift(self, i: int, j: int, a: float, s2: float, rel_stat: float) -> tuple[float, float]:
+        """The slope with the drift as a third parameter, anchored by the baseline's own fit of it, and the part
+        of u(a) the drift adds (see ``driftfit``: the same model, in y = ΔT/Q with the drift's regressor t/Q).
+
+        The baseline says the drift left in ΔT is b' = (fitted − removed rate) ± u; the window's ln t shape adds
+        what it knows. Without a baseline the drift stays unknown and unestimated (flagged no_baseline).
+        """
+        base = self.baseline
+        assert base is not None
+        if not base.present or base.fitted_rate_u_K_per_s <= 0 or s2 <= 0:
+            return a, 0.0
+        n = j - i
+        S = self._P[j] - self._P[i]
+        M = np.array([[S[_UU], S[_U], S[_WU]], [S[_U], n, S[_W]], [S[_WU], S[_W], S[_WW]]]) / s2
+        v = np.array([S[_UY], S[_Y], S[_WY]]) / s2
+        prior = 1.0 / base.fitted_rate_u_K_per_s**2
+        b0 = (base.fitted_rate_K_per_s or 0.0) - base.rate_K_per_s
+        M[2, 2] += prior
+        v[2] += prior * b0
+        try:
+            theta = np.linalg.solve(M, v)
+            cov = np.linalg.inv(M)
+        except np.linalg.LinAlgError:
+            return a, 0.0
+        a2 = float(theta[0])
+        if not a2 > 0:
+            return a, 0.0
+        rel = math.sqrt(max(float(cov[0, 0]), 0.0)) / a2
+        return a2, math.sqrt(max(rel**2 - rel_stat**2, 0.0))
 
     def _q_mean(self, t0: float, t1: float) -> float:
         """Time-average power over [t0, t1] from the step record (used only to express the fit in kelvin)."""

@@ -165,15 +165,20 @@ class ModelFit:
     success: bool
     message: str
     fitted_contact: bool
+    shift_s: float = 0.0     # time shift of the power steps fitted with them (``shift_bounds_s``), else 0
+    shift_u_s: float = 0.0
+    drift_coef_rel: float = 0.0  # d ln k per K/s of drift removed from the data in addition (Gauss–Newton)
 
 
 def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: np.ndarray, radius_m: float,
                     probe_C_J_per_m3K: float | None, *, r_sensor_m: float | None = None,
                     k0: float, alpha0: float, fit_contact: bool = True, h_fixed: float = 0.0,
-                    max_points: int = 500) -> ModelFit:
+                    max_points: int = 500, shift_bounds_s: tuple[float, float] | None = None) -> ModelFit:
     """Fit k, α (and the contact parameter h) to ΔT(t) of the heating (and recovery) record.
 
     ``r_sensor_m`` > radius places the sensor in the medium (second needle); then h is normally fixed.
+    ``shift_bounds_s`` (lo, hi) also fits a shift of every power step within those bounds (a switch-on that the
+    power column places late; ``timezero``).
     """
     t = np.asarray(t, dtype=float)
     dT = np.asarray(dT, dtype=float)
@@ -182,26 +187,34 @@ def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: 
         t, dT = t[idx], dT[idx]
     a = radius_m
     rho = 1.0 if r_sensor_m is None or r_sensor_m <= a else r_sensor_m / a
+    s_lo, s_hi = shift_bounds_s if shift_bounds_s is not None else (0.0, 0.0)
     ages = (t[:, None] - step_t[None, :])
-    ages = ages[ages > 0]
-    age_min, age_max = float(ages.min()), float(ages.max())
+    ages_late = ages - s_hi
+    age_min = float(ages_late[ages_late > 0].min()) if np.any(ages_late > 0) else float(ages[ages > 0].min())
+    age_max = float((ages - s_lo)[ages - s_lo > 0].max())
+    n_base = 3 if fit_contact else 2
 
-    def unpack(x: np.ndarray) -> tuple[float, float, float]:
-        return math.exp(x[0]), math.exp(x[1]), (float(x[2]) if fit_contact else h_fixed)
+    def unpack(x: np.ndarray) -> tuple[float, float, float, float]:
+        return (math.exp(x[0]), math.exp(x[1]), (float(x[2]) if fit_contact else h_fixed),
+                float(x[n_base]) if shift_bounds_s is not None else 0.0)
 
     def model(x: np.ndarray) -> np.ndarray:
-        k, alpha, h = unpack(x)
+        k, alpha, h, shift = unpack(x)
         aj = None if not probe_C_J_per_m3K else 2.0 * (k / alpha) / probe_C_J_per_m3K
         tau_per_s = alpha / a**2
         table = ResponseTable(age_min * tau_per_s, age_max * tau_per_s, aj, h, rho)
-        return superpose(t, step_t, step_dq, table, tau_per_s) / (4.0 * math.pi * k)
+        return superpose(t, step_t + shift, step_dq, table, tau_per_s) / (4.0 * math.pi * k)
 
     x0 = [math.log(k0), math.log(alpha0)] + ([min(max(h_fixed, 0.05), 10.0)] if fit_contact else [])
     lo = [math.log(k0) - 4, math.log(alpha0) - 6] + ([0.0] if fit_contact else [])
     hi = [math.log(k0) + 4, math.log(alpha0) + 6] + ([50.0] if fit_contact else [])
+    if shift_bounds_s is not None:
+        x0.append(0.5 * (s_lo + s_hi))
+        lo.append(s_lo)
+        hi.append(s_hi)
     res = least_squares(lambda x: model(x) - dT, np.array(x0), bounds=(lo, hi), x_scale="jac",
                         method="trf", xtol=1e-10, ftol=1e-10, max_nfev=200, diff_step=1e-5)
-    k, alpha, h = unpack(res.x)
+    k, alpha, h, shift = unpack(res.x)
     resid = res.fun
     n, npar = resid.size, res.x.size
     s2 = float(resid @ resid) / max(n - npar, 1)
@@ -212,7 +225,12 @@ def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: 
     except np.linalg.LinAlgError:
         cov = np.full((npar, npar), np.nan)
     u_lnk, u_lna = math.sqrt(max(cov[0, 0], 0)), math.sqrt(max(cov[1, 1], 0))
+    try:  # removing δb·t more from the data moves x by −δb·J⁺t
+        drift_coef = -float((np.linalg.pinv(J) @ t)[0])
+    except np.linalg.LinAlgError:
+        drift_coef = 0.0
     u_h = math.sqrt(max(cov[2, 2], 0)) if fit_contact else 0.0
+    u_shift = math.sqrt(max(cov[n_base, n_base], 0)) if shift_bounds_s is not None else 0.0
     var_lnrc = cov[0, 0] + cov[1, 1] - 2 * cov[0, 1]
     H = k / (a * h) if h > 0 else math.inf
     contact = a * h / k  # 1/H
@@ -220,4 +238,5 @@ def fit_probe_model(t: np.ndarray, dT: np.ndarray, step_t: np.ndarray, step_dq: 
     del H
     return ModelFit(k, k * u_lnk, alpha, alpha * u_lna, h, u_h, contact, u_contact, k / alpha,
                     k / alpha * math.sqrt(max(var_lnrc, 0.0)), math.sqrt(float(resid @ resid) / n), rho1, n,
-                    (float(t[0]), float(t[-1])), bool(res.success), str(res.message), fit_contact)
+                    (float(t[0]), float(t[-1])), bool(res.success), str(res.message), fit_contact, shift, u_shift,
+                    drift_coef)

@@ -7,7 +7,7 @@ disagree about it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -15,6 +15,7 @@ from ..probe import ProbeProfile
 from .data import ReductionError, RunData
 from .drift import Baseline, fit_baseline, no_baseline
 from .superposition import log_time_regressor, power_steps
+from .timezero import TimeZero, early_rise
 
 MIN_HEATING_SAMPLES = 10
 MIN_PULSE_SAMPLES = 2
@@ -69,15 +70,21 @@ class HeatingRecord:
     heat: np.ndarray      # heating samples used by every heating fit (t > 0, power on, before switch-off)
     t_off: float | None   # heater switch-off (None: still heating at the end of the record)
     heating_s: float
+    i_off: int            # index of the first sample after switch-off (the record's length if none)
+    shift_s: float = 0.0  # how far the power column's steps were moved (``timezero``)
 
     @classmethod
     def of(cls, data: RunData) -> HeatingRecord:
         t = data.time_s
         _, i1 = data.heating_span()
-        t_off = data.heater_off_s()
         steps_t, steps_dq = power_steps(t, data.q_W_per_m)
+        return cls._build(t, data.q_W_per_m, steps_t, steps_dq, data.heater_off_s(), i1, 0.0)
+
+    @classmethod
+    def _build(cls, t: np.ndarray, q: np.ndarray, steps_t: np.ndarray, steps_dq: np.ndarray,
+               t_off: float | None, i_off: int, shift_s: float) -> HeatingRecord:
         X, Q = log_time_regressor(t, steps_t, steps_dq)
-        heat = (t > 0) & (Q > 0) & (np.arange(t.size) < i1)
+        heat = (t > 0) & (Q > 0) & (np.arange(t.size) < i_off)
         n = int(np.count_nonzero(heat))
         decay = np.count_nonzero(t > t_off) if t_off is not None else 0
         # a short pulse logged at 1 Hz has few heating samples; its decay is what a radial sensor reads
@@ -86,7 +93,15 @@ class HeatingRecord:
             raise ReductionError(f"only {n} heating samples; at least {MIN_HEATING_SAMPLES} are needed"
                                  + (f" ({MIN_PULSE_SAMPLES} for a pulse)" if pulse else ""))
         heating_s = t_off if t_off is not None else float(t[heat][-1])
-        return cls(t, data.q_W_per_m, steps_t, steps_dq, X, Q, heat, t_off, heating_s)
+        return cls(t, q, steps_t, steps_dq, X, Q, heat, t_off, heating_s, i_off, shift_s)
+
+    def shifted(self, shift_s: float) -> HeatingRecord:
+        """The same run with every power step moved by ``shift_s`` from where the power column put it."""
+        d = shift_s - self.shift_s
+        if d == 0.0:
+            return self
+        t_off = self.t_off + d if self.t_off is not None else None
+        return self._build(self.t, self.q, self.steps_t + d, self.steps_dq, t_off, self.i_off, shift_s)
 
 
 @dataclass(frozen=True)
@@ -100,6 +115,7 @@ class SensorRecord:
     dT: np.ndarray
     baseline: Baseline
     geometry: Geometry
+    time_zero: TimeZero | None = None  # the temperature rose before the power column's switch-on
 
     @classmethod
     def of(cls, data: RunData, run: HeatingRecord, name: str, probe: ProbeProfile | None) -> SensorRecord:
@@ -108,7 +124,16 @@ class SensorRecord:
         t, T = run.t, data.temps_C[name]
         base = t < 0
         baseline = fit_baseline(t[base], T[base]) if np.any(base) else no_baseline(float(T[run.heat][0]))
-        return cls(name, run, probe, T, T - baseline.at(t), baseline, Geometry.of(probe, name))
+        geometry = Geometry.of(probe, name)
+        dT = T - baseline.at(t)
+        tz = None
+        if geometry.on_heater and baseline.present and run.steps_t.size:
+            tz = early_rise(t, dT, float(run.steps_t[0]), baseline.resid_rms_K)
+        return cls(name, run, probe, T, dT, baseline, geometry, tz)
+
+    def shifted(self, shift_s: float) -> SensorRecord:
+        """This sensor with the run's power steps moved by ``shift_s`` (see ``HeatingRecord.shifted``)."""
+        return replace(self, run=self.run.shifted(shift_s))
 
     # heating samples, and y = ΔT/Q against u = X/Q (the superposed late-time line; see superposition.py)
     @property
@@ -130,6 +155,11 @@ class SensorRecord:
     @property
     def y(self) -> np.ndarray:
         return self.dTh / self.Qh
+
+    @property
+    def noise_K(self) -> float | None:
+        """The baseline's residual RMS: what the record's noise is (None without a baseline)."""
+        return self.baseline.resid_rms_K if self.baseline.present and self.baseline.n >= 5 else None
 
     @property
     def rise_K(self) -> float:

@@ -28,6 +28,8 @@ class SensorResult:
     k_raw_W_per_mK: float = math.nan
     k_raw_u_W_per_mK: float = math.nan
     u_budget_rel: dict[str, float] = field(default_factory=dict)
+    u_budget_alpha_rel: dict[str, float] = field(default_factory=dict)
+    u_budget_rho_c_rel: dict[str, float] = field(default_factory=dict)
     alpha_m2_per_s: float | None = None
     alpha_u_m2_per_s: float | None = None
     alpha_source: str | None = None
@@ -50,9 +52,11 @@ class SensorResult:
     joint: CoolingFit | None = None
     pulse: PulseFit | None = None
     calibration_factor: float = 1.0
+    calibration_factor_u: float = 0.0
     specific_heat_J_per_kgK: float | None = None
     radial_m: float = 0.0
     notes: list[str] = field(default_factory=list)
+    methods: dict[str, dict[str, object]] = field(default_factory=dict)  # every method's values with their own u
 
     @property
     def k_U_W_per_mK(self) -> float | None:
@@ -81,6 +85,8 @@ class SensorResult:
             "resistivity_u_mK_per_W": (units.resistivity_u(k, self.k_u_W_per_mK)
                                        if k and self.k_u_W_per_mK is not None else None),
             "u_budget_rel": dict(self.u_budget_rel),
+            "u_budget_alpha_rel": dict(self.u_budget_alpha_rel) or None,
+            "u_budget_rho_c_rel": dict(self.u_budget_rho_c_rel) or None,
             "alpha_u_mm2_per_s": (self.alpha_u_m2_per_s * 1e6 if self.alpha_u_m2_per_s is not None else None),
             "alpha_source": self.alpha_source,
             "rho_c_u_MJ_per_m3K": (self.rho_c_u_J_per_m3K / 1e6 if self.rho_c_u_J_per_m3K is not None else None),
@@ -93,6 +99,7 @@ class SensorResult:
             "residual_rms_K": self.residual_rms_K,
             "n_used": self.n_used,
             "calibration_factor": self.calibration_factor,
+            "calibration_factor_u": self.calibration_factor_u,
             "drift_K_per_h": (self.baseline.to_dict()["rate_K_per_h"] if self.baseline and self.baseline.present
                               else None),
             "drift_removed": bool(self.baseline and self.baseline.present and self.baseline.rate_K_per_s != 0.0),
@@ -103,6 +110,7 @@ class SensorResult:
             "k_joint_W_per_mK": self.joint.k_W_per_mK * self.calibration_factor if self.joint else None,
             "pulse_check": self.pulse.peak.to_dict() if self.pulse and self.pulse.peak else None,
             "pulse_fit": self.pulse.to_dict() if self.pulse else None,
+            "methods": {name: {key: _clean(v) for key, v in m.items()} for name, m in self.methods.items()},
         }
         return {key: _clean(v) for key, v in d.items()}
 

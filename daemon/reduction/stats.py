@@ -10,6 +10,11 @@ import numpy as np
 RHO_MAX = 0.95
 
 
+def combine(budget: dict[str, float]) -> float:
+    """Relative standard uncertainties of independent terms, in quadrature (JCGM 100:2008 §5.1.2)."""
+    return math.sqrt(sum(v * v for v in budget.values()))
+
+
 def lag1_autocorrelation(resid: np.ndarray) -> float:
     r = np.asarray(resid, dtype=float)
     if r.size < 3:

@@ -1,11 +1,11 @@
-"""Self-contained HTML: one file, styles inline, figures embedded as base64 PNG, nothing fetched from anywhere."""
+"""Self-contained HTML: one file, styles inline, figures embedded as SVG (vector), nothing fetched from anywhere."""
 
 from __future__ import annotations
 
 import base64
 import html
 
-from .model import Bullets, Figure, Heading, Para, Report, Table
+from .model import Bullets, Figure, Heading, Para, Report, SignOff, Table
 
 CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;max-width:60rem;margin:2rem auto;
@@ -17,12 +17,13 @@ table{border-collapse:collapse;margin:.6rem 0;font-size:.9rem}
 th,td{border:1px solid #ccd;padding:.25rem .5rem;text-align:left;vertical-align:top}
 th{background:#eef1f5}td.num{text-align:right;font-variant-numeric:tabular-nums}
 caption{caption-side:bottom;color:#555;font-size:.85rem;text-align:left;padding-top:.3rem}
-figure{margin:1rem 0}figure img{max-width:100%;border:1px solid #dde}
+figure{margin:1rem 0}figure img{width:100%;max-width:46rem;border:1px solid #dde}
+.number{font-weight:600}table.signoff td{height:2.6rem;min-width:9rem}
 figcaption{color:#555;font-size:.85rem}
 .note{color:#444;font-size:.92rem}.small{font-size:.85rem;color:#555}
 .caution{background:#fff7e0;border-left:4px solid #e0a800;padding:.4rem .7rem}
 ul.caution{padding-left:2rem}
-@media print{body{margin:0;max-width:none}h2{page-break-after:avoid}figure{page-break-inside:avoid}}
+@media print{body{margin:0;max-width:none}h2,h3{page-break-after:avoid}figure,table,.signoff{page-break-inside:avoid}}
 """
 
 
@@ -41,6 +42,8 @@ def render_html(rep: Report) -> str:
              '<meta name="viewport" content="width=device-width, initial-scale=1">',
              f"<title>{e(rep.title)}</title><style>{CSS}</style></head><body>",
              f"<h1>{e(rep.title)}</h1>"]
+    if rep.number:
+        parts.append(f'<p class="sub number">Report {e(rep.number)}</p>')
     if rep.subtitle:
         parts.append(f'<p class="sub">{e(rep.subtitle)}</p>')
     for b in rep.blocks:
@@ -61,8 +64,14 @@ def render_html(rep: Report) -> str:
             cap = f"<caption>{e(b.caption)}</caption>" if b.caption else ""
             parts.append(f"<table>{cap}<thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table>")
         elif isinstance(b, Figure):
-            data = base64.b64encode(b.png).decode("ascii")
-            parts.append(f'<figure><img alt="{e(b.caption)}" src="data:image/png;base64,{data}">'
+            data = base64.b64encode(b.svg).decode("ascii")
+            parts.append(f'<figure><img alt="{e(b.caption)}" src="data:image/svg+xml;base64,{data}">'
                          f"<figcaption>{e(b.caption)}</figcaption></figure>")
+        elif isinstance(b, SignOff):
+            if b.statement:
+                parts.append(f'<p class="note">{e(b.statement)}</p>')
+            rows = "".join(f"<tr><th>{e(r)}</th><td></td><td></td><td></td></tr>" for r in b.roles)
+            parts.append('<table class="signoff"><thead><tr><th></th><th>Name</th><th>Signature</th><th>Date</th>'
+                         f"</tr></thead><tbody>{rows}</tbody></table>")
     parts.append("</body></html>")
     return "\n".join(parts)

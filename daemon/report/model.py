@@ -32,28 +32,44 @@ class Table:
 
 @dataclass(frozen=True)
 class Figure:
-    png: bytes
+    """A plot as SVG (vector in both writers: the HTML embeds it, the PDF draws it)."""
+
+    svg: bytes
     caption: str
-    width_in: float = 7.0
-    height_in: float = 4.0
 
 
-Block = Heading | Para | Bullets | Table | Figure
+@dataclass(frozen=True)
+class SignOff:
+    """Blank lines for the people who answer for the report, each with name, signature and date."""
+
+    roles: tuple[str, ...] = ("Tested by", "Checked by", "Approved by")
+    statement: str = ""
+
+
+Block = Heading | Para | Bullets | Table | Figure | SignOff
 
 
 @dataclass
 class Report:
+    """``number`` identifies the document (every page carries it); ``kind`` names the test for the cautions."""
+
     title: str
     subtitle: str = ""
     blocks: list[Block] = field(default_factory=list)
+    number: str = ""
+    kind: str = ""
 
     def add(self, *blocks: Block) -> Report:
         self.blocks.extend(blocks)
         return self
 
+    @property
+    def running_head(self) -> str:
+        return f"Report {self.number} · {self.title}" if self.number else self.title
+
     def text(self) -> str:
         """Plain text of every block (for tests and quick reading)."""
-        out = [self.title, self.subtitle]
+        out = [self.title, self.subtitle, self.number]
         for b in self.blocks:
             if isinstance(b, Heading | Para):
                 out.append(b.text)
@@ -65,4 +81,7 @@ class Report:
                 out.append(b.caption)
             elif isinstance(b, Figure):
                 out.append(b.caption)
+            elif isinstance(b, SignOff):
+                out.append(b.statement)
+                out.extend(b.roles)
         return "\n".join(out)

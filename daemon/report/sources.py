@@ -11,9 +11,10 @@ import json
 import math
 import sqlite3
 import tomllib
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 import sqlite_utils
@@ -21,7 +22,7 @@ import sqlite_utils
 from linerig.daemon.probe import ProbeProfile, stored_profile
 from linerig.daemon.reduction.api import RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
-from linerig.daemon.store.queries import run_arrays, run_detail
+from linerig.daemon.store.queries import calibrations_of, run_arrays, run_detail
 from linerig.daemon.store.spacings import apply_spacings, spacing_history
 from linerig.daemon.workflows.calibration import CalibrationOutcome, CalibrationStatus, calibration_status
 from linerig.daemon.workflows.cycles import split_cycles
@@ -54,10 +55,15 @@ def probe_profiles(db: sqlite_utils.Database) -> dict[str, ProbeProfile]:
     The column holds the profile TOML, or the flat JSON of the profile's fields that linerigd writes for the
     probes it loads; both are read, so a daemon-made run is reduced again with its probe's geometry.
     """
-    out: dict[str, ProbeProfile] = {}
     if "probes" not in db.table_names():
-        return out
-    for row in db["probes"].rows:
+        return {}
+    return profiles_from_rows(db["probes"].rows)
+
+
+def profiles_from_rows(rows: Iterable[dict[str, Any]]) -> dict[str, ProbeProfile]:
+    """Probe rows (serial, profile_toml) as profiles by serial; a later row for a serial wins."""
+    out: dict[str, ProbeProfile] = {}
+    for row in rows:
         text = row.get("profile_toml")
         if not text:
             continue
@@ -69,10 +75,7 @@ def probe_profiles(db: sqlite_utils.Database) -> dict[str, ProbeProfile]:
 
 
 def calibration_history(db: sqlite_utils.Database, probe_serial: str) -> list[dict[str, Any]]:
-    if "calibrations" not in db.table_names() or not probe_serial:
-        return []
-    return list(db.query("SELECT * FROM calibrations WHERE probe_serial = ? ORDER BY created_utc, id",
-                         [probe_serial]))
+    return calibrations_of(db, probe_serial)
 
 
 def record_calibration(db: sqlite_utils.Database, out: CalibrationOutcome, notes: dict[str, Any]) -> int:
@@ -90,6 +93,15 @@ def record_calibration(db: sqlite_utils.Database, out: CalibrationOutcome, notes
     }
     with db.conn:
         return int(db["calibrations"].insert(row).last_pk)  # type: ignore[arg-type]
+
+
+@dataclass(frozen=True)
+class AppliedCalibration:
+    """The probe factor a run's results carry, its standard uncertainty, and in words where it comes from."""
+
+    factor: float
+    factor_u: float
+    source: str
 
 
 @dataclass
@@ -119,43 +131,70 @@ class RunRecord:
         before = [c for c in self.calibrations if not now or str(c.get("created_utc") or "") <= now.isoformat()]
         return calibration_status(before, now)
 
+    def applied_calibration(self) -> AppliedCalibration:
+        """The factor the run's stored results carry (with its u), else the calibration current at the run."""
+        st = self.calibration_at_run()
+        stored = next(iter(self.stored_results.values()), None)
+        if stored and stored.get("calibration_factor"):
+            f = float(stored["calibration_factor"])
+            fu = stored.get("calibration_factor_u")
+            if fu is None:  # stored before results carried the factor's u: the calibration's own, if it is it
+                fu = st.factor_u if st.factor is not None and abs(st.factor - f) <= 1e-12 else 0.0
+            return AppliedCalibration(f, float(fu or 0.0), "the factor applied to the stored result")
+        if st.factor:
+            return AppliedCalibration(st.factor, st.factor_u or 0.0,
+                                      f"calibration {st.calibration_id} current at the run: {st.message}")
+        return AppliedCalibration(1.0, 0.0, st.message)
+
 
 def load_run(db: sqlite_utils.Database, run_id: int) -> RunRecord:
     detail = run_detail(db, run_id)
     if detail is None:
         raise SourceError(f"no run {run_id} in the database (list runs with `linerig export --list`)")
+    arr = run_arrays(db, run_id) if detail.get("n_samples") else None
+    serial = str(detail.get("probe_serial") or "")
+    probe = probe_profiles(db).get(serial)
+    if probe is not None:  # a dual needle's radial sensors at the spacing calibrated when the run was made
+        probe, _ = apply_spacings(probe, spacing_history(db, serial), detail.get("created_utc"))
+    return record_of(detail, arr, probe, calibration_history(db, serial))
+
+
+def record_of(detail: dict[str, Any], arr: dict[str, Any] | None, probe: ProbeProfile | None,
+              calibrations: list[dict[str, Any]]) -> RunRecord:
+    """A run's detail and sample arrays (``store.queries`` shapes) as a RunRecord."""
     data = phase = None
-    if detail.get("n_samples"):
-        arr = run_arrays(db, run_id)
-        temps = {k: v for k, v in arr["temps_C"].items()}
+    if arr is not None:
         try:
-            data = RunData(arr["time_s"], arr["q_W_per_m"], temps)
+            data = RunData(arr["time_s"], arr["q_W_per_m"], dict(arr["temps_C"]))
         except ReductionError:
             data = None
         phase = list(arr["phase"])
-    probe = probe_profiles(db).get(str(detail.get("probe_serial") or ""))
-    if probe is not None:  # a dual needle's radial sensors at the spacing calibrated when the run was made
-        probe, _ = apply_spacings(probe, spacing_history(db, str(detail.get("probe_serial") or "")),
-                                  detail.get("created_utc"))
-    return RunRecord(run_id, detail, data, probe, calibration_history(db, str(detail.get("probe_serial") or "")),
-                     phase)
+    return RunRecord(int(detail["id"]), detail, data, probe, calibrations, phase)
 
 
 def reduce_record(rec: RunRecord, **kwargs: Any) -> RunReduction:
-    """Reduce the run's samples again (same code as the daemon) with the calibration current at the run."""
+    """Reduce the run's samples again (same code as the daemon) with the calibration its result was given."""
     if rec.data is None:
         raise SourceError(f"run {rec.run_id} has no samples to reduce")
-    st = rec.calibration_at_run()
-    f, fu = (st.factor or 1.0), (st.factor_u or 0.0)
-    stored = next(iter(rec.stored_results.values()), None)
-    if stored and stored.get("calibration_factor") and abs(float(stored["calibration_factor"]) - f) > 1e-12:
-        f, fu = float(stored["calibration_factor"]), 0.0  # what the daemon applied wins; its u is not stored
-    kwargs.setdefault("calibration_factor", f)
-    kwargs.setdefault("calibration_factor_u", fu)
+    cal = rec.applied_calibration()
+    kwargs.setdefault("calibration_factor", cal.factor)
+    kwargs.setdefault("calibration_factor_u", cal.factor_u)
     rd, w = finite(rec.detail.get("dry_density_kg_per_m3")), finite(rec.detail.get("moisture_pct"))
     if rd and w is not None:
         kwargs.setdefault("bulk_density_kg_per_m3", rd * (1.0 + w / 100.0))
-    return reduce_run(rec.data, rec.probe, **kwargs)
+    return mark_ended_early(reduce_run(rec.data, rec.probe, **kwargs), rec.detail.get("state"))
+
+
+ENDED_EARLY = ("aborted", "faulted")   # final states whose result rests on a shortened record (flag of that name)
+
+
+def mark_ended_early(red: RunReduction, state: Any) -> RunReduction:
+    """An aborted or faulted run's result says so in its flags, wherever it is reduced."""
+    if state in ENDED_EARLY:
+        for r in red.sensors.values():
+            if state not in r.flags:
+                r.flags.append(str(state))
+    return red
 
 
 def cycle_data(rec: RunRecord) -> list[tuple[int, RunData]]:
@@ -190,6 +229,46 @@ def series_runs(db: sqlite_utils.Database, series_id: int) -> list[dict[str, Any
 def list_sites(db: sqlite_utils.Database) -> list[dict[str, Any]]:
     return list(db.query("SELECT site, count(*) AS runs, count(DISTINCT location) AS boreholes FROM runs "
                          "WHERE site IS NOT NULL AND site != '' GROUP BY site ORDER BY site"))
+
+
+class RunSource(Protocol):
+    """Where the site-wide tools (``report --site``, ``profile``) read runs: one rig's file, or the central
+    database of every rig (``daemon.central.read.CentralRuns``, whose rows also carry ``rig``)."""
+
+    where: str
+
+    def site_runs(self, site: str, borehole: str | None = None) -> list[dict[str, Any]]: ...
+
+    def list_sites(self) -> list[dict[str, Any]]: ...
+
+    def probe_profiles(self) -> dict[str, ProbeProfile]: ...
+
+    def calibration_history(self, probe_serial: str) -> list[dict[str, Any]]: ...
+
+    def load_run(self, run: dict[str, Any]) -> RunRecord: ...
+
+
+class LocalRuns:
+    """A RunSource over one rig's SQLite file."""
+
+    def __init__(self, path: Path | str) -> None:
+        self.db = open_db(path)
+        self.where = str(path)
+
+    def site_runs(self, site: str, borehole: str | None = None) -> list[dict[str, Any]]:
+        return site_runs(self.db, site, borehole)
+
+    def list_sites(self) -> list[dict[str, Any]]:
+        return list_sites(self.db)
+
+    def probe_profiles(self) -> dict[str, ProbeProfile]:
+        return probe_profiles(self.db)
+
+    def calibration_history(self, probe_serial: str) -> list[dict[str, Any]]:
+        return calibration_history(self.db, probe_serial)
+
+    def load_run(self, run: dict[str, Any]) -> RunRecord:
+        return load_run(self.db, int(run["id"]))
 
 
 def finite(v: Any) -> float | None:

@@ -12,7 +12,60 @@ METHOD = (
     "steps are superposed, the baseline drift before heating is removed, and the cooling after the heater goes "
     "off is analysed as well (ΔT ≈ q/(4πk)·ln[t/(t − t_h)]), as ASTM D5334 recommends to reduce drift effects. "
     "Uncertainties combine the fit (with correlated residuals), power, geometry and calibration (JCGM 100:2008); "
-    "they are quoted as standard uncertainties u and expanded uncertainties U = 2u.")
+    "they are quoted as expanded uncertainties U = 2u (coverage factor k = 2, about 95 % coverage for a normal "
+    "distribution).")
+
+# Which published practice each kind of test follows, and where linerig departs from it. Standards are named by
+# designation only, as the reference for the practice.
+PRACTICE = {
+    "needle": (
+        "Practice followed: the transient line-source (thermal needle probe) method of ASTM D5334 for soil and "
+        "rock, and IEEE Std 442 for thermal resistivity of soils and backfills: a probe heated at constant power "
+        "per metre, its temperature rise logged, the conductivity from the slope of ΔT against ln t."),
+    "cylinder": (
+        "Practice followed: the transient surface-step method on a moulded specimen. The specimen, in its mould, "
+        "is moved into a bath at another temperature and its centre temperature is fitted with the classical "
+        "series solution for a cylinder (Carslaw & Jaeger 1959; Newman's product rule for a finite height). No "
+        "probe is heated and no needle-probe standard applies; the method rests on the published solution, not "
+        "on a standard test method."),
+    "dryout": (
+        "Practice followed: each conductivity is a needle-probe result (ASTM D5334 / IEEE Std 442 practice) on a "
+        "specimen prepared at a known moisture and dry density; the critical moisture is the tangent "
+        "construction of IEEE Std 442, Annex F; the curves are published soil models fitted to the points."),
+    "calibration": (
+        "Practice followed: the probe is checked in a medium of known conductivity, as the needle-probe practice "
+        "(ASTM D5334) calls for, and the factor F = k_reference / k_measured is applied to later results."),
+    "cycles": (
+        "Practice followed: repeat needle-probe tests (ASTM D5334 / IEEE Std 442 practice) on one sample; "
+        "repeatability and outliers by the statistics of ISO 5725-2 and ISO 5725-6."),
+}
+DEVIATIONS = {
+    "needle": (
+        "The fit window is chosen by a stated rule (after the probe's heat capacity and contact resistance have "
+        "faded, before heat reaches a boundary or leaks along the probe), not picked by eye; the window used is "
+        "reported with each result.",
+        "The measured power of every sample is used (power steps superposed), not one mean power.",
+        "A baseline drift is removed only when it stands out of its noise (more than three standard "
+        "uncertainties); otherwise its possible size stays in the uncertainty.",
+        "Where the late-time window is too short or curved, the result comes from the full probe model "
+        "(Blackwell 1954) fitted to the heating; such a result says \"model\" in its method column.",
+        "The calibration factor of the probe (see Calibration) is applied to the results.",
+    ),
+    "cylinder": (
+        "The bath is taken to hold the specimen surface at its temperature (perfect contact, thin mould wall); a "
+        "finite heat-transfer coefficient or a thick wall makes α read low.",
+        "A time lag (transfer, mould wall) is fitted unless switched off; the half-time estimate ignores it.",
+    ),
+    "dryout": (
+        "The soil-model parameters are quoted from memory of the papers (likely, not normative).",
+    ),
+    "calibration": (
+        "The reference value is taken at the bath temperature (the mean baseline of the runs unless given).",
+    ),
+    "cycles": (
+        "Outliers are flagged, never removed.",
+    ),
+}
 
 REFERENCES = (
     "Carslaw, H. S. & Jaeger, J. C. (1959). Conduction of Heat in Solids, 2nd ed. Oxford University Press.",
@@ -68,16 +121,39 @@ FLAGS = {
     "not_reequilibrated": "a cycle started before the ground had cooled back",
     "cycle_result_flagged": "the reduction flagged one or more cycles itself (see the flags per cycle)",
     "near_surface": "shallower than 0.3 m: daily temperature swings and loosened soil",
+    "aborted": "the run was aborted before it finished: the result rests on a shortened record and is not final",
+    "faulted": "a safety stop ended the run: the result rests on the record up to the stop and is not final",
 }
 
-CAUTIONS = (
+BURIED_SERVICES = (
     "Locate and mark buried services (power cables, gas, water, telecoms) from records and with a locator before "
-    "augering or driving a probe, and follow the local permit-to-dig rules.",
-    "Electrical safety: heater supplies and instruments are used on wet ground. Use a battery or a protected "
-    "(residual-current) supply, keep connections dry and inspect leads before use.",
-    "The probe is hot after heating. Let it cool before handling it, and never heat it in air.",
-    "Keep the temperature rise small: strong or long heating drives moisture away from the probe and biases the "
-    "result (ASTM D5334, error sources).",
-    "Thermal design of cables and pipelines (ratings, backfill, critical moisture) is a decision for licensed "
-    "engineers working to the local codes; these results are measurements, not a design.",
+    "augering or driving a probe, and follow the local permit-to-dig rules."
 )
+ELECTRICAL_FIELD = ("Electrical safety: heater supplies and instruments are used on wet ground. Use a battery or a "
+                    "protected (residual-current) supply, keep connections dry and inspect leads before use.")
+ELECTRICAL_LAB = ("Electrical safety: heater supplies are used beside water baths and wet specimens. Use a battery "
+                  "or a protected (residual-current) supply, keep connections dry and inspect leads before use.")
+HOT_PROBE = "The probe is hot after heating. Let it cool before handling it, and never heat it in air."
+SMALL_RISE = ("Keep the temperature rise small: strong or long heating drives moisture away from the probe and "
+              "biases the result (ASTM D5334, error sources).")
+DESIGN = ("Thermal design of cables and pipelines (ratings, backfill, critical moisture) is a decision for licensed "
+          "engineers working to the local codes; these results are measurements, not a design.")
+BATH = ("Baths and ovens: a hot bath, a hot mould and hot water scald. Handle moulds with gloves and tongs, keep "
+        "the bath covered, and keep mains equipment away from spilt water.")
+SPECIMEN = ("These results describe the specimen as prepared (moisture, density, temperature); ground in place may "
+            "differ.")
+
+CAUTIONS = (BURIED_SERVICES, ELECTRICAL_FIELD, HOT_PROBE, SMALL_RISE, DESIGN)   # a probe in the ground
+CAUTIONS_BY_KIND = {
+    "field": CAUTIONS,
+    "lab": (ELECTRICAL_LAB, HOT_PROBE, SMALL_RISE, SPECIMEN, DESIGN),
+    "calibration": (ELECTRICAL_LAB, HOT_PROBE, SMALL_RISE),
+    "cylinder": (BATH, ELECTRICAL_LAB, SPECIMEN, DESIGN),
+    "dryout": (ELECTRICAL_LAB, HOT_PROBE, SMALL_RISE, SPECIMEN, DESIGN),
+}
+
+UNCERTAINTY_STATEMENT = (
+    "Every ± in this report is the expanded uncertainty U = 2u with coverage factor k = 2 (JCGM 100:2008), which "
+    "gives a coverage probability of about 95 % for a normal distribution.")
+SIGN_OFF = ("The results relate only to the items tested, under the conditions stated. This report shall not be "
+            "reproduced except in full.")

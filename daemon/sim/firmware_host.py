@@ -17,9 +17,9 @@ host goes quiet, whatever the speed. The same holds for the other link timings (
 window, the 1000 ms corrupt-frame window, the 5 s latched-fault repeat), because a host retries and
 reconnects in wall time. The firmware keeps these in a handful of fields; before each call into it the host
 re-bases them onto the device counter so that their *intervals* are wall intervals, and reads them back
-afterwards (`_LINK_FIELDS`). The firmware's own `Lease` class, its cap and its comparison code run unchanged;
-only the clock they are measured against differs. A lease granted with ``lease_ms`` = 1000 thus ends 1.0 s
-of wall time later, which at speed 100 is 100 s of device time.
+afterwards (`daemon/sim/wall_link.py`, shared with the MicroPython host). The firmware's own `Lease` class, its
+cap and its comparison code run unchanged; only the clock they are measured against differs. A lease granted
+with ``lease_ms`` = 1000 thus ends 1.0 s of wall time later, which at speed 100 is 100 s of device time.
 
 Loop timing
 -----------
@@ -54,6 +54,7 @@ from typing import Any
 from linerig.daemon.rig import its90
 from linerig.daemon.sim.frontend_sim import WireFaults
 from linerig.daemon.sim.rig_model import FAULT_OPEN, FAULT_RANGE, SimulatedRig
+from linerig.daemon.sim.wall_link import MAX_CYCLES_PER_CALL, WallLink, catch_up, heater_reason, missing_link_field
 
 __all__ = [
     "FIRMWARE_DIR",
@@ -68,10 +69,6 @@ __all__ = [
 FIRMWARE_DIR = Path(os.environ.get("LINERIG_FIRMWARE_DIR") or Path(__file__).resolve().parents[2] / "hardware"
                     / "firmware")
 """Where ``probefw`` lives: the source tree's hardware/firmware, or $LINERIG_FIRMWARE_DIR."""
-
-MAX_CYCLES_PER_CALL = 600
-"""Control cycles served per `tick`/`receive` before the rest are skipped as a stalled loop would skip them
-(600 cycles is about 60 ms of CPU; at the usual 10 ms tick this allows speeds up to ~6000)."""
 
 MONITOR_GAIN_SD = 5e-4  # power monitor gain noise, 0.05 % (a 16-bit shunt monitor; common practice, no source)
 BUS_LSB_V = 1.25e-3  # INA226-class bus and shunt resolution, as probefw/powermon.py reads them
@@ -228,20 +225,13 @@ class RigHal:
         return cj, out
 
 
-# the firmware fields that measure link timing, kept in wall time (module docstring) by FirmwareFrontEnd._call
-_LINK_FIELDS = ("lease.end_ms", "last_cmd", "bad_frame_times", "latched_sent_ms", "latched")
-
-
 def _check_link_fields(fw: Any) -> None:
-    for path in _LINK_FIELDS:
-        obj = fw
-        for part in path.split("."):
-            if not hasattr(obj, part):
-                raise FirmwareInterfaceError(
-                    f"probefw.device.FrontEnd has no {path!r}; the simulator keeps it in wall time (see "
-                    "daemon/sim/firmware_host.py) and must be updated with the firmware"
-                )
-            obj = getattr(obj, part)
+    missing = missing_link_field(fw)
+    if missing:
+        raise FirmwareInterfaceError(
+            f"probefw.device.FrontEnd has no {missing!r}; the simulator keeps it in wall time (see "
+            "daemon/sim/wall_link.py) and must be updated with the firmware"
+        )
 
 
 class FirmwareFrontEnd:
@@ -311,7 +301,7 @@ class FirmwareFrontEnd:
     @property
     def lease_deadline(self) -> float:
         """Wall time (the callers' clock) at which the heater lease runs out; 0.0 when there is none."""
-        return self._walls["lease.end_ms"] or 0.0
+        return self._link.lease_end or 0.0
 
     def device_time(self, wall: float) -> float:
         """Device seconds (the rig's time axis) at ``wall``; the first call fixes the origin."""
@@ -348,7 +338,7 @@ class FirmwareFrontEnd:
         """Heater off from the simulator's side (it is stopping); nothing is sent."""
         before = (self.heater_on, self.power_set)
         self.fw.heater_off()
-        self._walls["lease.end_ms"] = None
+        self._link.lease_end = None
         self._log_change(before, reason, self._now_device_s())
 
     def set_overpower(self, factor: float) -> None:
@@ -370,8 +360,7 @@ class FirmwareFrontEnd:
         self._boot_device_t = device_t
         self._last_fw_ms = 0
         self._last_sample_ms = 0
-        self._walls: dict[str, Any] = {"lease.end_ms": None, "last_cmd": None, "bad_frame_times": [],
-                                       "latched_sent_ms": None}
+        self._link = WallLink()
         self.fw = device.FrontEnd(self.hal, self._write, self.boot_id, serial=self.serial)
         _check_link_fields(self.fw)
         self.fw.reg = _regulator_with_gain(self.overpower)
@@ -389,16 +378,9 @@ class FirmwareFrontEnd:
         if self._last_wall is not None and wall < self._last_wall:
             wall = self._last_wall
         self._last_wall = wall
-        target = self._fw_ms(wall)
         fw = self.fw
-        served = 0
-        while fw.control.next_ms <= target:
-            t = fw.control.next_ms if served < MAX_CYCLES_PER_CALL else target  # a stalled loop: skip the rest
-            self._advance_rig(t)
-            self._call(lambda t=t: fw.tick(t), t, wall, "firmware")
-            served += 1
-        self._advance_rig(target)
-        self._call(lambda: fw.tick(target), target, wall, "firmware")  # lease and fault repeat between cycles
+        catch_up(fw, self._fw_ms(wall), lambda t: self._call(lambda: fw.tick(t), t, wall, "firmware"),
+                 self._advance_rig)
 
     def _advance_rig(self, fw_ms: int) -> None:
         dt = self._boot_device_t + fw_ms / 1000.0 - self.rig.t_s
@@ -408,21 +390,7 @@ class FirmwareFrontEnd:
     # ---- one call into the firmware, with its link timings in wall time ----
     def _call(self, fn: Callable[[], Any], now: int, wall: float, reason: str) -> None:
         fw = self.fw
-        w = self._walls
-
-        def to_fw(at: float | None) -> int | None:
-            return None if at is None else now + round((at - wall) * 1000.0)
-
-        def to_wall(ms: int | None) -> float | None:
-            return None if ms is None else wall + (ms - now) / 1000.0
-
-        fw.lease.end_ms = to_fw(w["lease.end_ms"])
-        if fw.last_cmd is not None and w["last_cmd"] is not None:
-            c = fw.last_cmd
-            fw.last_cmd = (c[0], c[1], c[2], to_fw(w["last_cmd"]), c[4])
-        fw.bad_frame_times = [to_fw(t) for t in w["bad_frame_times"]]
-        if w["latched_sent_ms"] is not None:
-            fw.latched_sent_ms = to_fw(w["latched_sent_ms"])
+        self._link.enter(fw, now, wall)
         before = (fw.heater_on, fw.power_set_W_per_m)
         self._faults_seen = []
         try:
@@ -434,14 +402,8 @@ class FirmwareFrontEnd:
                 fw.heater_off()
                 fw.send("F", ["CRASH", type(exc).__name__])
         finally:
-            w["lease.end_ms"] = to_wall(fw.lease.end_ms)
-            w["last_cmd"] = None if fw.last_cmd is None else to_wall(fw.last_cmd[3])
-            w["bad_frame_times"] = [to_wall(t) for t in fw.bad_frame_times]
-            w["latched_sent_ms"] = to_wall(fw.latched_sent_ms) if fw.latched is not None else None
-        if self._faults_seen:
-            code, detail = self._faults_seen[0]
-            reason = "lease expired" if code == "LEASE" else f"fault {code}: {detail}"
-        self._log_change(before, reason, self._boot_device_t + now / 1000.0)
+            self._link.leave(fw, now, wall)
+        self._log_change(before, heater_reason(self._faults_seen, reason), self._boot_device_t + now / 1000.0)
 
     def _log_change(self, before: tuple[bool, float], reason: str, device_t_s: float) -> None:
         after = (self.heater_on, self.power_set)

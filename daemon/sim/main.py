@@ -44,7 +44,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also offer a SCPI bench supply (on <link-dir>/supply) whose output heats the probe")
     p.add_argument("--firmware", action="store_true",
                    help="run the real front-end firmware (hardware/firmware) on the simulated board instead of "
-                        "the protocol emulator")
+                        "the protocol emulator: in its own MicroPython process when the micropython command is "
+                        "installed, else hosted in this process (the start-up line says which)")
+    p.add_argument("--firmware-host", choices=("auto", "micropython", "cpython"), default="auto",
+                   help="with --firmware: which interpreter runs it (default: micropython when installed)")
     p.add_argument("--parent-pid", type=int, default=None,
                    help=f"exit {PARENT_GRACE_S:g} s after this process is gone (the heater lease expires first)")
     return p
@@ -93,16 +96,24 @@ def bent(probe: ProbeSpec, items: list[str]) -> ProbeSpec:
     return probe
 
 
+def _frontend(args: argparse.Namespace, rig: SimulatedRig) -> tuple[Any, str | None]:
+    """The simulated front end, and which interpreter runs the firmware on it (None: the protocol emulator)."""
+    if not args.firmware:
+        return FrontEndEmulator(rig, speed=args.speed, seed=args.seed), None
+    from linerig.daemon.sim.mpy_host import MicroPythonFrontEnd, micropython_command
+
+    if args.firmware_host == "micropython" or (args.firmware_host == "auto" and micropython_command()):
+        return MicroPythonFrontEnd(rig, speed=args.speed, seed=args.seed), "micropython"
+    from linerig.daemon.sim.firmware_host import FirmwareFrontEnd
+
+    return FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed), "cpython"
+
+
 async def _run(args: argparse.Namespace) -> int:
     material = get_material(args.material)
     kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
     rig = SimulatedRig(material, bent(_probe(args.probe), args.spacing), seed=args.seed, **kwargs)
-    if args.firmware:
-        from linerig.daemon.sim.firmware_host import FirmwareFrontEnd
-
-        frontend: Any = FirmwareFrontEnd(rig, speed=args.speed, seed=args.seed)
-    else:
-        frontend = FrontEndEmulator(rig, speed=args.speed, seed=args.seed)
+    frontend, firmware = _frontend(args, rig)
     link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix="linerig-sim-"))
     link_dir.mkdir(parents=True, exist_ok=True)
     server = SimServer(frontend, link_dir, args.heater_log)
@@ -118,7 +129,7 @@ async def _run(args: argparse.Namespace) -> int:
         await asyncio.sleep(0)
     print(json.dumps({"frontend": str(link_dir / "frontend"), "control": str(control),
                       "supply": str(supply_path) if supply_path else None,
-                      "material": material.key, "speed": args.speed}), flush=True)
+                      "material": material.key, "speed": args.speed, "firmware": firmware}), flush=True)
     await task
     if watcher is not None:
         watcher.cancel()

@@ -7,8 +7,11 @@ file at a whole version.
 
 from __future__ import annotations
 
+import socket
 import sqlite3
+import uuid
 from collections.abc import Callable
+from datetime import UTC, datetime
 
 import sqlite_utils
 
@@ -71,6 +74,29 @@ def _v3(db: sqlite_utils.Database) -> None:
 
 
 def _v4(db: sqlite_utils.Database) -> None:
+    """Which front end made a run (model, serial and firmware from its identity frame), for the test report."""
+    for name in ("frontend_model", "frontend_serial", "frontend_firmware"):
+        db["runs"].add_column(name, str)
+
+
+def _v5(db: sqlite_utils.Database) -> None:
+    """Who this file is, for a central copy (daemon/central/): a uuid made once, so rows pushed from two files never
+    share a key even when a damaged file is replaced and ids start again at 1, and the rig's name, generated here
+    and replaced by [sync] rig when the configuration gives one."""
+    store = uuid.uuid4()
+    host = "".join(c if c.isalnum() or c in "-_." else "-" for c in socket.gethostname()) or "rig"
+    db["store_identity"].create({"store_uuid": str, "rig": str, "hostname": str, "created_utc": str},
+                                pk="store_uuid")
+    db["store_identity"].insert({"store_uuid": str(store), "rig": f"{host}-{store.hex[:6]}", "hostname": host,
+                                 "created_utc": datetime.now(UTC).isoformat(timespec="milliseconds")})
+
+
+def record_rig_name(conn: sqlite3.Connection, name: str) -> None:
+    """Name the rig in its file: the daemon from [sync] rig, `linerig sync --rig` from the command line."""
+    conn.execute("UPDATE store_identity SET rig = ?", [name])
+
+
+def _v6(db: sqlite_utils.Database) -> None:
     """Spacing calibrations of dual needles (``workflows/spacing.py``): the effective distance of a radial sensor
     from the heater, found in a medium of known ρc, with its history (rejected ones too)."""
     db["spacing_calibrations"].create({
@@ -81,7 +107,7 @@ def _v4(db: sqlite_utils.Database) -> None:
     db["spacing_calibrations"].create_index(["probe_serial"])
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4]
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4, _v5, _v6]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

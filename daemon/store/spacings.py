@@ -20,7 +20,7 @@ TABLE = "spacing_calibrations"
 
 
 def spacing_history(db: sqlite_utils.Database, probe_serial: str) -> list[dict[str, Any]]:
-    """Every spacing calibration of a probe, oldest first (empty for a store from before schema 4)."""
+    """Every spacing calibration of a probe, oldest first (empty for a store from before schema 6)."""
     if TABLE not in db.table_names() or not probe_serial:
         return []
     return list(db.query(f"SELECT * FROM {TABLE} WHERE probe_serial = ? ORDER BY created_utc, id", [probe_serial]))

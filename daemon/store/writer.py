@@ -31,7 +31,7 @@ from typing import Any, TypeVar
 
 import sqlite_utils
 
-from linerig.daemon.store.schema import migrate
+from linerig.daemon.store.schema import migrate, record_rig_name
 
 log = logging.getLogger("linerigd.store")
 
@@ -240,6 +240,12 @@ class Store:
                 self.db["probes"].update(serial, {"name": name, "kind": kind, "profile_toml": profile_toml})
 
         self._write(_do)
+
+    def set_rig_name(self, name: str) -> None:
+        """The rig's name for the central store ([sync] rig), recorded in the file so every sync uses it."""
+        row = self.reader.execute("SELECT rig FROM store_identity").fetchone()
+        if row is None or row[0] != name:
+            self._write(lambda: record_rig_name(self.conn, name))
 
     # -- samples -----------------------------------------------------------
     def add_sample(self, row: tuple[Any, ...]) -> None:

@@ -37,6 +37,11 @@ class ProfilePoint:
     flags: tuple[str, ...] = ()
     created_utc: str = ""
     moisture_pct: float | None = None
+    rig: str = ""          # the rig the run came from, when read from the central store (run ids repeat across rigs)
+
+    @property
+    def run_label(self) -> str:
+        return row_label({"id": self.run_id, "rig": self.rig})
 
     @property
     def resistivity_mK_per_W(self) -> float:
@@ -49,14 +54,22 @@ class ProfilePoint:
     def to_dict(self) -> dict[str, object]:
         d = asdict(self)
         d["flags"] = list(self.flags)
+        d["sensor_depth_m"] = self.depth_m   # depth_m is the sensor's depth (not the tip's): said by name too
         d["resistivity_mK_per_W"] = self.resistivity_mK_per_W
         d["resistivity_Ccm_per_W"] = 100.0 * self.resistivity_mK_per_W
         d["resistivity_u_mK_per_W"] = self.resistivity_u_mK_per_W
         return d
 
 
+def row_label(row: dict[str, object]) -> str:
+    """A row's id (a run's, a calibration's), as ``rig/id`` when it names its rig: read from the central store, ids
+    repeat across rigs."""
+    return f"{row['rig']}/{row['id']}" if row.get("rig") else str(row.get("id"))
+
+
 def sensor_depth_m(tip_depth_m: float, probe: ProbeProfile | None, sensor: str) -> float:
-    """Depth of a sensor below ground: the tip depth minus its height above the tip."""
+    """Depth of a sensor below ground: the tip depth minus its distance from the tip. The one definition of a
+    sensor's depth: reports, tables, exports and the UI all show this one, labelled "sensor depth"."""
     if probe is None:
         return tip_depth_m
     axial_mm: float | None = None
@@ -64,7 +77,7 @@ def sensor_depth_m(tip_depth_m: float, probe: ProbeProfile | None, sensor: str) 
         axial_mm = probe.sensor(sensor).axial_mm
     if axial_mm is None and probe.heater_length_mm is not None:
         axial_mm = probe.heater_length_mm / 2.0
-    return tip_depth_m - (axial_mm or 0.0) / 1000.0
+    return round(tip_depth_m - (axial_mm or 0.0) / 1000.0, 6)   # to the micrometre: 0.5, not 0.49999999999999994
 
 
 def points_from_runs(runs: Iterable[dict[str, object]], probes: dict[str, ProbeProfile]) -> list[ProfilePoint]:
@@ -90,7 +103,7 @@ def points_from_runs(runs: Iterable[dict[str, object]], probes: dict[str, ProbeP
                 sensor=sensor, run_id=int(run["id"]),  # type: ignore[call-overload]
                 k_W_per_mK=float(k), k_u_W_per_mK=res.get("k_u_W_per_mK"), flags=tuple(flags),
                 created_utc=str(run.get("created_utc") or ""),
-                moisture_pct=run.get("moisture_pct")))  # type: ignore[arg-type]
+                moisture_pct=run.get("moisture_pct"), rig=str(run.get("rig") or "")))  # type: ignore[arg-type]
     return out
 
 
@@ -99,7 +112,7 @@ def group_profiles(points: Iterable[ProfilePoint]) -> dict[tuple[str, str], list
     groups: dict[tuple[str, str], list[ProfilePoint]] = defaultdict(list)
     for p in points:
         groups[(p.site, p.borehole)].append(p)
-    return {key: sorted(v, key=lambda p: (p.depth_m, p.run_id, p.sensor)) for key, v in sorted(groups.items())}
+    return {key: sorted(v, key=lambda p: (p.depth_m, p.rig, p.run_id, p.sensor)) for key, v in sorted(groups.items())}
 
 
 @dataclass(frozen=True)

@@ -21,13 +21,13 @@ PWM.freq(1000)
 PWM.duty_u16(0)
 
 from probefw.device import FrontEnd  # noqa: E402 (after the heater is safe)
+from probefw.loop import Clock, StreamUart, step  # noqa: E402
 from probefw.powermon import PowerMonitor  # noqa: E402
 from probefw.tcconv import TcConverter  # noqa: E402
 from probefw.watchdog import WatchdogGate  # noqa: E402
 
 CS_PINS = (17, 20, 21, 22)  # one MAX31856-class converter per thermocouple channel
 WDT_TIMEOUT_MS = 2000
-MAX_READ_BYTES = 512  # per loop iteration, so a flood of input cannot starve the safety checks
 
 RESET_CAUSES = {
     getattr(machine, "PWRON_RESET", -1): "POWERON",
@@ -73,56 +73,21 @@ class Board:
             EN.value(1)
 
 
-class Clock:
-    """Milliseconds since boot that never wrap (ticks_ms wraps; Python ints do not)."""
-
-    def __init__(self) -> None:
-        self.last = time.ticks_ms()
-        self.ms = 0
-
-    def now(self) -> int:
-        t = time.ticks_ms()
-        self.ms += time.ticks_diff(t, self.last)
-        self.last = t
-        return self.ms
-
-
-def write(frame: bytes) -> None:
-    sys.stdout.buffer.write(frame)
-
-
 def main() -> None:
     micropython.kbd_intr(-1)  # byte 0x03 is data, not Ctrl-C
     board = Board()
-    clock = Clock()
+    clock = Clock(time.ticks_ms, time.ticks_diff)
     wdt = machine.WDT(timeout=WDT_TIMEOUT_MS)
     gate = WatchdogGate(wdt, stale_ms=500)
     serial = binascii.hexlify(machine.unique_id()).decode().upper()
     boot_id = binascii.hexlify(os.urandom(4)).decode().upper()
-    fe = FrontEnd(board, write, boot_id, serial=serial)
-    fe.start(clock.now(), RESET_CAUSES.get(machine.reset_cause(), "UNKNOWN"))
     poll = select.poll()
     poll.register(sys.stdin, select.POLLIN)
-    stdin = sys.stdin.buffer
+    uart = StreamUart(sys.stdin.buffer, sys.stdout.buffer, poll)
+    fe = FrontEnd(board, uart.write, boot_id, serial=serial)
+    fe.start(clock.now(), RESET_CAUSES.get(machine.reset_cause(), "UNKNOWN"))
     while True:
-        ok = False
-        try:
-            data = bytearray()
-            while len(data) < MAX_READ_BYTES and poll.poll(0):
-                data.extend(stdin.read(1))
-            if data:
-                fe.receive(bytes(data), clock.now())
-            ok = fe.tick(clock.now())
-        except Exception as exc:  # heater off on any unexpected error, then let the WDT decide
-            board.set_duty(0.0)
-            try:
-                fe.heater_off()
-                fe.send("F", ["CRASH", type(exc).__name__])
-            except Exception:  # reporting is best effort; the heater is already off
-                pass
-        gate.report(clock.now(), ok)
-        gate.service(clock.now())
-        time.sleep_ms(min(5, fe.control.wait_ms(clock.now())))
+        time.sleep_ms(step(fe, board, uart, clock.now, gate))
 
 
 main()

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from scipy.special import exp1
 
-from daemon.runcsv import read_run_csv
+from linerig.daemon.runcsv import read_run_csv
 
 from .loader import RefRecord, families, load, records
 

@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from daemon.probe import load_probe_profile
+from linerig.daemon.probe import load_probe_profile
 
 from . import generate
 from .catalogue import CATALOGUE, PROFILES
@@ -24,7 +24,7 @@ def test_stored_records_are_current(capsys: pytest.CaptureFixture[str]) -> None:
 
 def test_media_are_the_simulators_numbers() -> None:
     # the records copy the simulator's demo media by hand (no import in the solver); keep the copies honest
-    from daemon.sim.materials import MATERIALS
+    from linerig.daemon.sim.materials import MATERIALS
 
     assert set(MEDIA) == set(MATERIALS)
     for key, m in MEDIA.items():

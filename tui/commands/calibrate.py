@@ -28,7 +28,8 @@ from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_pro
 from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.reduction.pulse import PulseFitError
-from linerig.daemon.report.cli import add_db_option, db_path, fail
+from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
+from linerig.daemon.report.model import Report
 from linerig.daemon.report.sources import (
     SourceError,
     calibration_history,
@@ -46,6 +47,7 @@ from linerig.daemon.workflows.calibration import (
     MEDIA,
     VALID_DAYS,
     CalibrationError,
+    CalibrationOutcome,
     Measurement,
     calibration_status,
     evaluate_calibration,
@@ -87,6 +89,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("--dry-run", action="store_true", help="evaluate but do not store")
     p.add_argument("--history", action="store_true", help="show the probe's calibrations and exit")
     p.add_argument("--media", action="store_true", help="list the reference media with their sources and exit")
+    p.add_argument("--report", type=Path, metavar="FILE.html|FILE.pdf", help="write a calibration report")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=run)
 
@@ -106,15 +109,17 @@ def _raw_measurement(data: RunData, probe: object, sensor: str | None, run_id: i
 
 
 def _print_history(serial: str, hist: list[dict[str, object]]) -> None:
+    from linerig.tui.tables import print_table
+
     st = calibration_status(hist)
     print(f"probe {serial}: {st.message}")
     if not hist:
         return
-    print(f"{'id':>4}  {'made':<10}  {'reference':<26}  {'factor':>7}  {'u':>6}  {'ok':<3}  valid until")
-    for c in hist:
-        print(f"{c['id']:>4}  {str(c['created_utc'])[:10]:<10}  {str(c['reference'])[:26]:<26}  "
-              f"{float(c['factor']):>7.4f}  {float(c['factor_u'] or 0):>6.4f}  "  # type: ignore[arg-type]
-              f"{'yes' if c['accepted'] else 'no':<3}  {str(c.get('expires_utc') or '')[:10]}")
+    print_table(f"Calibrations of probe {serial}", ("id", "made", "reference", "factor F", "U (k = 2)", "accepted",
+                                                     "valid until"),
+                [(str(c["id"]), str(c["created_utc"])[:10], str(c["reference"]), f"{float(c['factor']):.4f}",  # type: ignore[arg-type]
+                  f"{2 * float(c['factor_u'] or 0):.4f}", "yes" if c["accepted"] else "no",  # type: ignore[arg-type]
+                  str(c.get("expires_utc") or "")[:10]) for c in hist], right=(0, 3, 4))
 
 
 def run(args: argparse.Namespace) -> int:
@@ -192,15 +197,17 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps({"id": cal_id, **out.to_dict()}, indent=2,
                          default=lambda o: None if isinstance(o, float) and not math.isfinite(o) else str(o)))
     else:
-        print(f"probe {args.probe} in {ref.label}: reference k = {ref.k_W_per_mK:.4f} ± {ref.k_u_W_per_mK:.4f} "
-              f"W/(m·K) (u)\n  source: {ref.source}")
-        for m in meas:
-            print(f"  run {m.run_id if m.run_id is not None else 'csv'}: k = {m.k_W_per_mK:.4f} ± "
-                  f"{m.k_u_W_per_mK:.4f}  {', '.join(m.flags)}")
+        from linerig.tui.tables import print_table
+
+        print(f"probe {args.probe} in {ref.label}: reference k = {ref.k_W_per_mK:.4f} ± {2 * ref.k_u_W_per_mK:.4f} "
+              f"W/(m·K) (± U, k = 2)\n  source: {ref.source}")
+        print_table("Runs in the reference medium (raw, no factor)", ("run", "k W/(m·K)", "U (k = 2)", "flags"),
+                    [(str(m.run_id if m.run_id is not None else "csv"), f"{m.k_W_per_mK:.4f}",
+                      f"{2 * m.k_u_W_per_mK:.4f}", ", ".join(m.flags) or "none") for m in meas], right=(1, 2))
         cv = f", repeat spread {100 * out.repeat_cv:.2f} %" if out.repeat_cv is not None else ""
-        print(f"measured k = {out.measured_k_W_per_mK:.4f} ± {out.measured_k_u_W_per_mK:.4f} ({out.n_runs} run(s)"
-              f"{cv})")
-        print(f"factor F = {out.factor:.4f} ± {out.factor_u:.4f} (u; U = {2 * out.factor_u:.4f} at k = 2)")
+        print(f"measured k = {out.measured_k_W_per_mK:.4f} ± {2 * out.measured_k_u_W_per_mK:.4f} W/(m·K) "
+              f"(± U, k = 2; {out.n_runs} run(s){cv})")
+        print(f"factor F = {out.factor:.4f} ± {2 * out.factor_u:.4f} (± U, k = 2; standard u = {out.factor_u:.4f})")
         print(("ACCEPTED" if out.accepted else "NOT ACCEPTED") + (f" — stored as calibration {cal_id}" if cal_id
                                                                    else " — not stored (--dry-run)"))
         for r in out.reasons:
@@ -210,7 +217,57 @@ def run(args: argparse.Namespace) -> int:
         if out.accepted:
             print(f"valid until {out.expires_utc[:10]}; recalibrate before then (12-month interval, common "
                   "practice)")
+    if args.report:
+        try:
+            write_report(_report(out, meas, cal_id, bath, args, db), args.report)
+        except (ValueError, OSError) as e:
+            return fail(CMD, str(e))
+        print(f"report written to {args.report}")
     return 0 if out.accepted else 1
+
+
+def _report(out: CalibrationOutcome, meas: list[Measurement], cal_id: int | None, bath: float | None,
+            args: argparse.Namespace, db: object) -> Report:
+    """The calibration as a report: reference, runs, factor ± U, acceptance, validity."""
+    from linerig.daemon.report.build import equipment_rows, f, when, workflow_report, workflow_tail
+    from linerig.daemon.report.model import Bullets, Heading, Para, Table
+
+    meta: dict[str, object] = {"probe_serial": out.probe_serial}
+    probe = None
+    if args.run:
+        rec = load_run(db, args.run[0])  # type: ignore[arg-type]
+        meta, probe = rec.detail, rec.probe
+    ref = out.reference
+    rep = workflow_report(f"Probe calibration — {out.probe_serial} in {ref.medium}",
+                          "Probe factor from runs in a reference medium", "calibration", "K",
+                          f"{out.probe_serial}{cal_id or ''}", str(db_path(args)),
+                          (("Calibration id", str(cal_id) if cal_id else "not stored (--dry-run)"),
+                           *equipment_rows(meta, probe)))
+    rep.add(Heading("Reference"), Table(("item", "value"), (
+        ("Medium", ref.label),
+        ("Reference k W/(m·K) ± U (k = 2)", f"{ref.k_W_per_mK:.5f} ± {2 * ref.k_u_W_per_mK:.4f}"),
+        ("Bath temperature", f"{bath:.2f} °C ({'given' if args.bath_C is not None else 'mean baseline of the runs'})"
+         if bath is not None else "not known"),
+        ("Source of the reference value", ref.source))))
+    rep.add(Heading("Runs"), Table(("run", "k W/(m·K) (raw)", "U (k = 2)", "flags"), tuple(
+        (str(m.run_id if m.run_id is not None else "csv"), f(m.k_W_per_mK, 5), f(2 * m.k_u_W_per_mK, 2),
+         ", ".join(m.flags) or "none") for m in meas),
+        "Raw: reduced without any factor, as the factor must come from the probe's own reading."))
+    rep.add(Heading("Result"), Table(("item", "value"), (
+        ("Measured k W/(m·K) ± U (k = 2)", f"{out.measured_k_W_per_mK:.5f} ± {2 * out.measured_k_u_W_per_mK:.4f}"),
+        ("Repeat spread (CV)", f"{100 * out.repeat_cv:.2f} %" if out.repeat_cv is not None else "one run"),
+        ("Factor F = k_reference / k_measured ± U (k = 2)", f"{out.factor:.5f} ± {2 * out.factor_u:.4f}"),
+        ("Accepted", "yes" if out.accepted else "no"), ("Made", when(out.created_utc)),
+        ("Valid until", when(out.expires_utc) if out.accepted else "—"))))
+    limits = (f"Acceptance: F within {FACTOR_LIMITS[0]:.2f}–{FACTOR_LIMITS[1]:.2f} and u(F)/F ≤ "
+              f"{100 * MAX_FACTOR_U_REL:.0f} % (common practice, no source); repeat runs within "
+              f"{100 * MAX_REPEAT_CV:.1f} % (Manohar, Yarbrough & Booth 2000); valid {VALID_DAYS} days (common "
+              "practice, no source).")
+    rep.add(Para(limits, "note"))
+    if out.reasons or out.warnings:
+        rep.add(Bullets(tuple([f"reason: {r}" for r in out.reasons] + [f"warning: {w}" for w in out.warnings]),
+                        "caution"))
+    return workflow_tail(rep, "calibration", {fl for m in meas for fl in m.flags})
 
 
 # --- the spacing of a dual needle (--spacing) ----------------------------------------------------------------

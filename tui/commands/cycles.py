@@ -11,12 +11,14 @@ import json
 import math
 import sys
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
+from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.reduction.data import ReductionError
 from linerig.daemon.report import plots
-from linerig.daemon.report.build import f, now_utc, workflow_tail
+from linerig.daemon.report.build import equipment_rows, f, workflow_report, workflow_tail
 from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
 from linerig.daemon.report.model import Bullets, Figure, Heading, Para, Report, Table
 from linerig.daemon.report.sources import RunRecord, SourceError, cycle_data, load_run, open_db, series_runs
@@ -110,11 +112,13 @@ def _start_C(rec: RunRecord, sensor: str) -> float | None:
 
 
 def print_summary(s: CycleSummary, sensor: str, origin: str) -> None:
-    print(f"Repeat cycles, {origin}, sensor {sensor}")
-    print(f"{'cycle':>5}  {'k W/(m·K)':>10}  {'U (k=2)':>8}  {'mod. z':>7}  flags")
-    for v, z in zip(s.values, s.mod_z, strict=True):
-        fl = ", ".join(s.flags_by_cycle.get(v.cycle, ())) or "—"
-        print(f"{v.cycle:>5}  {v.value:>10.4f}  {f(2 * v.u if v.u else None, 2):>8}  {z:>7.2f}  {fl}")
+    from linerig.tui.tables import print_table
+
+    print_table(f"Repeat cycles, {origin}, sensor {sensor}", ("cycle", "run", "k W/(m·K)", "U (k = 2)",
+                                                               "modified z", "flags"),
+                [(str(v.cycle), str(v.run_id or "—"), f"{v.value:.4f}", f(2 * v.u if v.u else None, 2), f"{z:.2f}",
+                  ", ".join(s.flags_by_cycle.get(v.cycle, ())) or "—") for v, z in zip(s.values, s.mod_z, strict=True)],
+                right=(0, 1, 2, 3, 4))
     print(f"n = {s.n}; mean {s.mean:.4f} W/(m·K); s_r {s.sd:.4f} ({100 * s.cv:.2f} %); "
           f"standard error {s.sem:.4f}")
     print(f"repeatability limit r = {REPEATABILITY_FACTOR}·s_r = {s.repeatability_limit:.4f} W/(m·K) "
@@ -128,9 +132,14 @@ def print_summary(s: CycleSummary, sensor: str, origin: str) -> None:
     print("flags: " + (", ".join(s.flags) or "none"))
 
 
-def build_report(s: CycleSummary, sensor: str, origin: str, png: bytes) -> Report:
-    rep = Report(f"Repeat cycles — {origin}", f"linerig cycles report, generated {now_utc()}")
-    rep.add(Heading("Cycles"), Table(("cycle", "run", "k W/(m·K)", "U (k=2)", "modified z", "flags"), tuple(
+def build_report(s: CycleSummary, sensor: str, origin: str, svg: bytes, meta: dict[str, Any] | None = None,
+                 probe: ProbeProfile | None = None, run_id: int | None = None) -> Report:
+    meta = meta or {}
+    rows = [("Sample", str(meta.get("sample") or "—")), ("Material", str(meta.get("material") or "—")),
+            *equipment_rows(meta, probe)]
+    rep = workflow_report(f"Repeat cycles — {origin}", "Repeat needle-probe cycles on one sample", "cycles", "C",
+                          run_id if run_id is not None else origin, origin, rows)
+    rep.add(Heading("Cycles"), Table(("cycle", "run", "k W/(m·K)", "U (k = 2)", "modified z", "flags"), tuple(
         (str(v.cycle), str(v.run_id or "—"), f(v.value), f(2 * v.u if v.u else None, 2), f"{z:.2f}",
          ", ".join(s.flags_by_cycle.get(v.cycle, ())) or "—") for v, z in zip(s.values, s.mod_z, strict=True))),
         Table(("statistic", "value"), (
@@ -140,7 +149,7 @@ def build_report(s: CycleSummary, sensor: str, origin: str, png: bytes) -> Repor
             ("Grubbs G (5 % / 1 % critical)", f"{f(s.grubbs_G)} ({f(s.grubbs_crit_5)} / {f(s.grubbs_crit_1)})"),
             ("trend per cycle (p)", f"{f(s.trend_per_cycle)} ({f(s.trend_p, 3)})"),
             ("flags", ", ".join(s.flags) or "none"))),
-        Figure(png, "k per cycle with ±U, the mean and the band mean ± r/2."),
+        Figure(svg, "k per cycle with ± U (k = 2), the mean and the band mean ± r/2."),
         Para("Outliers are flagged, never removed: look for a cause (probe moved, power interrupted, not "
              "re-equilibrated) before leaving a cycle out.", "note"),
         Bullets(("Repeatability limit: ISO 5725-6 §4.1.4, r = 2.8·s_r.",
@@ -148,7 +157,9 @@ def build_report(s: CycleSummary, sensor: str, origin: str, png: bytes) -> Repor
                  "|M| > 3.5 (Iglewicz & Hoaglin 1993).",
                  "A steady trend across cycles suggests moisture driven from the probe by repeated heating "
                  "(ASTM D5334, error sources)."), "small"))
-    return workflow_tail(rep, "cycles", set(s.flags))
+    flags = set(s.flags) | {fl for v in s.values for fl in v.result_flags}
+    return workflow_tail(rep, "cycles", flags, cautions="field" if meta.get("site") or meta.get("depth_m") is not None
+                         else "lab")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -164,13 +175,15 @@ def run(args: argparse.Namespace) -> int:
         print_summary(s, sensor, origin)
     if args.plot or args.report:
         flagged = [c for c, fl in s.flags_by_cycle.items() if any("outlier" in x or "straggler" in x for x in fl)]
-        png = plots.cycles([v.cycle for v in s.values], [v.value for v in s.values], [v.u for v in s.values],
+        fig = plots.cycles([v.cycle for v in s.values], [v.value for v in s.values], [v.u for v in s.values],
                            s.mean, s.repeatability_limit, flagged, f"Repeat cycles, sensor {sensor}")
         try:
             if args.plot:
-                args.plot.write_bytes(png)
+                plots.save_plot(fig, args.plot)
             if args.report:
-                write_report(build_report(s, sensor, origin, png), args.report)
+                rec = load_run(open_db(db_path(args)), args.run_id)
+                write_report(build_report(s, sensor, origin, plots.svg_bytes(fig), rec.detail, rec.probe,
+                                          args.run_id), args.report)
         except (ValueError, OSError) as e:
             return fail(CMD, str(e))
     return 0

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from linerig.daemon.report import plots
-from linerig.daemon.report.build import f, now_utc, workflow_tail
+from linerig.daemon.report.build import f, workflow_report, workflow_tail
 from linerig.daemon.report.cli import add_db_option, fail, write_report
 from linerig.daemon.report.model import Figure, Heading, Para, Report, Table
 from linerig.daemon.workflows.cylinder import (
@@ -125,12 +125,12 @@ def run(args: argparse.Namespace) -> int:
         model = model_centre_C(t, fit.alpha_m2_per_s, args.radius_mm * 1e-3, _hd(args),
                                SurfaceSteps(steps.times_s, np.r_[steps.levels_C[:-1], fit.final_level_C]),
                                fit.initial_C, fit.lag_s)
-        png = plots.cylinder(t, centre, model, f"Surface-step test — {args.file.name}")
+        fig = plots.cylinder(t, centre, model, f"Surface-step test — {args.file.name}")
         try:
             if args.plot:
-                args.plot.write_bytes(png)
+                plots.save_plot(fig, args.plot)
             if args.report:
-                write_report(_report(args, fit, steps, png, rho_c), args.report)
+                write_report(_report(args, fit, steps, plots.svg_bytes(fig), rho_c), args.report)
         except (ValueError, OSError) as e:
             return fail(CMD, str(e))
     return 0
@@ -140,19 +140,23 @@ def _hd(args: argparse.Namespace) -> float | None:
     return args.height_mm / (2 * args.radius_mm) if args.height_mm else None
 
 
-def _report(args: argparse.Namespace, fit: CylinderFit, steps: SurfaceSteps, png: bytes, rho_c: float | None
+def _report(args: argparse.Namespace, fit: CylinderFit, steps: SurfaceSteps, svg: bytes, rho_c: float | None
             ) -> Report:
-    rep = Report(f"Surface-step cylinder test — {args.file.name}", f"linerig cylinder report, generated {now_utc()}")
+    rep = workflow_report(f"Surface-step cylinder test — {args.file.name}",
+                          "Diffusivity of a moulded specimen from a surface step (no probe)", "cylinder", "Y",
+                          args.file.stem, str(args.file),
+                          (("Specimen", f"cylinder R = {args.radius_mm:g} mm"
+                            + (f", H = {args.height_mm:g} mm" if args.height_mm else ", long (infinite)")),))
     rep.add(Heading("Result"), Table(("item", "value"), (
         ("geometry", fit.geometry), ("radius mm", f(args.radius_mm)), ("height mm", f(args.height_mm)),
-        ("diffusivity α mm²/s", f"{fit.alpha_mm2_per_s:.4f} ± {2e6 * fit.alpha_u_m2_per_s:.4f} (U, k = 2)"),
+        ("diffusivity α mm²/s ± U (k = 2)", f"{fit.alpha_mm2_per_s:.4f} ± {2e6 * fit.alpha_u_m2_per_s:.4f}"),
         ("half-time estimate α mm²/s", f(None if fit.alpha_fo50_m2_per_s is None else fit.alpha_fo50_m2_per_s * 1e6)),
         ("initial temperature °C", f(fit.initial_C, 5)), ("time lag s", f(fit.lag_s, 3)),
         ("surface steps", "; ".join(f"{a:g} s → {b:.2f} °C" for a, b in zip(steps.times_s, steps.levels_C,
                                                                              strict=True))),
         ("ρc MJ/(m³·K)", f(rho_c / 1e6 if rho_c else None)), ("residual rms mK", f(1e3 * fit.resid_rms_K, 3)),
         ("flags", ", ".join(fit.flags) or "none"))),
-        Figure(png, "Centre temperature with the fitted series solution, and residuals."),
+        Figure(svg, "Centre temperature with the fitted series solution, and residuals."),
         Para("Model: uniform initial temperature, surface held at the bath temperature from each step on (perfect "
              "contact, thin mould wall). Centre response 1 − θ = Σ 2/(λₙJ₁(λₙ))·exp(−λₙ²Fo) for the infinite "
              "cylinder, multiplied by the slab series for a finite height (Newman's rule); steps superposed. "

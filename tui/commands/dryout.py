@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from linerig.daemon.report import plots
-from linerig.daemon.report.build import f, now_utc, workflow_tail
+from linerig.daemon.report.build import f, workflow_report, workflow_tail
 from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
 from linerig.daemon.report.model import Figure, Heading, Para, Report, Table
 from linerig.daemon.report.sources import SourceError, open_db
@@ -203,29 +203,32 @@ def run(args: argparse.Namespace) -> int:
         for m, ft in fits.items():
             for d in sorted({p.dry_density_kg_per_m3 for p in pts}):
                 curves[f"{m}, ρ_d {d:.0f}"] = (ws, ft.resistivity_mK_per_W(ws, d))
-        png = plots.dryout(pts, curves, f"Dry-out curve — {name}", crit, dv)
+        fig = plots.dryout(pts, curves, f"Dry-out curve — {Path(name).name if args.csv else name}", crit, dv)
         try:
             if args.plot:
-                args.plot.write_bytes(png)
+                plots.save_plot(fig, args.plot)
             if args.report:
-                write_report(_report(name, pts, fits, crit, dv, notes, png), args.report)
+                write_report(_report(name, pts, fits, crit, dv, notes, plots.svg_bytes(fig)), args.report)
         except (ValueError, OSError) as e:
             return fail(CMD, str(e))
     return 0
 
 
 def _report(name: str, pts: list[DryoutPoint], fits: dict[str, DryoutFit], crit: CriticalMoisture | None,
-            dv: DesignValue | None, notes: list[str], png: bytes) -> Report:
-    rep = Report(f"Dry-out curve — {name}", f"linerig dry-out report, generated {now_utc()}")
-    rep.add(Heading("Points"), Table(("moisture %", "ρ_d kg/m³", "k W/(m·K)", "ρ °C·cm/W", "run"), tuple(
-        (f(p.moisture_pct, 3), f(p.dry_density_kg_per_m3), f(p.k_W_per_mK), f(100 / p.k_W_per_mK),
+            dv: DesignValue | None, notes: list[str], svg: bytes) -> Report:
+    short = Path(name).name if name.endswith(".csv") else name   # the full path is the source row
+    rep = workflow_report(f"Dry-out curve — {short}", "Thermal resistivity against moisture (dry-out curve)",
+                          "dryout", "D", Path(short).stem, name, (("Points", str(len(pts))),))
+    rep.add(Heading("Points"), Table(("moisture %", "ρ_d kg/m³", "k W/(m·K)", "U (k = 2)", "ρ °C·cm/W", "run"), tuple(
+        (f(p.moisture_pct, 3), f(p.dry_density_kg_per_m3), f(p.k_W_per_mK),
+         f(2 * p.k_u_W_per_mK if p.k_u_W_per_mK is not None else None, 2), f(100 / p.k_W_per_mK),
          str(p.run_id or "—")) for p in sorted(pts, key=lambda p: (p.dry_density_kg_per_m3, p.moisture_pct)))),
         Heading("Model fits"), Table(("model", "λ_s W/(m·K)", "shape", "dry scale", "rms misfit", "free"), tuple(
             (m, f(ft.params.lambda_s), f(ft.params.shape), f(ft.params.dry_scale), f"{100 * ft.rms_rel:.1f} %",
              ", ".join(ft.free)) for m, ft in fits.items()),
             "λ = λ_dry + Ke·(λ_sat − λ_dry); shape is κ (Côté & Konrad) or α (Lu et al.). Parameters are quoted "
             "from memory of the papers: likely, not normative."),
-        Figure(png, "Resistivity against moisture with the fitted models, the Annex F tangents and the reading."))
+        Figure(svg, "Resistivity against moisture with the fitted models, the Annex F tangents and the reading."))
     if crit:
         rep.add(Para(f"Critical moisture (IEEE 442-2017 Annex F, intersection of the tangents to the dry and moist "
                      f"segments): {crit.moisture_pct:.2f} % at {100 * crit.resistivity_mK_per_W:.0f} °C·cm/W."))

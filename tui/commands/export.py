@@ -7,7 +7,7 @@ from pathlib import Path
 
 from linerig.daemon.report.cli import add_db_option, db_path, fail, write_text
 from linerig.daemon.report.export import results_csv, results_json, run_json, samples_raw_csv, samples_run_csv
-from linerig.daemon.report.sources import SourceError, load_run, open_db, series_runs, site_runs
+from linerig.daemon.report.sources import SourceError, load_run, open_db, probe_profiles, series_runs, site_runs
 from linerig.daemon.store.queries import list_runs, run_detail
 
 CMD = "export"
@@ -37,10 +37,22 @@ def run(args: argparse.Namespace) -> int:
     except SourceError as e:
         return fail(CMD, str(e))
     if args.list:
+        import io
+
+        from linerig.tui.tables import print_table
+
         rows = list_runs(db, 200, args.site)
-        lines = [f"{r['id']:>5}  {str(r['created_utc'] or '')[:16]:<16}  {r['state'] or '':<10}  "
-                 f"{r['site'] or '—'} / {r['location'] or '—'}  {r['sample'] or ''}" for r in rows]
-        write_text("\n".join(lines) + ("\n" if lines else ""), args.output)
+        buf = io.StringIO()
+        print_table(f"Runs in {db_path(args)}", ("run", "started (UTC)", "state", "site", "borehole", "tip depth m",
+                                                 "sample"),
+                    [(str(r["id"]), str(r["created_utc"] or "")[:16].replace("T", " "), str(r["state"] or ""),
+                      str(r["site"] or "—"), str(r["location"] or "—"),
+                      f"{r['depth_m']:.2f}" if r.get("depth_m") is not None else "—", str(r["sample"] or ""))
+                     for r in rows], right=(0, 5), file=buf)
+        try:
+            write_text(buf.getvalue(), args.output)
+        except OSError as e:
+            return fail(CMD, f"cannot write {args.output}: {e}")
         return 0
     try:
         if args.what == "samples":
@@ -69,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
                 return fail(CMD, "say what to export: RUN_ID..., --site SITE or --series ID (or --list)")
             if not runs:
                 return fail(CMD, "no runs matched")
-            text = results_json(runs) if args.format == "json" else results_csv(runs)
+            text = results_json(runs) if args.format == "json" else results_csv(runs, probe_profiles(db))
     except SourceError as e:
         return fail(CMD, str(e))
     try:

@@ -37,7 +37,7 @@ async def _run(args: argparse.Namespace) -> int:
         if not rows:
             print("    no calibrations")
         for row in rows:
-            print(f"    #{row[0]} {row[1]} {row[2]}: factor {row[5] or '-'}, accepted {row[6]}, "
+            print(f"    #{row[0]} {row[1]} {row[2]}: factor {row[5] or '-'} (± U, k = 2), accepted {row[6]}, "
                   f"expires {row[7] or '-'}")
     return 0
 

@@ -118,7 +118,7 @@ def _print_results(res: dict[str, Any], qual_id: int | None = None) -> None:
                      and c.get("required", True)})
     cal = res["summary"].get("calibration")
     if cal:
-        print(f"probe factor F = {cal['factor']:.4f} ± {cal['factor_u']:.4f}")
+        print(f"probe factor F = {cal['factor']:.4f} ± {2 * cal['factor_u']:.4f} (± U, k = 2)")
     print("QUALIFIED" if res["passed"] else f"NOT QUALIFIED: {', '.join(failed)}")
 
 

@@ -11,10 +11,10 @@ import math
 import sys
 from pathlib import Path
 
-from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, sensor_mm
+from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, sensor_mm, stored_profile
 from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
-from linerig.daemon.runcsv import RunCsvError, read_run_csv
+from linerig.daemon.runcsv import PROBE_PROFILE, PROBE_SERIAL, HeaderValue, RunCsvError, file_calibration, read_run_file
 
 EXIT_BAD_INPUT = 2
 
@@ -35,9 +35,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
                         "spacing (linerig calibrate --spacing) goes here")
     p.add_argument("--spacing-u", metavar="SENSOR=MM", action="append", default=[],
                    help="standard uncertainty of a sensor's spacing (default: the profile's radial_u_mm, else 1 %%)")
-    p.add_argument("--calibration-factor", metavar="F", type=float, default=1.0, help="probe factor to apply")
-    p.add_argument("--calibration-factor-u", metavar="U", type=float, default=0.0,
-                   help="standard uncertainty of the probe factor")
+    p.add_argument("--calibration-factor", metavar="F", type=float,
+                   help="probe factor to apply (default: the file's calibration_factor header, else 1)")
+    p.add_argument("--calibration-factor-u", metavar="U", type=float,
+                   help="standard uncertainty of the probe factor (default: the file's, else 0)")
     p.add_argument("--method", choices=METHODS, default="auto", help="reduction method (default: auto)")
     p.add_argument("--window", nargs=2, type=float, metavar=("START", "END"), help="fit window in s")
     p.add_argument("--max-rise", metavar="K", type=float, help="flag a temperature rise above this")
@@ -51,9 +52,10 @@ def _fail(msg: str) -> int:
     return EXIT_BAD_INPUT
 
 
-def build_probe(args: argparse.Namespace) -> ProbeProfile | None:
-    """The profile from --probe, with the dimension options applied on top (or a profile made from them)."""
-    probe = load_probe_profile(args.probe) if args.probe else None
+def build_probe(args: argparse.Namespace, from_file: ProbeProfile | None = None) -> ProbeProfile | None:
+    """The profile from --probe (else the one the file carries), with the dimension options applied on top (or a
+    profile made from them)."""
+    probe = load_probe_profile(args.probe) if args.probe else from_file
     if args.radius_mm is not None:
         if not (args.radius_mm > 0 and math.isfinite(args.radius_mm)):
             raise ProbeProfileError(f"--radius-mm must be > 0, got {args.radius_mm}")
@@ -88,21 +90,69 @@ def _replace(probe: ProbeProfile, **kw: float) -> ProbeProfile:
     return replace(probe, **kw)
 
 
+def _note(msg: str, cmd: str = "reduce") -> None:
+    print(f"linerig {cmd}: {msg}", file=sys.stderr)
+
+
+def file_probe(meta: dict[str, HeaderValue], name: str) -> ProbeProfile | None:
+    """The probe profile a run CSV carries in its header (``probe_profile``), or None."""
+    v = meta.get(PROBE_PROFILE)
+    if v is None:
+        return None
+    try:
+        return stored_profile(v.text, f"{name}: line {v.line}: {PROBE_PROFILE}")
+    except (ValueError, TypeError) as e:  # json.JSONDecodeError and ProbeProfileError are ValueErrors
+        raise ProbeProfileError(str(e) if isinstance(e, ProbeProfileError)
+                                else f"{name}: line {v.line}: {PROBE_PROFILE} is not a probe profile ({e})") from e
+
+
+def calibration_to_apply(args: argparse.Namespace, meta: dict[str, HeaderValue], name: str,
+                         probe: ProbeProfile | None, cmd: str = "reduce") -> tuple[float, float]:
+    """The probe factor and its u: the command line's, else the file's; every choice is said on stderr.
+
+    A file that names its probe but no factor, a factor given against the file's, or a profile of another probe
+    than the file's is reported as a warning, so a result is never calibrated (or not) without a word.
+    """
+    cal = file_calibration(meta, name)
+    serial = meta[PROBE_SERIAL].text if PROBE_SERIAL in meta else None
+    if probe is not None and probe.serial and serial and probe.serial != serial:
+        _note(f"warning: {name} was recorded with probe {serial}, the profile given is probe {probe.serial}", cmd)
+    if args.calibration_factor is not None:
+        f = args.calibration_factor
+        fu = args.calibration_factor_u if args.calibration_factor_u is not None else 0.0
+        if cal is not None and (abs(cal.factor - f) > 1e-12 or abs(cal.factor_u - fu) > 1e-12):
+            _note(f"warning: applying --calibration-factor {f:g} ± {fu:g}; {name} says its result carries "
+                  f"{cal.factor:g} ± {cal.factor_u:g} ({cal.source or 'no source given'})", cmd)
+        return f, fu
+    if cal is not None:
+        fu = args.calibration_factor_u if args.calibration_factor_u is not None else cal.factor_u
+        _note(f"applying the probe factor {cal.factor:g} ± {fu:g} from {name}"
+              + (f" (probe {serial})" if serial else "") + (f": {cal.source}" if cal.source else ""), cmd)
+        return cal.factor, fu
+    if serial:
+        _note(f"warning: {name} names probe {serial} but no calibration_factor: k is as measured (factor 1); "
+              "give --calibration-factor F if the probe has a calibration", cmd)
+    return 1.0, args.calibration_factor_u or 0.0
+
+
 def run(args: argparse.Namespace) -> int:
     try:
-        probe = build_probe(args)
-    except ProbeProfileError as e:
-        return _fail(str(e))
-    try:
-        data = read_run_csv(Path(args.file))
+        data, meta = read_run_file(Path(args.file))
     except RunCsvError as e:
         return _fail(str(e))
     problem = option_problem(args)
     if problem:
         return _fail(problem)
     try:
-        red = reduce_run(data, probe, method=args.method, calibration_factor=args.calibration_factor,
-                         calibration_factor_u=args.calibration_factor_u,
+        carried = None if args.probe else file_probe(meta, str(args.file))
+        probe = build_probe(args, carried)
+        if carried is not None and not args.probe:
+            _note(f"probe profile {carried.serial or carried.name!r} from {args.file}")
+        factor, factor_u = calibration_to_apply(args, meta, str(args.file), probe)
+    except (ProbeProfileError, RunCsvError) as e:
+        return _fail(str(e))
+    try:
+        red = reduce_run(data, probe, method=args.method, calibration_factor=factor, calibration_factor_u=factor_u,
                          window_s=tuple(args.window) if args.window else None, max_rise_K=args.max_rise,
                          bulk_density_kg_per_m3=args.bulk_density)
     except (ReductionError, ProbeProfileError) as e:
@@ -176,6 +226,7 @@ def plot(red: RunReduction, data: RunData, probe: ProbeProfile | None, path: Pat
     import numpy as np
 
     from linerig.daemon.reduction.live import replay
+    from linerig.daemon.report.plots import model_curve
 
     names = list(red.sensors)
     fig, axes = plt.subplots(3, len(names), figsize=(5.5 * len(names), 9), squeeze=False)
@@ -187,14 +238,17 @@ def plot(red: RunReduction, data: RunData, probe: ProbeProfile | None, path: Pat
         heat = (t > 0) & (t <= (r.heating_s or t[-1]))
         ax, axr, axk = axes[0, c], axes[1, c], axes[2, c]
         ax.plot(np.log(t[heat]), dT[heat], ".", ms=2, label="ΔT")
-        if r.line is not None:
-            lt = np.log(t[heat])
-            fit = r.line.slope_K * lt + r.line.intercept_K
-            ax.plot(lt, fit, "-", lw=1, label=f"line, k = {r.line.k_W_per_mK * r.calibration_factor:.4g}")
-            w = (t[heat] >= r.line.window_s[0]) & (t[heat] <= r.line.window_s[1])
+        lt = np.log(t[heat])
+        # the fit drawn is the one behind the reported k: its method and its window
+        fit = (r.line.slope_K * lt + r.line.intercept_K if r.method == "line" and r.line is not None
+               else model_curve(data, r, probe, t[heat]) if r.method in ("model", "radial") else None)
+        if fit is not None and r.window_s is not None:
+            ax.plot(lt, fit, "-", lw=1, label=f"{r.method} fit, k = {_fmt(r.k_W_per_mK)}")
+            w = (t[heat] >= r.window_s[0]) & (t[heat] <= r.window_s[1])
             axr.plot(lt[w], (dT[heat] - fit)[w] * 1e3, ".", ms=2)
-            for edge in r.line.window_s:
-                ax.axvline(math.log(edge), color="grey", ls="--", lw=0.8)
+            for edge in r.window_s:
+                if edge > 0:
+                    ax.axvline(math.log(edge), color="grey", ls="--", lw=0.8)
         ax.set_title(f"{name}: {r.method}, k = {_fmt(r.k_W_per_mK)} W/(m·K)")
         ax.set_xlabel("ln(t / s)")
         ax.set_ylabel("ΔT (K)")

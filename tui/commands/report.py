@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 from pathlib import Path
 
 from linerig.daemon.probe import ProbeProfileError
@@ -15,22 +16,19 @@ from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.data import ReductionError
 from linerig.daemon.report import plots
 from linerig.daemon.report.build import run_report, site_report
-from linerig.daemon.report.cli import add_db_option, db_path, fail, write_report
+from linerig.daemon.report.cli import add_central_option, add_db_option, db_path, fail, run_source, write_report
 from linerig.daemon.report.model import Para
 from linerig.daemon.report.sources import (
     RunRecord,
+    RunSource,
     SourceError,
-    calibration_history,
     cycle_data,
-    list_sites,
     load_run,
     open_db,
-    probe_profiles,
     reduce_record,
-    site_runs,
 )
-from linerig.daemon.runcsv import RunCsvError, read_run_csv
-from linerig.daemon.workflows.profiles import points_from_runs
+from linerig.daemon.runcsv import PROBE_PROFILE, RunCsvError, read_run_file
+from linerig.daemon.workflows.profiles import points_from_runs, row_label
 
 CMD = "report"
 
@@ -45,11 +43,14 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("--site", help="report on every run of a site")
     p.add_argument("--borehole", help="with --site: one borehole")
     add_db_option(p)
+    add_central_option(p)
     p.add_argument("-o", "--output", type=Path, metavar="FILE.html|FILE.pdf",
                    help="where to write (default: run-<id>.html, <csv name>.html or site-<name>.html)")
     p.add_argument("--probe", type=Path, metavar="PROFILE.toml", help="with --csv: the probe profile")
-    p.add_argument("--calibration-factor", type=float, default=1.0, help="with --csv: probe factor to apply")
-    p.add_argument("--calibration-factor-u", type=float, default=0.0, help="with --csv: its standard uncertainty")
+    p.add_argument("--calibration-factor", type=float,
+                   help="with --csv: probe factor to apply (default: the file's calibration_factor, else 1)")
+    p.add_argument("--calibration-factor-u", type=float,
+                   help="with --csv: its standard uncertainty (default: the file's, else 0)")
     p.add_argument("--run-plots", action="store_true", help="with --site: add each run's fit plot")
     p.set_defaults(func=run)
 
@@ -59,16 +60,24 @@ def _safe(name: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from linerig.daemon.central.errors import CentralError
+
     chosen = sum(x is not None and x is not False for x in (args.run_id, args.csv, args.site))
     if chosen != 1:
         return fail(CMD, "give exactly one of RUN_ID, --csv FILE.csv or --site SITE")
+    if args.central is not None and not args.site:
+        return fail(CMD, "--central goes with --site (a site across rigs); for one run, give --db of its rig")
     try:
         if args.csv is not None:
             rep, default = _csv_report(args)
         elif args.site:
-            rep, default = _site_report(args)
+            with run_source(args) as src:
+                rep, default = _site_report(args, src)
         else:
             rep, default = _run_report(args)
+    except CentralError as e:
+        print(f"linerig {CMD}: error: {e}", file=sys.stderr)
+        return e.exit_code
     except (SourceError, RunCsvError, ReductionError, ProbeProfileError) as e:
         return fail(CMD, str(e))
     out = args.output or Path(default)
@@ -82,17 +91,19 @@ def run(args: argparse.Namespace) -> int:
 
 def _csv_report(args: argparse.Namespace) -> tuple[object, str]:
     from linerig.daemon.probe import load_probe_profile
+    from linerig.tui.commands.reduce import calibration_to_apply, file_probe
 
-    probe = load_probe_profile(args.probe) if args.probe else None
-    data = read_run_csv(Path(args.csv))
-    if not args.calibration_factor > 0:
+    data, header = read_run_file(Path(args.csv))
+    probe = load_probe_profile(args.probe) if args.probe else file_probe(header, str(args.csv))
+    if args.calibration_factor is not None and not args.calibration_factor > 0:
         raise ReductionError(f"--calibration-factor must be > 0, got {args.calibration_factor}")
-    if not (args.calibration_factor_u >= 0 and math.isfinite(args.calibration_factor_u)):
-        raise ReductionError(f"--calibration-factor-u must be a finite number >= 0, got {args.calibration_factor_u}")
-    red = reduce_run(data, probe, calibration_factor=args.calibration_factor,
-                     calibration_factor_u=args.calibration_factor_u)
+    fu = args.calibration_factor_u
+    if fu is not None and not (fu >= 0 and math.isfinite(fu)):
+        raise ReductionError(f"--calibration-factor-u must be a finite number >= 0, got {fu}")
+    factor, factor_u = calibration_to_apply(args, header, str(args.csv), probe, CMD)
+    red = reduce_run(data, probe, calibration_factor=factor, calibration_factor_u=factor_u)
     comments = [ln[1:].strip() for ln in Path(args.csv).read_text(encoding="utf-8").splitlines()
-                if ln.startswith("#")]
+                if ln.startswith("#") and PROBE_PROFILE not in ln]
     meta = {"notes": " / ".join(comments)} if comments else {}
     rep = run_report(meta, data, red, probe, source=str(args.csv))
     return rep, f"{Path(args.csv).stem}.html"
@@ -115,29 +126,29 @@ def _run_report(args: argparse.Namespace) -> tuple[object, str]:
     rep = run_report(rec.detail, rec.data, red, rec.probe, calibration=status, calibration_row=row,
                      stored=rec.stored_results, source=str(db_path(args)))
     if len(parts) > 1:
-        rep.blocks.insert(2, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
+        rep.blocks.insert(0, Para(f"This run holds {len(parts)} heating–recovery cycles; the results and plots "
                                   f"below are for the last one. `linerig cycles {args.run_id}` summarises them all "
                                   "(mean, repeatability, outliers).", "caution"))
     return rep, f"run-{args.run_id}.html"
 
 
-def _site_report(args: argparse.Namespace) -> tuple[object, str]:
-    db = open_db(db_path(args))
-    runs = site_runs(db, args.site, args.borehole)
+def _site_report(args: argparse.Namespace, src: RunSource) -> tuple[object, str]:
+    runs = src.site_runs(args.site, args.borehole)
     if not runs:
-        if args.borehole and site_runs(db, args.site):
-            holes = sorted({str(r.get("location")) for r in site_runs(db, args.site) if r.get("location")})
+        if args.borehole and src.site_runs(args.site):
+            holes = sorted({str(r.get("location")) for r in src.site_runs(args.site) if r.get("location")})
             raise SourceError(f"no runs in borehole {args.borehole!r} of site {args.site!r} "
                               f"(its boreholes: {', '.join(holes) or 'none recorded'})")
-        known = ", ".join(s["site"] for s in list_sites(db)) or "none"
+        known = ", ".join(s["site"] for s in src.list_sites()) or "none"
         raise SourceError(f"no runs for site {args.site!r} (sites on record: {known})")
-    pts = points_from_runs(runs, probe_profiles(db))
+    probes = src.probe_profiles()
+    pts = points_from_runs(runs, probes)  # sensor depths from each run's probe profile
     serials = sorted({str(r.get("probe_serial")) for r in runs if r.get("probe_serial")})
-    cals = [c for s in serials for c in calibration_history(db, s)]
-    figs: dict[int, bytes] = {}
+    cals = [c for s in serials for c in src.calibration_history(s)]
+    figs: dict[str, bytes] = {}
     if args.run_plots:
         for r in runs:
-            rec = load_run(db, int(r["id"]))
+            rec = src.load_run(r)
             if rec.data is None:
                 continue
             try:
@@ -145,9 +156,7 @@ def _site_report(args: argparse.Namespace) -> tuple[object, str]:
             except ReductionError:
                 continue
             first = next(iter(red.sensors.values()))
-            figs[rec.run_id] = plots.heating_fit(rec.data, first)
-    rep = site_report(args.site, runs, pts, cals, args.borehole, figs)
+            figs[row_label(r)] = plots.svg_bytes(plots.heating_fit(rec.data, first, rec.probe))
+    rep = site_report(args.site, runs, pts, cals, args.borehole, figs, probes)
     name = _safe(args.site) + (f"-{_safe(args.borehole)}" if args.borehole else "")
     return rep, f"site-{name}.html"
-
-

@@ -152,8 +152,8 @@ def _print_run(out: dict[str, Any]) -> None:
             extra = ""
             if r.get("rho_c_MJ_per_m3K") is not None and r.get("method") == "pulse":
                 extra = (f", α = {r['alpha_mm2_per_s']:.3f} mm²/s, ρc = {r['rho_c_MJ_per_m3K']:.3f} ± "
-                         f"{r.get('rho_c_u_MJ_per_m3K') or 0:.3f} MJ/(m³·K)")
-            print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {r['k_u_W_per_mK'] or 0:.3f} W/(m·K), "
+                         f"{2 * (r.get('rho_c_u_MJ_per_m3K') or 0):.3f} MJ/(m³·K) (± U)")
+            print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {2 * (r['k_u_W_per_mK'] or 0):.3f} W/(m·K) (± U, k = 2), "
                   f"ρ = {r['resistivity_mK_per_W']:.3f} m·K/W{extra}, flags: {', '.join(r['flags']) or 'none'}")
 
 

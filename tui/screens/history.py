@@ -22,6 +22,7 @@ from linerig.daemon.paths import default_db_path
 from linerig.daemon.probe import ProbeProfile, stored_profile
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.tui.client import DaemonError
+from linerig.tui.screens.confirm import TextPrompt
 from linerig.tui.screens.live_state import STATE_SYMBOLS, RunTrace
 from linerig.tui.screens.rereduce import (
     METHODS,
@@ -33,7 +34,8 @@ from linerig.tui.screens.rereduce import (
 )
 from linerig.tui.units import DisplayUnit, companion, show
 from linerig.tui.widgets.advice import flag_words
-from linerig.tui.widgets.run_plot import PlotView, RunPlot, build_spec, next_choice
+from linerig.tui.widgets.readouts import alpha_identified
+from linerig.tui.widgets.run_plot import PlotView, RunPlot, build_spec, legend_text, next_choice
 
 if TYPE_CHECKING:
     from linerig.tui.app import LinerigApp
@@ -70,7 +72,7 @@ class HistoryScreen(Screen[None]):
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("enter", "open", "Open run", show=True),
-        Binding("f6", "reload", "Reload"),
+        Binding("r", "reload", "Reload"),   # F6 is Qualify everywhere
     ]
 
     def __init__(self) -> None:
@@ -96,7 +98,8 @@ class HistoryScreen(Screen[None]):
 
     def on_mount(self) -> None:
         table = self.query_one("#runs", DataTable)
-        table.add_columns("Run", "Started (UTC)", "State", "Site", "Spot", "Sample", "Material")
+        table.add_columns("Run", "Started (UTC)", "State", "k W/(m·K)", "Tip depth m", "Site", "Spot", "Sample",
+                          "Material")
         table.focus()
         self.action_reload()
 
@@ -136,10 +139,13 @@ class HistoryScreen(Screen[None]):
         table.clear()
         for r in shown:
             st = str(r.get("state") or "?")
+            depth, k = r.get("depth_m"), r.get("k_W_per_mK")
             table.add_row(str(r["id"]), str(r.get("created_utc") or "")[:16].replace("T", " "),
-                          f"{STATE_SYMBOLS.get(st, '?')} {st}", *(str(r.get(k) or "") for k in
-                                                                   ("site", "location", "sample", "material")),
-                          key=str(r["id"]))
+                          f"{STATE_SYMBOLS.get(st, '?')} {st}",
+                          Text(f"{k:.3f}" if isinstance(k, int | float) else "—", justify="right"),
+                          Text(f"{depth:.2f}" if isinstance(depth, int | float) else "—", justify="right"),
+                          str(r.get("site") or ""), str(r.get("location") or ""),
+                          str(r.get("sample") or ""), str(r.get("material") or ""), key=str(r["id"]))
 
     def action_open(self) -> None:
         table = self.query_one("#runs", DataTable)
@@ -186,21 +192,25 @@ class RunDetailScreen(Screen[None]):
                 yield Static(id="summary")
             with TabPane("Plot", id="tab-plot"):
                 yield RunPlot(id="detail-plot")
+                yield Static(id="detail-legend")
             with TabPane("Events", id="tab-events"):
                 yield DataTable(id="events", cursor_type="row", zebra_stripes=True)
             with TabPane("Re-reduce", id="tab-rereduce"), VerticalScroll():
-                with Grid(classes="form-grid"):
+                with Horizontal(id="rr-method-row"):
                     yield Label("Method", classes="field-label")
                     yield Select([(v, k) for k, v in METHODS.items()], value="auto", allow_blank=False,
                                  id="rr-method", compact=True)
+                with Grid(classes="form-grid"):
                     yield Label("Sensor", classes="field-label")
                     yield Select([], id="rr-sensor", allow_blank=True, prompt="(run's own)", compact=True)
                     yield Label("Window from, s", classes="field-label")
                     yield Input(placeholder="e.g. 60", id="rr-from", compact=True)
                     yield Label("Window to, s", classes="field-label")
                     yield Input(placeholder="e.g. 600", id="rr-to", compact=True)
-                yield Static(Text.assemble("Press ", ("ctrl+r", "bold reverse"), " to re-reduce; the stored result "
-                                           "is kept. ", ("e", "bold reverse"), " exports both."), classes="hint")
+                yield Static(Text.assemble("Press ", ("ctrl+r", "bold reverse"), " to re-reduce (a window you give "
+                                           "is used with any method; leave both empty for the method's own); the "
+                                           "stored result is kept. ", ("e", "bold reverse"), " exports both."),
+                             classes="hint")
                 yield Static(id="rr-result")
         yield Footer(compact=True)
 
@@ -217,12 +227,21 @@ class RunDetailScreen(Screen[None]):
             self.query_one("#summary", Static).update(Text(f"✗ {exc}", style="red"))
             return
         self.detail = detail
+        self._preselect_method(detail)
         self._show_summary()
         self._show_events()
         self.probe = await self._probe_for(detail)
         await self._load_samples(detail)
         self._show_plot()
         self._show_summary()
+
+    def _preselect_method(self, detail: dict[str, Any]) -> None:
+        """Offer the method the stored result used, so "re-reduce" first redoes exactly that."""
+        res = detail.get("results") or {}
+        sensor = (detail.get("plan") or {}).get("sensor")
+        first = res.get(sensor) or next(iter(res.values()), None) or {}
+        if first.get("method") in METHODS:
+            self.query_one("#rr-method", Select).value = first["method"]
 
     async def _probe_for(self, detail: dict[str, Any]) -> ProbeProfile | None:
         """The run's probe profile, when the daemon can tell it; re-reduction works without (no α)."""
@@ -308,6 +327,7 @@ class RunDetailScreen(Screen[None]):
         if trace is None:
             spec.note = "no samples to plot"
         plot.draw(spec)
+        self.query_one("#detail-legend", Static).update(legend_text(spec))
         if self.data is not None and not self._sensors_listed:
             self._sensors_listed = True
             self.query_one("#rr-sensor", Select).set_options([(n, n) for n in self.data.temps_C])
@@ -344,17 +364,19 @@ class RunDetailScreen(Screen[None]):
         sensor = self.query_one("#rr-sensor", Select).value
         if not isinstance(sensor, str):
             sensor = str(((self.detail or {}).get("plan") or {}).get("sensor") or next(iter(self.data.temps_C)))
+        texts = [self.query_one(f"#rr-{k}", Input).value.strip() for k in ("from", "to")]
         window = None
-        if method == "window":
+        if any(texts):
             try:
-                window = (float(self.query_one("#rr-from", Input).value),
-                          float(self.query_one("#rr-to", Input).value))
+                window = (float(texts[0]), float(texts[1]))
             except ValueError:
-                out.update(Text("✗ give the window as two numbers of seconds", style="red"))
+                out.update(Text("✗ give the window as two numbers of seconds (or leave both empty)", style="red"))
                 return
+        stored = ((self.detail or {}).get("results") or {}).get(sensor) or {}
+        factor = stored.get("calibration_factor") if isinstance(stored.get("calibration_factor"), int | float) else 1.0
         out.update(Text("re-reducing…", style="dim"))
         try:
-            res = await asyncio.to_thread(rereduce, self.data, sensor, method, window, self.probe)
+            res = await asyncio.to_thread(rereduce, self.data, sensor, method, window, self.probe, float(factor))
         except (ReductionError, ValueError) as exc:
             out.update(Text(f"✗ {exc}", style="red"))
             return
@@ -374,14 +396,21 @@ class RunDetailScreen(Screen[None]):
     def action_export(self) -> None:
         if self.detail is None:
             return
-        self._export()
+
+        def chosen(folder: str | None) -> None:
+            if folder:
+                self._export(Path(folder).expanduser())
+
+        self.app.push_screen(TextPrompt(f"Export run {self.run_id} (run-{self.run_id}.json and .csv) into:",
+                                        "Enter writes there (the folder is made if needed); Escape cancels.",
+                                        value=str(export_folder())), chosen)
 
     @work(exclusive=True, group="export")
-    async def _export(self) -> None:
+    async def _export(self, folder: Path) -> None:
         assert self.detail is not None
         extra = {"rereduced": self.rereduced} if self.rereduced else None
         try:
-            paths = await asyncio.to_thread(export_run, self.detail, self.data, export_folder(), extra)
+            paths = await asyncio.to_thread(export_run, self.detail, self.data, folder, extra)
         except OSError as exc:
             self.notify(f"Export failed: {exc}", severity="error")
             return
@@ -394,11 +423,12 @@ def _result_line(r: dict[str, Any], unit: DisplayUnit) -> str:
         return "no value"
     u = float(ku) if isinstance(ku, int | float) else None
     win = r.get("window_s") or [None, None]
-    parts = [show(float(k), u, unit).text(), show(float(k), u, companion(unit)).text()]
+    parts = [show(float(k), u, unit).text() + " (± U, k = 2)", show(float(k), u, companion(unit)).text()]
     if win[0] is not None and win[1] is not None:
         parts.append(f"window {win[0]:.0f}–{win[1]:.0f} s")
-    if isinstance(r.get("alpha_mm2_per_s"), int | float):
-        parts.append(f"α {r['alpha_mm2_per_s']:.2f} mm²/s")
+    alpha = alpha_identified(r["alpha_mm2_per_s"] * 1e-6) if isinstance(r.get("alpha_mm2_per_s"), int | float) else None
+    if alpha is not None:
+        parts.append(f"α {alpha * 1e6:.2f} mm²/s")
     if r.get("method"):
         parts.append(str(r["method"]))
     return " · ".join(parts)

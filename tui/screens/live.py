@@ -12,7 +12,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import Screen
-from textual.widgets import Footer
+from textual.widgets import Footer, Static
 
 from linerig.tui.client import DaemonError
 from linerig.tui.screens.confirm import Confirm
@@ -26,7 +26,15 @@ from linerig.tui.widgets.readouts import (
     StopPrompt,
     VerdictReadout,
 )
-from linerig.tui.widgets.run_plot import EstimatePlot, PlotView, RunPlot, auto_view, build_spec, next_choice
+from linerig.tui.widgets.run_plot import (
+    EstimatePlot,
+    PlotView,
+    RunPlot,
+    auto_view,
+    build_spec,
+    legend_text,
+    next_choice,
+)
 
 if TYPE_CHECKING:
     from linerig.tui.app import LinerigApp
@@ -60,6 +68,7 @@ class LiveScreen(Screen[None]):
         with Horizontal(id="live-main"):
             with Vertical(id="plots"):
                 yield RunPlot(id="plot")
+                yield Static(id="plot-legend")
                 yield EstimatePlot(id="k-plot")
             with VerticalScroll(id="side"):
                 yield EstimateReadout(id="estimate")
@@ -94,6 +103,7 @@ class LiveScreen(Screen[None]):
             spec = build_spec(live.trace, view)
             spec.title += "" if plot.choice else " · auto"
             plot.draw(spec)
+            self.query_one("#plot-legend", Static).update(legend_text(spec))
             k_plot = self.query_one(EstimatePlot)
             if k_plot.display:
                 k_plot.draw(live.trace)

@@ -35,7 +35,7 @@ class RunTrace:
     run_id: int
     sensors: list[str]
     primary: int = 0
-    baseline_s: float = 60.0
+    baseline_s: float = 120.0
     heat_start_device_s: float | None = None
     heat_end_device_s: float | None = None
     device_s: list[float] = field(default_factory=list)
@@ -242,7 +242,7 @@ class LiveState:
         sensors = list((self.status.get("probe") or {}).get("sensors") or [])
         chosen = self.plan.get("sensor")
         primary = sensors.index(chosen) if chosen in sensors else 0
-        return RunTrace(run_id, sensors, primary, baseline_s=float(self.plan.get("baseline_s") or 60.0))
+        return RunTrace(run_id, sensors, primary, baseline_s=float(self.plan.get("baseline_s") or 120.0))
 
     def _on_sample(self, ev: dict[str, Any]) -> None:
         self.device_s = ev.get("device_s", self.device_s)

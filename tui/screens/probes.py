@@ -8,12 +8,12 @@ from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Vertical
-from textual.screen import ModalScreen, Screen
-from textual.widgets import DataTable, Footer, Input, Label, Static
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Static
 from textual_plotext import PlotextPlot
 
 from linerig.tui.client import DaemonError
+from linerig.tui.screens.confirm import TextPrompt
 
 if TYPE_CHECKING:
     from linerig.tui.app import LinerigApp
@@ -36,41 +36,11 @@ def factor_rows(cals: list[dict[str, Any]]) -> list[tuple[str, ...]]:
                     f"{c['reference_k_W_per_mK']:.3f}" if isinstance(c.get("reference_k_W_per_mK"), int | float)
                     else "", f"{c['measured_k_W_per_mK']:.3f}" if isinstance(c.get("measured_k_W_per_mK"),
                                                                               int | float) else "",
-                    (f"{f:.4f}" + (f" ± {fu:.4f}" if isinstance(fu, int | float) else ""))
+                    (f"{f:.4f}" + (f" ± {2 * fu:.4f}" if isinstance(fu, int | float) else ""))
                     if isinstance(f, int | float) else "",
                     "✓ yes" if c.get("accepted") else "✗ no", str(c.get("expires_utc") or "")[:10],
                     str(c.get("run_id") or "")))
     return out
-
-
-class ReferencePrompt(ModalScreen[str | None]):
-    """Ask which reference medium the calibration run uses."""
-
-    BINDINGS: ClassVar[list[BindingType]] = [Binding("escape", "cancel", "Cancel")]
-    DEFAULT_CSS = """
-    ReferencePrompt { align: center middle; }
-    ReferencePrompt > Vertical { width: 60; max-width: 95%; height: auto; border: thick $primary; padding: 1 2;
-                                 background: $surface; }
-    """
-
-    def __init__(self, serial: str) -> None:
-        super().__init__()
-        self.serial = serial
-
-    def compose(self) -> ComposeResult:
-        with Vertical():
-            yield Label(f"Calibrate probe {self.serial}: which reference medium is it in?")
-            yield Input(placeholder=REFERENCE_HINT, id="reference")
-            yield Static("Enter to continue to the new-run form, Escape to cancel.", classes="hint")
-        yield Footer(compact=True)
-
-    @on(Input.Submitted)
-    def _submitted(self, event: Input.Submitted) -> None:
-        if event.value.strip():
-            self.dismiss(event.value.strip())
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)
 
 
 class ProbesScreen(Screen[None]):
@@ -78,7 +48,7 @@ class ProbesScreen(Screen[None]):
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("c", "calibrate", "Calibration run"),
-        Binding("f6", "reload", "Reload"),
+        Binding("r", "reload", "Reload"),   # F6 is Qualify everywhere
     ]
 
     def __init__(self) -> None:
@@ -104,7 +74,7 @@ class ProbesScreen(Screen[None]):
 
     def on_mount(self) -> None:
         self.query_one("#probes", DataTable).add_columns("", "Serial", "Name", "Kind", "Added")
-        self.query_one("#cals", DataTable).add_columns("#", "Date", "Reference", "Ref k", "Meas. k", "Factor",
+        self.query_one("#cals", DataTable).add_columns("#", "Date", "Reference", "Ref k", "Meas. k", "Factor ± U (k=2)",
                                                        "Accepted", "Expires", "Run")
         self.query_one("#probes", DataTable).focus()
         self.action_reload()
@@ -203,4 +173,6 @@ class ProbesScreen(Screen[None]):
             if reference:
                 self.rig.open_new_run("calibration", calibration_metadata(serial, reference))
 
-        self.app.push_screen(ReferencePrompt(serial), chosen)
+        self.app.push_screen(TextPrompt(f"Calibrate probe {serial}: which reference medium is it in?",
+                                        "Enter to continue to the new-run form, Escape to cancel.",
+                                        placeholder=REFERENCE_HINT), chosen)

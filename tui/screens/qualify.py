@@ -65,7 +65,7 @@ class QualifyScreen(Screen[None]):
             self.qualification_id = qualification_id
             self.error = error
 
-    def __init__(self, profile_path: Path | None = None, *, simulate: bool = True, criteria_path: Path | None = None,
+    def __init__(self, profile_path: Path | None = None, *, simulate: bool = False, criteria_path: Path | None = None,
                  config_overrides: dict[str, Any] | None = None, sim_setup: SimSetup | None = None,
                  db_path: Path | None = None, socket_path: Path | None = None, save: bool = True) -> None:
         super().__init__()
@@ -99,7 +99,7 @@ class QualifyScreen(Screen[None]):
                 yield Label("Report file")
                 yield Input(placeholder="optional: NAME.html and NAME.pdf are written", id="report")
             with Horizontal():
-                yield Checkbox("simulated rig (in process)", self._simulate, id="simulate")
+                yield Checkbox("simulated rig (a demonstration: nothing is stored)", self._simulate, id="simulate")
                 yield Button("Run qualification", id="start", variant="primary")
         with Vertical(id="prompt-box"):
             yield Static("", id="prompt")
@@ -182,13 +182,17 @@ class QualifyScreen(Screen[None]):
                 m = await run_async(profile, config, rig, self, self._on_progress)
         q = judge(profile, config, m, simulated=simulate)
         qid = None
-        if self._save:
-            store = open_store(self._db_path or default_db_path())
+        if simulate:
+            self._log(f"simulated: not stored against probe {profile.serial or profile.name} (a simulated unit is "
+                      "not the probe); the report, if written, says SIMULATED")
+        elif self._save:
+            db = self._store_path()
+            store = open_store(db)
             try:
                 qid = save_qualification(store.db, q)
             finally:
                 store.close()
-            self._log(f"stored as qualification {qid}")
+            self._log(f"stored as qualification {qid} in {db}")
         self._show(q)
         report = self.query_one("#report", Input).value.strip()
         if report:
@@ -197,6 +201,14 @@ class QualifyScreen(Screen[None]):
                                             stem.with_suffix(".pdf"), config.text)
             self._log("report: " + ", ".join(str(p) for p in paths))
         return q, qid
+
+    def _store_path(self) -> Path:
+        """The daemon's own database (its status names it), so the UI never keeps a store of its own."""
+        if self._db_path is not None:
+            return self._db_path
+        live = getattr(self.app, "live", None)
+        said = (getattr(live, "status", None) or {}).get("db")
+        return Path(said) if said else default_db_path()
 
     def _show(self, q: Qualification) -> None:
         table = self.query_one("#results", DataTable)
@@ -210,7 +222,7 @@ class QualifyScreen(Screen[None]):
             verdict = Text(f"NOT QUALIFIED: {', '.join(q.failed_ids)}", style="bold red")
         cal = q.measurements.calibration
         if cal is not None:
-            verdict.append(f"    probe factor F = {cal.factor:.4f} ± {cal.factor_u:.4f}", style="")
+            verdict.append(f"    probe factor F = {cal.factor:.4f} ± {2 * cal.factor_u:.4f} (U, k = 2)", style="")
         self.query_one("#verdict", Static).update(verdict)
 
     # ---- the operator: prompts answered in the prompt line ------------------------------------------------

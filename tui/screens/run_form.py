@@ -18,13 +18,13 @@ from linerig.tui.screens.live_state import LiveState
 # (ASTM D5334-14 §1.2 warns that too much heat drives moisture away; the exact numbers are common practice).
 PRESETS: dict[str, dict[str, Any]] = {
     "standard": {"label": "Standard soil: 10 min heat, 10 min cooling",
-                 "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 60, "cycles": 1},
+                 "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 120, "cycles": 1},
     "quick": {"label": "Quick check: 3 min heat, 3 min cooling",
               "heat_s": 180, "recover_s": 180, "power_W_per_m": 5.0, "baseline_s": 30, "cycles": 1},
     "dry": {"label": "Dry soil, gentle: low power, 15 min heat",
             "heat_s": 900, "recover_s": 900, "power_W_per_m": 2.5, "baseline_s": 120, "cycles": 1},
     "repeat": {"label": "Repeat three times (cycles)",
-               "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 60, "cycles": 3},
+               "heat_s": 600, "recover_s": 600, "power_W_per_m": 5.0, "baseline_s": 120, "cycles": 3},
     "calibration": {"label": "Calibration in a reference medium",
                     "heat_s": 300, "recover_s": 300, "power_W_per_m": 3.0, "baseline_s": 120, "cycles": 1},
 }

@@ -21,13 +21,14 @@ if TYPE_CHECKING:
 
 # (field, label, placeholder) in the order the Tab key visits them
 PLAN_INPUTS = (("heat_s", "Heat, s", "600"), ("recover_s", "Cooling, s", "600"),
-               ("power_W_per_m", "Power, W/m", "5"), ("baseline_s", "Baseline, s", "60"),
+               ("power_W_per_m", "Power, W/m", "5"), ("baseline_s", "Baseline, s", "120"),
                ("cycles", "Cycles", "1"))
 META_INPUTS = (("site", "Site *", "e.g. North paddock"), ("location", "Borehole/spot", "e.g. BH-3"),
-               ("depth_m", "Depth, m", "e.g. 1.2"), ("sample", "Sample", "e.g. S-14"),
+               ("depth_m", "Tip depth, m", "probe tip, below ground"), ("sample", "Sample", "e.g. S-14"),
                ("material", "Material", "e.g. silty sand"), ("moisture_pct", "Moisture, %", "by mass"),
                ("dry_density_kg_per_m3", "Dry dens., kg/m³", "e.g. 1650"), ("operator", "Operator", ""),
                ("notes", "Notes", ""))
+KEPT_FOR_NEXT_SAMPLE = ("operator",)   # the person stays; the sample, place, moisture and density do not
 RECHECK_S = 0.5
 AUTO_STOP_LABEL = "Stop heating by itself once the estimate is steady: "
 
@@ -98,8 +99,10 @@ class StartScreen(Screen[None]):
             sel.value = key
         for name, _, _ in PLAN_INPUTS:
             self.query_one(f"#f-{name}", Input).value = f"{preset[name]:g}"
-        for name, value in (metadata or {}).items():
-            self.query_one(f"#f-{name}", Input).value = str(value)
+        if metadata is not None:  # a new kind of sample (a calibration): nothing of the last one carries over
+            for name, _, _ in META_INPUTS:
+                if name not in KEPT_FOR_NEXT_SAMPLE:
+                    self.query_one(f"#f-{name}", Input).value = str(metadata.get(name, ""))
         self.refresh_checks()
 
     def values(self) -> dict[str, str]:

@@ -71,7 +71,7 @@ class EstimateReadout(Static):
         if live.pulse and live.trace is not None and live.trace.pulse_fit:
             est = live.trace.pulse_fit  # a heat pulse: the daemon's pulse fit (the plot's title has α and ρc)
         finished = live.finished if live.finished and live.finished.get("run_id") == live.run_id else None
-        text = Text(f"{unit.quantity.upper()} ({unit.symbol})", style=HEADING)
+        text = Text(f"{unit.quantity.upper()} ± U (k = 2)", style=HEADING)
         if est is None and not finished:
             text.append("\n  waiting for a fit", style="dim")
             if live.run_state in ("checking", "settling"):
@@ -86,9 +86,9 @@ class EstimateReadout(Static):
         k, ku = _f(src.get("k_W_per_mK")), _f(src.get("k_u_W_per_mK"))
         main = show(k, ku if math.isfinite(ku) else None, unit)
         other = show(k, ku if math.isfinite(ku) else None, companion(unit))
-        if main.rel_u is not None:
-            text.append(f" ±{100 * main.rel_u:.1f} %")
         text.append(f"\n {main.text()}", style="bold")
+        if main.rel_u is not None:
+            text.append(f" ({100 * main.rel_u:.1f} %)")
         text.append(f"\n {other.text()}")
         win = src.get("window_s") or [None, None]
         if win[0] is not None and win[1] is not None:
@@ -98,13 +98,26 @@ class EstimateReadout(Static):
         t_fit, t_now = _f(src.get("t_s")), live.heating_elapsed_s
         if est is src and live.run_state == "heating" and t_now is not None and t_now - t_fit > STALE_FIT_S:
             text.append(f"\n ⚠ no new fit since {t_fit:.0f} s", style="yellow")
-        alpha = _f(src.get("alpha_m2_per_s"))
+        alpha = alpha_identified(_f(src.get("alpha_m2_per_s")))
         rms = _f(src.get("residual_rms_K"))
-        extra = ([f"α {alpha * 1e6:.2f} mm²/s"] if math.isfinite(alpha) else []) + \
+        extra = ([f"α {alpha * 1e6:.2f} mm²/s"] if alpha is not None else []) + \
             ([f"fit rms {1000 * rms:.1f} mK"] if math.isfinite(rms) else [])
         if wide and extra:
             text.append("\n " + " · ".join(extra))
         self.update(text)
+
+
+def alpha_identified(alpha: float) -> float | None:
+    """α, or None where the fit holds it at a bound of its search (the live fit clips to ALPHA_AXIAL_MAX): a
+    bound says nothing about the ground, so nothing is shown."""
+    from linerig.daemon.reduction.linesource import ALPHA_MAX, ALPHA_MIN
+    from linerig.daemon.reduction.live import ALPHA_AXIAL_MAX
+
+    if not math.isfinite(alpha) or alpha <= 0:
+        return None
+    if any(abs(alpha / bound - 1) < 1e-3 for bound in (ALPHA_MIN, ALPHA_MAX, ALPHA_AXIAL_MAX)):
+        return None
+    return alpha
 
 
 def _primary_name(live: LiveState) -> str:

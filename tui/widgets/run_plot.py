@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from rich.text import Text
 from textual_plotext import PlotextPlot
 
 from linerig.tui.screens.live_state import RunTrace
@@ -248,6 +249,18 @@ def pulse_summary(fit: dict[str, Any] | None) -> str:
             f"{pm(fit.get('rho_c_MJ_per_m3K'), fit.get('rho_c_u_MJ_per_m3K'), 2)} MJ/(m³·K)")
 
 
+def legend_text(spec: PlotSpec) -> Text:
+    """The plot's legend as a line of its own (markers and colours as drawn), never over the data."""
+    out = Text()
+    for s in spec.series:
+        if out:
+            out.append("   ")
+        mark = "──" if s.line else ("⠶" if s.marker == "braille" else s.marker)
+        out.append(mark, style=s.color or "")
+        out.append(f" {s.label}")
+    return out
+
+
 def auto_view(state: str | None, pulse: bool = False) -> PlotView:
     """The view that suits the phase: drift while settling, the line while heating, cooling after; a heat pulse
     shows its radial sensor from the moment the heater goes on."""
@@ -292,8 +305,8 @@ class RunPlot(PlotextPlot):
             plt.text(spec.note or "no data", 0.5, 0.5, alignment="center")
             self.refresh()
             return
-        for s in spec.series:
-            kwargs = {"marker": s.marker, "label": s.label}
+        for s in spec.series:  # no labels: plotext's legend sits on the data; legend_text() says it below the plot
+            kwargs: dict[str, Any] = {"marker": s.marker}
             if s.color:
                 kwargs["color"] = s.color
             if s.line:
@@ -321,7 +334,7 @@ class EstimatePlot(PlotextPlot):
     def draw(self, tr: RunTrace | None) -> None:
         plt = self.plt
         plt.clear_figure()
-        plt.title("running estimate k, W/(m·K), ± standard uncertainty")
+        plt.title("running estimate k, W/(m·K): line k, dots ± U (k = 2)")
         plt.xlabel("time since heater on, s")
         if tr is None or len(tr.estimates) < 2:
             plt.title("running estimate k — none yet")
@@ -329,8 +342,8 @@ class EstimatePlot(PlotextPlot):
             return
         arr = np.asarray([(t, k, u) for t, k, u, _ in tr.estimates], dtype=float)
         keep = thin(arr.shape[0])
-        t, k, u = arr[keep, 0], arr[keep, 1], np.nan_to_num(arr[keep, 2])
-        plt.plot(t.tolist(), k.tolist(), marker="braille", label="k")
-        plt.plot(t.tolist(), (k + u).tolist(), marker="·", label="+u", color="gray")
-        plt.plot(t.tolist(), (k - u).tolist(), marker="·", label="−u", color="gray")
+        t, k, u = arr[keep, 0], arr[keep, 1], 2.0 * np.nan_to_num(arr[keep, 2])   # U = 2u
+        plt.plot(t.tolist(), k.tolist(), marker="braille")
+        plt.plot(t.tolist(), (k + u).tolist(), marker="·", color="gray")
+        plt.plot(t.tolist(), (k - u).tolist(), marker="·", color="gray")
         self.refresh()

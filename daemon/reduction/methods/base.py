@@ -6,17 +6,13 @@ None when it does not apply. The selector (``select.py``) decides which result s
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
+from ..driftfit import DriftFit
 from ..live import DEFAULT_POWER_U_REL
 from ..record import SensorRecord
-
-
-def combine(budget: dict[str, float]) -> float:
-    """Relative standard uncertainties of independent terms, in quadrature (JCGM 100:2008 §5.1.2)."""
-    return math.sqrt(sum(v * v for v in budget.values()))
+from ..stats import combine
 
 
 @dataclass(frozen=True)
@@ -44,16 +40,18 @@ class MethodResult:
     k: Estimate | None
     alpha: Estimate | None = None
     contact: Estimate | None = None
+    rho_c: Estimate | None = None  # k/α of the same fit (before the probe factor), where the method gives α
     window_s: tuple[float, float] | None = None
     residual_rms_K: float | None = None
     n_used: int | None = None
     q_mean_W_per_m: float | None = None
     converged: bool = True     # the fit worked; its flags say whether it may stand for the sensor under ``auto``
+    credible: bool = True      # its model describes the record within the noise (a fitted model may not)
     why: str = ""              # what the method did (window rule) or why it failed, for ``method_reason``
     flags: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     fit: Any = None            # the underlying fit object (LateTimeFit, ModelFit, CoolingFit …) for plots
-    rho_c: Estimate | None = None  # a method that fits ρc itself (pulse): with its own budget, not k/α's
+    drift: DriftFit | None = None  # the fit with the drift as a parameter, where the method made one
 
 
 @dataclass(frozen=True)
@@ -76,6 +74,10 @@ class Found(dict[str, MethodResult]):
     def converged(self, name: str) -> MethodResult | None:
         r = self.get(name)
         return r if r is not None and r.converged else None
+
+    def credible(self, name: str) -> MethodResult | None:
+        r = self.converged(name)
+        return r if r is not None and r.credible else None
 
 
 class Method(Protocol):

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import numpy as np
+
+from ..driftfit import DriftFit, fit_with_drift
 from ..linesource import LateTimeFit, choose_window, fit_window
 from ..live import NOISE_HIGH_FRACTION
 from ..record import SensorRecord
+from ..timezero import rectangular_u
 from .base import Estimate, Found, MethodResult, Options
-
-INTERCEPT_MODEL_REL = 0.5  # the intercept also holds 2h and the probe's heat capacity (METHODS.md)
+from .stepmodels import plausible_models, window_u
 
 
 def preliminary_line(rec: SensorRecord) -> tuple[LateTimeFit | None, str | None]:
@@ -29,7 +32,7 @@ class LineMethod:
         g = rec.geometry
         th, u, y, Qh = rec.th, rec.u, rec.y, rec.Qh
         drift_u = rec.baseline.rate_u_K_per_s
-        model = found.converged("model") if g.on_heater else None
+        model = found.credible("model") if g.on_heater and opts.method != "line" else None
         hint = model.fit if model is not None else None
         try:
             if opts.window_s is not None:
@@ -45,6 +48,10 @@ class LineMethod:
                 why = wc.reason
         except ValueError as e:
             return MethodResult(self.name, None, converged=False, why=str(e), notes=[f"line fit failed: {e}"])
+        try:
+            df = line_drift_fit(rec, lf.window_s)
+        except ValueError as e:
+            return MethodResult(self.name, None, converged=False, why=str(e), notes=[f"line fit failed: {e}"])
         flags = []
         if lf.short:
             flags.append("window_short")
@@ -52,11 +59,42 @@ class LineMethod:
             flags.append("residual_trend")
         if lf.resid_rms_K > NOISE_HIGH_FRACTION * lf.slope_K:
             flags.append("noise_high")
-        k = Estimate(lf.k_W_per_mK, {"statistical": lf.k_u_stat_W_per_mK / lf.k_W_per_mK, "drift": lf.drift_u_rel},
-                     "late-time line")
-        alpha = None
-        if lf.alpha_m2_per_s is not None:
-            alpha = Estimate(lf.alpha_m2_per_s, {"intercept": lf.alpha_u_rel or 0.0, "model": INTERCEPT_MODEL_REL},
-                             "time-axis intercept")
-        return MethodResult(self.name, k, alpha, window_s=lf.window_s, residual_rms_K=lf.resid_rms_K, n_used=lf.n,
-                            q_mean_W_per_m=lf.q_mean_W_per_m, why=why, flags=flags, fit=lf)
+        budget = {"statistical": df.u_stat_rel, "drift": df.u_drift_rel}
+        if g.on_heater:
+            budget["window"] = window_u(rec, df, plausible_models(rec, found, lf)) or 0.0
+        if rec.time_zero is not None and rec.run.shift_s != 0.0:
+            budget["time_zero"] = _time_zero_term(rec, lf)
+        k = Estimate(df.k_W_per_mK, budget, "late-time line")
+        # the intercept gives α·e^{2h} (contact and the probe's own resistance), not α: no α from the line
+        return MethodResult(self.name, k, None, window_s=lf.window_s, residual_rms_K=lf.resid_rms_K, n_used=lf.n,
+                            q_mean_W_per_m=lf.q_mean_W_per_m, why=why, flags=flags, fit=lf, drift=df)
+
+
+def line_drift_fit(rec: SensorRecord, window_s: tuple[float, float]) -> DriftFit:
+    """Baseline and heating window together, the drift as the baseline gave it (the joint fit is where the
+    recovery pins it)."""
+    run = rec.run
+    t = run.t
+    heat = run.heat & (t >= window_s[0]) & (t <= window_s[1])
+    return fit_with_drift(t, rec.T, run.X, run.Q, base=t < 0, heat=heat, cool=np.zeros(t.size, dtype=bool),
+                          drift_free=False, fixed_drift=baseline_drift(rec))
+
+
+def baseline_drift(rec: SensorRecord) -> tuple[float, float]:
+    """The drift as the baseline alone knows it: the rate removed and its standard uncertainty (the slope's
+    size when it was not removed: see ``drift``)."""
+    return rec.baseline.rate_K_per_s, rec.baseline.rate_u_K_per_s
+
+
+def _time_zero_term(rec: SensorRecord, lf: LateTimeFit) -> float:
+    """The line's k with the switch-on at either end of the time-zero bound, as a rectangular distribution."""
+    tz = rec.time_zero
+    assert tz is not None
+    ks = []
+    for shift in (tz.lo_s, tz.hi_s):
+        r = rec.shifted(shift)
+        try:
+            ks.append(fit_window(r.th, r.u, r.y, r.Qh, *lf.window_s).k_W_per_mK)
+        except ValueError:
+            return 0.0
+    return rectangular_u(ks[0], ks[1]) / lf.k_W_per_mK

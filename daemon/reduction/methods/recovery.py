@@ -9,22 +9,23 @@ from __future__ import annotations
 import numpy as np
 
 from .. import window as win
-from ..cooling import RecoveryWindow, choose_recovery_window, fit_joint, fit_recovery, recovery_candidates
-from ..linesource import ALPHA_MAX, ALPHA_MIN
+from ..cooling import CoolingFit, RecoveryWindow, choose_recovery_window, fit_recovery, recovery_candidates
+from ..driftfit import DriftFit, fit_with_drift
 from ..record import SensorRecord
 from ..superposition import compress_steps
 from .base import Estimate, Found, MethodResult, Options
-
-MODEL_LINE_REL = 0.03  # model and line k differ by more than this: the line's α is tried as well (no source)
+from .stepmodels import step_models, window_u
 
 
 def heating_reference(found: Found) -> MethodResult | None:
     """The heating result the recovery is read against: the line when it worked, else the probe model."""
-    return found.converged("line") or found.converged("model")
+    return found.converged("line") or found.credible("model")
 
 
 class RecoveryMethod:
-    """Heater sensor, heater switched off: ΔT = X/(4πk) through the origin on the recovery window."""
+    """Heater sensor, heater switched off: ΔT = X/(4πk) through the origin on the recovery window, level and
+    drift as the baseline gave them (``cooling.fit_recovery``; the joint fit is where the recovery pins the
+    drift)."""
 
     name = "recovery"
 
@@ -40,20 +41,20 @@ class RecoveryMethod:
         # without a baseline the zero of ΔT is unknown: keep a free offset, judge the slope
         free = not rec.baseline.present
         try:
-            cw = _recovery_window(rec, t[cand], ref.window_s[0], found, free)
+            cw = _recovery_window(rec, t[cand], ref.window_s[0], step_models(rec, found), free)
             fit = fit_recovery(t, rec.dT, run.X, run.Q, cw.t_start, cw.t_end, rec.baseline.rate_u_K_per_s,
                                free_offset=free, level_u_K=rec.baseline.offset_u_K, window_u_rel=cw.window_u_rel)
         except ValueError as e:
             notes = [f"recovery not analysed: {e}"] if np.count_nonzero(t > t_off) > 0 else []
             return MethodResult(self.name, None, converged=False, why=str(e), notes=notes)
-        k = Estimate(fit.k_W_per_mK, {"statistical": fit.k_u_stat_W_per_mK / fit.k_W_per_mK,
-                                      "window": fit.window_u_rel}, "recovery")
+        stat = fit.k_u_stat_W_per_mK / fit.k_W_per_mK  # noise, the baseline's slope and level carried through
+        k = Estimate(fit.k_W_per_mK, {"statistical": stat, "window": fit.window_u_rel}, "recovery")
         return MethodResult(self.name, k, window_s=fit.window_s, residual_rms_K=fit.resid_rms_K, n_used=fit.n,
                             why=cw.reason, fit=fit)
 
 
 class JointMethod:
-    """Heating window and recovery window fitted together with one k."""
+    """Baseline, heating window and recovery window fitted together: one k, the drift pinned at both ends."""
 
     name = "joint"
 
@@ -62,26 +63,37 @@ class JointMethod:
         if recovery is None or ref is None or ref.window_s is None:
             return None
         run = rec.run
+        t = run.t
         cw = recovery.fit
+        heat = run.heat & (t >= ref.window_s[0]) & (t <= ref.window_s[1])
+        cool = (t >= cw.window_s[0]) & (t <= cw.window_s[1]) & (run.Q == 0)
         try:
-            fit = fit_joint(run.t, rec.dT, run.X, run.Q, ref.window_s, cw.window_s, rec.baseline.rate_u_K_per_s,
-                            free_offset=cw.free_offset, level_u_K=rec.baseline.offset_u_K,
-                            window_u_rel=cw.window_u_rel)
+            df = fit_with_drift(t, rec.T, run.X, run.Q, base=t < 0, heat=heat, cool=cool,
+                                drift_free=rec.baseline.present)
         except ValueError as e:
             return MethodResult(self.name, None, converged=False, why=str(e), notes=[f"recovery not analysed: {e}"])
-        k = Estimate(fit.k_W_per_mK, {"statistical": fit.k_u_stat_W_per_mK / fit.k_W_per_mK,
-                                      "window": fit.window_u_rel}, "joint heating and recovery")
-        return MethodResult(self.name, k, window_s=fit.window_s, residual_rms_K=fit.resid_rms_K, n_used=fit.n,
-                            fit=fit)
+        wu = window_u(rec, df, step_models(rec, found)[:1])
+        wu = wu if wu is not None else cw.window_u_rel
+        k = Estimate(df.k_W_per_mK, {"statistical": df.u_stat_rel, "drift": df.u_drift_rel, "window": wu},
+                     "joint heating and recovery")
+        fit = _cooling("joint", df, (float(df.t_rows[df.t_rows > 0][0]), float(df.t_rows[-1])), wu,
+                       cw.free_offset)
+        return MethodResult(self.name, k, window_s=fit.window_s, residual_rms_K=df.resid_rms_K, n_used=df.n,
+                            fit=fit, drift=df)
 
 
-def _recovery_window(rec: SensorRecord, t_rec: np.ndarray, heat_start: float, found: Found,
+def _cooling(kind: str, df: DriftFit, window: tuple[float, float], window_u: float, free: bool) -> CoolingFit:
+    """The fit in the shape plots and reports read (``cooling.CoolingFit``)."""
+    return CoolingFit(kind, df.k_W_per_mK, df.k_W_per_mK * df.u_rel, window, df.n, df.resid_rms_K, df.rho1,
+                      window_u, free)
+
+
+def _recovery_window(rec: SensorRecord, t_rec: np.ndarray, heat_start: float, step_models: list[win.StepModel],
                      free: bool) -> RecoveryWindow:
     """The recovery window from the first step model that gives one (see ``cooling.choose_recovery_window``)."""
     run = rec.run
     t_off = run.t_off
     assert t_off is not None
-    step_models = _step_models(rec, found)
     if not step_models or t_rec.size == 0:
         return choose_recovery_window(t_rec, None, t_off, heat_start)
     keep = run.steps_t <= t_off
@@ -94,32 +106,3 @@ def _recovery_window(rec: SensorRecord, t_rec: np.ndarray, heat_start: float, fo
         except ValueError as e:
             failed.append(e)
     raise failed[0]
-
-
-def _step_models(rec: SensorRecord, found: Found) -> list[win.StepModel]:
-    """Probe and medium for the recovery window, from the same sources as the heating window's rule, in order.
-
-    The probe-model fit when it converged (α, h; α_J from its k/α). The line's intercept α with h = 0 when there
-    is no model, or as a second choice when the model and the line disagree by more than 3 %: a heating the two
-    read differently (a power log that was wrong for a while) can leave the model an α far off, and the recovery
-    is what should show the disagreement. A Blackwell cylinder when the probe's heat capacity is known, an ideal
-    line at the radius otherwise.
-    """
-    g = rec.geometry
-    a_m, probe_C = g.probe_radius_m, g.probe_C_J_per_m3K
-    if a_m is None:
-        return []
-    model, line = found.converged("model"), found.converged("line")
-    sources: list[tuple[float, float, float]] = []
-    if model is not None and model.fit.alpha_m2_per_s > 0:
-        sources.append((model.fit.alpha_m2_per_s, model.fit.h, model.fit.k_W_per_mK))
-    lf = line.fit if line is not None else None
-    if lf is not None and lf.alpha_m2_per_s and (
-            not sources or abs(sources[0][2] / lf.k_W_per_mK - 1) > MODEL_LINE_REL):
-        sources.append((lf.alpha_m2_per_s, 0.0, lf.k_W_per_mK))
-    out = []
-    for alpha, h, k in sources:
-        alpha = min(max(alpha, ALPHA_MIN), ALPHA_MAX)
-        out.append(win.StepModel(alpha, a_m, 2.0 * (k / alpha) / probe_C if probe_C else None, h, g.length_m,
-                                 g.axial_m))
-    return out

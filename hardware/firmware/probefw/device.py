@@ -63,6 +63,7 @@ class FrontEnd:
         self.lease = Lease()
         self.reg = PowerRegulator()
         self.control = FixedRate(CONTROL_PERIOD_MS)
+        self.cycle_done_ms = 0  # when a control cycle last ran to completion (the watchdog's health)
         # configuration (None until the host sends C after every boot)
         self.rate_hz = 0.0
         self.tc_type = ""
@@ -101,6 +102,7 @@ class FrontEnd:
         """Heater off, then announce the boot so the host re-configures (and never re-arms by itself)."""
         self.hal.set_duty(0.0)
         self.control = FixedRate(CONTROL_PERIOD_MS, now_ms)
+        self.cycle_done_ms = now_ms
         self.send("B", [self.boot_id, self.firmware, str(PROTOCOL_VERSION), reset_cause])
 
     @property
@@ -265,7 +267,8 @@ class FrontEnd:
         return ""
 
     def tick(self, now_ms: int) -> bool:
-        """One loop iteration. Returns True when the safety checks ran (the watchdog may be fed)."""
+        """One loop iteration. True while control cycles complete on time: a cycle that fails every time
+        (the passes between cycles succeed) must still starve the watchdog (PROTOCOL.md §7.1 CRASH, §8)."""
         if self.heater_on and self.lease.expired(now_ms):
             self.trip(now_ms, "LEASE", "expired", latch=False)
         if self.latched is not None and now_ms - self.latched_sent_ms >= FAULT_REPEAT_MS:
@@ -273,7 +276,8 @@ class FrontEnd:
             self.send("F", list(self.latched))
         if self.control.due(now_ms):
             self._control_cycle(now_ms)
-        return True
+            self.cycle_done_ms = now_ms
+        return now_ms - self.cycle_done_ms <= 2 * CONTROL_PERIOD_MS
 
     def _control_cycle(self, now_ms: int) -> None:
         applied = self.duty

@@ -1,19 +1,15 @@
-"""Front-end firmware: constant heater power from a sagging battery (PWM duty from measured V and I).
+"""Constant heater power from a sagging battery (PWM duty from measured V and I), under both interpreters.
 
 Check against physics outside the firmware: the simulated board computes the true heater power as
 D·V_on²/R from its own battery and heater model (Joule heating of a resistor), not from the firmware.
 """
 
-from __future__ import annotations
-
-import pytest
-from firmware_path import FakeRig, Harness
+from board import FakeRig, Harness
+from check import close
 from probefw.regulator import PowerRegulator
 
-from linerig.daemon.rig.messages import Fault, Sample
 
-
-def _true_power_trace(h: Harness, ms: int) -> list[float]:
+def _true_power_trace(h: Harness, ms: int) -> list:
     out = []
     for _ in range(ms // 100):
         h.run(100, renew_every_ms=100)
@@ -30,7 +26,7 @@ def test_power_stays_constant_while_the_battery_sags() -> None:
     trace = _true_power_trace(h, 120_000)
     settled = trace[3:]  # one probe cycle, one feed-forward, one trim
     assert max(abs(p - 4.0) / 4.0 for p in settled) < 0.005
-    assert rig.v_oc() == pytest.approx(10.8)
+    assert close(rig.v_oc(), 10.8)
     # the duty rose as the battery fell: the regulator did the work, not a stiff supply
     duties = [d for _, d in rig.duty_log if d > 0]
     assert duties[-1] > duties[5] * 1.3
@@ -53,12 +49,12 @@ def test_reported_rms_values_give_power_and_resistance() -> None:
     h.configure(rate_hz=10)
     h.send("P", 2.0, 1000)
     h.run(3000, renew_every_ms=200)
-    s = [m for _, _, m in h.of("S") if isinstance(m, Sample)][-1]
+    s = h.samples()[-1]
     assert s.heater_on
     # the host computes P = V·I and R = V/I from the sample, as it would for a DC supply
-    assert s.heater_V * s.heater_A == pytest.approx(rig.true_power_W(), rel=0.005)
-    assert s.heater_V / s.heater_A == pytest.approx(30.0, rel=0.005)
-    assert s.supply_V == pytest.approx(12.0, rel=0.01)
+    assert close(s.heater_V * s.heater_A, rig.true_power_W(), rel=0.005)
+    assert close(s.heater_V / s.heater_A, 30.0, rel=0.005)
+    assert close(s.supply_V, 12.0, rel=0.01)
 
 
 def test_a_flat_battery_saturates_and_says_so_once() -> None:
@@ -67,10 +63,9 @@ def test_a_flat_battery_saturates_and_says_so_once() -> None:
     h.configure()
     h.send("P", 8.0, 1000)
     h.run(5000, renew_every_ms=200)
-    faults = [m for _, _, m in h.of("F") if isinstance(m, Fault)]
-    assert [f.code for f in faults] == ["UNDERPOWER"]
-    assert rig.duty == pytest.approx(h.fe.reg.duty_max)
-    assert rig.true_power_W() == pytest.approx(h.fe.reg.duty_max * rig.v_on() ** 2 / 20.0)
+    assert h.faults() == ["UNDERPOWER"]
+    assert close(rig.duty, h.fe.reg.duty_max)
+    assert close(rig.true_power_W(), h.fe.reg.duty_max * rig.v_on() ** 2 / 20.0)
     assert h.fe.heater_on  # under power is a warning; the host decides whether the run is still useful
 
 
@@ -81,6 +76,6 @@ def test_regulator_unit_step_response() -> None:
     v, r = 12.0, 24.0
     for _ in range(4):
         duty = reg.update(v, duty * v / r, duty)
-    assert duty * v * v / r == pytest.approx(3.0, rel=1e-6)
-    assert reg.resistance_ohm == pytest.approx(24.0)
+    assert close(duty * v * v / r, 3.0, rel=1e-6)
+    assert close(reg.resistance_ohm, 24.0)
     assert reg.stop() == 0.0
