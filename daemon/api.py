@@ -72,7 +72,7 @@ class Streamed:
 Handler = Callable[[dict[str, Any], Peer], Awaitable[dict[str, Any] | Streamed]]
 
 
-LOSSY_EVENTS = frozenset({"sample", "estimate", "committed"})  # superseded by the next one of their kind
+LOSSY_EVENTS = frozenset({"sample", "estimate", "committed", "pulse_fit"})  # superseded by the next one of their kind
 MAX_KEPT = 10_000  # state changes, faults... held for one subscriber; past this it is too far behind and is cut off
 
 

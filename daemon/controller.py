@@ -68,7 +68,10 @@ class PlanError(ValueError):
         self.value = value
 
 
+PLAN_KINDS = ("line", "pulse")
 PLAN_HELP: dict[str, str] = {
+    "kind": "line (heat until the late-time line is steady, with a live fit and stop verdict) or pulse (a short heat "
+            "pulse read at a radial sensor: heat for heat_s, record the decay; no stop verdict)",
     "heat_s": "maximum heating time, s (heating may stop earlier on a stable estimate)",
     "recover_s": "recovery (cooling) logging time after the heater goes off, s",
     "power_W_per_m": "heater power per metre, W/m",
@@ -88,6 +91,7 @@ PLAN_HELP: dict[str, str] = {
 
 @dataclass(frozen=True)
 class RunPlan:
+    kind: str = "line"
     heat_s: float = 600.0
     recover_s: float = 600.0
     power_W_per_m: float = 5.0
@@ -106,6 +110,13 @@ class RunPlan:
             problem = plan_problem(f.name, getattr(self, f.name))
             if problem:
                 raise PlanError(f.name, problem, getattr(self, f.name))
+        if self.kind == "pulse" and self.auto_stop:
+            raise PlanError("auto_stop", "false for a pulse (a pulse has no stop verdict: it heats for heat_s)",
+                            self.auto_stop)
+
+    @property
+    def pulse(self) -> bool:
+        return self.kind == "pulse"
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -121,6 +132,8 @@ class RunPlan:
 
 def plan_problem(name: str, value: object) -> str | None:
     """What a plan value must be, when it is not."""
+    if name == "kind":
+        return None if value in PLAN_KINDS else f"one of {', '.join(PLAN_KINDS)}"
     if name == "auto_stop":
         return None if isinstance(value, bool) else "true or false"
     if name == "sensor":
@@ -240,7 +253,9 @@ class RunController:
         """The operator confirms heating can stop; acted on at the next sample."""
         if self.state != RunState.HEATING:
             return False
-        if self.stable_at_s is not None and self.withdrawn_at_s is None:
+        if self.plan.pulse:
+            self.stop_requested = "operator ended the pulse early (the power record keeps the heat given)"
+        elif self.stable_at_s is not None and self.withdrawn_at_s is None:
             self.stop_requested = f"operator stopped heating: heating could stop since t = {self.stable_at_s:.0f} s"
         elif self.stable_at_s is not None:
             self.stop_requested = "operator stopped heating after the verdict was withdrawn"

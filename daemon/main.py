@@ -28,11 +28,12 @@ from typing import TYPE_CHECKING, Any
 from linerig.daemon import sdnotify
 from linerig.daemon.api import ApiServer, Handler, Hub, Peer, RequestError, SocketFolderError, Streamed
 from linerig.daemon.config import DEFAULT_CONFIG_PATH, RigConfig, devices_anyway, load_config
-from linerig.daemon.controller import RunPlan
+from linerig.daemon.controller import PlanError, RunPlan
 from linerig.daemon.errors import ConfigError, RigError
 from linerig.daemon.paths import default_db_path, default_socket_path
 from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.rig.scpi import ScpiError, SupplyLimits
+from linerig.daemon.safety import Limits, check_plan
 from linerig.daemon.samples_reply import samples_pieces
 from linerig.daemon.service import DaemonSettings, RigService
 from linerig.daemon.sim.speed import speed_factor
@@ -69,6 +70,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--safe-off", action="store_true",
                    help="send heater-off to the front end (and output-off to a configured supply), then exit")
     p.add_argument("--check-config", action="store_true", help="read the configuration, report, and exit")
+    p.add_argument("--sim-spacing", action="append", default=[], metavar="SENSOR=MM",
+                   help="with --simulate: the simulated probe's radial sensor sits this far from the heater, not where "
+                        "the profile says (a bent needle, to try a spacing calibration; repeatable)")
     p.add_argument("--sim-heater-log", type=Path, default=None, help=argparse.SUPPRESS)
     p.add_argument("--sim-control", type=Path, default=None, help=argparse.SUPPRESS)
     p.add_argument("-v", "--verbose", action="store_true")
@@ -91,6 +95,8 @@ def start_simulator(args: argparse.Namespace, probe_path: Path | None) -> tuple[
         cmd.append("--supply")
     if args.firmware:
         cmd.append("--firmware")
+    for item in args.sim_spacing:
+        cmd += ["--spacing", item]
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
     assert proc.stdout is not None
     line = proc.stdout.readline()
@@ -207,6 +213,26 @@ def supply_limits(cfg: RigConfig, probe: ProbeProfile) -> SupplyLimits:
     return SupplyLimits(v_max=v_max, i_max=i_max, p_max_W=p_max_W)
 
 
+def with_pulse_preset(presets: dict[str, RunPlan], plan: RunPlan, probe: ProbeProfile,
+                      limits: Limits) -> dict[str, RunPlan]:
+    """The configured presets, plus "pulse" from the probe profile's [pulse] table when rig.toml has none.
+
+    A profile pulse that exceeds a daemon limit is left out (logged): the limits are the operator's to raise.
+    """
+    if "pulse" in presets or probe.pulse is None:
+        return presets
+    try:
+        pulse = plan.with_changes(probe.pulse.plan_changes())
+    except PlanError as exc:
+        log.warning("probe %s: [pulse] not offered as a preset: %s", probe.name, exc)
+        return presets
+    problems = check_plan(pulse.power_W_per_m, pulse.heat_s, limits)
+    if problems:
+        log.warning("probe %s: [pulse] not offered as a preset: %s", probe.name, "; ".join(problems))
+        return presets
+    return {**presets, "pulse": pulse}
+
+
 async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, material: str | None,
                 supply_url: str | None = None, sim_firmware: str | None = None) -> int:
     from linerig.daemon.probe import load_probe_profile
@@ -216,7 +242,8 @@ async def serve(args: argparse.Namespace, cfg: RigConfig, frontend_url: str, mat
     if plan.sensor not in [s.name for s in probe.sensors]:
         plan = plan.with_changes({"sensor": probe.sensors[0].name})
     settings = DaemonSettings(frontend_url=frontend_url, probe=probe, limits=cfg.limits,
-                              rate_hz=args.rate_hz or cfg.devices.rate_hz, default_plan=plan, presets=cfg.presets,
+                              rate_hz=args.rate_hz or cfg.devices.rate_hz, default_plan=plan,
+                              presets=with_pulse_preset(cfg.presets, plan, probe, cfg.limits),
                               simulated_material=material, probes=cfg.probes, config_source=cfg.source,
                               frontend_baud=cfg.devices.frontend_baud, supply_url=supply_url,
                               supply_baud=cfg.devices.supply_baud, supply_limits=supply_limits(cfg, probe))
@@ -437,6 +464,10 @@ def main(argv: list[str] | None = None) -> int:
         print("linerigd: --firmware goes with --simulate; a real rig runs the firmware on its own board",
               file=sys.stderr)
         return 2
+    if args.sim_spacing and args.simulate is None:
+        print("linerigd: --sim-spacing goes with --simulate; a real probe's spacing is calibrated (linerig calibrate "
+              "--spacing)", file=sys.stderr)
+        return 2
     if args.simulate is not None:
         from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, get_material
 
@@ -452,6 +483,14 @@ def main(argv: list[str] | None = None) -> int:
                 load_probe_profile(args.probe)
             except ProbeProfileError as exc:
                 print(f"linerigd: {exc}", file=sys.stderr)
+                return 2
+        if args.sim_spacing:
+            from linerig.daemon.sim.main import _probe, bent
+
+            try:
+                bent(_probe(args.probe), args.sim_spacing)
+            except ValueError as exc:
+                print(f"linerigd: {str(exc).replace('--spacing', '--sim-spacing')}", file=sys.stderr)
                 return 2
         sim, info = start_simulator(args, args.probe)
         frontend_url = info["frontend"]

@@ -22,6 +22,14 @@ Schema (``hardware/probes/*.toml``)::
     radial_mm = 0.0                    # 0 = inside the heated needle; > 0 = distance from the heater axis
     axial_mm = 50.0                    # optional, distance from the tip
     radial_u_mm = 0.1                  # optional standard uncertainty of the spacing
+    needle_radius_mm = 0.5             # optional, a radial sensor's own needle (default: as the heated needle on a
+    needle_heat_capacity_MJ_per_m3K = 3.0  #  dual probe, none elsewhere), for the heat-pulse model
+    [pulse]                            # optional: the heat-pulse run this probe is made for (daemon preset "pulse")
+    sensor = "needle8"                 # the radial sensor the pulse is read at
+    power_W_per_m = 20.0
+    pulse_s = 50.0                     # heating time
+    record_s = 280.0                   # recording after heater on (the run's recovery logs the rest)
+    baseline_s = 120.0                 # optional
 """
 
 from __future__ import annotations
@@ -49,6 +57,8 @@ class SensorPosition:
     radial_mm: float = 0.0
     axial_mm: float | None = None
     radial_u_mm: float | None = None
+    needle_radius_mm: float | None = None
+    needle_heat_capacity_MJ_per_m3K: float | None = None
 
     @property
     def is_on_heater(self) -> bool:
@@ -57,6 +67,26 @@ class SensorPosition:
     @property
     def radial_m(self) -> float:
         return self.radial_mm * 1e-3
+
+
+@dataclass(frozen=True)
+class PulsePlan:
+    """The heat-pulse run a probe is made for (``pulse_plan.design_pulse`` derives one)."""
+
+    sensor: str
+    power_W_per_m: float
+    pulse_s: float
+    record_s: float
+    baseline_s: float | None = None
+
+    def plan_changes(self) -> dict[str, Any]:
+        """The run-plan settings of this pulse (``controller.RunPlan``): heat for the pulse, record the decay."""
+        out: dict[str, Any] = {"kind": "pulse", "sensor": self.sensor, "power_W_per_m": self.power_W_per_m,
+                               "heat_s": self.pulse_s, "recover_s": max(self.record_s - self.pulse_s, 1.0),
+                               "auto_stop": False, "cycles": 1}
+        if self.baseline_s is not None:
+            out["baseline_s"] = self.baseline_s
+        return out
 
 
 @dataclass(frozen=True)
@@ -74,6 +104,7 @@ class ProbeProfile:
     thermocouple: str | None = None
     radius_u_mm: float | None = None
     sensors: tuple[SensorPosition, ...] = field(default_factory=lambda: (SensorPosition("heater"),))
+    pulse: PulsePlan | None = None
 
     # --- SI accessors -------------------------------------------------------------------------------------
     @property
@@ -125,16 +156,47 @@ class ProbeProfile:
         u = s.radial_u_mm if s.radial_u_mm is not None else 0.01 * s.radial_mm
         return u * 1e-3
 
-    def with_sensor(self, name: str, radial_mm: float) -> ProbeProfile:
-        """A copy with one sensor's radial position set (added if missing), e.g. from ``--spacing``."""
+    def needle_radius_m(self, name: str) -> float:
+        """Radius of a radial sensor's own needle: as given, else the heated needle's on a dual probe, else 0."""
+        s = self.sensor(name)
+        if s.needle_radius_mm is not None:
+            return s.needle_radius_mm * 1e-3
+        return self.radius_m if self.kind == "dual" and not s.is_on_heater else 0.0
+
+    def needle_heat_capacity_J_per_m3K(self, name: str) -> float | None:
+        """Volumetric heat capacity of a radial sensor's needle: as given, else the heated needle's on a dual probe."""
+        s = self.sensor(name)
+        if s.needle_heat_capacity_MJ_per_m3K is not None:
+            return s.needle_heat_capacity_MJ_per_m3K * 1e6
+        return self.heat_capacity_J_per_m3K if self.kind == "dual" and not s.is_on_heater else None
+
+    def with_sensor(self, name: str, radial_mm: float, radial_u_mm: float | None = None) -> ProbeProfile:
+        """A copy with one sensor's radial position (and its uncertainty) set, e.g. from ``--spacing`` or a spacing
+        calibration; the sensor is added if missing. Its place among the sensors and its needle are kept."""
         if radial_mm < 0 or not math.isfinite(radial_mm):
             raise ProbeProfileError(
                 f"sensor {name!r}: spacing must be a finite distance >= 0 mm, got {radial_mm}")
-        sensors = [s for s in self.sensors if s.name != name]
+        if radial_u_mm is not None and not (radial_u_mm >= 0 and math.isfinite(radial_u_mm)):
+            raise ProbeProfileError(f"sensor {name!r}: spacing uncertainty must be >= 0 mm, got {radial_u_mm}")
         old = next((s for s in self.sensors if s.name == name), None)
-        axial = old.axial_mm if old else None
-        sensors.append(SensorPosition(name=name, radial_mm=radial_mm, axial_mm=axial))
-        return replace(self, sensors=tuple(sensors))
+        if old is None:
+            return replace(self, sensors=(*self.sensors, SensorPosition(name=name, radial_mm=radial_mm,
+                                                                       radial_u_mm=radial_u_mm)))
+        new = replace(old, radial_mm=radial_mm, radial_u_mm=radial_u_mm if radial_u_mm is not None
+                      else (old.radial_u_mm if old.radial_mm == radial_mm else None))
+        return replace(self, sensors=tuple(new if s.name == name else s for s in self.sensors))
+
+
+def sensor_mm(item: str, option: str, example: str = "needle8=8.0") -> tuple[str, float]:
+    """A command line's ``SENSOR=MM`` (``--spacing`` and the like) as (name, millimetres >= 0)."""
+    name, sep, mm = item.partition("=")
+    try:
+        value = float(mm)
+    except ValueError:
+        value = math.nan
+    if not sep or not name or not (math.isfinite(value) and value >= 0):
+        raise ProbeProfileError(f"{option} {item!r}: expected SENSOR=MM with MM >= 0, e.g. {option} {example}")
+    return name, value
 
 
 def _fail(source: str, key: str, expected: str, got: Any = None) -> ProbeProfileError:
@@ -162,6 +224,9 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
     probe = doc.get("probe")
     if not isinstance(probe, dict):
         raise ProbeProfileError(f"{source}: missing [probe] table")
+    extra_tables = sorted(set(doc) - {"probe", "sensor", "pulse"})
+    if extra_tables:
+        raise ProbeProfileError(f"{source}: unknown table [{extra_tables[0]}] (known: [probe], [[sensor]], [pulse])")
     known = {"name", "serial", "kind", "heater_length_mm", "radius_mm", "heat_capacity_MJ_per_m3K",
              "heater_resistance_ohm", "heater_tcr_per_K", "thermocouple", "radius_u_mm"}
     unknown = sorted(set(probe) - known)
@@ -198,10 +263,11 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
         where = f"sensor[{i}]."
         if not isinstance(s, dict):
             raise ProbeProfileError(f"{source}: sensor[{i}] must be a table")
-        extra = sorted(set(s) - {"name", "radial_mm", "axial_mm", "radial_u_mm"})
+        sensor_keys = ("name", "radial_mm", "axial_mm", "radial_u_mm", "needle_radius_mm",
+                       "needle_heat_capacity_MJ_per_m3K")
+        extra = sorted(set(s) - set(sensor_keys))
         if extra:
-            raise ProbeProfileError(f"{source}: unknown key {where}{extra[0]} "
-                                    "(known: name, radial_mm, axial_mm, radial_u_mm)")
+            raise ProbeProfileError(f"{source}: unknown key {where}{extra[0]} (known: {', '.join(sensor_keys)})")
         sname = s.get("name")
         if not isinstance(sname, str) or not sname or not all(c.isalnum() or c == "_" for c in sname):
             raise _fail(source, f"{where}name", "a name of letters, digits or _ (it names the CSV column "
@@ -211,17 +277,46 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
         radial = _number(s, "radial_mm", source, where, required=True, allow_zero=True)
         axial = _number(s, "axial_mm", source, where, required=False, allow_zero=True)
         radial_u = _number(s, "radial_u_mm", source, where, required=False, allow_zero=True)
+        needle_r = _number(s, "needle_radius_mm", source, where, required=False, allow_zero=True)
+        needle_c = _number(s, "needle_heat_capacity_MJ_per_m3K", source, where, required=False)
         assert radial is not None
         if axial is not None and axial > length:
             raise _fail(source, f"{where}axial_mm", f"within the heater length ({length} mm)", axial)
         if 0.0 < radial <= radius:
             raise _fail(source, f"{where}radial_mm",
                         f"0 (inside the heater) or beyond the needle radius ({radius} mm)", radial)
-        sensors.append(SensorPosition(sname, radial, axial, radial_u))
+        if needle_r is not None and radial > 0 and needle_r >= radial - radius:
+            raise _fail(source, f"{where}needle_radius_mm", "small enough that the needles do not touch", needle_r)
+        sensors.append(SensorPosition(sname, radial, axial, radial_u, needle_r, needle_c))
     return ProbeProfile(name=name, radius_mm=radius, heater_length_mm=length, heat_capacity_MJ_per_m3K=cap,
                         serial=serial, kind=kind, heater_resistance_ohm=res, heater_tcr_per_K=tcr or 0.0,
                         thermocouple=tc.upper() if isinstance(tc, str) else None, radius_u_mm=radius_u,
-                        sensors=tuple(sensors))
+                        sensors=tuple(sensors), pulse=_pulse(doc.get("pulse"), sensors, source))
+
+
+def _pulse(table: Any, sensors: list[SensorPosition], source: str) -> PulsePlan | None:
+    """The optional [pulse] table: the heat-pulse run the probe is made for."""
+    if table is None:
+        return None
+    if not isinstance(table, dict):
+        raise ProbeProfileError(f"{source}: [pulse] must be a table")
+    keys = ("sensor", "power_W_per_m", "pulse_s", "record_s", "baseline_s")
+    extra = sorted(set(table) - set(keys))
+    if extra:
+        raise ProbeProfileError(f"{source}: unknown key pulse.{extra[0]} (known: {', '.join(keys)})")
+    name = table.get("sensor")
+    radial = [s.name for s in sensors if not s.is_on_heater]
+    if name not in radial:
+        raise _fail(source, "pulse.sensor", f"one of the radial sensors ({', '.join(radial) or 'none'})", name)
+    power = _number(table, "power_W_per_m", source, "pulse.", required=True)
+    pulse_s = _number(table, "pulse_s", source, "pulse.", required=True)
+    record = _number(table, "record_s", source, "pulse.", required=True)
+    base = _number(table, "baseline_s", source, "pulse.", required=False)
+    assert power is not None and pulse_s is not None and record is not None
+    if record <= pulse_s:
+        raise _fail(source, "pulse.record_s", f"longer than the pulse ({pulse_s:g} s): the decay is the measurement",
+                    record)
+    return PulsePlan(str(name), power, pulse_s, record, base)
 
 
 def load_probe_profile(path: str | Path) -> ProbeProfile:
@@ -246,8 +341,12 @@ def stored_profile(text: str, source: str) -> ProbeProfile:
     if not isinstance(flat, dict):
         raise ProbeProfileError(f"{source}: stored profile is not a table")
     sensors = flat.pop("sensors", None) or [{"name": "heater"}]
+    pulse = flat.pop("pulse", None)
     probe = {k: v for k, v in flat.items() if v is not None}
     if not isinstance(sensors, list):
         raise ProbeProfileError(f"{source}: stored sensors are not a list")
-    return profile_from_dict({"probe": probe, "sensor": [{k: v for k, v in s.items() if v is not None}
-                                                         for s in sensors if isinstance(s, dict)]}, source)
+    doc: dict[str, Any] = {"probe": probe, "sensor": [{k: v for k, v in s.items() if v is not None}
+                                                      for s in sensors if isinstance(s, dict)]}
+    if isinstance(pulse, dict):
+        doc["pulse"] = {k: v for k, v in pulse.items() if v is not None}
+    return profile_from_dict(doc, source)

@@ -21,9 +21,11 @@ import numpy as np
 from linerig.daemon import sdnotify
 from linerig.daemon.api import Peer, RequestError
 from linerig.daemon.controller import FINAL, CycleSchedule, PlanError, RunController, RunPlan, RunState
+from linerig.daemon.probe import ProbeProfile
 from linerig.daemon.reduction.alignment import power_held_from_each_sample
 from linerig.daemon.safety import check_plan
 from linerig.daemon.store.queries import HEATER_OFF_EVENT
+from linerig.daemon.store.spacings import apply_spacings, spacing_history
 from linerig.daemon.store.writer import StoreError, utc_now
 from linerig.daemon.threads import in_daemon_thread
 
@@ -49,6 +51,10 @@ METADATA_RANGES: dict[str, tuple[float, float, str]] = {
                                   "100 %)"),
     "dry_density_kg_per_m3": (10.0, 3000.0, "a dry density from 10 to 3000 kg/m³"),
 }
+
+
+PULSE_FIT_EVERY_S = 10.0     # a live pulse fit every 10 s of the decay (device time) ...
+PULSE_FIT_MIN_WALL_S = 2.0   # ... and at most one every 2 s of wall time, so a fast simulator never crowds the loop
 
 
 @dataclass
@@ -93,6 +99,10 @@ class RunKeeper:
         self.rig = rig
         self.run: RunController | None = None
         self.series: Series | None = None
+        self.run_probe: dict[int, ProbeProfile] = {}  # the probe as each run reduces it (calibrated spacings)
+        self._pulse_busy = False
+        self._pulse_next_t = 0.0
+        self._pulse_next_wall = 0.0
         self.calibration: tuple[float, float] = (1.0, 0.0)  # the current run's probe factor and its u
 
     # -- requests -----------------------------------------------------------
@@ -214,18 +224,45 @@ class RunKeeper:
             rig.note_store_failure(str(exc))
             raise RequestError(str(exc)) from exc
         rig.begin_run_samples()
+        self._pulse_next_t = self._pulse_next_wall = 0.0
         self.calibration, cal_event = self._probe_calibration()
+        # a pulse has no live line fit and so no "heating can stop" verdict: it heats for its planned time
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=rig.reducer_factory(plan.sensor, *self.calibration), cycle=cycle,
-                                 reequilibrate=reequilibrate)
+                                 reducer_factory=None if plan.pulse else rig.reducer_factory(plan.sensor,
+                                                                                             *self.calibration),
+                                 cycle=cycle, reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}
         rig.record_event(run_id, "state", "checking", why, data)
         rig.record_event(run_id, "calibration", *cal_event)
+        self._apply_spacings(run_id)
         rig.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
                          "device_s": rig.device_s, **self._cycle_fields(cycle)})
         sdnotify.notify(f"STATUS=run {run_id} checking")
         return run_id
+
+    def _apply_spacings(self, run_id: int) -> None:
+        """The probe this run is reduced with: each radial sensor at its latest accepted spacing calibration (a
+        dual needle's spacing sets its ρc as 1/r²), recorded as an event."""
+        rig = self.rig
+        probe = rig.s.probe
+        try:
+            history = spacing_history(rig.store.reader, probe.serial)
+        except Exception as exc:  # sqlite3 errors: the nominal spacing is still a result, say why
+            log.warning("spacing calibrations not read: %s", exc)
+            history = []
+        probe, used = apply_spacings(probe, history, None)
+        self.run_probe[run_id] = probe
+        for old in sorted(self.run_probe)[:-4]:  # a finishing cycle still reduces while the next one opens
+            del self.run_probe[old]
+        for st in used:
+            rig.record_event(run_id, "calibration", None, f"spacing calibration applied: {st.message}",
+                             {"calibration_id": st.calibration_id, "spacing_m": st.spacing_m,
+                              "spacing_u_m": st.spacing_u_m, "state": st.state})
+
+    def probe_for(self, run_id: int) -> ProbeProfile:
+        return self.run_probe.get(run_id, self.rig.s.probe)
+
 
     def _probe_calibration(self) -> tuple[tuple[float, float], tuple[str | None, str, dict[str, Any]]]:
         """The probe's accepted calibration when a run opens, (factor, u), applied live and in the final result;
@@ -247,31 +284,23 @@ class RunKeeper:
         return {"series_id": s.series_id if s else None, "cycle": cycle, "cycles": s.schedule.cycles if s else 1}
 
     async def final_reduction(self, run: RunController, arr: dict[str, list[Any]]) -> dict[str, Any]:
-        if run.heat_start_s is None or len(arr.get("device_s", [])) < 10:
-            return {}
         from linerig.daemon.reduction.api import reduce_run
-        from linerig.daemon.reduction.data import RunData
         from linerig.daemon.reduction.stop_rule import StopSettings
 
         rig = self.rig
-        t = np.asarray(arr["device_s"]) - run.heat_start_s
-        temps = np.asarray(arr["temps"], dtype=float)
-        names = [x.name for x in rig.s.probe.sensors]
-        usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
-        if not usable:
+        data = self._run_data(run, arr)
+        if data is None:
             return {}
-        off = run.device_off_s - run.heat_start_s if run.device_off_s is not None else None
         if run.device_off_s is not None:  # so that a reduction from the store splits the same interval
             rig.record_event(run.run_id, HEATER_OFF_EVENT, None, "the front end's own switch-off time",
                              {"device_s": run.device_off_s})
-        q = power_held_from_each_sample(t, np.asarray(arr["q"]), heater_off_s=off)
-        data = RunData(time_s=t, q_W_per_m=q, temps_C=usable)
         factor, factor_u = self.calibration
         # CPU-bound numpy/scipy work off the event loop, so lease and watch tasks keep their timing; in a daemon
         # thread, so that stopping the daemon never waits for it (the run can be reduced again offline)
         stop = StopSettings(run.plan.stop_tolerance, run.plan.heat_s)  # the verdict as the run was judged
-        red = await in_daemon_thread(reduce_run, data, rig.s.probe, max_rise_K=rig.s.limits.max_rise_K,
-                                     calibration_factor=factor, calibration_factor_u=factor_u, stable_rule=stop)
+        red = await in_daemon_thread(reduce_run, data, self.probe_for(run.run_id),
+                                     max_rise_K=rig.s.limits.max_rise_K, calibration_factor=factor,
+                                     calibration_factor_u=factor_u, stable_rule=stop)
         out = {}
         ended_early = str(run.state) if str(run.state) in ("aborted", "faulted") else None
         for name, res in red.sensors.items():
@@ -282,7 +311,68 @@ class RunKeeper:
                 j["flags"] = [*j["flags"], ended_early]
             rig.store.add_result(run.run_id, name, j, source="final")
             out[name] = j
+            if run.plan.pulse and name == run.plan.sensor and res.pulse is not None:
+                self._publish_pulse_fit(run, res.pulse, float(data.time_s[-1]), final=True)
         return out
+
+    def _run_data(self, run: RunController, arr: dict[str, list[Any]]) -> Any:
+        """The run's samples as the reduction takes them (None before heating or without usable sensors)."""
+        from linerig.daemon.reduction.data import RunData
+
+        if run.heat_start_s is None or len(arr.get("device_s", [])) < 10:
+            return None
+        t = np.asarray(arr["device_s"]) - run.heat_start_s
+        temps = np.asarray(arr["temps"], dtype=float)
+        names = [x.name for x in self.rig.s.probe.sensors]
+        usable = {n: temps[:, i] for i, n in enumerate(names) if np.all(np.isfinite(temps[:, i]))}
+        if not usable:
+            return None
+        off = run.device_off_s - run.heat_start_s if run.device_off_s is not None else None
+        q = power_held_from_each_sample(t, np.asarray(arr["q"]), heater_off_s=off)
+        return RunData(time_s=t, q_W_per_m=q, temps_C=usable)
+
+    # -- the live pulse fit -------------------------------------------------
+    def after_sample(self, run: RunController) -> None:
+        """During a pulse's decay, now and then fit the pulse so far (in a thread) and publish it: the live
+        screen draws the sensor's rise and decay with the fit. The final reduction publishes the last one."""
+        if not run.plan.pulse or run.state != RunState.RECOVERING or self._pulse_busy or run.heat_start_s is None:
+            return
+        t = self.rig.device_s - run.heat_start_s
+        now = time.monotonic()
+        if t < self._pulse_next_t or now < self._pulse_next_wall:
+            return
+        data = self._run_data(run, {k: list(v) for k, v in self.rig.run_arrays.items()})
+        if data is None:
+            return
+        self._pulse_next_t, self._pulse_next_wall = t + PULSE_FIT_EVERY_S, now + PULSE_FIT_MIN_WALL_S
+        self._pulse_busy = True
+        self.rig.spawn(self._live_pulse(run, data))
+
+    async def _live_pulse(self, run: RunController, data: Any) -> None:
+        from linerig.daemon.reduction.methods.pulse import live_pulse_fit
+        from linerig.daemon.reduction.pulse import PulseFitError
+
+        try:
+            fit = await in_daemon_thread(live_pulse_fit, data, self.probe_for(run.run_id), run.plan.sensor)
+        except (PulseFitError, ValueError, ArithmeticError) as exc:
+            log.debug("live pulse fit of run %s: %s", run.run_id, exc)
+            return
+        finally:
+            self._pulse_busy = False
+        if self.run is run and run.active:
+            self._publish_pulse_fit(run, fit, float(data.time_s[-1]), final=False)
+
+    def _publish_pulse_fit(self, run: RunController, fit: Any, t_s: float, final: bool) -> None:
+        from linerig.daemon.reduction.methods.pulse import curve_points
+
+        end = max(t_s, run.plan.heat_s + run.plan.recover_s)
+        self.rig.hub.publish({
+            "event": "pulse_fit", "run_id": run.run_id, "sensor": run.plan.sensor, "t_s": t_s, "final": final,
+            "k_W_per_mK": fit.k_W_per_mK, "k_u_W_per_mK": fit.u("k"), "alpha_mm2_per_s": fit.alpha_m2_per_s * 1e6,
+            "alpha_u_mm2_per_s": fit.u("alpha") * 1e6, "rho_c_MJ_per_m3K": fit.rho_c_J_per_m3K / 1e6,
+            "rho_c_u_MJ_per_m3K": fit.u("rho_c") / 1e6, "spacing_mm": fit.spacing_m * 1e3,
+            "window_s": list(fit.window_s), "flags": list(fit.flags),
+            "t_peak_s": fit.peak.peak.t_s if fit.peak else None, "curve": curve_points(fit, end)})
 
     def _run_ended(self, run: RunController, state: RunState) -> None:
         """Called as a run reaches a final state: start the next cycle at once, reduce this one."""

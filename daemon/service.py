@@ -501,6 +501,7 @@ class RigService:
                 primary = run.sensor_index
                 run.on_sample(self.device_s, temps[primary] if primary < len(temps) else float("nan"), power,
                               heater_on)
+                self.runs.after_sample(run)
         if self.hub.subscribers:
             t = None
             if active and run is not None and run.heat_start_s is not None:

@@ -11,12 +11,15 @@ See METHODS.md for the methods, the window rule, the budget and what each flag m
 from __future__ import annotations
 
 import math
+from dataclasses import replace
+
+import numpy as np
 
 from ..probe import ProbeProfile
 from .data import ReductionError, RunData
 from .live import DEFAULT_POWER_U_REL, record_verdict
 from .methods import Options
-from .record import HeatingRecord, SensorRecord
+from .record import MIN_HEATING_SAMPLES, HeatingRecord, SensorRecord
 from .result import RunReduction, SensorResult
 from .select import METHODS, choose, run_methods, sensor_result
 from .stop_rule import StopSettings
@@ -49,8 +52,13 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
     out: dict[str, SensorResult] = {}
     failed: list[ReductionError] = []
     for name in names:
+        rec = SensorRecord.of(data, run, name, probe)
         try:
-            out[name] = reduce_sensor(SensorRecord.of(data, run, name, probe), opts)
+            out[name] = res = reduce_sensor(rec, opts)
+            if rec.geometry.on_heater and np.count_nonzero(run.heat) < MIN_HEATING_SAMPLES:
+                res.flags = list(dict.fromkeys([*res.flags, "window_short"]))
+                res.notes.append(f"only {np.count_nonzero(run.heat)} heating samples (a short pulse): this heater "
+                                 "sensor's k is no measurement; read the pulse at the radial sensor")
         except ReductionError as e:  # one sensor that cannot give a result does not take the others with it
             failed.append(e)
             out[name] = SensorResult(name=name, method="none", method_reason=str(e), heating_s=run.heating_s,
@@ -63,11 +71,17 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
 
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:
-    """Methods, then the selector, then the live verdict replayed on the same record."""
+    """Methods, then the selector, then the live verdict replayed on the same record (never for a pulse: a pulse
+    heats for its planned time and has no stop verdict)."""
+    asked_pulse = opts.method == "pulse" and rec.geometry.on_heater
+    if asked_pulse:  # the pulse is read at radial sensors; the heated needle's own record by the usual rule
+        opts = replace(opts, method="auto")
     found, rec = run_methods(rec, opts)
     chosen, reason = choose(rec, opts, found)
     res = sensor_result(rec, opts, found, chosen, reason)
-    res.stable_at_s = stable_at(rec, opts) if opts.stable_rule else None
+    if asked_pulse:
+        res.notes.append("the pulse method reads radial sensors: this heater sensor was reduced by auto")
+    res.stable_at_s = stable_at(rec, opts) if opts.stable_rule and chosen.name != "pulse" else None
     return res
 
 

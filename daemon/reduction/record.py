@@ -18,6 +18,7 @@ from .superposition import log_time_regressor, power_steps
 from .timezero import TimeZero, early_rise
 
 MIN_HEATING_SAMPLES = 10
+MIN_PULSE_SAMPLES = 2
 
 
 @dataclass(frozen=True)
@@ -86,8 +87,12 @@ class HeatingRecord:
         X, Q = log_time_regressor(t, steps_t, steps_dq)
         heat = (t > 0) & (Q > 0) & (np.arange(t.size) < i_off)
         n = int(np.count_nonzero(heat))
-        if n < MIN_HEATING_SAMPLES:
-            raise ReductionError(f"only {n} heating samples; at least {MIN_HEATING_SAMPLES} are needed")
+        decay = np.count_nonzero(t > t_off) if t_off is not None else 0
+        # a short pulse logged at 1 Hz has few heating samples; its decay is what a radial sensor reads
+        pulse = t_off is not None and decay >= MIN_HEATING_SAMPLES and t[-1] - t_off >= t_off
+        if n < (MIN_PULSE_SAMPLES if pulse else MIN_HEATING_SAMPLES):
+            raise ReductionError(f"only {n} heating samples; at least {MIN_HEATING_SAMPLES} are needed"
+                                 + (f" ({MIN_PULSE_SAMPLES} for a pulse)" if pulse else ""))
         span = contiguous(heat)
         heating_s = t_off if t_off is not None else float(t[span][-1])
         return cls(t, q, steps_t, steps_dq, X, Q, heat, span, t_off, heating_s, i_off, shift_s)

@@ -13,7 +13,7 @@ from .cooling import CoolingFit
 from .drift import Baseline
 from .linesource import LateTimeFit
 from .probe_model import ModelFit
-from .radial import PulseCheck
+from .pulse import PulseFit
 
 
 @dataclass
@@ -50,7 +50,7 @@ class SensorResult:
     model: ModelFit | None = None
     recovery: CoolingFit | None = None
     joint: CoolingFit | None = None
-    pulse: PulseCheck | None = None
+    pulse: PulseFit | None = None
     calibration_factor: float = 1.0
     calibration_factor_u: float = 0.0
     specific_heat_J_per_kgK: float | None = None
@@ -108,7 +108,8 @@ class SensorResult:
             "k_recovery_W_per_mK": (self.recovery.k_W_per_mK * self.calibration_factor
                                     if self.recovery else None),
             "k_joint_W_per_mK": self.joint.k_W_per_mK * self.calibration_factor if self.joint else None,
-            "pulse_check": self.pulse.to_dict() if self.pulse else None,
+            "pulse_check": self.pulse.peak.to_dict() if self.pulse and self.pulse.peak else None,
+            "pulse_fit": self.pulse.to_dict() if self.pulse else None,
             "methods": {name: {key: _clean(v) for key, v in m.items()} for name, m in self.methods.items()},
         }
         return {key: _clean(v) for key, v in d.items()}

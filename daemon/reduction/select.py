@@ -1,8 +1,9 @@
 """Which methods run for a sensor, which result stands for it, and the flags that compare them.
 
 Adding a method: write its class (``methods/``) and add an instance to the tuple of the sensors it applies to.
-Under ``auto`` the result in ``AUTO_ORDER`` with the smallest u(k) among the credible ones stands. A named
-method stands if it converged, or the reduction says why not.
+Under ``auto`` the result in ``AUTO_ORDER`` with the smallest u(k) among the credible ones stands, except that a
+radial sensor's heat pulse is read by the pulse method whenever it converged. A named method stands if it
+converged, or the reduction says why not.
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ from .methods import (
     MethodResult,
     Options,
     ProbeModelMethod,
-    PulseCheckMethod,
+    PulseMethod,
     RadialMethod,
     RecoveryMethod,
     combine,
@@ -30,12 +31,12 @@ from .methods.probe import time_zero_bounds
 from .record import SensorRecord
 from .result import SensorResult
 
-METHODS = ("auto", "line", "model", "radial", "recovery", "joint")
+METHODS = ("auto", "line", "model", "radial", "recovery", "joint", "pulse")
 
 # The methods tried for a sensor in the heater and for one in the medium, in the order they run (a later method
 # may start from an earlier one's answer: the line's window from the probe model, the recovery from both).
 HEATER_METHODS: tuple[Method, ...] = (ProbeModelMethod(), LineMethod(), RecoveryMethod(), JointMethod())
-RADIAL_METHODS: tuple[Method, ...] = (RadialMethod(), LineMethod(), PulseCheckMethod())
+RADIAL_METHODS: tuple[Method, ...] = (RadialMethod(), LineMethod(), PulseMethod())
 # Under auto, of these the one with the smallest uncertainty of k stands, among those that converged and whose
 # model describes the record (``MethodResult.credible``): on the resolved-probe reference records the lumped probe
 # model never did, and read k worse than the line (METHODS.md, "Method choice").
@@ -80,6 +81,11 @@ def choose(rec: SensorRecord, opts: Options, found: Found) -> tuple[MethodResult
     want = opts.method
     if want == "model" and kind == "radial":
         want = "radial"  # in the medium, the probe model is the radial fit
+    if want == "auto" and kind == "radial" and found.converged("pulse") is not None:
+        # a pulse record is read by the pulse, flagged or not: it models what the radial fit leaves out (the
+        # sensing needle, the heater's finite length, the drift fitted with it) and carries those terms in its u
+        pick = found["pulse"]
+        return pick, _auto_reason(rec, pick, found)
     if want == "auto":
         order = [found[n] for n in AUTO_ORDER[kind] if n in found]
         usable = [r for r in order if r.converged and r.credible and r.k is not None]
@@ -98,6 +104,8 @@ def choose(rec: SensorRecord, opts: Options, found: Found) -> tuple[MethodResult
                              + (f" ({got.why})" if got and got.why else ""))
     if want == "radial":
         return got, _radial_reason(rec)
+    if want == "pulse":
+        return got, _pulse_reason(rec, got)
     return got, f"method {want} requested" + (f" ({got.why})" if want == "line" else "")
 
 
@@ -105,10 +113,17 @@ def _radial_reason(rec: SensorRecord) -> str:
     return f"sensor {rec.geometry.sensor_radius_m * 1e3:.3g} mm from the heater: response fitted for k and α"
 
 
+def _pulse_reason(rec: SensorRecord, pick: MethodResult) -> str:
+    return (f"heat pulse read {rec.geometry.sensor_radius_m * 1e3:.4g} mm from the heater: the pulse model fitted "
+            f"over rise, peak and decay for k, α and ρc ({pick.why})")
+
+
 def _auto_reason(rec: SensorRecord, pick: MethodResult, found: Found) -> str:
     line = found.converged("line")
     if pick.name == "radial":
         return _radial_reason(rec)
+    if pick.name == "pulse":
+        return _pulse_reason(rec, pick)
     if pick.name == "line":
         return f"late-time line: straight part of ΔT vs ln t ({pick.why})"
     if pick.name == "model" and line is not None:
@@ -125,6 +140,11 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
     g = rec.geometry
     assert chosen.k is not None
     cal, cal_u = opts.calibration_factor, opts.calibration_factor_u
+    pulse_stands = chosen.name == "pulse"
+    if pulse_stands:
+        # the probe factor calibrates the heated needle's own reading, not a pulse read at a spacing; the spacing
+        # calibration (in the geometry) is its counterpart
+        cal, cal_u = 1.0, 0.0
     line = found.converged("line")
     model = found.credible("model") or found.converged("radial")
     res = SensorResult(name=rec.name, method=_label(chosen, opts), method_reason=reason, baseline=rec.baseline,
@@ -143,7 +163,7 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
     # readback and the probe factor, which every method shares
     k_raw = chosen.k.value
     budget = dict(chosen.k.budget)
-    if "drift" not in budget:
+    if "drift" not in budget and not pulse_stands:  # the pulse fits its drift: it is in its statistical term
         budget["drift"] = line.k.budget.get("drift", 0.0) if line is not None and line.k is not None else 0.0
     budget["power"] = opts.power_u_rel
     budget["calibration"] = cal_u / cal
@@ -160,6 +180,8 @@ def sensor_result(rec: SensorRecord, opts: Options, found: Found, chosen: Method
     # the heater, the radial fit in the medium), with that fit's own k/α for ρc; the line's intercept gives
     # α·e^{2h} only (contact and the probe's own resistance), which is not α: a note says what it is
     source = model if (model is not None and (g.on_heater or res.method != "line")) else None
+    if pulse_stands:
+        source = chosen
     if source is not None and source.alpha is not None and source.rho_c is not None:
         alpha, rc = source.alpha, source.rho_c
         res.alpha_m2_per_s, res.alpha_u_m2_per_s, res.alpha_source = alpha.value, alpha.u, alpha.source
@@ -236,8 +258,8 @@ def line_disagreement(chosen: MethodResult, found: Found, opts: Options) -> str 
     uncertainty of the difference (each method's own terms; power and probe factor move both alike): a note that
     names both values. None when they agree or there is no line to compare with."""
     line = found.converged("line")
-    if line is None or line is chosen or line.k is None or chosen.k is None:
-        return None
+    if line is None or line is chosen or line.k is None or chosen.k is None or chosen.name == "pulse":
+        return None  # (a radial sensor's line over a pulse's heating is no measurement to compare with)
     own = [{k: v for k, v in e.budget.items() if k not in ("power", "calibration")} for e in (chosen.k, line.k)]
     u_diff = math.hypot(chosen.k.value * combine(own[0]), line.k.value * combine(own[1]))
     if abs(chosen.k.value - line.k.value) <= 2.0 * u_diff:

@@ -23,6 +23,7 @@ from linerig.daemon.probe import ProbeProfile, stored_profile
 from linerig.daemon.reduction.api import RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.store.queries import calibrations_of, run_arrays, run_detail
+from linerig.daemon.store.spacings import apply_spacings, spacing_history
 from linerig.daemon.workflows.calibration import CalibrationOutcome, CalibrationStatus, calibration_status
 from linerig.daemon.workflows.cycles import split_cycles
 
@@ -152,7 +153,10 @@ def load_run(db: sqlite_utils.Database, run_id: int) -> RunRecord:
         raise SourceError(f"no run {run_id} in the database (list runs with `linerig export --list`)")
     arr = run_arrays(db, run_id) if detail.get("n_samples") else None
     serial = str(detail.get("probe_serial") or "")
-    return record_of(detail, arr, probe_profiles(db).get(serial), calibration_history(db, serial))
+    probe = probe_profiles(db).get(serial)
+    if probe is not None:  # a dual needle's radial sensors at the spacing calibrated when the run was made
+        probe, _ = apply_spacings(probe, spacing_history(db, serial), detail.get("created_utc"))
+    return record_of(detail, arr, probe, calibration_history(db, serial))
 
 
 def record_of(detail: dict[str, Any], arr: dict[str, Any] | None, probe: ProbeProfile | None,

@@ -20,6 +20,7 @@ from typing import Any
 
 from linerig.daemon.sim.frontend_sim import FrontEndEmulator
 from linerig.daemon.sim.materials import DEFAULT_MATERIAL_KEY, MATERIALS, get_material
+from linerig.daemon.sim.physics import ModelConfigError
 from linerig.daemon.sim.rig_model import ProbeSpec, SimulatedRig
 from linerig.daemon.sim.server import SimServer
 from linerig.daemon.sim.speed import speed_factor
@@ -37,6 +38,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--control", type=Path, help="control socket path (fault injection, heater state)")
     p.add_argument("--heater-log", type=Path, help="append heater on/off events here as JSON lines")
     p.add_argument("--drift-K-per-h", type=float, default=None, dest="drift", help="ground temperature drift")
+    p.add_argument("--spacing", action="append", default=[], metavar="SENSOR=MM",
+                   help="put a radial sensor at this distance from the heater instead of the profile's (a bent "
+                        "needle, for spacing calibration; repeatable)")
     p.add_argument("--supply", action="store_true",
                    help="also offer a SCPI bench supply (on <link-dir>/supply) whose output heats the probe")
     p.add_argument("--firmware", action="store_true",
@@ -82,6 +86,19 @@ def _probe(path: Path | None) -> ProbeSpec:
     return ProbeSpec.from_profile(load_probe_profile(path))
 
 
+def bent(probe: ProbeSpec, items: list[str]) -> ProbeSpec:
+    """The probe with the sensors of ``--spacing SENSOR=MM`` moved; ValueError names a bad item."""
+    from linerig.daemon.probe import sensor_mm
+
+    for item in items:
+        name, value = sensor_mm(item, "--spacing", "needle8=8.2")  # a ProbeProfileError is a ValueError
+        try:
+            probe = probe.with_spacing(name, value * 1e-3)
+        except ModelConfigError as exc:
+            raise ValueError(f"--spacing {item!r}: {exc}") from None
+    return probe
+
+
 def _frontend(args: argparse.Namespace, rig: SimulatedRig) -> tuple[Any, str | None]:
     """The simulated front end, and which interpreter runs the firmware on it (None: the protocol emulator)."""
     if not args.firmware:
@@ -98,7 +115,7 @@ def _frontend(args: argparse.Namespace, rig: SimulatedRig) -> tuple[Any, str | N
 async def _run(args: argparse.Namespace) -> int:
     material = get_material(args.material)
     kwargs = {} if args.drift is None else {"drift_K_per_h": args.drift}
-    rig = SimulatedRig(material, _probe(args.probe), seed=args.seed, **kwargs)
+    rig = SimulatedRig(material, bent(_probe(args.probe), args.spacing), seed=args.seed, **kwargs)
     frontend, firmware = _frontend(args, rig)
     own_dir = args.link_dir is None  # a folder made here is removed here, however the run ends
     link_dir = args.link_dir or Path(tempfile.mkdtemp(prefix=SIM_DIR_PREFIX))
@@ -141,8 +158,13 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     try:
         get_material(args.material)
+        if args.spacing:
+            bent(_probe(args.probe), args.spacing)
     except KeyError as exc:
         print(f"linerig-sim: {exc.args[0]}", file=sys.stderr)
+        return 2
+    except ValueError as exc:
+        print(f"linerig-sim: {exc}", file=sys.stderr)
         return 2
     return asyncio.run(_run(args))
 

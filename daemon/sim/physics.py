@@ -430,6 +430,7 @@ class AxialRadialModel:
         self._heated_dz = dz[heated]
         self._u = np.zeros(nz * nr)
         self._t = 0.0
+        self._read_weights: dict[tuple[float, float], np.ndarray] = {}
 
     def set_contact_conductance(self, contact_conductance: float | None) -> None:
         """Change H (W/(m²·K)) along the heated length; None means perfect contact. Keeps the temperatures."""
@@ -449,6 +450,7 @@ class AxialRadialModel:
         links = sp.coo_matrix((np.concatenate((-g, -g, g, g)), (rows, cols)), shape=(n, n))
         self._A = (self._A_rest + links).tocsc()
         self._factors.clear()
+        self._read_weights = {}  # the surface reading depends on the contact
 
     @property
     def contact_conductance(self) -> float | None:
@@ -488,31 +490,53 @@ class AxialRadialModel:
         return float(np.dot(self._u[self._heated_idx], self._heated_dz) / (0.5 * self.L))
 
     def rise_at_K(self, r_m: float, z_m: float = 0.0) -> float:
-        """Rise at radius r and axial distance z from the heater's mid-length (bilinear in ln r and z)."""
-        r, z = float(r_m), abs(float(z_m))
+        """Rise at radius r and axial distance z from the heater's mid-length (bilinear in ln r and z).
+
+        The reading is linear in the node temperatures, so its weights are worked out once per (r, z) and kept
+        (a simulated sensor is read every physics step).
+        """
+        key = (float(r_m), abs(float(z_m)))
+        w = self._read_weights.get(key)
+        if w is None:
+            w = self._read_weights[key] = self._weights(*key)
+        return float(w @ self._u)
+
+    def _weights(self, r: float, z: float) -> np.ndarray:
+        """Weights on the node temperatures of the bilinear reading at (r, z)."""
         if r > self.outer_radius_m or z > self.outer_half_height_m:
             raise ModelConfigError(
                 f"(r, z) = ({r}, {z}) lies outside the modelled medium "
                 f"(r <= {self.outer_radius_m} m, |z| <= {self.outer_half_height_m} m)"
             )
-        u = self._u.reshape(self._nz, self._nr)
+        nz, nr = self._nz, self._nr
+        col = np.zeros((nz, nz * nr))  # row i: the weights of the value at radius r in slice i
+        rows = np.arange(nz)
+        idx = np.arange(nz * nr).reshape(nz, nr)
         if r <= self.a:
-            col = u[:, 0]
+            col[rows, idx[:, 0]] = 1.0
         else:
             # columns: medium surface at r = a+, the ring nodes, the outer boundary
             g_in = self._dz / self._half_shell
             g_core = self._g_core_surface
-            surface = (g_core * u[:, 0] + g_in * u[:, 1]) / (g_core + g_in)
-            edge = np.zeros(self._nz) if self.boundary == "fixed" else u[:, -1]
-            cols = np.column_stack((surface, u[:, 1:], edge))
             xs = np.concatenate(([math.log(self.a)], np.log(self._rc), [math.log(self.outer_radius_m)]))
             lr = math.log(r)
             j = int(np.clip(np.searchsorted(xs, lr) - 1, 0, len(xs) - 2))
-            w = min(max((lr - xs[j]) / (xs[j + 1] - xs[j]), 0.0), 1.0)
-            col = (1.0 - w) * cols[:, j] + w * cols[:, j + 1]
+            frac = min(max((lr - xs[j]) / (xs[j + 1] - xs[j]), 0.0), 1.0)
+            for jj, wt in ((j, 1.0 - frac), (j + 1, frac)):
+                if wt == 0.0:
+                    continue
+                if jj == 0:  # the surface: a conductance-weighted mean of the core and the first ring
+                    col[rows, idx[:, 0]] += wt * g_core / (g_core + g_in)
+                    col[rows, idx[:, 1]] += wt * g_in / (g_core + g_in)
+                elif jj <= nr - 1:
+                    col[rows, idx[:, jj]] += wt
+                elif self.boundary != "fixed":  # the outer edge: zero rise, or the last ring when insulated
+                    col[rows, idx[:, -1]] += wt
         zs = np.concatenate(([0.0], self._zc))
-        vals = np.concatenate(([col[0]], col))
-        return float(np.interp(z, zs, vals))
+        vals = np.vstack((col[:1], col))
+        k = int(np.clip(np.searchsorted(zs, z) - 1, 0, len(zs) - 2))
+        fz = min(max((z - zs[k]) / (zs[k + 1] - zs[k]), 0.0), 1.0)
+        return (1.0 - fz) * vals[k] + fz * vals[k + 1]
 
     def energy_J_per_m(self) -> float:
         """Stored heat per metre of heater (the whole symmetric domain / L)."""

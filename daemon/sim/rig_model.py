@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -67,6 +67,8 @@ _RIG_FAULTS = ("cj_fault", "heater_open", "heater_short", "heater_drift", "batte
 DRY_OUT_K_FRACTION = 0.35
 """Conductivity left in the dried zone: partly dried sand keeps roughly a third of its moist k (de Vries 1963
 gives 0.24-0.29 dry against 2.1 at theta 0.2; partial drying sits in between; no source for the exact value)."""
+DUAL_OUTER_RADIUS_M = 0.2
+DUAL_GRID = {"n_radial": 60, "n_axial_heater": 12, "n_axial_beyond": 16}
 DRY_OUT_TIME_S = 300.0
 """The dried zone's radius grows as a·(1 + √(t_heating/DRY_OUT_TIME_S)): 3a after 20 minutes (no source)."""
 
@@ -94,11 +96,23 @@ class UnknownFaultError(ValueError):
 class SensorSpec:
     """A thermocouple junction: radial distance from the heater axis (0 = on the heater) and position along
     the heater measured from its tip (the far end from the handle; the bottom of a rod pushed into the
-    ground), as probe profiles give it."""
+    ground), as probe profiles give it. A junction in a needle of its own (a dual probe's sensing needle) reads
+    the needle, which lags the ground around it (``needle_radius_m`` > 0 with ``needle_rho_c``)."""
 
     name: str
     radial_m: float
     axial_m: float
+    needle_radius_m: float = 0.0
+    needle_rho_c: float = 0.0
+
+    def needle_lag_s(self, k_medium: float) -> float:
+        """Time constant of the sensing needle as a lumped heat capacity πb²C joined to the ground by the
+        conductance of a cylindrical shell from its radius b out to the heater's distance r, 2πk/ln(r/b): a
+        first-order stand-in for the needle's exact (Laplace-domain) lag, which the reduction models instead."""
+        b, r = self.needle_radius_m, self.radial_m
+        if b <= 0 or self.needle_rho_c <= 0 or r <= b:
+            return 0.0
+        return b * b * self.needle_rho_c * math.log(r / b) / (2.0 * k_medium)
 
 
 def _attr(obj: Any, *names: str, scale: Sequence[float] = (), default: Any = None) -> Any:
@@ -123,6 +137,7 @@ class ProbeSpec:
     thermocouple: str = "T"
     heater_tcr_per_K: float = 5e-5
     name: str = "probe"
+    kind: str = "single"
 
     def __post_init__(self) -> None:
         sensors = tuple(s if isinstance(s, SensorSpec) else SensorSpec(*s) for s in self.sensors)
@@ -196,7 +211,8 @@ class ProbeSpec:
                 name = _attr(s, "name")
                 radial = _attr(s, "radial_m", "radial_mm", scale=(1.0, 1e-3), default=0.0)
                 axial = _attr(s, "axial_m", "axial_mm", scale=(1.0, 1e-3), default=0.5 * float(length))
-            sensors.append(SensorSpec(str(name), float(radial), float(axial)))
+            needle_r, needle_c = _needle(profile, str(name), float(radial))
+            sensors.append(SensorSpec(str(name), float(radial), float(axial), needle_r, needle_c))
         if not sensors:
             sensors = [SensorSpec("probe", 0.0, 0.5 * float(length))]
         return cls(
@@ -210,7 +226,27 @@ class ProbeSpec:
             thermocouple=str(_attr(profile, "thermocouple", "thermocouple_type", default="T")),
             heater_tcr_per_K=float(_attr(profile, "heater_tcr_per_K", default=5e-5)),
             name=str(_attr(profile, "name", default="probe")),
+            kind=str(_attr(profile, "kind", default="single")),
         )
+
+    def with_spacing(self, sensor: str, radial_m: float) -> ProbeSpec:
+        """The same probe with one sensor at another distance from the heater (a bent needle)."""
+        names = [s.name for s in self.sensors]
+        if sensor not in names:
+            raise ModelConfigError(f"probe {self.name!r} has no sensor {sensor!r} ({', '.join(names)})")
+        if not (radial_m > self.radius_m and math.isfinite(radial_m)):
+            raise ModelConfigError(f"sensor {sensor!r}: a spacing must exceed the heater radius, got {radial_m}")
+        return replace(self, sensors=tuple(replace(s, radial_m=radial_m) if s.name == sensor else s
+                                           for s in self.sensors))
+
+
+def _needle(profile: Any, name: str, radial_m: float) -> tuple[float, float]:
+    """(radius m, ρc) of a radial sensor's own needle, from a profile that knows it (``ProbeProfile``)."""
+    radius_of, cap_of = getattr(profile, "needle_radius_m", None), getattr(profile, "needle_heat_capacity_J_per_m3K",
+                                                                            None)
+    if radial_m <= 0 or not callable(radius_of) or not callable(cap_of):
+        return 0.0, 0.0
+    return float(radius_of(name) or 0.0), float(cap_of(name) or 0.0)
 
 
 FLAT_FRACTION = 1.07
@@ -275,6 +311,15 @@ class _Channel:
     offset_K: float
     last_reading: float = math.nan
     faults: set[str] = field(default_factory=set)
+    needle_lag_s: float = 0.0
+    needle_rise_K: float = 0.0  # the sensing needle's own rise, lagging the ground's (needle_lag_s > 0)
+
+
+def _lagged(y: float, x0: float, x1: float, dt: float, tau: float) -> float:
+    """A first-order lag y' = (x − y)/τ over dt, exact for an input x going linearly from x0 to x1."""
+    h = dt / tau
+    e = math.exp(-h)
+    return e * y + (1.0 - e) * x0 + (x1 - x0) * (h - 1.0 + e) / h
 
 
 class SimulatedRig:
@@ -285,7 +330,8 @@ class SimulatedRig:
     install_depth_m + heater length) drifting by `drift_K_per_h`. `layers` is
     a list of (depth_top_m, Material) below which that material applies (above the first, `material`); each
     sensor then sits in its own radial model of its layer. `axial_loss=True` solves the (r, z) problem
-    instead, so a short probe loses heat from its ends (homogeneous medium only).
+    instead, so a short probe loses heat from its ends (homogeneous medium only); None (the default) chooses
+    it for a dual probe, whose sensing needle a few millimetres away feels the ends of a 40 mm heater.
     `sample_radius_m`/`sample_height_m` bound a laboratory sample (the probe centred in it) with a
     `sample_boundary` of "fixed" (a bath) or "adiabatic" (insulated).
     """
@@ -312,7 +358,7 @@ class SimulatedRig:
         battery: BatterySpec | None = None,
         layers: Sequence[tuple[float, Material]] = (),
         install_depth_m: float = 0.0,
-        axial_loss: bool = False,
+        axial_loss: bool | None = None,
         sample_radius_m: float | None = None,
         sample_height_m: float | None = None,
         sample_boundary: str = "fixed",
@@ -335,6 +381,8 @@ class SimulatedRig:
         self.emf_function = emf_function
         self._rng = np.random.default_rng(self.seed)
         self._layers = sorted(((float(d), m) for d, m in layers), key=lambda x: x[0])
+        if axial_loss is None:
+            axial_loss = probe.kind == "dual" and not self._layers
         if axial_loss and self._layers:
             raise ModelConfigError("axial_loss=True needs a homogeneous medium; drop `layers` or axial_loss")
         if sample_height_m is not None and not axial_loss:
@@ -354,8 +402,10 @@ class SimulatedRig:
                 self._models.append(self._make_model(mat, sample_radius_m, sample_height_m, sample_boundary))
                 self._model_materials.append(mat)
             offset = float(self._rng.normal(0.0, channel_offset_sd_K)) if channel_offset_sd_K > 0 else 0.0
-            self._channels.append(_Channel(s, model_of[mat.key], depth, offset))
+            self._channels.append(_Channel(s, model_of[mat.key], depth, offset,
+                                           needle_lag_s=s.needle_lag_s(mat.k_W_per_mK)))
         self._by_name = {c.spec.name: i for i, c in enumerate(self._channels)}
+        self._needles = [c for c in self._channels if c.needle_lag_s > 0]
 
         self._t = 0.0
         self._physics_lag = 0.0  # device time not yet stepped into the physics (< BASE_DT_S)
@@ -383,11 +433,17 @@ class SimulatedRig:
     ) -> RadialModel | AxialRadialModel:
         p = self.probe
         if self._axial:
+            # a dual probe is read millimetres away: a finer radial grid out to 0.2 m (heat needs over an hour to
+            # get there in wet soil) resolves a pulse at the sensing needle to 0.3 % of its peak at half the cost of
+            # a finer one (tests/test_sim_pulse.py)
+            fine = p.kind == "dual"
+            outer = sample_radius_m if sample_radius_m is not None or not fine else DUAL_OUTER_RADIUS_M
+            half = 0.5 * sample_height_m if sample_height_m is not None else (
+                0.5 * p.heater_length_m + DUAL_OUTER_RADIUS_M if fine else None)
             return AxialRadialModel(
                 mat.k_W_per_mK, mat.rho_c_J_per_m3K, p.radius_m, p.probe_rho_c, p.heater_length_m,
-                contact_conductance=p.contact_conductance, outer_radius_m=sample_radius_m,
-                outer_half_height_m=None if sample_height_m is None else 0.5 * sample_height_m,
-                boundary=boundary,
+                contact_conductance=p.contact_conductance, outer_radius_m=outer, outer_half_height_m=half,
+                boundary=boundary, **(DUAL_GRID if fine else {}),
             )
         return RadialModel(
             mat.k_W_per_mK, mat.rho_c_J_per_m3K, p.radius_m, p.probe_rho_c,
@@ -464,6 +520,8 @@ class SimulatedRig:
         self.initial_ground_C += delta
         for m in self._models:
             m.shift_rise(-delta)
+        for c in self._needles:
+            c.needle_rise_K -= delta
 
     # ---- electrical world ----
     def heater_resistance_ohm(self) -> float:
@@ -554,8 +612,12 @@ class SimulatedRig:
             self._physics_lag -= n * base
             while n > 0:
                 size = min(1 << (n.bit_length() - 1), 1 << self.MAX_STEP_DOUBLINGS)
+                before = [self._ground_rise_K(c) for c in self._needles]
                 for m in self._models:
                     m.step(q, size * base)
+                for c, start in zip(self._needles, before, strict=True):
+                    c.needle_rise_K = _lagged(c.needle_rise_K, start, self._ground_rise_K(c), size * base,
+                                              c.needle_lag_s)
                 n -= size
         self._elec = self._electrical()
 
@@ -575,15 +637,18 @@ class SimulatedRig:
         ch = self._channel_for(str(channel), f"true_temp_C({channel!r})")
         return self._true_C(ch)
 
-    def _true_C(self, ch: _Channel) -> float:
+    def _ground_rise_K(self, ch: _Channel) -> float:
+        """Rise of the probe or the ground at a junction (before any sensing needle's lag)."""
         m = self._models[ch.model_key]
         s = ch.spec
         if isinstance(m, AxialRadialModel):
-            rise = m.rise_at_K(s.radial_m, s.axial_m - 0.5 * self.probe.heater_length_m)
-        elif s.radial_m <= self.probe.radius_m:
-            rise = m.probe_rise_K()
-        else:
-            rise = m.rise_at_K(s.radial_m)
+            return m.rise_at_K(s.radial_m, s.axial_m - 0.5 * self.probe.heater_length_m)
+        if s.radial_m <= self.probe.radius_m:
+            return m.probe_rise_K()
+        return m.rise_at_K(s.radial_m)
+
+    def _true_C(self, ch: _Channel) -> float:
+        rise = ch.needle_rise_K if ch.needle_lag_s > 0 else self._ground_rise_K(ch)
         return self._ground_C(ch.depth_m) + rise
 
     def _cj_true(self) -> float:

@@ -147,7 +147,18 @@ def _v6(db: sqlite_utils.Database) -> None:
     db.conn.execute(SENSOR_RESULTS)
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4, _v5, _v6]
+def _v7(db: sqlite_utils.Database) -> None:
+    """Spacing calibrations of dual needles (``workflows/spacing.py``): the effective distance of a radial sensor
+    from the heater, found in a medium of known ρc, with its history (rejected ones too)."""
+    db["spacing_calibrations"].create({
+        "id": int, "probe_serial": str, "sensor": str, "created_utc": str, "run_id": int, "reference": str,
+        "reference_rho_c_J_per_m3K": float, "nominal_spacing_m": float, "spacing_m": float, "spacing_u_m": float,
+        "accepted": int, "notes": str, "expires_utc": str,
+    }, pk="id")
+    db["spacing_calibrations"].create_index(["probe_serial"])
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4, _v5, _v6, _v7]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

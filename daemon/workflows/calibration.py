@@ -160,6 +160,27 @@ def _utc(now: dt.datetime | None) -> dt.datetime:
     return now if now.tzinfo else now.replace(tzinfo=dt.UTC)
 
 
+def repeat_mean(values: Sequence[float], us: Sequence[float]) -> tuple[float, float, float | None]:
+    """(mean, its standard uncertainty, CV or None for one value) of repeat calibration runs.
+
+    u² = s²/n + ū²: the spread of the mean plus the mean per-run uncertainty, which holds the parts that do not
+    average out (the reference, the power reading).
+    """
+    v = np.asarray(values, dtype=float)
+    n = v.size
+    mean = float(v.mean())
+    spread2 = float(np.var(v, ddof=1)) / n if n >= 2 else 0.0
+    cv = float(np.std(v, ddof=1) / mean) if n >= 2 else None
+    return mean, math.sqrt(spread2 + float(np.mean(np.asarray(us, dtype=float))) ** 2), cv
+
+
+def days_left(expires_utc: str, now: dt.datetime | None = None) -> float:
+    """Days from ``now`` to a stored expiry (negative once expired)."""
+    exp = dt.datetime.fromisoformat(expires_utc)
+    exp = exp if exp.tzinfo else exp.replace(tzinfo=dt.UTC)
+    return (exp - _utc(now)).total_seconds() / 86400.0
+
+
 def evaluate_calibration(probe_serial: str, reference: ReferenceValue, runs: Sequence[Measurement], *,
                          previous_factor: float | None = None, now: dt.datetime | None = None,
                          valid_days: int = VALID_DAYS) -> CalibrationOutcome:
@@ -175,9 +196,7 @@ def evaluate_calibration(probe_serial: str, reference: ReferenceValue, runs: Seq
     if np.any(~np.isfinite(ks)) or np.any(ks <= 0):
         raise CalibrationError("a reference run has no valid conductivity: reduce it first, or leave it out")
     n = ks.size
-    k_m = float(ks.mean())
-    cv = float(np.std(ks, ddof=1) / k_m) if n >= 2 else None
-    u_m = float(math.sqrt((np.std(ks, ddof=1) ** 2 / n if n >= 2 else 0.0) + float(np.mean(us)) ** 2))
+    k_m, u_m, cv = repeat_mean(ks, us)
     f, f_u = probe_factor(k_m, reference.k_W_per_mK, reference.k_u_W_per_mK, u_m)
     reasons: list[str] = []
     warnings: list[str] = list(reference.notes)
@@ -233,9 +252,7 @@ def calibration_status(history: Sequence[dict[str, object]], now: dt.datetime | 
     cid = int(last["id"]) if last.get("id") is not None else None  # type: ignore[call-overload]
     if not exp_s:
         return CalibrationStatus("valid", f"factor {factor:.4f} (no expiry recorded)", factor, fu, cid)
-    exp = dt.datetime.fromisoformat(exp_s)
-    exp = exp if exp.tzinfo else exp.replace(tzinfo=dt.UTC)
-    left = (exp - _utc(now)).total_seconds() / 86400.0
+    left = days_left(exp_s, now)
     if left < 0:
         return CalibrationStatus("expired", f"calibration expired {-left:.0f} days ago ({exp_s[:10]}): "
                                  "recalibrate before trusting results", factor, fu, cid, exp_s, left)

@@ -12,7 +12,7 @@ import sys
 from pathlib import Path
 
 from linerig.daemon.logger_import import LoggerImportError, import_file, read_map
-from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, stored_profile
+from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, sensor_mm, stored_profile
 from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
 from linerig.daemon.runcsv import PROBE_PROFILE, PROBE_SERIAL, HeaderValue, RunCsvError, file_calibration, read_run_file
@@ -34,7 +34,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
     p.add_argument("--probe-heat-capacity", metavar="MJ_PER_M3K", type=float,
                    help="volumetric heat capacity of the needle (overrides the profile)")
     p.add_argument("--spacing", metavar="SENSOR=MM", action="append", default=[],
-                   help="radial distance of a sensor from the heater axis (repeatable)")
+                   help="radial distance of a sensor from the heater axis (repeatable); a dual needle's calibrated "
+                        "spacing (linerig calibrate --spacing) goes here")
+    p.add_argument("--spacing-u", metavar="SENSOR=MM", action="append", default=[],
+                   help="standard uncertainty of a sensor's spacing (default: the profile's radial_u_mm, else 1 %%)")
     p.add_argument("--calibration-factor", metavar="F", type=float,
                    help="probe factor to apply (default: the file's calibration_factor header, else 1)")
     p.add_argument("--calibration-factor-u", metavar="U", type=float,
@@ -71,16 +74,16 @@ def build_probe(args: argparse.Namespace, from_file: ProbeProfile | None = None)
             raise ProbeProfileError(f"--{opt.replace('_', '-')} needs --radius-mm or --probe")
         probe = _replace(probe, **{field: v})
     for item in args.spacing:
-        name, sep, mm = item.partition("=")
-        try:
-            dist = float(mm)
-        except ValueError:
-            dist = math.nan
-        if not sep or not name or not math.isfinite(dist):
-            raise ProbeProfileError(f"--spacing {item!r}: expected SENSOR=MM, e.g. --spacing far=6.0")
+        name, dist = sensor_mm(item, "--spacing", "far=6.0")
         if probe is None:
             raise ProbeProfileError("--spacing needs --radius-mm or --probe (the heater radius)")
         probe = probe.with_sensor(name, dist)
+    for item in args.spacing_u:
+        name, u = sensor_mm(item, "--spacing-u", "needle8=0.03")
+        if probe is None or not probe.has_sensor(name) or probe.sensor(name).is_on_heater:
+            raise ProbeProfileError(f"--spacing-u {item!r}: {name!r} is not a radial sensor of the probe (give "
+                                    "--probe or --spacing for it)")
+        probe = probe.with_sensor(name, probe.sensor(name).radial_mm, u)
     return probe
 
 

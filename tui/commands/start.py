@@ -38,6 +38,10 @@ def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-ar
     p.add_argument("--settle-timeout-s", type=float, metavar="S",
                    help="longest wait for a settled baseline before heating anyway, s")
     p.add_argument("--sensor", help="sensor that drives the live fit and the stop verdict")
+    p.add_argument("--pulse", action="store_true",
+                   help="a heat pulse read at the probe's radial sensor (the daemon's preset \"pulse\", from the probe "
+                        "profile's [pulse] table unless rig.toml defines one); --heat-s is the pulse, --recover-s the "
+                        "decay recorded after it")
     p.add_argument("--preset", help="a run preset from the daemon's rig.toml [presets] (options given here override "
                                     "it)")
     p.add_argument("--meta", action="append", default=[], metavar="KEY=VALUE",
@@ -71,6 +75,12 @@ def metadata(items: list[str]) -> dict[str, Any]:
 def start_request(args: argparse.Namespace) -> dict[str, Any]:
     """The fields of the daemon's ``start`` request (daemon/API.md) from the options given."""
     req: dict[str, Any] = {k: getattr(args, k) for k in PLAN_OPTIONS if getattr(args, k) is not None}
+    if args.pulse:
+        if args.preset is not None and args.preset != "pulse":
+            raise StartOptionError(f"--pulse runs the preset \"pulse\"; it cannot go with --preset {args.preset}")
+        if args.auto_stop:
+            raise StartOptionError("--auto-stop does not go with --pulse: a pulse heats for its planned time")
+        req["preset"] = "pulse"
     if args.auto_stop:
         req["auto_stop"] = True
     if args.stop_tolerance is not None:
@@ -149,8 +159,12 @@ def _print_run(out: dict[str, Any]) -> None:
     print(f"run {out['run_id']} {out['state']}: {out['end_reason']}")
     for name, r in out["results"].items():
         if r.get("k_W_per_mK") is not None:
+            extra = ""
+            if r.get("rho_c_MJ_per_m3K") is not None and r.get("method") == "pulse":
+                extra = (f", α = {r['alpha_mm2_per_s']:.3f} mm²/s, ρc = {r['rho_c_MJ_per_m3K']:.3f} ± "
+                         f"{2 * (r.get('rho_c_u_MJ_per_m3K') or 0):.3f} MJ/(m³·K) (± U)")
             print(f"  {name}: k = {r['k_W_per_mK']:.3f} ± {2 * (r['k_u_W_per_mK'] or 0):.3f} W/(m·K) (± U, k = 2), "
-                  f"ρ = {r['resistivity_mK_per_W']:.3f} m·K/W, flags: {', '.join(r['flags']) or 'none'}")
+                  f"ρ = {r['resistivity_mK_per_W']:.3f} m·K/W{extra}, flags: {', '.join(r['flags']) or 'none'}")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -99,7 +99,7 @@ class LiveScreen(Screen[None]):
             self.query_one(FaultBanner).show(live)
             self.query_one(StopPrompt).show(live, bool(live.plan.get("auto_stop")), self.rig.unit)
             plot = self.query_one(RunPlot)
-            view = plot.choice or auto_view(live.run_state)
+            view = plot.choice or auto_view(live.run_state, live.pulse)
             spec = build_spec(live.trace, view)
             spec.title += "" if plot.choice else " · auto"
             plot.draw(spec)
@@ -128,7 +128,7 @@ class LiveScreen(Screen[None]):
 
     def action_next_view(self) -> None:
         plot = self.query_one(RunPlot)
-        plot.choice = next_choice(plot.choice)
+        plot.choice = next_choice(plot.choice, self.rig.live.pulse)
         self.redraw()
 
     def action_next_unit(self) -> None:
@@ -181,4 +181,4 @@ class LiveScreen(Screen[None]):
     @property
     def view(self) -> PlotView:
         """The view on screen now."""
-        return self.query_one(RunPlot).choice or auto_view(self.rig.live.run_state)
+        return self.query_one(RunPlot).choice or auto_view(self.rig.live.run_state, self.rig.live.pulse)

@@ -43,6 +43,7 @@ class RunTrace:
     q: list[float] = field(default_factory=list)
     estimates: list[tuple[float, float, float, bool]] = field(default_factory=list)
     last_estimate: dict[str, Any] | None = None
+    pulse_fit: dict[str, Any] | None = None  # the daemon's latest pulse fit (a heat pulse's radial sensor)
     baseline_hint_C: float | None = None
     _cache: tuple[Any, np.ndarray, np.ndarray] | None = field(default=None, repr=False, compare=False)
 
@@ -259,6 +260,10 @@ class LiveState:
         if self.trace is not None and ev.get("run_id") == self.run_id:
             self.trace.add_estimate(ev)
 
+    def _on_pulse_fit(self, ev: dict[str, Any]) -> None:
+        if self.trace is not None and ev.get("run_id") == self.run_id:
+            self.trace.pulse_fit = ev
+
     def _on_state(self, ev: dict[str, Any]) -> None:
         rid, state = ev.get("run_id"), str(ev.get("state"))
         dev = ev.get("device_s")
@@ -354,6 +359,11 @@ class LiveState:
     @property
     def estimate(self) -> dict[str, Any] | None:
         return self.trace.last_estimate if self.trace is not None else None
+
+    @property
+    def pulse(self) -> bool:
+        """The run is a heat pulse (no live line fit, no stop verdict; the pulse view and fit instead)."""
+        return self.plan.get("kind") == "pulse"
 
     @property
     def stable_at_s(self) -> float | None:

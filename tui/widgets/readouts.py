@@ -68,6 +68,8 @@ class EstimateReadout(Static):
 
     def show(self, live: LiveState, unit: DisplayUnit, wide: bool = False) -> None:
         est = live.estimate
+        if live.pulse and live.trace is not None and live.trace.pulse_fit:
+            est = live.trace.pulse_fit  # a heat pulse: the daemon's pulse fit (the plot's title has α and ρc)
         finished = live.finished if live.finished and live.finished.get("run_id") == live.run_id else None
         text = Text(f"{unit.quantity.upper()} ± U (k = 2)", style=HEADING)
         if est is None and not finished:
@@ -193,6 +195,11 @@ class VerdictReadout(Static):
         text = Text("CAN HEATING STOP?", style=HEADING)
         est = live.estimate
         tr = live.trace
+        if est is None and live.pulse and live.run_state in ("heating", "recovering"):
+            text.append(f"\n ○ a pulse has no stop verdict: it heats for {_f(live.plan.get('heat_s')):.0f} s, then "
+                        "records the decay", style="dim")
+            self.update(text)
+            return
         if est is None:
             drift = baseline_drift_K_per_min(tr) if live.run_state == "settling" else None
             if drift is not None:

@@ -1,4 +1,5 @@
-"""The run plot: ΔT against ln t (the straight-line view), against t, and the cooling view.
+"""The run plot: ΔT against ln t (the straight-line view), against t, the cooling view, and for a heat pulse the
+radial sensor's rise and decay with the pulse fit.
 
 ``build_spec`` turns a ``RunTrace`` into a plain description of what to draw (series, window marks, ticks,
 labels); ``RunPlot`` hands that to plotext. Keeping the two apart lets tests check the picture's content
@@ -32,6 +33,8 @@ class PlotView(enum.StrEnum):
     """ΔT against t for the whole cycle: baseline, heating and cooling."""
     COOLING = "cooling"
     """ΔT against ln(t/(t − t_off)) after heater off: a line through the origin of slope q/(4πk)."""
+    PULSE = "pulse"
+    """A heat pulse: the radial sensor's ΔT against t, its rise, peak and decay, with the daemon's pulse fit."""
 
     def next(self) -> PlotView:
         members = list(PlotView)
@@ -125,6 +128,8 @@ def build_spec(tr: RunTrace | None, view: PlotView) -> PlotSpec:
         spec = _log_spec(tr)
     elif view is PlotView.LINEAR:
         spec = _linear_spec(tr)
+    elif view is PlotView.PULSE:
+        spec = _pulse_spec(tr)
     else:
         spec = _cooling_spec(tr)
     if tr is not None and tr.heat_start_device_s is not None and tr.baseline_source in BASELINE_WORDS:
@@ -197,6 +202,53 @@ def _cooling_spec(tr: RunTrace | None) -> PlotSpec:
     return spec
 
 
+def _pulse_spec(tr: RunTrace | None) -> PlotSpec:
+    name = tr.sensors[tr.primary] if tr is not None and tr.primary < len(tr.sensors) else "radial sensor"
+    spec = PlotSpec(f"pulse at {name}: ΔT vs t", "time since heater on, s")
+    if tr is None or tr.heat_start_device_s is None:
+        spec.note = "pulse view: heater not on yet" if tr is not None else "no run yet: F3 sets one up"
+        return spec
+    t, dT = tr.rise()
+    if t.size < 2 or dT.ndim != 2 or dT.shape[1] <= tr.primary:
+        spec.note = "pulse view: first samples"
+        return spec
+    ok = np.isfinite(t) & np.isfinite(dT[:, tr.primary]) & (t >= -30.0)
+    if np.count_nonzero(ok) < 2:
+        spec.note = "pulse view: no baseline seen yet"
+        return spec
+    keep = thin(int(np.count_nonzero(ok)))
+    spec.series = [Series(t[ok][keep], dT[ok, tr.primary][keep], name, SENSOR_MARKERS[0])]
+    spec.vlines.append((0.0, "on"))
+    if tr.heat_off_t_s is not None:
+        spec.vlines.append((tr.heat_off_t_s, "off"))
+    fit = tr.pulse_fit
+    curve = (fit or {}).get("curve") or {}
+    if curve.get("t_s") and curve.get("dT_K"):
+        x, y = np.asarray(curve["t_s"], dtype=float), np.asarray(curve["dT_K"], dtype=float)
+        spec.series.append(Series(x, y, "pulse fit" + ("" if fit and fit.get("final") else " (live)"), "braille",
+                                  line=True, color="red"))
+        peak = fit.get("t_peak_s") if fit else None
+        if isinstance(peak, int | float):
+            spec.labels.append(("peak", float(peak)))
+        spec.title = f"pulse at {name} · {pulse_summary(fit)}"
+    return spec
+
+
+def pulse_summary(fit: dict[str, Any] | None) -> str:
+    """k, α and ρc of a pulse fit with their standard uncertainties, for titles and readouts."""
+    if not fit:
+        return "no fit yet"
+
+    def pm(v: Any, u: Any, digits: int) -> str:
+        if not isinstance(v, int | float):
+            return "—"
+        return f"{v:.{digits}f} ± {u:.{digits}f}" if isinstance(u, int | float) else f"{v:.{digits}f}"
+
+    return (f"k {pm(fit.get('k_W_per_mK'), fit.get('k_u_W_per_mK'), 3)} W/(m·K), α "
+            f"{pm(fit.get('alpha_mm2_per_s'), fit.get('alpha_u_mm2_per_s'), 3)} mm²/s, ρc "
+            f"{pm(fit.get('rho_c_MJ_per_m3K'), fit.get('rho_c_u_MJ_per_m3K'), 2)} MJ/(m³·K)")
+
+
 def legend_text(spec: PlotSpec) -> Text:
     """The plot's legend as a line of its own (markers and colours as drawn), never over the data."""
     out = Text()
@@ -209,8 +261,11 @@ def legend_text(spec: PlotSpec) -> Text:
     return out
 
 
-def auto_view(state: str | None) -> PlotView:
-    """The view that suits the phase: drift while settling, the line while heating, cooling after."""
+def auto_view(state: str | None, pulse: bool = False) -> PlotView:
+    """The view that suits the phase: drift while settling, the line while heating, cooling after; a heat pulse
+    shows its radial sensor from the moment the heater goes on."""
+    if pulse and state not in (None, "checking", "settling"):
+        return PlotView.PULSE
     if state in ("checking", "settling"):
         return PlotView.LINEAR
     if state == "recovering":
@@ -218,11 +273,13 @@ def auto_view(state: str | None) -> PlotView:
     return PlotView.LOG
 
 
-def next_choice(choice: PlotView | None) -> PlotView | None:
-    """Cycle auto → ln t → t → cooling → auto."""
+def next_choice(choice: PlotView | None, pulse: bool = False) -> PlotView | None:
+    """Cycle auto → ln t → t → cooling → auto (→ pulse → auto for a heat pulse)."""
     if choice is None:
         return PlotView.LOG
-    return None if choice is PlotView.COOLING else choice.next()
+    if choice is PlotView.COOLING:
+        return PlotView.PULSE if pulse else None
+    return None if choice is PlotView.PULSE else choice.next()
 
 
 class RunPlot(PlotextPlot):

@@ -3,7 +3,7 @@
 from .base import Estimate, Found, Method, MethodResult, Options, combine
 from .line import LineMethod, preliminary_line
 from .probe import ProbeModelMethod, RadialMethod
-from .pulse import PulseCheckMethod
+from .pulse import PulseMethod
 from .recovery import JointMethod, RecoveryMethod
 
 __all__ = [
@@ -15,7 +15,7 @@ __all__ = [
     "MethodResult",
     "Options",
     "ProbeModelMethod",
-    "PulseCheckMethod",
+    "PulseMethod",
     "RadialMethod",
     "RecoveryMethod",
     "combine",
