@@ -125,6 +125,8 @@ def local_snapshot(db: Path, runs: list[int] | None = None) -> dict[str, Any]:
                                                       f"FROM results WHERE run_id IN ({marks}) ORDER BY id")],
             "calibrations": [tuple(r) for r in con.execute("SELECT id, probe_serial, factor, notes FROM calibrations "
                                                            "ORDER BY id")],
+            "spacing_calibrations": [tuple(r) for r in con.execute(
+                "SELECT id, probe_serial, sensor, spacing_m, accepted FROM spacing_calibrations ORDER BY id")],
         }
     finally:
         con.close()
@@ -144,6 +146,8 @@ def server_snapshot(url: str, store: str) -> dict[str, Any]:
                          "ORDER BY id"),
             "calibrations": q("SELECT id, probe_serial, factor, notes FROM linerig.calibrations WHERE store = %s "
                               "ORDER BY id"),
+            "spacing_calibrations": q("SELECT id, probe_serial, sensor, spacing_m, accepted "
+                                      "FROM linerig.spacing_calibrations WHERE store = %s ORDER BY id"),
         }
 
 

@@ -89,29 +89,35 @@ def test_a_rig_writes_only_its_own_rows_and_changes_none(two_rigs: tuple[Path, P
     assert done.returncode == 2 and "GRANT linerig_rig" in done.stderr
 
 
-def test_upgrade_from_the_previous_central_version(two_rigs: tuple[Path, Path], pg_cluster: Any) -> None:
+def test_upgrade_from_an_earlier_central_version(two_rigs: tuple[Path, Path], pg_cluster: Any) -> None:
     north, south = two_rigs
     con = sqlite3.connect(north)
-    with con:  # runs that know their front end (local schema 4): the previous central schema has no columns for it
+    with con:  # runs that know their front end (local schema 4): central version 2 has no columns for it
         con.execute("UPDATE runs SET frontend_model = 'LR-FE2', frontend_serial = 'FE-0042', "
                     "frontend_firmware = '1.4.0' WHERE id IN (4, 5)")
+        # a dual needle's spacing calibration (local schema 7): central version 2 has no table for it
+        con.execute("INSERT INTO spacing_calibrations (probe_serial, sensor, created_utc, reference, spacing_m, "
+                    "accepted) VALUES ('PX8-40-0005', 'needle8', '2031-02-03T09:00:00.000+00:00', 'agar-water', "
+                    "0.00806, 1)")
     con.close()
-    old = CentralDb(pg_cluster, CENTRAL_VERSION - 1)  # as the previous linerig left it
+    old = CentralDb(pg_cluster, 2)  # as an earlier linerig left it
     url_n, url_s = old.role("north"), old.role("south")
     reader = old.role("office", "linerig_reader")
     first = synced(north, url_n)  # a push needs nothing newer than version 1
-    assert first["central_version"] == CENTRAL_VERSION - 1
+    assert first["central_version"] == 2
     assert first["in_extra"] == {"runs": ["frontend_model", "frontend_serial", "frontend_firmware"]}
+    assert first["not_carried"] == ["spacing_calibrations"]  # named, kept on the rig, carried after the upgrade
     store_n, _ = identity(north)
 
     # only the owner migrates: a rig may not
     done = cli("central", "migrate", url_n)
     assert done.returncode == 2 and "owner" in done.stderr
     done = cli("central", "migrate", old.admin_url)
-    assert done.returncode == 0 and f"upgraded from {CENTRAL_VERSION - 1}" in done.stdout, done.stderr
+    assert done.returncode == 0 and "upgraded from 2" in done.stdout, done.stderr
     done = cli("central", "migrate", old.admin_url)
     assert done.returncode == 0 and "already at version" in done.stdout
 
+    assert synced(north, url_n)["pushed"]["spacing_calibrations"] == 1
     # what was carried in extra is in its columns now, and the rows are otherwise as they were
     assert old.query("SELECT id, frontend_serial, extra FROM linerig.runs WHERE store = %s AND "
                      "frontend_serial IS NOT NULL ORDER BY id", (store_n,)) == [(4, "FE-0042", None),

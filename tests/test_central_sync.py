@@ -42,7 +42,7 @@ def _server_state(central: CentralDb) -> dict[str, Any]:
     """Row counts and the newest push time of every central table."""
     out: dict[str, Any] = {}
     for table in ("rigs", "stores", "probes", "series", "runs", "run_revisions", "samples", "events", "results",
-                  "calibrations", "qualifications"):
+                  "calibrations", "qualifications", "spacing_calibrations"):
         out[table] = central.query(f"SELECT count(*) FROM linerig.{table}")[0][0]
     out["last_push"] = central.query("SELECT max(pushed_at) FROM linerig.runs")[0][0]
     return out
@@ -195,7 +195,7 @@ def test_results_after_the_push_are_new_rows_and_the_newest_is_read(rig_a: Path,
     assert json.loads(done.stdout)["results"]["heater"]["k_W_per_mK"] == 0.777
 
 
-def test_calibrations_and_qualifications_made_later_go_once(rig_a: Path, central: CentralDb) -> None:
+def test_calibrations_qualifications_and_spacings_made_later_go_once(rig_a: Path, central: CentralDb) -> None:
     url = central.role("north")
     synced(rig_a, url)
     con = sqlite3.connect(rig_a)
@@ -205,9 +205,15 @@ def test_calibrations_and_qualifications_made_later_go_once(rig_a: Path, central
         con.execute("INSERT INTO qualifications (probe_serial, created_utc, criteria_toml, results, passed, notes) "
                     "VALUES ('FN-0412', '2031-02-02T09:00:00.000+00:00', '[criteria]', '{\"steps\": []}', 1, "
                     "'bench check')")
+        con.execute("INSERT INTO spacing_calibrations (probe_serial, sensor, created_utc, run_id, reference, "
+                    "reference_rho_c_J_per_m3K, nominal_spacing_m, spacing_m, spacing_u_m, accepted) VALUES "
+                    "('PX8-40-0005', 'needle8', '2031-02-03T09:00:00.000+00:00', 2, 'agar-water', 4.18e6, 0.008, "
+                    "0.00806, 0.00003, 1)")
     con.close()
     out = synced(rig_a, url)
-    assert {k: v for k, v in out["pushed"].items() if v} == {"calibrations": 1, "qualifications": 1}
+    assert {k: v for k, v in out["pushed"].items() if v} == {"calibrations": 1, "qualifications": 1,
+                                                             "spacing_calibrations": 1}
+    assert central.query("SELECT sensor, spacing_m FROM linerig.spacing_calibrations") == [("needle8", 0.00806)]
     store, _ = identity(rig_a)
     assert central.query("SELECT probe_serial, passed, notes FROM linerig.qualifications WHERE store = %s",
                          (store,)) == [("FN-0412", 1, "bench check")]

@@ -130,9 +130,9 @@ def test_the_daemons_copies_of_the_flashed_limits_are_the_firmwares() -> None:
     import importlib.util
 
     from linerig.daemon import safety
-    from linerig.daemon.sim.firmware_host import FIRMWARE_DIR
+    from linerig.daemon.resources import firmware_dir
 
-    spec = importlib.util.spec_from_file_location("probefw_limits", FIRMWARE_DIR / "probefw" / "limits.py")
+    spec = importlib.util.spec_from_file_location("probefw_limits", firmware_dir() / "probefw" / "limits.py")
     assert spec is not None and spec.loader is not None
     fw = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(fw)

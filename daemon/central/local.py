@@ -21,7 +21,8 @@ from linerig.daemon.central.errors import LocalStoreError
 from linerig.daemon.store.schema import SCHEMA_VERSION, current_version, migrate
 
 # what a push carries, in the order it pushes; any other table in the file is named in the summary as not carried
-CARRIED_TABLES = ("probes", "series", "runs", "samples", "events", "results", "calibrations", "qualifications")
+CARRIED_TABLES = ("probes", "series", "runs", "samples", "events", "results", "calibrations", "qualifications",
+                  "spacing_calibrations")
 LOCAL_ONLY_TABLES = ("store_identity",)  # the identity travels as the central stores row
 T = TypeVar("T")
 

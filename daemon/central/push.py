@@ -9,7 +9,8 @@ push starts by asking it which rows of this store it holds. Then, in this order:
    leaves the server with whole runs only (and a result can never arrive without its run: foreign keys say so too);
 3. events and results that came after their run was pushed (the final reduction lands after the run ends; a run
    re-reduced later adds a result): a new row each, never a change to an old one;
-4. calibrations and qualifications the server lacks;
+4. calibrations, qualifications and spacing calibrations the server lacks (spacing calibrations from central
+   version 4 on; an older server gets them after `linerig central migrate`);
 5. a pushed run whose row changed on the rig since: a new revision in ``run_revisions``.
 
 A run still in progress waits, with its events and results. A second push finds nothing missing and writes nothing.
@@ -54,9 +55,10 @@ from linerig.daemon.store.writer import OPEN_RUN_STATES
 Progress = Callable[[dict[str, Any]], None]
 RESERVED = frozenset({"store", "extra", "pushed_at", "fingerprint", "rev", "row"})
 KEYS = {"probes": "serial", "series": "id", "runs": "id", "events": "id", "results": "id", "calibrations": "id",
-        "qualifications": "id"}
+        "qualifications": "id", "spacing_calibrations": "id"}
 REVISED = ("probes", "series")
-APPENDED = ("calibrations", "qualifications")
+APPENDED = ("calibrations", "qualifications", "spacing_calibrations")
+APPENDED_SINCE = {"spacing_calibrations": 4}  # the central version that has the table (older servers: not carried)
 SAMPLE_CHUNK = 20_000
 
 
@@ -160,14 +162,17 @@ class Pusher:
     def run(self, rig: str | None = None) -> PushSummary:
         t0 = time.monotonic()
         version = require(self.conn, WRITER_NEEDS, "a push")
+        self.appended = tuple(t for t in APPENDED if version >= APPENDED_SINCE.get(t, 1))
         self._lock()
         name = self._claim(rig)
         self.maps = table_maps(self.local, self.conn)
         summary = PushSummary(name, self.store, version, in_extra={t: list(m.spare) for t, m in self.maps.items()
-                                                                    if m.spare},
-                              not_carried=self.local.not_carried())
-        pushed = dict.fromkeys(("probes", "series", "runs", "samples", "events", "results", "calibrations",
-                                "qualifications", "run_revisions"), 0)
+                                                                    if m.spare and (t in self.appended
+                                                                                    or t not in APPENDED)},
+                              not_carried=self.local.not_carried()
+                              + [t for t in APPENDED if t not in self.appended and t in self.local.tables()])
+        pushed = dict.fromkeys(("probes", "series", "runs", "samples", "events", "results", *self.appended,
+                                "run_revisions"), 0)
         held = self._held()
         for table in REVISED:
             pushed[table] += self._push_revised(table, held[table])
@@ -184,7 +189,7 @@ class Pusher:
             with self._tx("events and results of runs already on the server"), self.conn.cursor() as cur:
                 for table, rows in late.items():
                     pushed[table] += self._insert(cur, table, rows)
-        for table in APPENDED:
+        for table in self.appended:
             rows = [r for r in self._local_rows(table).values() if r["id"] not in held[table]]
             if rows:
                 with self._tx(table), self.conn.cursor() as cur:
@@ -291,7 +296,7 @@ class Pusher:
                         "WHERE rv.store = r.store AND rv.id = r.id ORDER BY rv.rev DESC LIMIT 1) v ON true "
                         "WHERE r.store = %s", (self.store,))
             held["runs"] = {int(r[0]): (int(r[1]), r[2]) for r in cur.fetchall()}
-            for table in ("events", "results", *APPENDED):
+            for table in ("events", "results", *self.appended):
                 cur.execute(sql.SQL("SELECT id FROM {} WHERE store = %s").format(sql.Identifier(SCHEMA, table)),
                             (self.store,))
                 held[table] = {int(r[0]): (1, "") for r in cur.fetchall()}

@@ -31,7 +31,7 @@ RIG_ROLE = "linerig_rig"
 READER_ROLE = "linerig_reader"
 WRITER_NEEDS = 1   # the tables a push writes were all there in version 1
 READER_NEEDS = 2   # the read side uses the views of version 2
-# tables a rig inserts into, keyed by store; the row-level check on each is the same
+# tables a rig inserts into, keyed by store; the row-level check on each is the same (later tables: _insert_policy)
 DATA_TABLES = ("probes", "series", "runs", "run_revisions", "samples", "events", "results", "calibrations",
                "qualifications")
 
@@ -157,18 +157,25 @@ def _roles_and_policies(cur: psycopg.Cursor[Any]) -> None:
     s, rig, reader = sql.Identifier(SCHEMA), sql.Identifier(RIG_ROLE), sql.Identifier(READER_ROLE)
     cur.execute(sql.SQL("GRANT USAGE ON SCHEMA {} TO {}, {}").format(s, rig, reader))
     cur.execute(sql.SQL("GRANT SELECT ON ALL TABLES IN SCHEMA {} TO {}, {}").format(s, rig, reader))
-    mine = ("store IN (SELECT st.store FROM linerig.stores st JOIN linerig.rigs rg ON rg.rig = st.rig "
-            "WHERE rg.role = session_user)")
     checks = {"rigs": "role = session_user",
               "stores": "rig IN (SELECT rg.rig FROM linerig.rigs rg WHERE rg.role = session_user)",
-              **{t: mine for t in DATA_TABLES}}
+              **{t: _MINE for t in DATA_TABLES}}
     for table, check in checks.items():
-        t = sql.Identifier(SCHEMA, table)
-        cur.execute(sql.SQL("GRANT INSERT ON {} TO {}").format(t, rig))
-        cur.execute(sql.SQL("ALTER TABLE {} ENABLE ROW LEVEL SECURITY").format(t))
-        cur.execute(sql.SQL("CREATE POLICY read_all ON {} FOR SELECT USING (true)").format(t))
-        cur.execute(sql.SQL("CREATE POLICY insert_own ON {} FOR INSERT TO {} WITH CHECK (" + check + ")")
-                    .format(t, rig))
+        _insert_policy(cur, table, check)
+
+
+_MINE = ("store IN (SELECT st.store FROM linerig.stores st JOIN linerig.rigs rg ON rg.rig = st.rig "
+         "WHERE rg.role = session_user)")
+
+
+def _insert_policy(cur: psycopg.Cursor[Any], table: str, check: str = _MINE) -> None:
+    """Rigs insert their own rows (``check``) and everyone reads every row; nobody updates or deletes."""
+    t, rig = sql.Identifier(SCHEMA, table), sql.Identifier(RIG_ROLE)
+    cur.execute(sql.SQL("GRANT INSERT ON {} TO {}").format(t, rig))
+    cur.execute(sql.SQL("ALTER TABLE {} ENABLE ROW LEVEL SECURITY").format(t))
+    cur.execute(sql.SQL("CREATE POLICY read_all ON {} FOR SELECT USING (true)").format(t))
+    cur.execute(sql.SQL("CREATE POLICY insert_own ON {} FOR INSERT TO {} WITH CHECK (" + check + ")")
+                .format(t, rig))
 
 
 def _v1(cur: psycopg.Cursor[Any]) -> None:
@@ -201,10 +208,27 @@ def _v3(cur: psycopg.Cursor[Any]) -> None:
                                                                              sql.Identifier(READER_ROLE)))
 
 
-MIGRATIONS: list[Callable[[psycopg.Cursor[Any]], None]] = [_v1, _v2, _v3]
+def _v4(cur: psycopg.Cursor[Any]) -> None:
+    """Spacing calibrations of dual needles (local schema 7), appended like the probe factors."""
+    cur.execute("""
+CREATE TABLE linerig.spacing_calibrations (
+    store uuid NOT NULL REFERENCES linerig.stores, id bigint NOT NULL,
+    probe_serial text, sensor text, created_utc text, run_id bigint, reference text,
+    reference_rho_c_j_per_m3k double precision, nominal_spacing_m double precision, spacing_m double precision,
+    spacing_u_m double precision, accepted bigint, notes text, expires_utc text,
+    extra jsonb, pushed_at timestamptz NOT NULL DEFAULT now(),
+    PRIMARY KEY (store, id));
+CREATE INDEX spacing_calibrations_probe ON linerig.spacing_calibrations (probe_serial);
+""")
+    cur.execute(sql.SQL("GRANT SELECT ON linerig.spacing_calibrations TO {}, {}").format(
+        sql.Identifier(RIG_ROLE), sql.Identifier(READER_ROLE)))
+    _insert_policy(cur, "spacing_calibrations")
+
+
+MIGRATIONS: list[Callable[[psycopg.Cursor[Any]], None]] = [_v1, _v2, _v3, _v4]
 CENTRAL_VERSION = len(MIGRATIONS)
 # the oldest linerig (by its CENTRAL_VERSION) whose pushes a database at each version still accepts
-WRITER_MIN = {1: 1, 2: 1, 3: 1}
+WRITER_MIN = {1: 1, 2: 1, 3: 1, 4: 1}
 
 
 def _read_version(cur: psycopg.Cursor[Any]) -> tuple[int, int] | None:

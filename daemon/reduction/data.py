@@ -40,7 +40,8 @@ def contiguous(mask: np.ndarray) -> slice | np.ndarray:
     return mask
 
 
-def heating_signal_problem(sensor: str, th: np.ndarray, dTh: np.ndarray) -> str | None:
+def heating_signal_problem(sensor: str, th: np.ndarray, dTh: np.ndarray, when: str = "while the heater is on",
+                           span: str = "of heating") -> str | None:
     """Why ``sensor`` shows no heating (None when it warms): ``dTh``, its rise above the baseline's extrapolation
     over the heating samples ``th``, must end (median of the last quarter) more than SIGNAL_Z sample-to-sample noise
     (MAD of the steps) above zero.
@@ -58,7 +59,7 @@ def heating_signal_problem(sensor: str, th: np.ndarray, dTh: np.ndarray) -> str 
     if rise > SIGNAL_Z * noise:
         return None
     how = "falls" if rise < -SIGNAL_Z * noise else "does not rise"
-    return (f"T_{sensor}_C {how} while the heater is on ({rise:+.3g} K at the end of {th[-1]:.4g} s of heating, "
+    return (f"T_{sensor}_C {how} {when} ({rise:+.3g} K at the end of {th[-1]:.4g} s {span}, "
             f"noise {noise:.2g} K): is the sensor in the probe, shorted, or in the wrong column?")
 
 

@@ -128,7 +128,14 @@ class SensorRecord:
         baseline = fit_baseline(t[base], T[base]) if np.any(base) else no_baseline(float(T[run.heat_span][0]))
         geometry = Geometry.of(probe, name)
         dT = T - baseline.at(t)
-        problem = heating_signal_problem(name, t[run.heat_span], dT[run.heat_span])
+        if geometry.on_heater:
+            problem = heating_signal_problem(name, t[run.heat_span], dT[run.heat_span])
+        else:  # a sensor away from the heater may peak after a short pulse: judge its rise up to its peak
+            after = np.flatnonzero((t > 0) & np.isfinite(dT))
+            n = int(np.argmax(dT[after])) + 1 if after.size else 0
+            upto = after[: max(n, int(np.count_nonzero(run.heat)))]
+            problem = heating_signal_problem(name, t[upto], dT[upto], "after the heater came on",
+                                             "after heater on, up to its highest reading")
         if problem:
             raise ImplausibleRun(problem)
         tz = None
