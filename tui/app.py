@@ -17,6 +17,7 @@ from typing import Any, ClassVar
 
 from textual.app import App
 from textual.binding import Binding, BindingType
+from textual.driver import Driver
 from textual.screen import Screen
 
 from linerig.tui.client import Client, DaemonError
@@ -31,6 +32,7 @@ from linerig.tui.messages import (
 )
 from linerig.tui.screens.confirm import Confirm
 from linerig.tui.screens.live_state import LiveState
+from linerig.tui.terminal_output import surviving_hangup
 from linerig.tui.units import DisplayUnit, parse_unit
 
 BACKOFF_FIRST_S = 0.25
@@ -108,6 +110,9 @@ class LinerigApp(App[int]):
         self._autostarted = False
         self.pending_preset: tuple[str, dict[str, Any]] | None = None
         self._connected = asyncio.Event()
+
+    def get_driver_class(self) -> type[Driver]:
+        return surviving_hangup(super().get_driver_class())
 
     def on_mount(self) -> None:
         self.run_worker(self._link(), name="daemon link", group="link", exclusive=True, exit_on_error=False)
