@@ -9,7 +9,7 @@ Probe designs (dimensions in the names of the builders below):
   filled epoxy; neat epoxy for the low-conductivity variant), stainless sheath; 0.5 mm closed tip; 20 mm of
   unheated needle above the heater up to the hub at the sample's surface; thermocouple on the axis at mid-length.
 - dual needle: two needles 40 mm × 1.0 mm diameter, 8 mm apart; each a constantan core r 0.10 mm (the heater wire
-  in one, the thermocouple wires in the other), neat epoxy to r 0.40 mm, stainless sheath to 0.50 mm. Modelled in
+  in one, the thermocouple wires in the other), filled epoxy to r 0.40 mm, stainless sheath to 0.50 mm. Modelled in
   cross-section (infinitely long); two axisymmetric records of the 40 mm heater show the finite length.
 - field rod: 1.5 m heated, 8 mm outer diameter stainless tube (wall 0.5 mm) with compacted MgO around a heater core
   of radius 1.0 mm; 5 mm solid tip; the rod reaches the ground surface 1.8 m above its tip; four thermocouple
@@ -64,8 +64,8 @@ def field_rod(annulus: tuple[str, float] | None = None) -> dict[str, Any]:
     if annulus is not None:
         key, thick = annulus
         mat = MEDIA[key] if key in MEDIA else PARTS[key]
-        gap = {"r_out_m": ROD_A + thick, "material": _mat(mat), "cells": 2}
-    return {"layers": [_layer(1.0e-3, "constantan", 3), _layer(3.5e-3, "mgo-powder", 4),
+        gap = {"r_out_m": ROD_A + thick, "material": _mat(mat), "cells": 3}
+    return {"layers": [_layer(1.0e-3, "constantan", 3), _layer(3.5e-3, "mgo-powder", 6),
                        _layer(ROD_A, "stainless-304", 2)],
             "heated_z_m": list(ROD_HEATED), "top_m": ROD_TOP, "tip_cap_m": ROD_TIP, "gap": gap}
 
@@ -76,7 +76,7 @@ DN_LENGTH = 0.040
 
 
 def dual_needle_layers(gap_m: float = 0.0) -> list[dict[str, Any]]:
-    lays = [_layer(0.10e-3, "constantan", 2), _layer(0.40e-3, "epoxy", 4), _layer(DN_A, "stainless-304", 2)]
+    lays = [_layer(0.10e-3, "constantan", 2), _layer(0.40e-3, "filled-epoxy", 4), _layer(DN_A, "stainless-304", 2)]
     if gap_m > 0:
         lays.append({"r_out_m": DN_A + gap_m, "material": _mat(PARTS["air"]), "cells": 1})
     return lays
@@ -88,7 +88,7 @@ LN_GRID = {"r_out_m": 0.5, "z_bottom_m": -0.5, "z_top_m": LN_TOP, "bc_outer": "f
            "bc_top": "adiabatic", "medium_ratio": 1.1, "gap_cells": 1, "dz_fine_m": 2.5e-4, "dz_growth": 1.2,
            "dz_max_m": 4e-3, "infinite_length": False, "scale": 1.0}
 ROD_GRID = {"r_out_m": 2.0, "z_bottom_m": -2.0, "z_top_m": ROD_TOP, "bc_outer": "fixed", "bc_bottom": "fixed",
-            "bc_top": "fixed", "medium_ratio": 1.1, "gap_cells": 2, "dz_fine_m": 2e-3, "dz_growth": 1.2,
+            "bc_top": "fixed", "medium_ratio": 1.06, "gap_cells": 3, "dz_fine_m": 2e-3, "dz_growth": 1.2,
             "dz_max_m": 0.05, "infinite_length": False, "scale": 1.0}
 DN_GRID = {"h_fine_m": 5e-5, "band_m": 7e-4, "medium_ratio": 1.08, "dtheta_max": 0.08, "theta_growth": 1.15,
            "extent_m": 0.3, "bc_outer": "fixed", "scale": 1.0}
@@ -227,12 +227,11 @@ def _dual_records() -> list[Params]:
                      "moist-clay", _heat(20.0, 120.0), 120.0, 360.0))
     # the finite length of the 40 mm heater, axisymmetric, the sensor a point in the medium (no second needle)
     for m, t_end in (("moist-sand", 150.0), ("dry-sand", 450.0)):
-        probe = {"layers": [_layer(0.10e-3, "constantan", 2), _layer(0.40e-3, "epoxy", 4),
-                            _layer(DN_A, "stainless-304", 2)],
+        probe = {"layers": dual_needle_layers(),
                  "heated_z_m": [0.5e-3, 0.5e-3 + DN_LENGTH], "top_m": DN_LENGTH + 10.5e-3, "tip_cap_m": 0.5e-3,
                  "gap": None}
         mid = 0.5e-3 + DN_LENGTH / 2
-        grid = {**LN_GRID, "z_top_m": probe["top_m"], "dz_max_m": 1e-3}
+        grid = {**LN_GRID, "z_top_m": probe["top_m"], "dz_max_m": 1e-3, "medium_ratio": 1.04}
         out.append(_axi(f"dn-length-{m}", "dual-needle-length",
                         f"The 40 mm heater needle alone in {m}, axisymmetric: 8 s pulse at 50 W/m read in the "
                         "medium 8 mm from the axis at mid-length (no second needle). Compare with the planar "
@@ -283,6 +282,11 @@ def _rod_records() -> list[Params]:
              "1.05 m, moist peat above; 20 W/m for 1800 s.", ["moist-clay", "thermal-backfill", "moist-peat"],
              [0.45, 1.05], _heat(20.0, 1800), 1800, 3600, twins=True,
              answer="j300: moist-clay; j600 and j900: thermal-backfill; j1200: moist-peat"),
+        _rod("rod-layered-near-boundary", "Field rod with a layer boundary 50 mm above the 600 mm junction: moist "
+             "clay below 0.65 m, weathered sandstone above; 20 W/m for 3600 s, 3600 s recovery.",
+             ["moist-clay", "weathered-rock"], [0.65], _heat(20.0, 3600), 3600, 7200, twins=True,
+             answer="j300, j600: moist-clay; j900, j1200: weathered-rock. j600 sits 50 mm below the boundary: "
+                    "its line leaves the clay's after t_departure_1pct_s (a depth-weighted value, no single k)"),
         _rod("rod-moist-clay-annulus", "Field rod in an augered hole in moist clay, the 2 mm annulus around the "
              "tube backfilled with dry sand; 20 W/m for 1800 s.", ["moist-clay"], [], _heat(20.0, 1800), 1800,
              3600, annulus=("dry-sand", 2e-3),

@@ -273,7 +273,7 @@ def build_axi(probe: ResolvedProbe, medium: Medium, sensors: tuple[AxiSensor, ..
     bnd = bnd.ravel()
     G = (sp.diags(diag + bnd) - off).tocsr()
     src = np.where(heated, (area[None, :] * dz[:, None]) / (math.pi * probe.layers[0].r_out_m**2), 0.0).ravel()
-    readout = _readout(rf, zf, sensors, nz, nr)
+    readout = _readout(rf, zf, k, sensors, nz, nr)
     system = LinearThermalSystem(cap=cap, G=G, src=src, boundary_g=bnd, readout=readout)
     return AxiModel(rf, zf, k, c, heated, system, sensors)
 
@@ -284,29 +284,48 @@ def node_radii(rf: np.ndarray) -> np.ndarray:
     return rho
 
 
-def _radial_weights(rf: np.ndarray, r: float) -> list[tuple[int, float]]:
+def _radial_weights(rf: np.ndarray, kr: np.ndarray, r: float) -> list[tuple[int, float]]:
+    """Weights of the nodes for the temperature at radius r in one row (kr: the row's conductivities).
+
+    Inside one material: quadratic in ln r through the three nearest nodes. Across an interface: log-linear
+    within each half cell, through the face temperature that the series resistances give — exact for steady
+    radial flux, so a junction near a sheath is read right although the slope jumps there.
+    """
     rho = node_radii(rf)
     if r <= 0.0:
         return [(0, 1.0)]
-    if r <= rho[1]:
+    i = int(np.searchsorted(rho, r) - 1)  # rho[i] < r <= rho[i+1]
+    if i == 0 or i + 1 >= rho.size:
+        if i + 1 >= rho.size:
+            raise ValueError(f"radius {r} m is beyond the last node")
         w = r / rho[1]
         return [(0, 1.0 - w), (1, w)]
-    # quadratic Lagrange in ln r through the three nearest nodes (i ≥ 1)
-    lr = np.log(rho[1:])
-    j = int(np.clip(np.searchsorted(lr, math.log(r)) - 1, 0, lr.size - 3))
-    xs = lr[j:j + 3]
-    x = math.log(r)
-    out = []
-    for m in range(3):
-        w = 1.0
-        for n_ in range(3):
-            if n_ != m:
-                w *= (x - xs[n_]) / (xs[m] - xs[n_])
-        out.append((j + m + 1, w))
-    return out
+    if kr[i] == kr[i + 1]:
+        lo = int(np.clip(i - 1 if math.log(r / rho[i]) < math.log(rho[i + 1] / r) else i, 1, rho.size - 3))
+        if kr[lo] == kr[lo + 1] == kr[lo + 2]:
+            xs = np.log(rho[lo:lo + 3])
+            x = math.log(r)
+            out = []
+            for m in range(3):
+                w = 1.0
+                for n_ in range(3):
+                    if n_ != m:
+                        w *= (x - xs[n_]) / (xs[m] - xs[n_])
+                out.append((lo + m, w))
+            return out
+    rface = rf[i + 1]
+    r_a = math.log(rface / rho[i]) / kr[i]  # half resistances (per 2π·dz)
+    r_b = math.log(rho[i + 1] / rface) / kr[i + 1]
+    f_face = r_a / (r_a + r_b)  # T_face = T_i + f_face·(T_{i+1} − T_i)
+    if r <= rface:
+        f = f_face * math.log(r / rho[i]) / math.log(rface / rho[i])
+    else:
+        f = f_face + (1.0 - f_face) * math.log(r / rface) / math.log(rho[i + 1] / rface)
+    return [(i, 1.0 - f), (i + 1, f)]
 
 
-def _readout(rf: np.ndarray, zf: np.ndarray, sensors: tuple[AxiSensor, ...], nz: int, nr: int) -> sp.csr_matrix:
+def _readout(rf: np.ndarray, zf: np.ndarray, k: np.ndarray, sensors: tuple[AxiSensor, ...], nz: int,
+             nr: int) -> sp.csr_matrix:
     zc = 0.5 * (zf[1:] + zf[:-1])
     rows, cols, vals = [], [], []
     for si, s in enumerate(sensors):
@@ -317,7 +336,7 @@ def _readout(rf: np.ndarray, zf: np.ndarray, sensors: tuple[AxiSensor, ...], nz:
             f = (s.z_m - zc[j]) / (zc[j + 1] - zc[j])
             zw = [(j, 1.0 - f), (j + 1, f)]
         for j, wz in zw:
-            for i, wr in _radial_weights(rf, s.r_m):
+            for i, wr in _radial_weights(rf, k[j], s.r_m):
                 if wz * wr != 0.0:
                     rows.append(si)
                     cols.append(j * nr + i)

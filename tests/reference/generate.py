@@ -1,13 +1,13 @@
 """Regenerate the reference records (tests/reference/records/) and probe profiles (tests/reference/probes/).
 
     .venv/bin/python -m tests.reference.generate              # everything (tens of minutes on a shared machine)
-    .venv/bin/python -m tests.reference.generate --only NAME  # one record (repeatable; shell-style patterns ok)
+    .venv/bin/python -m tests.reference.generate --only NAME  # one record (repeatable; shell patterns)
     .venv/bin/python -m tests.reference.generate --check      # are the files current? exit 1 if not
     .venv/bin/python -m tests.reference.generate --list       # names, families, descriptions
 
 A record is current when its stored parameters equal the catalogue's and it was made by the present solver code
-(a hash of the solver modules is stored with it). `--check --recompute` also re-solves the named records and
-compares the stored series.
+(a hash of stepper.py, fv_axi.py and fv_planar.py is stored with it). `--check --recompute` also re-solves the
+named records and compares the stored series.
 """
 
 from __future__ import annotations
@@ -33,7 +33,7 @@ from .catalogue import CATALOGUE, PROFILES
 HERE = Path(__file__).resolve().parent
 RECORDS = HERE / "records"
 PROBES = HERE / "probes"
-SOLVER_FILES = ("stepper.py", "fv_axi.py", "fv_planar.py", "build.py")
+SOLVER_FILES = ("stepper.py", "fv_axi.py", "fv_planar.py")  # the physics; build.py only maps and reports
 
 
 def solver_hash() -> str:

@@ -22,6 +22,14 @@ def test_stored_records_are_current(capsys: pytest.CaptureFixture[str]) -> None:
     assert generate.check(NAMES, recompute=False) == 0, capsys.readouterr().out
 
 
+def test_the_set_is_complete() -> None:
+    # every catalogue record is stored (the set issue 11 asks for: at least 40, all three probe kinds)
+    assert list(CATALOGUE) == NAMES
+    assert len(NAMES) >= 40
+    kinds = {CATALOGUE[n]["profile"] for n in NAMES}
+    assert {"ref-lab-needle.toml", "ref-dual-needle.toml", "ref-field-rod.toml"} <= kinds
+
+
 def test_media_are_the_simulators_numbers() -> None:
     # the records copy the simulator's demo media by hand (no import in the solver); keep the copies honest
     from linerig.daemon.sim.materials import MATERIALS
@@ -53,8 +61,9 @@ def test_record_is_sound(name: str) -> None:
     for s in rec.sensors:
         y = rec.dT[s]
         assert np.all(np.isfinite(y)) and y[0] == 0.0
-        # heat only ever warms a medium that started uniform
-        assert y.min() > -1e-6
+        # heat only ever warms a medium that started uniform; the scheme's stability function dips slightly below
+        # zero for the stiffest modes (R(z) → 0⁻), which leaves undershoots of order 1e-5 K ahead of a pulse
+        assert y.min() > -1e-4 * y.max()
         err = rec.true["sensors"][s]["model_error"]
         assert err["rel_to_max"] < 0.01
         if err.get("slope_rel_heating") is not None:

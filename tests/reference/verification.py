@@ -30,7 +30,7 @@ A = 0.635e-3
 
 
 def _ctl(scale: float, max_s: float = 0.5) -> StepControl:
-    return StepControl(unit_s=2.0**-12, ratio=0.25 / scale, max_s=max_s / scale, store_s=max_s)
+    return StepControl(unit_s=2.0**-12, ratio=0.25 / scale, max_s=max_s / scale, store_s=max_s * max(1.0, 1 / scale))
 
 
 def e1_case(scale: float) -> float:
