@@ -368,11 +368,25 @@ def test_export_writes_the_reduce_csv_format(tmp_path: Path) -> None:
 
 def test_stored_run_becomes_a_plottable_trace() -> None:
     data = synthetic_run()
-    tr = trace_from_data(17, data, {"k_W_per_mK": K, "window_s": [60.0, 600.0]}, "heater")
+    tr = trace_from_data(17, data, {"k_W_per_mK": K, "window_s": [60.0, 600.0], "method": "line",
+                                    "q_mean_W_per_m": Q}, "heater")
     spec = build_spec(tr, PlotView.LOG)
     fit = spec.series[-1]
     assert fit.label == "fit"
     assert (fit.y[-1] - fit.y[0]) / (fit.x[-1] - fit.x[0]) == pytest.approx(Q / (4 * math.pi * K), rel=0.01)
+
+
+@pytest.mark.parametrize("factor", [1.0, 0.95])
+def test_the_drawn_line_is_the_reported_k_not_a_fit_to_the_picture(factor: float) -> None:
+    """A model result 8 % above what the data's own line says is drawn with the model's slope (q/4πk, k before the
+    probe factor), so the screen shows the number that is reported."""
+    data = synthetic_run()
+    reported = 1.08 * K * factor
+    tr = trace_from_data(17, data, {"k_W_per_mK": reported, "window_s": [2.0, 600.0], "method": "model",
+                                    "q_mean_W_per_m": Q, "calibration_factor": factor}, "heater")
+    assert tr.last_estimate is not None
+    assert tr.last_estimate["slope_K"] == pytest.approx(Q / (4 * math.pi * reported / factor), rel=1e-12)
+    assert trace_from_data(17, data, {"k_W_per_mK": K, "window_s": [60.0, 600.0]}, "heater").last_estimate is None
 
 
 def test_settling_drift_is_the_slope_over_the_baseline_span() -> None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import asyncio
+import math
 import os
 import re
 import tomllib
@@ -449,11 +450,26 @@ def trace_from_data(run_id: int, data: RunData, result: dict[str, Any] | None,
     except ReductionError:
         tr.heat_end_device_s = None
     if result and isinstance(result.get("k_W_per_mK"), int | float):
-        win = result.get("window_s") or [None, None]
-        t, dT = tr.heating()
-        if win[0] is not None and win[1] is not None and t.size:
-            sel = (t >= win[0]) & (t <= win[1]) & np.isfinite(dT[:, primary])
-            if np.count_nonzero(sel) >= 3:
-                slope, icpt = np.polyfit(np.log(t[sel]), dT[sel, primary], 1)  # for drawing only
-                tr.last_estimate = {"slope_K": float(slope), "intercept_K": float(icpt), "window_s": win}
+        tr.last_estimate = reported_line(tr, primary, result)
     return tr
+
+
+def reported_line(tr: RunTrace, primary: int, result: dict[str, Any]) -> dict[str, Any] | None:
+    """The straight line whose slope is the reported k (q/4πk, before the probe factor), placed on the data.
+
+    A line result is drawn through its window; a model or radial result approaches its late-time line only at the
+    end, so the line is placed on the later half of the window (in ln t). The slope is the reported k either way,
+    never a fit made for the picture."""
+    win = result.get("window_s") or [None, None]
+    q = result.get("q_mean_W_per_m")
+    k = float(result["k_W_per_mK"]) / float(result.get("calibration_factor") or 1.0)
+    t, dT = tr.heating()
+    if win[0] is None or win[1] is None or not isinstance(q, int | float) or k <= 0 or not t.size:
+        return None
+    lo = win[0] if result.get("method") == "line" else math.sqrt(max(win[0], 1e-3) * win[1])
+    sel = (t >= lo) & (t <= win[1]) & np.isfinite(dT[:, primary])
+    if np.count_nonzero(sel) < 3:
+        return None
+    slope = float(q) / (4.0 * math.pi * k)
+    icpt = float(np.mean(dT[sel, primary] - slope * np.log(t[sel])))
+    return {"slope_K": slope, "intercept_K": icpt, "window_s": win}
