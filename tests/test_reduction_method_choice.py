@@ -80,3 +80,30 @@ def test_the_live_estimate_reports_no_diffusivity() -> None:
     _, ests = replay(data.time_s, data.temps_C["heater"], data.q_W_per_m, NEEDLE)
     assert ests and all(e.alpha_m2_per_s is None for e in ests)
     assert np.isfinite(ests[-1].k_W_per_mK)
+
+
+def test_a_heat_pulse_read_at_its_own_heater_gives_no_line() -> None:
+    """8 s at 50 W/m, logged every 0.5 s: the heating's last decade holds 15 samples, all inside the needle's own
+    transient (before this rule, the heater's line read k from −5 % to +22 % of the record's medium with U up to
+    ±160 %). The heater has no result and says why; the sensing needle's pulse stands and covers the medium."""
+    rec = load("dn-pulse-moist-clay")
+    arr = rec.arrays(seed=2)
+    red = reduce_run(RunData(arr.time_s, arr.q_W_per_m, arr.temps_C), load_probe_profile(rec.profile_path),
+                     stable_rule=False)
+    heater, needle = red.sensors["heater"], red.sensors["needle"]
+    assert heater.k_W_per_mK is None and "no_result" in heater.flags
+    assert "line" not in heater.methods
+    assert any("samples in the heating's last decade" in n for n in heater.notes)
+    assert needle.method == "pulse"
+    assert abs(needle.k_W_per_mK - rec.true["k_W_per_mK"]) <= needle.k_U_W_per_mK
+
+
+def test_a_heating_whose_last_decade_holds_enough_samples_keeps_its_line() -> None:
+    """The shortest lab heating of the reference set (60 s at 1 s): the window is short, the line is still read
+    and its U covers the record's medium."""
+    rec = load("ln-moist-sand-60s")
+    arr = rec.arrays(seed=0)
+    r = reduce_run(RunData(arr.time_s, arr.q_W_per_m, arr.temps_C), load_probe_profile(rec.profile_path),
+                   stable_rule=False).sensors["heater"]
+    assert r.method == "line"
+    assert abs(r.k_W_per_mK - rec.true["k_W_per_mK"]) <= r.k_U_W_per_mK

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..driftfit import DriftFit, fit_with_drift
-from ..linesource import LateTimeFit, choose_window, fit_window
+from ..linesource import FLOOR_FRACTION, MIN_POINTS, LateTimeFit, choose_window, fit_window
 from ..live import NOISE_HIGH_FRACTION
 from ..record import SensorRecord
 from ..timezero import rectangular_u
@@ -34,6 +34,9 @@ class LineMethod:
         drift_u = rec.baseline.rate_u_K_per_s
         model = found.credible("model") if g.on_heater and opts.method != "line" else None
         hint = model.fit if model is not None else None
+        if opts.window_s is None and widest_window_n(rec) < MIN_POINTS:
+            why = too_short(rec)
+            return MethodResult(self.name, None, converged=False, why=why, notes=[f"no late-time line: {why}"])
         try:
             if opts.window_s is not None:
                 lf = fit_window(th, u, y, Qh, opts.window_s[0], min(opts.window_s[1], float(th[-1])),
@@ -68,6 +71,25 @@ class LineMethod:
         # the intercept gives α·e^{2h} (contact and the probe's own resistance), not α: no α from the line
         return MethodResult(self.name, k, None, window_s=lf.window_s, residual_rms_K=lf.resid_rms_K, n_used=lf.n,
                             q_mean_W_per_m=lf.q_mean_W_per_m, why=why, flags=flags, fit=lf, drift=df)
+
+
+def widest_window_n(rec: SensorRecord) -> int:
+    """Heating samples in the widest window the rule allows, the last decade [0.1·t_h, t_h]."""
+    th = rec.th
+    return int(np.count_nonzero(th >= FLOOR_FRACTION * float(th[-1])))
+
+
+def too_short(rec: SensorRecord) -> str:
+    """Why a heating whose last decade holds fewer than ``MIN_POINTS`` samples gives no late-time line.
+
+    With so few samples neither the straightness of the line (the residual-trend test) nor the noise's
+    correlation can be judged, and a heating that short (a heat pulse read at its own needle) has not left the
+    probe's transient: the slope is the needle's, not the ground's (reference records: a dual needle's 8 s pulse
+    read on the heater gave k from −5 % to +22 %).
+    """
+    n, th = widest_window_n(rec), float(rec.th[-1])
+    return (f"only {n} samples in the heating's last decade ({FLOOR_FRACTION * th:.3g}–{th:.3g} s; a line needs "
+            f"{MIN_POINTS}): heat longer, or log faster")
 
 
 def line_drift_fit(rec: SensorRecord, window_s: tuple[float, float]) -> DriftFit:
