@@ -30,6 +30,10 @@ no verdict in a bending record; the live verdict (``live.replay``, sample by sam
 the offline one (``live.record_verdict``, whole arrays, as ``reduce_run``'s ``stable_at_s``) at the same time
 within one sample on every record. The bench ends with a table of the targets per set.
 
+``--hindsight``: for the reference records, the earliest tenth of T from which every cut of the record (reduced
+offline as it stands, no recovery) reports a k within the tolerance of the full record's: what a rule that knew
+the answer could do, so how far the median target is reachable at all on these records.
+
 Also, for long records (``--rows N``): the verdict over one heating of N samples (an ideal line source at 10 Hz
 with noise), time and peak memory of ``live.record_verdict``; its cost grows with the decades of time, not the
 samples.
@@ -258,6 +262,26 @@ class Row:
         return 1.0 if self.at_s is None else self.at_s / self.case.heat_s
 
 
+def hindsight(c: RefCase, tol: float) -> float | None:
+    """The earliest tenth of T from which every cut reports k within ``tol`` of the full record's (None: the
+    full record is not reduced)."""
+    def k_of(end_s: float | None) -> float:
+        try:
+            r = reduce_run(c.record(end_s), c.profile, sensors=[c.sensor], stable_rule=False).sensors[c.sensor]
+        except ReductionError:
+            return math.nan
+        return r.k_W_per_mK or math.nan
+    k_full = k_of(None)
+    if not math.isfinite(k_full):
+        return None
+    earliest = 1.0
+    for f in (0.9, 0.8, 0.7, 0.6, 0.5, 0.4, 0.3, 0.2, 0.1):
+        if not abs(k_of(f * c.heat_s) / k_full - 1.0) <= tol:
+            break
+        earliest = f
+    return earliest
+
+
 def run_case(c: Case | RefCase, tol: float) -> Row:
     """The verdict on the full record, then the stopped run reduced like the full one."""
     T = c.heat_s
@@ -328,12 +352,17 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--quick", action="store_true", help="a few records per set")
     p.add_argument("--tolerance", type=float, default=2.0, help="stop tolerance, %% (default 2)")
     p.add_argument("--rows", type=int, default=0, help="only time the verdict on one heating of this many samples")
+    p.add_argument("--hindsight", action="store_true",
+                   help="only: from which tenth of T every cut of a reference record stays within the tolerance")
     args = p.parse_args(argv)
     if args.rows:
         long_record(args.rows)
         return 0
     tol = args.tolerance / 100.0
     refs, pulses = reference_cases()
+    if args.hindsight:
+        hindsight_table([r for r in refs if r.name in QUICK_REFS] if args.quick else refs, tol)
+        return 0
     sets: list[tuple[str, list[Any]]] = [("reference records (resolved probe, tests/reference/)",
                                           [r for r in refs if r.name in QUICK_REFS] if args.quick else refs),
                                          ("simulator materials", sim_cases(args.quick))]
@@ -371,6 +400,23 @@ def main(argv: list[str] | None = None) -> int:
         tables.append(("both sets", summary(all_rows, tol)))
     targets_table(tables)
     return 0 if all(ok for _, marks in tables for _, _, ok in marks) else 1
+
+
+def hindsight_table(cases: list[RefCase], tol: float) -> None:
+    """Per reference record: from which tenth of T on the cuts stay within the tolerance; their median."""
+    print(f"hindsight: the earliest tenth of T from which every cut's k is within {100 * tol:g} % of the full "
+          "record's (reduced offline, no recovery)")
+    fr = []
+    for c in cases:
+        bends = c.bends_at_s() < c.heat_s
+        f = hindsight(c, tol)
+        print(f"{c.name:42} {c.heat_s:6.0f} {'bends' if bends else '':>5} "
+              f"{'not reduced' if f is None else f'{f:.1f}':>12}")
+        if not bends:
+            fr.append(1.0 if f is None else f)
+    if fr:
+        print(f"median over the {len(fr)} straight records: {statistics.median(fr):.2f} of T "
+              f"(≤ 0.40 in {sum(f <= 0.4 for f in fr)})")
 
 
 def targets_table(tables: list[tuple[str, list[tuple[str, str, bool]]]]) -> None:
