@@ -43,6 +43,7 @@ from scipy.special import exp1
 
 from . import window as win
 from .cooling import RECOVERY_END_FACTOR, choose_recovery_window
+from .linesource import TREND_TOL, TREND_Z
 from .probe_model import long_time_response, response_stehfest
 from .stats import ar1_inflation
 
@@ -262,11 +263,13 @@ class _Bins:
         """Sum over bins of the centred cross-moment of columns c1, c2 (c12 their product's column)."""
         return float(np.sum(self.S[:, c12] - self.S[:, c1] * self.S[:, c2] / self.S[:, _N]))
 
-    def since(self, t0: float) -> np.ndarray:
-        """Sums over the bins whose mean time is t0 or later (lag products of the first one dropped)."""
-        i = int(np.searchsorted(self.means(_T), t0, side="left"))
-        S = self.S[min(i, self.S.shape[0] - 1):].sum(axis=0)
-        S[_PYY:] -= self.S[min(i, self.S.shape[0] - 1), _PYY:]
+    def since(self, t0: float, t1: float = math.inf) -> np.ndarray:
+        """Sums over the bins whose mean time is from t0 to t1 (lag products of the first one dropped)."""
+        tm = self.means(_T)
+        i = min(int(np.searchsorted(tm, t0, side="left")), self.S.shape[0] - 1)
+        j = max(int(np.searchsorted(tm, t1, side="right")), i + 1)
+        S = self.S[i:j].sum(axis=0)
+        S[_PYY:] -= self.S[i, _PYY:]
         return S
 
     def coarse(self, most: int) -> _Bins:
@@ -451,8 +454,8 @@ def _change(best: _Medium, media: list[_Medium], bins: _Bins, k_line: float, t: 
     now = [_reported_window(m, t, probe) for m in media]
     at_T = [_reported_window(m, T, probe) for m in media]
     lines_now = []
-    for s0, _, short in now:
-        fit = None if short else _line(bins.since(s0))
+    for s0, e0, short in now:
+        fit = None if short else _line(bins.since(s0, e0))
         lines_now.append(1.0 / (4.0 * math.pi * fit.a) if fit is not None and fit.a > 0 else k_line)
     reported_now = [best.k if short else k for (_, _, short), k in zip(now, lines_now, strict=True)]
     spread = float(np.max(np.abs(np.array([m.k for m in media]) / best.k - 1.0))) * math.sqrt(max(1.0 - t / T, 0.0))
@@ -474,6 +477,31 @@ def _change(best: _Medium, media: list[_Medium], bins: _Bins, k_line: float, t: 
         worst = max(worst, max(abs(S / f - 1.0) for f in full))
     best_now = media.index(best) if best in media else 0
     return reported_now[best_now], worst
+
+
+def _trend(bins: _Bins, t0: float, t1: float, noise_var: float, infl: float) -> tuple[float, float]:
+    """The reduction's straightness test (``stats.quadratic_curvature``: how far the local slope drifts across
+    the window, relative, and its z) over the window [t0, t1], read from the bins: a quadratic in u through the
+    bin means weighted by their counts, with the rule's noise variance and AR(1) inflation."""
+    tm = bins.means(_T)
+    i, j = int(np.searchsorted(tm, t0, side="left")), int(np.searchsorted(tm, t1, side="right"))
+    n, ub, yb = bins.n[i:j], bins.means(_U)[i:j], bins.means(_Y)[i:j]
+    if n.size < 4:
+        return 0.0, 0.0
+    um = float(n @ ub) / float(n.sum())
+    scale = float(np.max(np.abs(ub - um))) or 1.0
+    xs = (ub - um) / scale
+    A = np.stack([np.ones_like(xs), xs, xs * xs], axis=1)
+    try:
+        inv = np.linalg.inv(A.T @ (A * n[:, None]))
+    except np.linalg.LinAlgError:
+        return 0.0, 0.0
+    _, c1, c2 = inv @ (A.T @ (n * yb))
+    if c1 == 0:
+        return math.inf, math.inf
+    rel = 2.0 * c2 * float(xs.max() - xs.min()) / c1
+    var_c2 = inv[2, 2] * noise_var * infl
+    return float(rel), abs(float(c2)) / math.sqrt(var_c2) if var_c2 > 0 else math.inf
 
 
 @dataclass
@@ -573,6 +601,14 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: 
     if not explained:
         return refuse("the line bends in a way the probe's transient does not explain (a boundary, moisture "
                       "moving, drift?)")
+    # the line a stop now reports must be one the reduction keeps whole: a window it would trim for a residual
+    # trend (``linesource.choose_window``) reports the k of a shorter stretch, which no term above predicts
+    s0, e0, short_now = _reported_window(best, t, ctx.probe)
+    if not short_now:
+        rel, z = _trend(all_bins, s0, e0, noise_var, infl)
+        if abs(rel) > TREND_TOL and z > TREND_Z:
+            return refuse(f"the line a stop now would report still curves (its slope drifts {100 * rel:+.1f} % "
+                          "across its window): the reduction would shorten it")
     if ctx.probe.length_m:
         t_ax = win.axial_end_s(ctx.probe.length_m, alpha_hi, AXIAL_TOL, ctx.probe.axial_m)
         if t_ax < T:
