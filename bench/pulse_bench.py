@@ -98,6 +98,41 @@ class Tally:
             print("  flags: " + ", ".join(f"{k} {v}/{self.n_runs}" for k, v in sorted(self.flags.items())))
 
 
+    def pooled(self, quantity: str, prefix: str = "") -> np.ndarray:
+        """(error, u_rel) rows of one quantity over the records whose name starts with ``prefix``."""
+        rows = [r for name, per in self.rows.items() if name.startswith(prefix) for r in per[quantity]]
+        return np.array(rows).reshape(-1, 2)
+
+
+TARGET_ERROR = 0.05             # k, α, ρc within 5 % of the record's medium (issue 13)
+TARGET_ERROR_CALIBRATED = 0.03  # ρc within 3 % after a spacing calibration in gel
+TARGET_COVERAGE = (0.95, 0.99)  # share inside U = 2u (issue 11): below is overconfident, above is too wide
+
+
+def targets(exact: Tally, drawn: Tally, after: Tally | None) -> bool:
+    """The issue's done-criteria on every dn-pulse record: one line per quantity, pass or fail."""
+    print("\nTargets on every dn-pulse record (worst |error| with the profile exact; coverage of U = 2u over noise "
+          "seeds and drawn inputs)\n")
+    print(f"{'quantity':<22}{'worst error':>12}{'target':>8}{'coverage':>18}{'target':>12}  verdict")
+    ok_all = True
+    rows = [(q, exact.pooled(q, "dn-pulse"), drawn.pooled(q, "dn-pulse"), TARGET_ERROR) for q, _, _ in QUANTITIES]
+    if after is not None:
+        rows.append(("rho_c (spacing cal.)", after.pooled("rho_c", "dn-pulse"), after.pooled("rho_c", "dn-pulse"),
+                     TARGET_ERROR_CALIBRATED))
+    for q, ex, dr, limit in rows:
+        if ex.size == 0 or dr.size == 0:
+            print(f"{q:<22}{'no results':>12}")
+            ok_all = False
+            continue
+        worst = float(np.max(np.abs(ex[:, 0])))
+        cov = float(np.count_nonzero(np.abs(dr[:, 0]) <= 2 * dr[:, 1]) / dr.shape[0])
+        ok = worst < limit and TARGET_COVERAGE[0] <= cov <= TARGET_COVERAGE[1]
+        ok_all &= ok
+        print(f"{q:<22}{100 * worst:>11.2f}%{'< ' + format(100 * limit, '.0f') + ' %':>8}"
+              f"{100 * cov:>10.1f} % of {dr.shape[0]:<3}{'95–99 %':>12}  {'pass' if ok else 'FAIL'}")
+    return ok_all
+
+
 # --- reference records ----------------------------------------------------------------------------------------
 def reference_runs(seeds: range) -> tuple[list[tuple[str, RunData, ProbeProfile, dict[str, float]]], str | None]:
     try:
@@ -213,6 +248,7 @@ def main() -> int:
         drawn.table("Reference records, spacing, power and needle heat capacities drawn from their stated "
                     "uncertainty: coverage")
         gel = [(d, p) for n, d, p, _ in ref if n == "dn-pulse-agar-gel"]
+        after = None
         if gel:
             probe_cal, note = calibrated(gel[0][1], "needle", [d for d, _ in gel], water_heat_capacity(20.0))
             print(f"\n  {note}")
@@ -224,6 +260,7 @@ def main() -> int:
                 if res is not None:
                     after.add(name, res, true)
             after.table("Reference records after the spacing calibration in gel (planar records)")
+        verdict = targets(exact, drawn, after)
 
     sim, sim_drawn = Tally(), Tally()
     media = SIM_MEDIA[:3] if args.quick else SIM_MEDIA
@@ -254,6 +291,10 @@ def main() -> int:
                     tally.add(m, res, true)
     bent_before.table("  before the calibration (nominal 8.0 mm)")
     bent_after.table("  after the calibration")
+    if not why:
+        print("\n(the targets table again, for the record)")
+        targets(exact, drawn, after)
+        print(f"all targets met: {'yes' if verdict else 'NO'}")
     print(f"\n{time.perf_counter() - t0:.0f} s")
     return 0
 

@@ -74,12 +74,30 @@ def test_needle_transforms_invert_like_mpmath() -> None:
     def transform(P: mp.mpf) -> mp.mpf:
         Z = mp.sqrt(P)
         D = ra * ra * P / ah * mp.besselk(0, ra * Z) + ra * Z * mp.besselk(1, ra * Z)
-        lag = 1 / (1 + rb * Z / as_ * mp.besselk(0, rb * Z) / mp.besselk(1, rb * Z))
+        zb = rb * Z
+        lag = 1 / (zb * mp.besselk(1, zb) + zb * zb / as_ * mp.besselk(0, zb))
         return 2 * mp.besselk(0, Z) * lag / (P * D)
 
     tau = np.array([0.15, 1.0])
     ref = np.array([float(mp.invertlaplace(transform, x, method="talbot")) for x in tau])
     assert np.max(np.abs(step_response_stehfest(tau, ra, ah, rb, as_) - ref)) < 3e-5
+
+
+@pytest.mark.parametrize(("c_heater", "c_sensor"), [(None, None), (NEEDLE_C, None), (NEEDLE_C, 1.5e6)])
+def test_heater_and_sensing_needle_are_reciprocal(c_heater: float | None, c_sensor: float | None) -> None:
+    # Reciprocity of linear heat conduction (the Green's function is symmetric in source and receiver: Carslaw &
+    # Jaeger 1959 §14.2; Morse & Feshbach 1953 §7.4): the sensing needle reads the heater as the heater, made the
+    # sensing needle, would read it. Needles of different radius and capacity swapped must give the same rise; a
+    # model that treats the receiving cylinder differently from the sending one (a massless receiver read at its
+    # centre) fails this by ~1 % of the peak
+    k, rc = 1.2, 2.4e6
+    t = np.arange(0.5, 200.0, 0.5)
+    b = 0.3e-3
+    one = sensor_rise(t, *PULSE, k, rc, PulseGeometry(R, A, c_heater, b, c_sensor))
+    other = sensor_rise(t, *PULSE, k, rc, PulseGeometry(R, b, c_sensor, A, c_heater))
+    assert np.max(np.abs(one - other)) < 2e-4 * np.max(one)
+    thin = ideal_pulse(t, 50.0, 16.0, k, rc, R)
+    assert np.max(np.abs(one - thin)) > 2e-3 * np.max(thin)   # the needles matter at this size
 
 
 def _finite_volume_pulse(k: float, rc: float, outer_m: float | None, end_s: float = 300.0,

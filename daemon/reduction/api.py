@@ -17,6 +17,7 @@ import numpy as np
 
 from ..probe import ProbeProfile
 from .data import ReductionError, RunData
+from .linesource import MIN_POINTS
 from .live import DEFAULT_POWER_U_REL, record_verdict
 from .methods import Options
 from .record import MIN_HEATING_SAMPLES, HeatingRecord, SensorRecord
@@ -67,7 +68,27 @@ def reduce_run(data: RunData, probe: ProbeProfile | None = None, method: str = "
                                      notes=[str(e)])
     if len(failed) == len(names):
         raise failed[0]
+    pulses = [n for n, r in out.items() if r.method == "pulse"]
+    if pulses:
+        for name, res in out.items():
+            if res.radial_m == 0 and res.method != "none" and (res.n_used or 0) < MIN_POINTS:
+                out[name] = refused_on_pulse(res, pulses[0])
     return RunReduction(out, run.heating_s)
+
+
+def refused_on_pulse(res: SensorResult, pulse_sensor: str) -> SensorResult:
+    """A heater sensor's own fit over a pulse's few seconds (fewer than ``MIN_POINTS`` samples in its window),
+    refused: a window that short never reaches the late-time regime of a needle (on an 8 s pulse the line's u was
+    near 20 %), so its k is the needle's transient, not the medium's. A longer heating read at both needles keeps
+    the heater's own result (flagged ``window_short`` where it is).
+    The record's k, α and ρc are the pulse result at the radial sensor; the refused fit stays in ``methods``."""
+    span = f"{res.window_s[0]:.3g}–{res.window_s[1]:.3g} s" if res.window_s else "no window"
+    why = (f"a heat pulse of {res.heating_s or 0:.3g} s: the heated needle's own {res.method} fit ({span}, "
+           f"{res.n_used or 0} samples) never reaches the late-time line, so it is no measurement of k; this "
+           f"record's k, α and ρc are the pulse result at sensor {pulse_sensor!r}")
+    return replace(res, method="none", method_reason=why, k_W_per_mK=None, k_u_W_per_mK=None,
+                   alpha_m2_per_s=None, alpha_u_m2_per_s=None, rho_c_J_per_m3K=None, rho_c_u_J_per_m3K=None,
+                   stable_at_s=None, flags=list(dict.fromkeys(["no_result", *res.flags])))
 
 
 def reduce_sensor(rec: SensorRecord, opts: Options) -> SensorResult:

@@ -91,19 +91,21 @@ def laplace_step(P: np.ndarray, rho_a: float, alpha_h: float | None, rho_b: floa
     """The transform above for real P > 0 (scaled Bessel functions: finite for any P)."""
     P = np.asarray(P, dtype=float)
     Z = np.sqrt(P)
-    num = 2.0 * k0e(Z) / P                                    # × e^(−Z)
+    out = 2.0 * k0e(Z) / P                                    # × e^(−Z)
+    shift = 1.0                                               # the exponent's factor: e^(−shift·Z) overall
     if rho_a > 0:
         za = rho_a * Z
         cap = 0.0 if alpha_h is None else rho_a * rho_a * P / alpha_h
         k1a = k1e(za)
-        den = cap * (k0e(za) + h * za * k1a) + za * k1a       # × e^(−ρ_a Z)
-        out = num / den * np.exp(-(1.0 - rho_a) * Z)
-    else:
-        out = num * np.exp(-Z)
-    if rho_b > 0 and alpha_s is not None:
+        out = out / (cap * (k0e(za) + h * za * k1a) + za * k1a)   # den × e^(−ρ_a Z)
+        shift -= rho_a
+    if rho_b > 0:
+        # the sensing needle: ζK1(ζ) + (ζ²/α_s)K0(ζ), × e^(−ζ) (a massless conductor still reads 1/(ζK1(ζ)) of
+        # the field at its centre: it takes the mean of a field that is not linear across it)
         zb = rho_b * Z
-        out = out / (1.0 + zb / alpha_s * k0e(zb) / k1e(zb))
-    return out
+        out = out / (zb * k1e(zb) + (0.0 if alpha_s is None else zb * zb / alpha_s * k0e(zb)))
+        shift -= rho_b
+    return out * np.exp(-shift * Z)
 
 
 def step_response_stehfest(tau: np.ndarray, rho_a: float, alpha_h: float | None, rho_b: float,
@@ -133,7 +135,7 @@ class StepTable:
         lo = math.floor(math.log10(TAU_MIN) * PER_DECADE)
         self.ln_tau = np.arange(lo, hi + 1) / PER_DECADE * math.log(10.0)
         tau = np.exp(self.ln_tau)
-        thin = g.heater_radius_m == 0 and as_ is None
+        thin = g.heater_radius_m == 0 and g.sensor_radius_m == 0
         h = k * g.heater_contact_m2K_per_W / g.heater_radius_m if g.heater_radius_m else 0.0
         G = exp1(0.25 / tau) if thin else step_response_stehfest(tau, g.heater_radius_m / r, ah,
                                                                  g.sensor_radius_m / r, as_, h)
