@@ -112,11 +112,11 @@ def _time_zero_term(rec: SensorRecord, lf: LateTimeFit) -> float:
     """The line's k with the switch-on at either end of the time-zero bound, as a rectangular distribution."""
     tz = rec.time_zero
     assert tz is not None
-    ks = []
+    k_shifted = []
     for shift in (tz.lo_s, tz.hi_s):
         r = rec.shifted(shift)
         try:
-            ks.append(fit_window(r.th, r.u, r.y, r.Qh, *lf.window_s).k_W_per_mK)
+            k_shifted.append(fit_window(r.th, r.u, r.y, r.Qh, *lf.window_s).k_W_per_mK)
         except ValueError:
             return 0.0
-    return rectangular_u(ks[0], ks[1]) / lf.k_W_per_mK
+    return rectangular_u(k_shifted[0], k_shifted[1]) / lf.k_W_per_mK
