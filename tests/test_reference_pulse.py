@@ -84,7 +84,10 @@ def test_linerig_reduce_on_a_reference_pulse_csv(tmp_path: Path) -> None:
     # as k (it read k within 2 % here, but with U near 40 % from five samples: no measurement)
     heater = out["heater"]
     assert heater["k_W_per_mK"] is None and heater["method"] == "none"
-    assert "no_result" in heater["flags"] and "'needle'" in heater["method_reason"]
+    # refused by the line's own sample rule (too few samples in the heating's last decade) or, failing that, by the
+    # pulse rule that names the radial sensor read instead
+    assert "no_result" in heater["flags"]
+    assert "'needle'" in heater["method_reason"] or "heating's last decade" in heater["method_reason"]
     assert abs(r["k_W_per_mK"] / true["k"] - 1) < 0.05
     assert abs(r["alpha_mm2_per_s"] / (true["alpha"] * 1e6) - 1) < 0.05
     assert abs(r["rho_c_MJ_per_m3K"] / (true["rho_c"] / 1e6) - 1) < 0.05
