@@ -60,7 +60,8 @@ def test_three_per_cent_frame_loss_at_one_hertz_does_not_fault_a_run(tmp_path: P
     try:
         d.wait_link()
         sim.inject("drop", every=33)
-        rid, _ = heating(d, sim, {**LONG, "baseline_s": 3, "heat_s": 25, "settle_timeout_s": 20})
+        rid, _ = heating(d, sim, {**LONG, "baseline_s": 3, "heat_s": 90, "settle_timeout_s": 20})
+        # the heating outlasts the wait by far: a slow machine must not see the run already recovering
         d.wait_fresh(22, timeout=60)  # more than 130 frames, four of them lost
         st = d.status()
         assert d.run_state(rid) == "heating" and st["fault"] is None, st["fault"]

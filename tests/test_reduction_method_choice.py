@@ -107,3 +107,28 @@ def test_a_heating_whose_last_decade_holds_enough_samples_keeps_its_line() -> No
                    stable_rule=False).sensors["heater"]
     assert r.method == "line"
     assert abs(r.k_W_per_mK - rec.true["k_W_per_mK"]) <= r.k_U_W_per_mK
+
+
+def test_a_long_heating_logged_sparsely_keeps_its_line() -> None:
+    """600 s logged every 30 s (a field logger's rate): 19 samples in the last decade. That is a line, and it
+    lands on the exact line source it was made from (Carslaw & Jaeger 1959, §10.4: ΔT = q/(4πk)·E1(r²/4αt)).
+    A logger that fell to one sample in 100 s after its first minute leaves seven in the decade: no line, and
+    the note says why."""
+    from scipy.special import exp1
+
+    k, alpha, q, r = 1.5, 1.5 / 2.5e6, 10.0, 0.635e-3
+
+    def run(heat_t: np.ndarray) -> RunData:
+        t = np.concatenate([np.arange(-120.0, 0.0, 10.0), heat_t, [600.0]])
+        dT = np.where(t > 0, q / (4 * np.pi * k) * exp1(r * r / (4 * alpha * np.maximum(t, 1e-9))), 0.0)
+        qs = np.where((t >= 0) & (t < 600.0), q, 0.0)
+        return RunData(t, qs, {"needle": 20.0 + dT})
+
+    sparse = reduce_run(run(np.arange(0.0, 600.0, 30.0)), NEEDLE, stable_rule=False).sensors["needle"]
+    line = sparse.methods["line"]
+    assert line["credible"] and line["k_W_per_mK"] == pytest.approx(k, rel=0.01)
+    assert sparse.k_W_per_mK == pytest.approx(k, rel=0.01)
+    bare = reduce_run(run(np.r_[np.arange(0.0, 60.0, 5.0), np.arange(100.0, 600.0, 100.0)]), NEEDLE,
+                      stable_rule=False).sensors["needle"]
+    assert "line" not in bare.methods
+    assert any("only 7 samples in the heating's last decade" in n for n in bare.notes)

@@ -34,8 +34,8 @@ class LineMethod:
         drift_u = rec.baseline.rate_u_K_per_s
         model = found.credible("model") if g.on_heater and opts.method != "line" else None
         hint = model.fit if model is not None else None
-        if opts.window_s is None and widest_window_n(rec) < MIN_POINTS:
-            why = too_short(rec)
+        why = too_short(rec) if opts.window_s is None else None
+        if why is not None:
             return MethodResult(self.name, None, converged=False, why=why, notes=[f"no late-time line: {why}"])
         try:
             if opts.window_s is not None:
@@ -79,17 +79,31 @@ def widest_window_n(rec: SensorRecord) -> int:
     return int(np.count_nonzero(th >= FLOOR_FRACTION * float(th[-1])))
 
 
-def too_short(rec: SensorRecord) -> str:
-    """Why a heating whose last decade holds fewer than ``MIN_POINTS`` samples gives no late-time line.
+# A heating shorter than this, with fewer than MIN_POINTS samples in its last decade, is a pulse, not a line
+# (common practice, no source: the shortest needle heatings in use are about a minute; a pulse lasts seconds).
+PULSE_MAX_S = 30.0
+# Below this many samples in the last decade no line is fitted however long the heating (three parameters with
+# the drift, and the residual-trend test needs a third of the window at each end: common practice, no source).
+FEWEST_POINTS = 8
 
-    With so few samples neither the straightness of the line (the residual-trend test) nor the noise's
-    correlation can be judged, and a heating that short (a heat pulse read at its own needle) has not left the
-    probe's transient: the slope is the needle's, not the ground's (reference records: a dual needle's 8 s pulse
-    read on the heater gave k from −5 % to +22 %).
+
+def too_short(rec: SensorRecord) -> str | None:
+    """Why the heating gives no late-time line, or None when it may.
+
+    A heat pulse read at its own heater (seconds long) has not left the probe's transient: the slope is the
+    needle's, not the ground's (reference records: a dual needle's 8 s pulse read on the heater gave k from −5 %
+    to +22 %). A long heating logged sparsely (600 s every 30 s: 19 samples in its last decade) is a line: it is
+    read, with ``window_short`` set; only below ``FEWEST_POINTS`` is there too little to fit.
     """
     n, th = widest_window_n(rec), float(rec.th[-1])
-    return (f"only {n} samples in the heating's last decade ({FLOOR_FRACTION * th:.3g}–{th:.3g} s; a line needs "
-            f"{MIN_POINTS}): heat longer, or log faster")
+    span = f"{FLOOR_FRACTION * th:.3g}–{th:.3g} s"
+    if n < FEWEST_POINTS:
+        return (f"only {n} samples in the heating's last decade ({span}; a line needs {FEWEST_POINTS}): "
+                "log faster")
+    if n < MIN_POINTS and th < PULSE_MAX_S:
+        return (f"a {th:.3g} s heating is a pulse, not a line: {n} samples in the heating's last decade ({span}); "
+                f"a line needs {PULSE_MAX_S:.0f} s of heating or {MIN_POINTS} samples: heat longer, or log faster")
+    return None
 
 
 def line_drift_fit(rec: SensorRecord, window_s: tuple[float, float]) -> DriftFit:
