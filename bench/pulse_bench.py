@@ -5,8 +5,9 @@ Records from solvers the pulse model is not:
 - the independent reference solver (tests/reference): needles resolved as constantan core, epoxy and stainless
   sheath in a planar cross-section (infinitely long: reduced with the heater length set to 10 m), a 10 µm air gap,
   a longer pulse, a 120 s heating; and the 40 mm heater in (r, z) with a point sensor (the finite length);
-- the simulator (daemon/sim): the dual needle in (r, z) finite volumes, heater contact 3000 W/(m²·K), a first-order
-  lag for the sensing needle, 10 mK noise, run with the profile's pulse (or a medium's own plan).
+- the simulator (daemon/sim): the dual needle in (r, z) finite volumes, heater contact 3000 W/(m²·K), the sensing
+  needle a conductor with a heat capacity (``rig_model.NeedleResponse``), 10 mK noise, run with the profile's
+  pulse (or a medium's own plan).
 Each record is read with several noise seeds, and each of those with several draws of the inputs a user takes
 from the profile (spacing, power reading, needle heat capacities, each off by a draw from its stated standard
 uncertainty). Coverage: the share of those reductions whose error lies within the stated expanded uncertainty
@@ -274,7 +275,7 @@ def main() -> int:
                 res = reduce_sensor(*perturbed(data, DUAL, "needle8", 100 * seed + d), "needle8")
                 if res is not None:
                     sim_drawn.add(m, res, true)
-    sim.table("Simulator records (dual needle in (r, z), contact, lagging sensing needle), the profile exact")
+    sim.table("Simulator records (dual needle in (r, z), contact, conducting sensing needle), the profile exact")
     sim_drawn.table("Simulator records, inputs drawn from their stated uncertainty: coverage")
 
     # a bent needle (8.3 mm, the profile says 8.0): ρc before and after a calibration in the simulated gel

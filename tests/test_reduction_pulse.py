@@ -209,7 +209,7 @@ def test_checks_fire_when_a_bath_wall_shapes_the_decay(seed: int) -> None:
 def _simulated_pulse_run(material: str, seed: int, bend_mm: float | None = None, *,
                          power_W_per_m: float | None = None, pulse_s: int | None = None,
                          record_s: int | None = None) -> tuple[object, object]:
-    """A pulse on the simulated dual needle ((r, z) finite volumes, heater contact, lagging sensing needle), as
+    """A pulse on the simulated dual needle ((r, z) finite volumes, heater contact, conducting sensing needle), as
     the reduction gets it: baseline, the profile's [pulse] plan, the decay; 10 mK noise, 1 Hz."""
     from pathlib import Path
 
@@ -243,7 +243,9 @@ def test_reduce_run_reads_a_simulated_pulse_with_uncertainty_that_covers() -> No
                          (res.alpha_m2_per_s, res.alpha_u_m2_per_s, mat.diffusivity_m2_per_s),
                          (res.rho_c_J_per_m3K, res.rho_c_u_J_per_m3K, mat.rho_c_J_per_m3K)):
         assert got is not None and u is not None
-        assert abs(got - true) < 2 * u and abs(got / true - 1) < 0.05
+        # within 3 %: the simulator's needles are the model's (its (r, z) grid is not), so 3 % leaves room
+        # for the noise and grid only (was 5 % while its sensing needle was a single lag, −2 to −5 %)
+        assert abs(got - true) < 2 * u and abs(got / true - 1) < 0.03
     j = res.to_json()
     assert j["pulse_check"] is not None and j["pulse_fit"]["budget"]["rho_c"]["spacing"] > 0  # type: ignore[index]
 

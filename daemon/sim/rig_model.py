@@ -97,7 +97,8 @@ class SensorSpec:
     """A thermocouple junction: radial distance from the heater axis (0 = on the heater) and position along
     the heater measured from its tip (the far end from the handle; the bottom of a rod pushed into the
     ground), as probe profiles give it. A junction in a needle of its own (a dual probe's sensing needle) reads
-    the needle, which lags the ground around it (``needle_radius_m`` > 0 with ``needle_rho_c``)."""
+    the needle, a conductor with a heat capacity in the ground (``needle_radius_m`` > 0 with ``needle_rho_c``;
+    ``NeedleResponse``)."""
 
     name: str
     radial_m: float
@@ -105,14 +106,56 @@ class SensorSpec:
     needle_radius_m: float = 0.0
     needle_rho_c: float = 0.0
 
-    def needle_lag_s(self, k_medium: float) -> float:
-        """Time constant of the sensing needle as a lumped heat capacity πb²C joined to the ground by the
-        conductance of a cylindrical shell from its radius b out to the heater's distance r, 2πk/ln(r/b): a
-        first-order stand-in for the needle's exact (Laplace-domain) lag, which the reduction models instead."""
+    def needle_response(self, k_medium: float, rho_c_medium: float) -> NeedleResponse | None:
+        """How the sensing needle reads the ground's rise at its centre (None: a bare junction)."""
         b, r = self.needle_radius_m, self.radial_m
         if b <= 0 or self.needle_rho_c <= 0 or r <= b:
-            return 0.0
-        return b * b * self.needle_rho_c * math.log(r / b) / (2.0 * k_medium)
+            return None
+        return NeedleResponse.of(b, r, self.needle_rho_c, k_medium, rho_c_medium)
+
+
+@dataclass(frozen=True)
+class NeedleResponse:
+    """A sensing needle as a perfectly conducting cylinder of radius b and heat capacity πb²C_s in the ground.
+
+    Continuity of temperature and the heat balance at its surface give its reading, in the Laplace domain, as
+    the ground's rise at its centre times Λ(ζ) = 1/[ζK1(ζ) + (ζ²/α_s)K0(ζ)], ζ = b√(s/α), α_s = 2ρc/C_s (the
+    same conduction problem as the reduction's pulse model, derived there; Carslaw & Jaeger 1959 §13.7 for
+    the cylinder). The simulator steps in time, so Λ is replaced by 1 + Σ w_i·[1/(1 + sτ_i) − 1]: first-order
+    lags on a log grid of time constants, fitted by least squares in the band where the ground's field
+    reaches the needle (ζ up to 10·b/r, beyond which the field at the needle is e^(−10) of a step). Λ(0) = 1:
+    the needle reads the ground at long times. Replaces a single lag b²C_s·ln(r/b)/2k, which over-stated the
+    lag by about a third and left out that a conductor reads more than the field at its centre.
+    """
+
+    weights: tuple[float, ...]
+    taus_s: tuple[float, ...]
+    fit_error: float  # largest |fit − Λ| over the band
+
+    @classmethod
+    def of(cls, b: float, r: float, needle_rho_c: float, k: float, rho_c: float) -> NeedleResponse:
+        from scipy.special import k0e, k1e
+
+        alpha, alpha_s = k / rho_c, 2.0 * rho_c / needle_rho_c
+        p_max = min(1.0, (10.0 * b / r) ** 2)   # p = s·b²/α = ζ²
+        p = np.logspace(-10.0, math.log10(p_max), 300)
+        z = np.sqrt(p)
+        lam = np.exp(z) / (z * k1e(z) + z * z / alpha_s * k0e(z))
+        taus = np.logspace(math.log10(1.0 / p_max) - 1.0, 6.0, 14)   # in units of b²/α
+        basis = 1.0 / (1.0 + np.outer(p, taus)) - 1.0
+        w, *_ = np.linalg.lstsq(basis, lam - 1.0, rcond=None)
+        err = float(np.max(np.abs(basis @ w - (lam - 1.0))))
+        scale = b * b / alpha
+        return cls(tuple(float(x) for x in w), tuple(float(x) * scale for x in taus), err)
+
+    def step(self, state: list[float], x0: float, x1: float, dt: float) -> None:
+        """Advance each lag over dt with the ground's rise going linearly from x0 to x1."""
+        for i, tau in enumerate(self.taus_s):
+            state[i] = _lagged(state[i], x0, x1, dt, tau)
+
+    def reading(self, state: list[float], x: float) -> float:
+        """The needle's rise: the ground's x less what the lags still hold back."""
+        return x + sum(w * (y - x) for w, y in zip(self.weights, state, strict=True))
 
 
 def _attr(obj: Any, *names: str, scale: Sequence[float] = (), default: Any = None) -> Any:
@@ -311,8 +354,8 @@ class _Channel:
     offset_K: float
     last_reading: float = math.nan
     faults: set[str] = field(default_factory=set)
-    needle_lag_s: float = 0.0
-    needle_rise_K: float = 0.0  # the sensing needle's own rise, lagging the ground's (needle_lag_s > 0)
+    needle: NeedleResponse | None = None
+    needle_state: list[float] = field(default_factory=list)  # the needle's lags (``NeedleResponse``)
 
 
 def _lagged(y: float, x0: float, x1: float, dt: float, tau: float) -> float:
@@ -402,10 +445,11 @@ class SimulatedRig:
                 self._models.append(self._make_model(mat, sample_radius_m, sample_height_m, sample_boundary))
                 self._model_materials.append(mat)
             offset = float(self._rng.normal(0.0, channel_offset_sd_K)) if channel_offset_sd_K > 0 else 0.0
-            self._channels.append(_Channel(s, model_of[mat.key], depth, offset,
-                                           needle_lag_s=s.needle_lag_s(mat.k_W_per_mK)))
+            needle = s.needle_response(mat.k_W_per_mK, mat.rho_c_J_per_m3K)
+            self._channels.append(_Channel(s, model_of[mat.key], depth, offset, needle=needle,
+                                           needle_state=[0.0] * len(needle.taus_s) if needle else []))
         self._by_name = {c.spec.name: i for i, c in enumerate(self._channels)}
-        self._needles = [c for c in self._channels if c.needle_lag_s > 0]
+        self._needles = [c for c in self._channels if c.needle is not None]
 
         self._t = 0.0
         self._physics_lag = 0.0  # device time not yet stepped into the physics (< BASE_DT_S)
@@ -521,7 +565,7 @@ class SimulatedRig:
         for m in self._models:
             m.shift_rise(-delta)
         for c in self._needles:
-            c.needle_rise_K -= delta
+            c.needle_state[:] = [y - delta for y in c.needle_state]
 
     # ---- electrical world ----
     def heater_resistance_ohm(self) -> float:
@@ -616,8 +660,8 @@ class SimulatedRig:
                 for m in self._models:
                     m.step(q, size * base)
                 for c, start in zip(self._needles, before, strict=True):
-                    c.needle_rise_K = _lagged(c.needle_rise_K, start, self._ground_rise_K(c), size * base,
-                                              c.needle_lag_s)
+                    assert c.needle is not None
+                    c.needle.step(c.needle_state, start, self._ground_rise_K(c), size * base)
                 n -= size
         self._elec = self._electrical()
 
@@ -648,7 +692,9 @@ class SimulatedRig:
         return m.rise_at_K(s.radial_m)
 
     def _true_C(self, ch: _Channel) -> float:
-        rise = ch.needle_rise_K if ch.needle_lag_s > 0 else self._ground_rise_K(ch)
+        rise = self._ground_rise_K(ch)
+        if ch.needle is not None:
+            rise = ch.needle.reading(ch.needle_state, rise)
         return self._ground_C(ch.depth_m) + rise
 
     def _cj_true(self) -> float:
