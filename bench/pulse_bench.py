@@ -13,9 +13,9 @@ from the profile (spacing, power reading, needle heat capacities, each off by a 
 uncertainty). Coverage: the share of those reductions whose error lies within the stated expanded uncertainty
 U = 2u; the target is 95–99 % (issue 11). The spacing calibration reads the gel
 record (its ρc from IAPWS-95 at 20 °C), then every other record is reduced with the calibrated spacing: the
-worst error with everything exact, the coverage over calibrations repeated with the gel's ρc and each power
-reading drawn (a calibration's error is shared by every run it serves, so one calibration says nothing of
-coverage).
+worst error with everything exact, the coverage over calibrations repeated with the needles' heat capacities,
+the gel's ρc and each power reading drawn (a calibration's error is shared by every run it serves, so one
+calibration says nothing of coverage).
 
 Run: .venv/bin/python bench/pulse_bench.py [--seeds N] [--draws N] [--quick]
 """
@@ -195,8 +195,12 @@ def perturbed(data: RunData, probe: ProbeProfile, sensor: str, seed: int) -> tup
     r_mm = s.radial_mm + rng.normal() * probe.sensor_radius_u_m(sensor) * 1e3
     probe = probe.with_sensor(sensor, r_mm, probe.sensor_radius_u_m(sensor) * 1e3)
     probe = needles_drawn(probe, sensor, rng)
-    q = data.q_W_per_m * (1 + DEFAULT_POWER_U_REL * rng.normal())
-    return RunData(data.time_s, q, data.temps_C), probe
+    return power_drawn(data, rng), probe
+
+
+def power_drawn(data: RunData, rng: np.random.Generator) -> RunData:
+    """The power reading off by a draw from its stated uncertainty (0.5 %)."""
+    return RunData(data.time_s, data.q_W_per_m * (1 + DEFAULT_POWER_U_REL * rng.normal()), data.temps_C)
 
 
 def needles_drawn(probe: ProbeProfile, sensor: str, rng: np.random.Generator) -> ProbeProfile:
@@ -231,7 +235,7 @@ def calibrated(probe: ProbeProfile, sensor: str, runs: list[RunData], rho_c: flo
     if rng is not None:
         probe = needles_drawn(probe, sensor, rng)
         rho_c *= 1 + GEL_RHO_C_U_REL * rng.normal()
-        runs = [RunData(d.time_s, d.q_W_per_m * (1 + DEFAULT_POWER_U_REL * rng.normal()), d.temps_C) for d in runs]
+        runs = [power_drawn(d, rng) for d in runs]
     fits = []
     for data in runs:
         rec = SensorRecord.of(data, HeatingRecord.of(data), sensor, probe)
@@ -241,11 +245,6 @@ def calibrated(probe: ProbeProfile, sensor: str, runs: list[RunData], rho_c: flo
     note = (f"calibrated spacing {1e3 * r.mean():.4f} ± {1e3 * u:.4f} mm from {r.size} gel pulses (single-pulse u "
             f"{1e3 * np.mean([f.spacing_u_m for f in fits]):.4f} mm, spread {1e3 * r.std(ddof=1):.4f} mm)")
     return probe.with_sensor(sensor, float(r.mean()) * 1e3, u * 1e3), note
-
-
-def with_power_drawn(data: RunData, seed: int) -> RunData:
-    rng = np.random.default_rng(30_000 + seed)
-    return RunData(data.time_s, data.q_W_per_m * (1 + DEFAULT_POWER_U_REL * rng.normal()), data.temps_C)
 
 
 def main() -> int:
@@ -293,7 +292,8 @@ def main() -> int:
             for d in draws:
                 probe_d, _ = calibrated(gel[0][1], "needle", gel_runs, water_heat_capacity(20.0), draw=d)
                 for i, (name, data, _, true) in enumerate(others):
-                    res = reduce_sensor(with_power_drawn(data, 100 * d + i), probe_d, "needle")
+                    res = reduce_sensor(power_drawn(data, np.random.default_rng(30_000 + 100 * d + i)), probe_d,
+                                        "needle")
                     if res is not None:
                         after_drawn.add(name, res, true)
             after_drawn.table("  after calibrations with needles, gel ρc and every power reading drawn: coverage")
