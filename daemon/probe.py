@@ -24,6 +24,8 @@ Schema (``hardware/probes/*.toml``)::
     radial_u_mm = 0.1                  # optional standard uncertainty of the spacing
     needle_radius_mm = 0.5             # optional, a radial sensor's own needle (default: as the heated needle on a
     needle_heat_capacity_MJ_per_m3K = 3.0  #  dual probe, none elsewhere), for the heat-pulse model
+    spacing_calibrated = false         # optional: radial_mm is an effective spacing from pulses in a medium of
+                                       #  known ρc (set by a stored spacing calibration)
     [pulse]                            # optional: the heat-pulse run this probe is made for (daemon preset "pulse")
     sensor = "needle8"                 # the radial sensor the pulse is read at
     power_W_per_m = 20.0
@@ -59,6 +61,7 @@ class SensorPosition:
     radial_u_mm: float | None = None
     needle_radius_mm: float | None = None
     needle_heat_capacity_MJ_per_m3K: float | None = None
+    spacing_calibrated: bool = False   # radial_mm is an effective spacing from a pulse in a medium of known ρc
 
     @property
     def is_on_heater(self) -> bool:
@@ -170,9 +173,11 @@ class ProbeProfile:
             return s.needle_heat_capacity_MJ_per_m3K * 1e6
         return self.heat_capacity_J_per_m3K if self.kind == "dual" and not s.is_on_heater else None
 
-    def with_sensor(self, name: str, radial_mm: float, radial_u_mm: float | None = None) -> ProbeProfile:
+    def with_sensor(self, name: str, radial_mm: float, radial_u_mm: float | None = None,
+                    calibrated: bool = False) -> ProbeProfile:
         """A copy with one sensor's radial position (and its uncertainty) set, e.g. from ``--spacing`` or a spacing
-        calibration; the sensor is added if missing. Its place among the sensors and its needle are kept."""
+        calibration (``calibrated``: an effective spacing from a pulse in a medium of known ρc, which has taken in
+        the pulse model's own error there); the sensor is added if missing. Its place and its needle are kept."""
         if radial_mm < 0 or not math.isfinite(radial_mm):
             raise ProbeProfileError(
                 f"sensor {name!r}: spacing must be a finite distance >= 0 mm, got {radial_mm}")
@@ -181,9 +186,10 @@ class ProbeProfile:
         old = next((s for s in self.sensors if s.name == name), None)
         if old is None:
             return replace(self, sensors=(*self.sensors, SensorPosition(name=name, radial_mm=radial_mm,
-                                                                       radial_u_mm=radial_u_mm)))
+                                                                       radial_u_mm=radial_u_mm,
+                                                                       spacing_calibrated=calibrated)))
         new = replace(old, radial_mm=radial_mm, radial_u_mm=radial_u_mm if radial_u_mm is not None
-                      else (old.radial_u_mm if old.radial_mm == radial_mm else None))
+                      else (old.radial_u_mm if old.radial_mm == radial_mm else None), spacing_calibrated=calibrated)
         return replace(self, sensors=tuple(new if s.name == name else s for s in self.sensors))
 
 
@@ -264,7 +270,7 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
         if not isinstance(s, dict):
             raise ProbeProfileError(f"{source}: sensor[{i}] must be a table")
         sensor_keys = ("name", "radial_mm", "axial_mm", "radial_u_mm", "needle_radius_mm",
-                       "needle_heat_capacity_MJ_per_m3K")
+                       "needle_heat_capacity_MJ_per_m3K", "spacing_calibrated")
         extra = sorted(set(s) - set(sensor_keys))
         if extra:
             raise ProbeProfileError(f"{source}: unknown key {where}{extra[0]} (known: {', '.join(sensor_keys)})")
@@ -279,6 +285,10 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
         radial_u = _number(s, "radial_u_mm", source, where, required=False, allow_zero=True)
         needle_r = _number(s, "needle_radius_mm", source, where, required=False, allow_zero=True)
         needle_c = _number(s, "needle_heat_capacity_MJ_per_m3K", source, where, required=False)
+        calibrated = s.get("spacing_calibrated", False)
+        if not isinstance(calibrated, bool):
+            raise _fail(source, f"{where}spacing_calibrated", "true or false (the spacing is an effective one from "
+                        "a pulse in a medium of known ρc)", calibrated)
         assert radial is not None
         if axial is not None and axial > length:
             raise _fail(source, f"{where}axial_mm", f"within the heater length ({length} mm)", axial)
@@ -287,7 +297,7 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
                         f"0 (inside the heater) or beyond the needle radius ({radius} mm)", radial)
         if needle_r is not None and radial > 0 and needle_r >= radial - radius:
             raise _fail(source, f"{where}needle_radius_mm", "small enough that the needles do not touch", needle_r)
-        sensors.append(SensorPosition(sname, radial, axial, radial_u, needle_r, needle_c))
+        sensors.append(SensorPosition(sname, radial, axial, radial_u, needle_r, needle_c, calibrated))
     return ProbeProfile(name=name, radius_mm=radius, heater_length_mm=length, heat_capacity_MJ_per_m3K=cap,
                         serial=serial, kind=kind, heater_resistance_ohm=res, heater_tcr_per_K=tcr or 0.0,
                         thermocouple=tc.upper() if isinstance(tc, str) else None, radius_u_mm=radius_u,

@@ -19,6 +19,7 @@ from simulated_daemon import simulated_daemon
 from test_tui_live import front_end_linked
 
 from linerig.daemon.probe import load_probe_profile
+from linerig.daemon.reduction.pulse import MODEL_U_REL_CALIBRATED
 from linerig.daemon.sim.materials import get_material
 from linerig.tui.client import Client
 
@@ -107,5 +108,7 @@ def test_a_spacing_calibrated_in_gel_is_applied_to_the_next_run(tmp_path: Path) 
                    for a in applied), applied
     r = out["results"]["needle8"]
     assert r["pulse_fit"]["spacing_mm"] == pytest.approx(spacing["spacing_m"] * 1e3)
+    # read as a calibrated spacing: the gel took in the model's own error, the run keeps only its change
+    assert r["u_budget_rho_c_rel"]["model"] == MODEL_U_REL_CALIBRATED["rho_c"]
     assert abs(r["rho_c_MJ_per_m3K"] / (clay.rho_c_J_per_m3K / 1e6) - 1) < 0.03
     assert abs(r["rho_c_MJ_per_m3K"] - clay.rho_c_J_per_m3K / 1e6) < 2 * r["rho_c_u_MJ_per_m3K"]

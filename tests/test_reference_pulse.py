@@ -22,6 +22,7 @@ from linerig.daemon.reduction.api import reduce_run
 from linerig.daemon.reduction.data import RunData
 from linerig.daemon.reduction.live import DEFAULT_POWER_U_REL
 from linerig.daemon.reduction.methods.pulse import spacing_fit
+from linerig.daemon.reduction.pulse import MODEL_U_REL, MODEL_U_REL_CALIBRATED
 from linerig.daemon.reduction.record import HeatingRecord, SensorRecord
 from linerig.daemon.workflows.spacing import water_heat_capacity
 
@@ -107,7 +108,7 @@ def test_rho_c_within_3_percent_after_a_spacing_calibration_in_gel() -> None:
     spacing = sum(f.spacing_m for f in fits) / len(fits)
     u = max(f.spacing_u_m for f in fits)
     assert abs(spacing - 8e-3) < 2 * u and u / spacing < 0.01
-    calibrated = probe.with_sensor("needle", spacing * 1e3, u * 1e3)
+    calibrated = probe.with_sensor("needle", spacing * 1e3, u * 1e3, calibrated=True)
     for name in DUAL_RECORDS:
         if name == "dn-pulse-agar-gel":
             continue
@@ -119,3 +120,5 @@ def test_rho_c_within_3_percent_after_a_spacing_calibration_in_gel() -> None:
         rc = _truth(rec)["rho_c"]
         assert abs(res.rho_c_J_per_m3K / rc - 1) < 0.03, (name, res.rho_c_J_per_m3K, rc)
         assert abs(res.rho_c_J_per_m3K - rc) < 2 * res.rho_c_u_J_per_m3K
+        # the calibrated spacing took in the gel's model error: the run keeps only its change between media
+        assert res.u_budget_rho_c_rel["model"] == MODEL_U_REL_CALIBRATED["rho_c"] < MODEL_U_REL["rho_c"]

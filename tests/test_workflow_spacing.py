@@ -7,11 +7,12 @@ import datetime as dt
 import json
 import subprocess
 import sys
+from dataclasses import asdict
 from pathlib import Path
 
 import pytest
 
-from linerig.daemon.probe import load_probe_profile
+from linerig.daemon.probe import ProbeProfileError, load_probe_profile, stored_profile
 from linerig.daemon.store.spacings import apply_spacings, record_spacing, spacing_history
 from linerig.daemon.store.writer import Store
 from linerig.daemon.workflows.calibration import CalibrationError
@@ -95,6 +96,15 @@ def test_history_in_the_store_and_the_spacing_a_run_gets(tmp_path: Path) -> None
     now, _ = apply_spacings(probe, hist, NOW.isoformat())
     assert now.sensor("needle8").radial_mm == pytest.approx(8.26) and now.sensor("heater").radial_mm == 0.0
     assert [s.name for s in now.sensors] == [s.name for s in probe.sensors]
+    # the applied spacing is marked as calibrated (its pulse model error is then smaller), and the mark survives
+    # the profile's JSON as an export's header carries it; a profile's own nominal spacing is not marked
+    assert now.sensor("needle8").spacing_calibrated and not probe.sensor("needle8").spacing_calibrated
+    again = stored_profile(json.dumps(asdict(now)), "export header")
+    assert again.sensor("needle8").spacing_calibrated and again.sensor("needle8").radial_mm == pytest.approx(8.26)
+    with pytest.raises(ProbeProfileError, match="spacing_calibrated must be true or false"):
+        doc = asdict(now)
+        doc["sensors"][1]["spacing_calibrated"] = "yes"
+        stored_profile(json.dumps(doc), "export header")
 
 
 def test_calibrate_spacing_from_a_pulse_in_gel(tmp_path: Path) -> None:

@@ -34,6 +34,7 @@ class Geometry:
     length_m: float | None
     known: bool       # a probe profile was given (r is a measured radius, not a stand-in)
     in_profile: bool  # the profile names this sensor (else it is taken as inside the heated needle)
+    spacing_calibrated: bool = False  # the radius is an effective spacing from a pulse in a medium of known ρc
 
     @classmethod
     def of(cls, probe: ProbeProfile | None, name: str) -> Geometry:
@@ -44,7 +45,7 @@ class Geometry:
             s = probe.sensor(name)
             axial = s.axial_mm * 1e-3 if s.axial_mm is not None else None
             return cls(probe.radius_m, probe.sensor_radius_m(name), probe.sensor_radius_u_m(name), s.is_on_heater,
-                       axial, cap, length, True, True)
+                       axial, cap, length, True, True, s.spacing_calibrated)
         return cls(probe.radius_m, probe.radius_m, probe.radius_u_m, True, None, cap, length, True, False)
 
     @property

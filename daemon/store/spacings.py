@@ -66,6 +66,6 @@ def apply_spacings(probe: ProbeProfile, history: list[dict[str, Any]], when_utc:
         st = spacing_at(history, s.name, when_utc)
         if st.spacing_m is None:
             continue
-        probe = probe.with_sensor(s.name, st.spacing_m * 1e3, (st.spacing_u_m or 0.0) * 1e3)
+        probe = probe.with_sensor(s.name, st.spacing_m * 1e3, (st.spacing_u_m or 0.0) * 1e3, calibrated=True)
         used.append(st)
     return probe, used

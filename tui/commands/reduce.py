@@ -83,7 +83,7 @@ def build_probe(args: argparse.Namespace, from_file: ProbeProfile | None = None)
         if probe is None or not probe.has_sensor(name) or probe.sensor(name).is_on_heater:
             raise ProbeProfileError(f"--spacing-u {item!r}: {name!r} is not a radial sensor of the probe (give "
                                     "--probe or --spacing for it)")
-        probe = probe.with_sensor(name, probe.sensor(name).radial_mm, u)
+        probe = probe.with_sensor(name, probe.sensor(name).radial_mm, u, probe.sensor(name).spacing_calibrated)
     return probe
 
 

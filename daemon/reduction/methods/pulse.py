@@ -14,7 +14,7 @@ import numpy as np
 from ...probe import ProbeProfile
 from ..data import RunData
 from ..live import DEFAULT_POWER_U_REL
-from ..pulse import PulseFit, PulseFitError, fit_pulse
+from ..pulse import MODEL_U_REL, MODEL_U_REL_CALIBRATED, PulseFit, PulseFitError, fit_pulse
 from ..pulse_model import PulseGeometry
 from ..record import HeatingRecord, SensorRecord
 from .base import Estimate, Found, MethodResult, Options
@@ -31,6 +31,11 @@ def pulse_geometry(rec: SensorRecord) -> PulseGeometry | None:
                          heater_C_J_per_m3K=g.probe_C_J_per_m3K, sensor_radius_m=probe.needle_radius_m(rec.name),
                          sensor_C_J_per_m3K=probe.needle_heat_capacity_J_per_m3K(rec.name), length_m=g.length_m,
                          axial_m=g.axial_m)
+
+
+def model_u(rec: SensorRecord) -> dict[str, float]:
+    """The pulse model's form error: smaller in ρc where the spacing was calibrated in a medium of known ρc."""
+    return dict(MODEL_U_REL_CALIBRATED if rec.geometry.spacing_calibrated else MODEL_U_REL)
 
 
 def is_pulse_record(rec: SensorRecord) -> bool:
@@ -59,6 +64,7 @@ class PulseMethod:
         try:
             fit = fit_pulse(rec.run.t, rec.dT, rec.run.steps_t, rec.run.steps_dq, geo,
                             spacing_u_m=rec.geometry.sensor_radius_u_m, power_u_rel=opts.power_u_rel,
+                            model_u_rel=model_u(rec),
                             level_u_K=b.offset_u_K, drift_u_K_per_s=b.rate_u_K_per_s,
                             noise_K=b.resid_rms_K if b.present else None,
                             t_end_s=opts.window_s[1] if opts.window_s else None)
@@ -111,7 +117,7 @@ def live_pulse_fit(data: RunData, probe: ProbeProfile | None, sensor: str,
         raise PulseFitError("the pulse is not over yet")
     geo = pulse_geometry(rec) or PulseGeometry(rec.geometry.sensor_radius_m)
     b = rec.baseline
-    return fit_pulse(rec.run.t, rec.dT, rec.run.steps_t, rec.run.steps_dq, geo,
+    return fit_pulse(rec.run.t, rec.dT, rec.run.steps_t, rec.run.steps_dq, geo, model_u_rel=model_u(rec),
                      spacing_u_m=rec.geometry.sensor_radius_u_m, power_u_rel=power_u_rel, level_u_K=b.offset_u_K,
                      drift_u_K_per_s=b.rate_u_K_per_s, noise_K=b.resid_rms_K if b.present else None)
 
