@@ -61,6 +61,8 @@ def record_profile(rec: object) -> ProbeProfile:
     the medium). Reduced with the 40 mm profile and its sensing needle, they would be read against a geometry they
     do not have (as bench/pulse_bench.py and tests/test_reference_pulse.py read them)."""
     base = load_probe_profile(rec.profile_path)  # type: ignore[attr-defined]
+    if rec.family == "lab-needle-finite-sample":  # type: ignore[attr-defined]
+        base = base.in_sample(rec.params["grid"]["r_out_m"])  # type: ignore[attr-defined]  # the lab knows it
     solver = rec.params.get("solver")  # type: ignore[attr-defined]
     if solver == "planar":
         return replace(base, heater_length_mm=1e4, sensors=tuple(replace(s, axial_mm=None) for s in base.sensors))

@@ -161,9 +161,11 @@ def sim_cases(quick: bool) -> list[Case]:
     # records meant to bend (the truth decides: the "bend" column)
     out += [Case(f"needle {m} 600 s", m, NEEDLE, needle, "heater", 600.0, 5.0)
             for m in (["moist-sand", "weathered-rock"] if not quick else ["moist-sand"])]
-    out += [Case("needle agar-gel in a 30 mm bath", "agar-gel", NEEDLE, needle, "heater", 600.0, 5.0,
-                 {"axial_loss": False, "sample_radius_m": 0.030}),
-            Case("needle moist-sand in a 25 mm bath", "moist-sand", NEEDLE, needle, "heater", 300.0, 5.0,
+    # the lab knows its container: the reduction and the rule are told the sample's radius
+    out += [Case("needle agar-gel in a 30 mm bath", "agar-gel", NEEDLE.in_sample(0.030), needle, "heater", 600.0,
+                 5.0, {"axial_loss": False, "sample_radius_m": 0.030}),
+            Case("needle moist-sand in a 25 mm bath", "moist-sand", NEEDLE.in_sample(0.025), needle, "heater",
+                 300.0, 5.0,
                  {"axial_loss": False, "sample_radius_m": 0.025}),
             Case("dual needle heater moist-sand", "moist-sand", DUAL, dual, "heater", 90.0, 20.0)]
     return out
@@ -231,7 +233,10 @@ def reference_cases() -> tuple[list[RefCase], list[str]]:
             continue
         rec = load(name)
         sensor = "heater" if "heater" in rec.true["sensors"] else "j600"
-        out.append(RefCase(name, rec, load_probe_profile(rec.profile_path), sensor))
+        profile = load_probe_profile(rec.profile_path)
+        if rec.family == "lab-needle-finite-sample":  # the lab knows its container
+            profile = profile.in_sample(rec.params["grid"]["r_out_m"])
+        out.append(RefCase(name, rec, profile, sensor))
     return out, pulses
 
 

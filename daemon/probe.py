@@ -17,6 +17,8 @@ Schema (``hardware/probes/*.toml``)::
     heater_tcr_per_K = 0.0             # optional
     thermocouple = "T"                 # optional ITS-90 type letter
     radius_u_mm = 0.01                 # optional standard uncertainty of the radius
+    sample_radius_mm = 25.0            # optional: the probe sits on the axis of a sample this wide (a lab cell,
+                                       #  a core tube); usually given per run (run metadata sample_radius_m)
     [[sensor]]
     name = "heater"                    # CSV column T_heater_C
     radial_mm = 0.0                    # 0 = inside the heated needle; > 0 = distance from the heater axis
@@ -108,6 +110,8 @@ class ProbeProfile:
     radius_u_mm: float | None = None
     sensors: tuple[SensorPosition, ...] = field(default_factory=lambda: (SensorPosition("heater"),))
     pulse: PulsePlan | None = None
+    # the sample around the probe, when it is not the ground: its outer face bends the line (``window.wall_end_s``)
+    sample_radius_mm: float | None = None
 
     # --- SI accessors -------------------------------------------------------------------------------------
     @property
@@ -122,6 +126,23 @@ class ProbeProfile:
     @property
     def length_m(self) -> float | None:
         return None if self.heater_length_mm is None else self.heater_length_mm * 1e-3
+
+    @property
+    def sample_radius_m(self) -> float | None:
+        return None if self.sample_radius_mm is None else self.sample_radius_mm * 1e-3
+
+    def in_sample(self, radius_m: float | None) -> ProbeProfile:
+        """This probe on the axis of a sample of that radius (None: in the ground, or as the profile says)."""
+        if radius_m is None:
+            return self
+        if not (math.isfinite(radius_m) and radius_m * 1e3 > self.radius_mm):
+            raise ProbeProfileError(f"sample radius must be a number larger than the probe's radius "
+                                    f"({self.radius_mm:g} mm), got {radius_m * 1e3:g} mm")
+        beyond = max((s.radial_mm for s in self.sensors), default=0.0)
+        if radius_m * 1e3 <= beyond:
+            raise ProbeProfileError(f"sample radius {radius_m * 1e3:g} mm does not reach the farthest sensor "
+                                    f"({beyond:g} mm from the heater)")
+        return replace(self, sample_radius_mm=radius_m * 1e3)
 
     @property
     def heat_capacity_J_per_m3K(self) -> float | None:
@@ -234,7 +255,7 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
     if extra_tables:
         raise ProbeProfileError(f"{source}: unknown table [{extra_tables[0]}] (known: [probe], [[sensor]], [pulse])")
     known = {"name", "serial", "kind", "heater_length_mm", "radius_mm", "heat_capacity_MJ_per_m3K",
-             "heater_resistance_ohm", "heater_tcr_per_K", "thermocouple", "radius_u_mm"}
+             "heater_resistance_ohm", "heater_tcr_per_K", "thermocouple", "radius_u_mm", "sample_radius_mm"}
     unknown = sorted(set(probe) - known)
     if unknown:
         raise ProbeProfileError(
@@ -254,6 +275,7 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
     res = _number(probe, "heater_resistance_ohm", source, "probe.", required=False)
     tcr = _number(probe, "heater_tcr_per_K", source, "probe.", required=False, positive=False)
     radius_u = _number(probe, "radius_u_mm", source, "probe.", required=False, allow_zero=True)
+    sample_r = _number(probe, "sample_radius_mm", source, "probe.", required=False)
     tc = probe.get("thermocouple")
     if tc is not None and (not isinstance(tc, str) or tc.upper() not in THERMOCOUPLE_TYPES):
         raise _fail(source, "probe.thermocouple", f"one of {', '.join(THERMOCOUPLE_TYPES)}", tc)
@@ -298,10 +320,16 @@ def profile_from_dict(doc: dict[str, Any], source: str = "<probe profile>") -> P
         if needle_r is not None and radial > 0 and needle_r >= radial - radius:
             raise _fail(source, f"{where}needle_radius_mm", "small enough that the needles do not touch", needle_r)
         sensors.append(SensorPosition(sname, radial, axial, radial_u, needle_r, needle_c, calibrated))
-    return ProbeProfile(name=name, radius_mm=radius, heater_length_mm=length, heat_capacity_MJ_per_m3K=cap,
-                        serial=serial, kind=kind, heater_resistance_ohm=res, heater_tcr_per_K=tcr or 0.0,
-                        thermocouple=tc.upper() if isinstance(tc, str) else None, radius_u_mm=radius_u,
-                        sensors=tuple(sensors), pulse=_pulse(doc.get("pulse"), sensors, source))
+    profile = ProbeProfile(name=name, radius_mm=radius, heater_length_mm=length, heat_capacity_MJ_per_m3K=cap,
+                           serial=serial, kind=kind, heater_resistance_ohm=res, heater_tcr_per_K=tcr or 0.0,
+                           thermocouple=tc.upper() if isinstance(tc, str) else None, radius_u_mm=radius_u,
+                           sensors=tuple(sensors), pulse=_pulse(doc.get("pulse"), sensors, source))
+    if sample_r is not None:
+        try:
+            return profile.in_sample(sample_r * 1e-3)
+        except ProbeProfileError as e:
+            raise _fail(source, "probe.sample_radius_mm", "beyond the probe and every sensor", sample_r) from e
+    return profile
 
 
 def _pulse(table: Any, sensors: list[SensorPosition], source: str) -> PulsePlan | None:

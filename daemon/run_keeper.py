@@ -35,8 +35,8 @@ if TYPE_CHECKING:
 log = logging.getLogger("linerigd")
 
 RUN_METADATA_KEYS = ("site", "location", "depth_m", "sample", "material", "moisture_pct",
-                     "dry_density_kg_per_m3", "notes", "operator")
-NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
+                     "dry_density_kg_per_m3", "sample_radius_m", "notes", "operator")
+NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3", "sample_radius_m")
 # Physical bounds of the numeric metadata (lowest, highest, what to give), wide enough for any ground a probe goes
 # into and narrow enough to catch a sign slip or a wrong unit:
 # - moisture is gravimetric (% of dry mass), so it can exceed 100 %: peats hold many times their dry mass of water;
@@ -45,11 +45,15 @@ NUMERIC_METADATA = ("depth_m", "moisture_pct", "dry_density_kg_per_m3")
 #   common soil minerals (handbook values, from memory); peat can be below 100 kg/m³. Below 10 it is a unit slip.
 # - depth is that of the probe tip below ground; the upper bound only catches millimetres typed as metres (common
 #   practice, no source).
+# - the sample radius is that of a lab cell or core the probe sits on the axis of (left out in the ground); below
+#   2 mm nothing fits around a needle, above 10 m it is the ground (common practice, no source).
 METADATA_RANGES: dict[str, tuple[float, float, str]] = {
     "depth_m": (0.0, 1000.0, "a depth of the probe tip below ground from 0 to 1000 m"),
     "moisture_pct": (0.0, 2000.0, "a gravimetric water content from 0 to 2000 % of dry mass (peat can exceed "
                                   "100 %)"),
     "dry_density_kg_per_m3": (10.0, 3000.0, "a dry density from 10 to 3000 kg/m³"),
+    "sample_radius_m": (0.002, 10.0, "the radius of the sample around the probe from 0.002 to 10 m (leave it out "
+                                     "in the ground)"),
 }
 
 
@@ -142,6 +146,10 @@ class RunKeeper:
         rig = self.rig
         self._check_can_start(plan)
         fields = check_metadata(metadata)
+        try:
+            rig.s.probe.in_sample(fields.get("sample_radius_m"))
+        except ValueError as exc:
+            raise RequestError(f"metadata sample_radius_m: {exc}") from exc
         if rig.s.simulated_material and "material" not in fields:
             fields["material"] = rig.s.simulated_material
         series_id = None
@@ -226,26 +234,27 @@ class RunKeeper:
         rig.begin_run_samples()
         self._pulse_next_t = self._pulse_next_wall = 0.0
         self.calibration, cal_event = self._probe_calibration()
+        in_sample = rig.s.probe.in_sample(fields.get("sample_radius_m"))  # checked in start_run
         # a pulse has no live line fit and so no "heating can stop" verdict: it heats for its planned time
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
-                                 reducer_factory=None if plan.pulse else rig.reducer_factory(plan.sensor,
-                                                                                             *self.calibration),
+                                 reducer_factory=None if plan.pulse else rig.reducer_factory(
+                                     plan.sensor, *self.calibration, probe=in_sample),
                                  cycle=cycle, reequilibrate=reequilibrate)
         data = {"plan": plan.to_dict(), "metadata": fields, "peer": peer.to_dict() if peer else None,
                 "series_id": series.series_id if series else None, "cycle": cycle}
         rig.record_event(run_id, "state", "checking", why, data)
         rig.record_event(run_id, "calibration", *cal_event)
-        self._apply_spacings(run_id)
+        self._apply_spacings(run_id, in_sample)
         rig.hub.publish({"event": "state", "run_id": run_id, "state": "checking", "reason": why,
                          "device_s": rig.device_s, **self._cycle_fields(cycle)})
         sdnotify.notify(f"STATUS=run {run_id} checking")
         return run_id
 
-    def _apply_spacings(self, run_id: int) -> None:
-        """The probe this run is reduced with: each radial sensor at its latest accepted spacing calibration (a
-        dual needle's spacing sets its ρc as 1/r²), recorded as an event."""
+    def _apply_spacings(self, run_id: int, probe: ProbeProfile) -> None:
+        """The probe this run is reduced with (in its sample, when the metadata gives one): each radial sensor at
+        its latest accepted spacing calibration (a dual needle's spacing sets its ρc as 1/r²), recorded as an
+        event."""
         rig = self.rig
-        probe = rig.s.probe
         try:
             history = spacing_history(rig.store.reader, probe.serial)
         except Exception as exc:  # sqlite3 errors: the nominal spacing is still a result, say why

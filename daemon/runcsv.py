@@ -76,6 +76,14 @@ def file_calibration(meta: dict[str, HeaderValue], name: str) -> FileCalibration
     return FileCalibration(factor, u, meta[CAL_SOURCE].text if CAL_SOURCE in meta else "")
 
 
+SAMPLE_RADIUS = "sample_radius_m"
+
+
+def file_sample_radius_m(meta: dict[str, HeaderValue], name: str) -> float | None:
+    """The radius of the sample the run's probe sat in (``sample_radius_m``; None: in the ground)."""
+    return _header_number(meta[SAMPLE_RADIUS], SAMPLE_RADIUS, name, zero_ok=False) if SAMPLE_RADIUS in meta else None
+
+
 def _header_number(v: HeaderValue, key: str, name: str, *, zero_ok: bool) -> float:
     try:
         x = float(v.text)

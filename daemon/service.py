@@ -691,12 +691,13 @@ class RigService:
         self._loss.reset()  # a burst that is over does not count against a new run; the window refills
         self.run_arrays = {"device_s": [], "q": [], "temps": []}
 
-    def reducer_factory(self, sensor: str, factor: float = 1.0, factor_u: float = 0.0) -> Any:
-        """The live reducer for one sensor of this rig's probe, within its temperature-rise limit, with the
-        probe's calibration factor applied."""
+    def reducer_factory(self, sensor: str, factor: float = 1.0, factor_u: float = 0.0,
+                        probe: ProbeProfile | None = None) -> Any:
+        """The live reducer for one sensor of this rig's probe (``probe``: as the run has it, in its sample),
+        within its temperature-rise limit, with the probe's calibration factor applied."""
         from linerig.daemon.reduction.live import LiveReducer
 
-        probe = self.s.probe
+        probe = probe or self.s.probe
         lim = self.s.limits.max_rise_K
         worker = self._verdict_worker
         return lambda stop: LiveReducer(probe=probe, sensor=sensor, stop=stop, max_rise_K=lim,

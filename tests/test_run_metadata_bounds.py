@@ -41,7 +41,10 @@ def test_run_metadata_outside_physical_bounds_is_refused_naming_the_key(daemon: 
            ({"dry_density_kg_per_m3": 1.65}, "that looks like g/cm³: 1.65 g/cm³ is 1650 kg/m³"),
            ({"dry_density_kg_per_m3": 5200}, "got 5200"),  # magnetite's solid density (from memory)
            ({"depth_m": -0.5}, "metadata depth_m must be a depth of the probe tip below ground from 0 to 1000 m"),
-           ({"depth_m": 1500}, "got 1500")]  # millimetres typed as metres
+           ({"depth_m": 1500}, "got 1500"),  # millimetres typed as metres
+           ({"sample_radius_m": 25.4}, "metadata sample_radius_m must be the radius of the sample around the probe "
+                                       "from 0.002 to 10 m"),  # millimetres again
+           ({"sample_radius_m": 0}, "got 0")]
     for meta, words in bad:
         reply = d.raw(op="start", **LONG, metadata={"site": "Copse End", **meta})
         assert not reply["ok"] and words in reply["error"], (meta, reply)

@@ -26,6 +26,9 @@ SHORT_SPAN_LN = math.log(2.0)  # window shorter than a factor 2 in time (common 
 MIN_POINTS = 20
 END_FLOOR = 0.3        # the axial limit never cuts more than 70 % of the heating (then residual_trend tells)
 ALPHA_MIN, ALPHA_MAX = 1e-9, 1e-4   # plausible diffusivities for any ground or reference medium (m²/s)
+# The lowest volumetric heat capacity a sample is taken to have when its outer face is judged (α ≤ k/ρc_min): dry
+# sand ≈ 1.3 MJ/(m³·K) (de Vries 1963), 1.0 leaves room below it (the stop rule's lowest medium; no source).
+RHO_C_FLOOR = 1.0e6
 
 
 @dataclass(frozen=True)
@@ -120,15 +123,16 @@ class WindowChoice:
 
 def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *, r_m: float | None,
                   probe_C_J_per_m3K: float | None, length_m: float | None, axial_m: float | None,
-                  alpha_hint: float | None = None, h_hint: float = 0.0, k_hint: float | None = None
-                  ) -> WindowChoice:
+                  alpha_hint: float | None = None, h_hint: float = 0.0, k_hint: float | None = None,
+                  sample_radius_m: float | None = None) -> WindowChoice:
     """The automatic window (see METHODS.md): physics start and end, then trimmed until no residual trend.
 
     Start: the later of 0.1·t_end and the time the probe-model slope error falls below 1 % (α from the probe
     model fit when given, else iterated from the intercept). End: the end of heating, or earlier where axial
-    loss bends the slope by 1 % (t < L²/(53.1·α)). Then, while a quadratic in u shows the local slope drifting
-    by more than 2 % across the window (z > 3), the end of the window whose third deviates most is trimmed by
-    a factor 1.25 in time, keeping at least a factor e.
+    loss bends the slope by 1 % (t < L²/(53.1·α)), and before a finite sample's outer face does (t < 0.144·R²/α
+    with α = k/``RHO_C_FLOOR``, its upper bound; never floored: a wall moves k by more than it tells). Then,
+    while a quadratic in u shows the local slope drifting by more than 2 % across the window (z > 3), the end of
+    the window whose third deviates most is trimmed by a factor 1.25 in time, keeping at least a factor e.
     """
     t_max = float(t[-1])
     t_first = float(t[0])
@@ -142,6 +146,11 @@ def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *,
             alpha = min(max(alpha, ALPHA_MIN), ALPHA_MAX)
         if alpha and length_m:
             t_end = min(t_max, max(win.axial_end_s(length_m, alpha, END_TOL, axial_m), END_FLOOR * t_max))
+        t_wall = math.inf
+        if sample_radius_m and k:
+            aw = win.wall_alpha(k, RHO_C_FLOOR)
+            t_wall = win.wall_end_s(sample_radius_m, aw, END_TOL, r_m or 0.0) if aw else math.inf
+            t_end = min(t_end, t_wall)
         start = max(FLOOR_FRACTION * t_end, t_first)
         why = ["floor 0.1·t_end"]
         if alpha and r_m:
@@ -150,7 +159,9 @@ def choose_window(t: np.ndarray, u: np.ndarray, y: np.ndarray, Q: np.ndarray, *,
             if t_phys > start:
                 start = t_phys
                 why = ["probe-model slope error < 1 %" if aj else "line-source slope error < 1 %"]
-        if t_end < t_max:
+        if t_end == t_wall and t_wall < t_max:
+            why.append(f"sample's outer face (R = {sample_radius_m * 1e3:.3g} mm) from {t_wall:.3g} s")
+        elif t_end < t_max:
             why.append("axial-loss limit L²/(53α)" if t_end > END_FLOOR * t_max else "axial limit capped at 0.3·t")
         if math.log(t_end / start) < 0.5:  # heating too short for the criterion: keep the last half-decade
             start = t_end / math.exp(0.5)

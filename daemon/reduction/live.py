@@ -23,7 +23,7 @@ import numpy as np
 from ..probe import ProbeProfile
 from . import window as win
 from .drift import Baseline, fit_baseline, no_baseline
-from .linesource import ALPHA_MIN
+from .linesource import ALPHA_MIN, RHO_C_FLOOR
 from .stats import ar1_inflation, combine, lag1_autocorrelation
 from .stop_rule import ProbeFacts, StopRule, StopSettings, Verdict
 from .superposition import log_time_regressor, power_steps
@@ -100,7 +100,9 @@ class LiveReducer:
         self.alpha_J_factor: float | None = None  # α_J = factor·ρc_medium
         self.length_m: float | None = None
         self.axial_m: float | None = None
+        self.sample_radius_m: float | None = None
         if probe is not None:
+            self.sample_radius_m = probe.sample_radius_m
             self.r_m = probe.sensor_radius_m(sensor) if probe.has_sensor(sensor) else probe.radius_m
             on_heater = not probe.has_sensor(sensor) or probe.sensor(sensor).is_on_heater
             cap = probe.heat_capacity_J_per_m3K
@@ -299,6 +301,15 @@ class LiveReducer:
         if got is None:
             return None
         fit, i, j, alpha, criterion_met = got
+        if self.sample_radius_m and fit[0] > 0:  # a sample's face: the offline window's end, bent or not
+            t_wall = win.wall_end_s(self.sample_radius_m, win.wall_alpha(1.0 / (4.0 * math.pi * fit[0]),
+                                                                          RHO_C_FLOOR) or 0.0,
+                                    END_TOL, self.r_m or 0.0)
+            if t_wall < t_now:
+                cut = self._fit_to(t_wall, alpha)
+                if cut is None:
+                    return None
+                fit, i, j, alpha, criterion_met = cut
         if alpha and self.length_m and j - i >= 8:
             rel_curv, z_curv = self._curvature(i, j, fit[0])
             t_ax = win.axial_end_s(self.length_m, alpha, END_TOL, self.axial_m)

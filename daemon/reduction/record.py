@@ -35,6 +35,7 @@ class Geometry:
     known: bool       # a probe profile was given (r is a measured radius, not a stand-in)
     in_profile: bool  # the profile names this sensor (else it is taken as inside the heated needle)
     spacing_calibrated: bool = False  # the radius is an effective spacing from a pulse in a medium of known ρc
+    sample_radius_m: float | None = None  # a finite sample around the probe (None: the ground, unbounded)
 
     @classmethod
     def of(cls, probe: ProbeProfile | None, name: str) -> Geometry:
@@ -45,8 +46,9 @@ class Geometry:
             s = probe.sensor(name)
             axial = s.axial_mm * 1e-3 if s.axial_mm is not None else None
             return cls(probe.radius_m, probe.sensor_radius_m(name), probe.sensor_radius_u_m(name), s.is_on_heater,
-                       axial, cap, length, True, True, s.spacing_calibrated)
-        return cls(probe.radius_m, probe.radius_m, probe.radius_u_m, True, None, cap, length, True, False)
+                       axial, cap, length, True, True, s.spacing_calibrated, probe.sample_radius_m)
+        return cls(probe.radius_m, probe.radius_m, probe.radius_u_m, True, None, cap, length, True, False,
+                   sample_radius_m=probe.sample_radius_m)
 
     @property
     def line_radius_m(self) -> float | None:

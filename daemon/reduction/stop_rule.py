@@ -43,7 +43,7 @@ from scipy.special import exp1
 
 from . import window as win
 from .cooling import RECOVERY_END_FACTOR, choose_recovery_window
-from .linesource import TREND_TOL, TREND_Z
+from .linesource import RHO_C_FLOOR, TREND_TOL, TREND_Z
 from .probe_model import long_time_response, response_stehfest
 from .stats import ar1_inflation
 
@@ -84,6 +84,7 @@ class ProbeFacts:
     probe_C_J_per_m3K: float | None = None   # probe heat capacity (only for a sensor on the heater)
     length_m: float | None = None            # heated length
     axial_m: float | None = None             # sensor distance from the heater's tip (None: mid-length)
+    sample_radius_m: float | None = None     # a finite sample around the probe (None: unbounded ground)
 
     @classmethod
     def of(cls, probe: Any, sensor: str) -> ProbeFacts:
@@ -96,7 +97,7 @@ class ProbeFacts:
         if probe.has_sensor(sensor) and probe.sensor(sensor).axial_mm is not None:
             axial = probe.sensor(sensor).axial_mm * 1e-3
         cap = probe.heat_capacity_J_per_m3K if on_heater else None
-        return cls(r, cap or None, probe.length_m, axial)
+        return cls(r, cap or None, probe.length_m, axial, probe.sample_radius_m)
 
 
 @dataclass(frozen=True)
@@ -598,6 +599,13 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: 
     def refuse(reason: str) -> Judgement:
         return no_h(reason, terms, bound, k_now)
 
+    # a plan past the sample's face first: it is why the line bends, and the operator's remedy
+    if ctx.probe.sample_radius_m:
+        t_wall = win.wall_end_s(ctx.probe.sample_radius_m, k_line / RHO_C_FLOOR, AXIAL_TOL, ctx.probe.radius_m)
+        if t_wall < T:
+            return refuse(f"the sample's outer face (R = {1e3 * ctx.probe.sample_radius_m:.3g} mm) would bend the "
+                          f"line from about {t_wall:.0f} s, before the planned end at {T:.0f} s (plan at most "
+                          f"{t_wall:.0f} s of heating in this sample, or use a wider one)")
     if not explained:
         return refuse("the line bends in a way the probe's transient does not explain (a boundary, moisture "
                       "moving, drift?)")

@@ -6,6 +6,10 @@ expansion of the Blackwell (1954) / Jaeger (1956) solution (Carslaw & Jaeger 195
 capacity the ideal line at radius r is used: local slope = exp(−r²/4αt), i.e. 1 % at t = 24.9·r²/α (Carslaw &
 Jaeger §10.4). End (finite heater length L, sensor at axial position z): the local slope is
 ½[erf(z/2√(αt)) + erf((L−z)/2√(αt))] of the ideal; at mid-length 1 % is reached at t = L²/(53.1·α).
+End (a sample of radius R around the probe, its outer face held at the bath temperature or insulated): the
+local slope from the Fourier–Bessel expansion of a line source on the axis of a cylinder (Carslaw & Jaeger 1959,
+the cylinder problems of ch. 7 and 13; the series is written out in ``wall_slope_ratio``); 1 % is reached at
+t ≈ 0.144·R²/α (insulated face; 0.147·R²/α held at the bath), for a sensor near the axis.
 
 The recovery has no window of its own in those terms: each power step keeps its own age, so the recovery at t
 mixes the step response at t and at t − t_h. ``StepModel`` gives the departure of one step's response from the
@@ -16,9 +20,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
-from scipy.special import erf, erfinv, exp1
+from scipy.optimize import brentq
+from scipy.special import erf, erfinv, exp1, j0, j1, jn_zeros
 
 from .probe_model import response_stehfest
 
@@ -82,6 +88,58 @@ def axial_end_s(length_m: float, alpha_m2_per_s: float, tol: float = 0.01,
     return float(ts[bad[0] - 1]) if bad.size and bad[0] > 0 else (float(ts[0]) if bad.size else math.inf)
 
 
+_WALL_TERMS = 600   # exp(−λ²τ) of the 600th zero is below 1e-300 from τ = 0.005 on: the series is exact there
+
+
+@lru_cache(maxsize=1)
+def _bessel_zeros() -> tuple[np.ndarray, np.ndarray]:
+    return jn_zeros(0, _WALL_TERMS), jn_zeros(1, _WALL_TERMS)
+
+
+def wall_slope_ratio(tau: np.ndarray | float, rho: float = 0.0, insulated: bool = False) -> np.ndarray:
+    """Local log-slope in a cylinder of radius R over the infinite medium's, τ = αt/R² (≥ 0.005), sensor at
+    ρ = r/R.
+
+    Held at the bath temperature at R (zeros λ of J0): s = 4τ Σ J0(λρ)·e^{−λ²τ}/J1(λ)²; insulated (zeros μ of
+    J1, plus the uniform heating of the whole sample): s = 4τ[1 + Σ J0(μρ)·e^{−μ²τ}/J0(μ)²]; the infinite
+    medium's is e^{−ρ²/4τ}. Both series follow from the steady and transient parts of the cylinder with a line
+    source on its axis (∫₀¹ x·ln(1/x)·J0(λx) dx = 1/λ² at the zeros of J0)."""
+    lam, mu = _bessel_zeros()
+    tau = np.maximum(np.asarray(tau, dtype=float), 0.005)
+    z = mu if insulated else lam
+    terms = np.exp(-np.multiply.outer(tau, z * z)) @ (j0(z * rho) / (j0(z) if insulated else j1(z)) ** 2)
+    s = 4.0 * tau * ((1.0 + terms) if insulated else terms)
+    return s / np.exp(-rho * rho / (4.0 * tau))
+
+
+@lru_cache(maxsize=256)
+def wall_tau(tol: float = 0.01, rho: float = 0.0) -> float:
+    """The τ = αt/R² at which a sample's outer face first moves the local slope by ``tol`` (the earlier of a face
+    held at the bath temperature and an insulated one: a container is something between the two)."""
+    lo = max(0.005, rho * rho / 4.0)  # before this the face is many diffusion lengths away
+    held = brentq(lambda x: 1.0 - float(wall_slope_ratio(x, rho)) - tol, lo, 5.0)
+    insulated = brentq(lambda x: float(wall_slope_ratio(x, rho, insulated=True)) - 1.0 - tol, lo, 5.0)
+    return min(held, insulated)
+
+
+def wall_end_s(sample_radius_m: float | None, alpha_m2_per_s: float, tol: float = 0.01,
+               sensor_radius_m: float = 0.0) -> float:
+    """Latest t at which the sample's outer face keeps the local slope within ``tol`` (∞ without a sample)."""
+    if not sample_radius_m or not (alpha_m2_per_s > 0 and math.isfinite(alpha_m2_per_s)):
+        return math.inf
+    rho = round(min(max(sensor_radius_m / sample_radius_m, 0.0), 0.9), 3)
+    return wall_tau(tol, rho) * sample_radius_m**2 / alpha_m2_per_s
+
+
+def wall_alpha(k_W_per_mK: float | None, rho_c_floor: float) -> float | None:
+    """The diffusivity a sample's face is judged with: k over the lowest volumetric heat capacity the medium may
+    have, an upper bound on α. Not the estimate: a needle's α from its intercept carries e^{2h} (too high, up to
+    the clip) and from its transient can be far too low under model mismatch (issue 11), while k is known well."""
+    if not k_W_per_mK or not (k_W_per_mK > 0 and math.isfinite(k_W_per_mK)):
+        return None
+    return k_W_per_mK / rho_c_floor
+
+
 def alpha_from_intercept(r_m: float, ln_t0: float) -> float:
     """Single-probe diffusivity from the time-axis intercept t0 of the fitted line: α = r²·e^γ/(4·t0)."""
     return r_m**2 * EXP_GAMMA / 4.0 * math.exp(min(max(-ln_t0, -700.0), 700.0))
@@ -96,7 +154,9 @@ class StepModel:
 
     ``alpha_J`` = 2ρc/(ρc)_probe with the probe's heat capacity (Blackwell cylinder of radius ``radius_m`` with
     contact parameter h); None is an ideal line source read at ``radius_m``. ``length_m``/``axial_m``: heater
-    length and the sensor's distance from its tip (None: infinitely long, or at mid-length).
+    length and the sensor's distance from its tip (None: infinitely long, or at mid-length). ``sample_radius_m``:
+    a finite sample whose outer face is held at the bath temperature, seen with diffusivity ``wall_alpha_m2_per_s``
+    (a conservative one: ``wall_alpha``).
     """
 
     alpha_m2_per_s: float
@@ -105,6 +165,8 @@ class StepModel:
     h: float = 0.0
     length_m: float | None = None
     axial_m: float | None = None
+    sample_radius_m: float | None = None
+    wall_alpha_m2_per_s: float | None = None
 
     def deviation(self, ages: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(G, g) at each age t > 0: G = 4πk·ΔT/q of a unit step minus its late-time line ln t + c, g = dG/d ln t.
@@ -134,6 +196,13 @@ class StepModel:
         g = np.gradient(f, lng)
         if self.length_m:
             d = 1.0 - axial_slope_factor(grid, self.length_m, al, self.axial_m)
+            cum = np.concatenate(([0.0], np.cumsum(0.5 * (d[1:] + d[:-1]) * np.diff(lng))))
+            f, g = f - cum, g - d
+        if self.sample_radius_m:
+            aw = self.wall_alpha_m2_per_s or al
+            tau_w = aw * grid / self.sample_radius_m**2
+            rho = min(self.radius_m / self.sample_radius_m, 0.9)
+            d = np.where(tau_w > 0.005, 1.0 - wall_slope_ratio(tau_w, rho), 0.0)
             cum = np.concatenate(([0.0], np.cumsum(0.5 * (d[1:] + d[:-1]) * np.diff(lng))))
             f, g = f - cum, g - d
         la = np.log(ages)

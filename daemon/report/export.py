@@ -29,7 +29,8 @@ RESULT_COLUMNS = (
 META_KEYS = ("id", "created_utc", "ended_utc", "state", "end_reason", "kind", "probe_serial", "frontend_model",
              "frontend_serial", "frontend_firmware", "sensor_names",
              "heater_length_m", "site", "location", "depth_m", "sample", "material", "moisture_pct",
-             "dry_density_kg_per_m3", "notes", "operator", "series_id", "cycle", "plan", "n_samples")
+             "dry_density_kg_per_m3", "sample_radius_m", "notes", "operator", "series_id", "cycle", "plan",
+             "n_samples")
 
 
 def _clean(v: Any) -> Any:
@@ -114,7 +115,7 @@ def samples_run_csv(rec: RunRecord) -> str:
     d = rec.detail
     comments = [f"linerig run {rec.run_id}"]
     comments += [f"{k}: {d[k]}" for k in ("site", "location", "depth_m", "sample", "material", "moisture_pct",
-                                          "dry_density_kg_per_m3", PROBE_SERIAL, "created_utc")
+                                          "dry_density_kg_per_m3", "sample_radius_m", PROBE_SERIAL, "created_utc")
                  if d.get(k) not in (None, "")]
     cal = rec.applied_calibration()
     comments += [f"{CAL_FACTOR}: {cal.factor!r}", f"{CAL_FACTOR_U}: {cal.factor_u!r}",

@@ -169,6 +169,9 @@ def record_of(detail: dict[str, Any], arr: dict[str, Any] | None, probe: ProbePr
         except ReductionError:
             data = None
         phase = list(arr["phase"])
+    radius = finite(detail.get("sample_radius_m"))
+    if probe is not None and radius:
+        probe = probe.in_sample(radius)  # checked against this probe when the run started
     return RunRecord(int(detail["id"]), detail, data, probe, calibrations, phase)
 
 

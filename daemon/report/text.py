@@ -111,6 +111,7 @@ FLAGS = {
     "no_baseline": "no baseline was recorded, so drift could not be removed",
     "window_short": "the fitted window spans less than a factor e in time",
     "residual_trend": "the residuals curve: boundary or axial heat loss may bias the result",
+    "sample_wall": "the window ends before the sample's outer face bends the line (its bias is in the budget)",
     "noise_high": "the temperature noise is large compared with the rise",
     "heat_cool_disagree": "heating and cooling give different conductivities",
     "rise_above_limit": "the temperature rise exceeded the limit set (moisture may have moved)",

@@ -158,7 +158,12 @@ def _v7(db: sqlite_utils.Database) -> None:
     db["spacing_calibrations"].create_index(["probe_serial"])
 
 
-MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4, _v5, _v6, _v7]
+def _v8(db: sqlite_utils.Database) -> None:
+    """The radius of the sample a lab run's probe sits in (null in the ground): its outer face ends the window."""
+    db["runs"].add_column("sample_radius_m", float)
+
+
+MIGRATIONS: list[Callable[[sqlite_utils.Database], None]] = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

@@ -15,7 +15,15 @@ from linerig.daemon.logger_import import LoggerImportError, import_file, read_ma
 from linerig.daemon.probe import ProbeProfile, ProbeProfileError, load_probe_profile, sensor_mm, stored_profile
 from linerig.daemon.reduction.api import METHODS, RunReduction, reduce_run
 from linerig.daemon.reduction.data import ReductionError, RunData
-from linerig.daemon.runcsv import PROBE_PROFILE, PROBE_SERIAL, HeaderValue, RunCsvError, file_calibration, read_run_file
+from linerig.daemon.runcsv import (
+    PROBE_PROFILE,
+    PROBE_SERIAL,
+    HeaderValue,
+    RunCsvError,
+    file_calibration,
+    file_sample_radius_m,
+    read_run_file,
+)
 
 EXIT_BAD_INPUT = 2
 
@@ -38,6 +46,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:  # type: ignore[
                         "spacing (linerig calibrate --spacing) goes here")
     p.add_argument("--spacing-u", metavar="SENSOR=MM", action="append", default=[],
                    help="standard uncertainty of a sensor's spacing (default: the profile's radial_u_mm, else 1 %%)")
+    p.add_argument("--sample-radius-mm", metavar="MM", type=float,
+                   help="the probe sits on the axis of a sample this wide (a lab cell or core): the window ends "
+                        "before its outer face bends the line (default: the file's sample_radius_m, else none)")
     p.add_argument("--calibration-factor", metavar="F", type=float,
                    help="probe factor to apply (default: the file's calibration_factor header, else 1)")
     p.add_argument("--calibration-factor-u", metavar="U", type=float,
@@ -85,6 +96,22 @@ def build_probe(args: argparse.Namespace, from_file: ProbeProfile | None = None)
                                     "--probe or --spacing for it)")
         probe = probe.with_sensor(name, probe.sensor(name).radial_mm, u, probe.sensor(name).spacing_calibrated)
     return probe
+
+
+def in_sample(args: argparse.Namespace, meta: dict[str, HeaderValue], name: str,
+              probe: ProbeProfile | None) -> ProbeProfile | None:
+    """The probe in the sample --sample-radius-mm (else the file's ``sample_radius_m``) gives, said on stderr."""
+    radius = args.sample_radius_mm * 1e-3 if args.sample_radius_mm is not None else None
+    said = "--sample-radius-mm"
+    if radius is None:
+        radius, said = file_sample_radius_m(meta, name), name
+    if radius is None or (probe is not None and probe.sample_radius_m == radius):
+        return probe
+    if probe is None:
+        raise ProbeProfileError(f"a sample radius ({said}) needs --probe or --radius-mm (the probe's geometry)")
+    _note(f"the probe sits in a sample of radius {radius * 1e3:g} mm ({said}): the window ends before its outer "
+          "face bends the line")
+    return probe.in_sample(radius)
 
 
 def _replace(probe: ProbeProfile, **kw: float) -> ProbeProfile:
@@ -153,6 +180,7 @@ def run(args: argparse.Namespace) -> int:
         probe = build_probe(args, carried)
         if carried is not None and not args.probe:
             _note(f"probe profile {carried.serial or carried.name!r} from {args.file}")
+        probe = in_sample(args, meta, str(args.file), probe)
         factor, factor_u = calibration_to_apply(args, meta, str(args.file), probe)
     except (ProbeProfileError, RunCsvError) as e:
         return _fail(str(e))

@@ -12,8 +12,9 @@ from linerig.tui.client import Client, DaemonError
 
 MAX_STOP_TOLERANCE_PCT = 20.0
 """The daemon's ceiling (``controller.MAX_STOP_TOLERANCE``) in per cent, kept here so ``start`` stays light."""
-METADATA = ("site", "location", "depth_m", "sample", "material", "moisture_pct", "dry_density_kg_per_m3", "notes",
-            "operator")
+METADATA = ("site", "location", "depth_m", "sample", "material", "moisture_pct", "dry_density_kg_per_m3",
+            "sample_radius_m", "notes", "operator")
+NUMERIC = ("depth_m", "moisture_pct", "dry_density_kg_per_m3", "sample_radius_m")
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
@@ -66,7 +67,7 @@ def metadata(items: list[str]) -> dict[str, Any]:
         if not sep or key not in METADATA:
             raise StartOptionError(f"--meta {item!r}: use KEY=VALUE with KEY one of {', '.join(METADATA)}")
         try:
-            out[key] = float(value) if key in ("depth_m", "moisture_pct", "dry_density_kg_per_m3") else value
+            out[key] = float(value) if key in NUMERIC else value
         except ValueError:
             raise StartOptionError(f"--meta {key} must be a number, got {value!r}") from None
     return out

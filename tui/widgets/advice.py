@@ -48,6 +48,7 @@ _GENERAL = "The heater is off. Read the run's events in History, fix the cause, 
 FLAG_WORDS = {
     "window_short": "fit window still short",
     "residual_trend": "curve still bending in the window",
+    "sample_wall": "window cut short by the sample's edge",
     "noise_high": "noisy readings",
     "rise_above_limit": "rise above the limit",
     "drift": "ground temperature drifting",

@@ -18,7 +18,7 @@ def preliminary_line(rec: SensorRecord) -> tuple[LateTimeFit | None, str | None]
     g = rec.geometry
     try:
         pc = choose_window(rec.th, rec.u, rec.y, rec.Qh, r_m=g.line_radius_m, probe_C_J_per_m3K=g.probe_C_J_per_m3K,
-                           length_m=g.length_m, axial_m=g.axial_m)
+                           length_m=g.length_m, axial_m=g.axial_m, sample_radius_m=g.sample_radius_m)
         return fit_window(rec.th, rec.u, rec.y, rec.Qh, pc.t_start, pc.t_end, g.line_radius_m,
                           g.sensor_radius_u_m), None
     except ValueError as e:
@@ -46,10 +46,14 @@ class LineMethod:
                 wc = choose_window(th, u, y, Qh, r_m=g.line_radius_m, probe_C_J_per_m3K=g.probe_C_J_per_m3K,
                                    length_m=g.length_m, axial_m=g.axial_m,
                                    alpha_hint=hint.alpha_m2_per_s if hint else None,
-                                   h_hint=hint.h if hint else 0.0, k_hint=hint.k_W_per_mK if hint else None)
+                                   h_hint=hint.h if hint else 0.0, k_hint=hint.k_W_per_mK if hint else None,
+                                   sample_radius_m=g.sample_radius_m)
                 lf = fit_window(th, u, y, Qh, wc.t_start, wc.t_end, g.line_radius_m, g.sensor_radius_u_m, drift_u)
                 why = wc.reason
         except ValueError as e:
+            if g.sample_radius_m and opts.window_s is None:
+                e = ValueError(f"{e}; the sample's outer face (R = {g.sample_radius_m * 1e3:.3g} mm) may bend the "
+                               "line before the probe's own transient has passed: use a wider sample")
             return MethodResult(self.name, None, converged=False, why=str(e), notes=[f"line fit failed: {e}"])
         try:
             df = line_drift_fit(rec, lf.window_s)
@@ -60,6 +64,8 @@ class LineMethod:
             flags.append("window_short")
         if lf.trend:
             flags.append("residual_trend")
+        if "outer face" in why:
+            flags.append("sample_wall")
         if lf.resid_rms_K > NOISE_HIGH_FRACTION * lf.slope_K:
             flags.append("noise_high")
         budget = {"statistical": df.u_stat_rel, "drift": df.u_drift_rel}

@@ -12,7 +12,7 @@ import numpy as np
 
 from .. import window as win
 from ..data import ReductionError
-from ..linesource import LateTimeFit
+from ..linesource import RHO_C_FLOOR, LateTimeFit
 from ..live import NOISE_HIGH_FRACTION
 from ..probe_model import ModelFit, fit_probe_model
 from ..radial import pulse_check
@@ -186,9 +186,11 @@ def _fit_heater(rec: SensorRecord, prelim: LateTimeFit, shift_bounds: tuple[floa
                                   shift_bounds_s=shift_bounds)
         except (ValueError, np.linalg.LinAlgError, FloatingPointError):
             return None
-        if not g.length_m:
+        if not (g.length_m or g.sample_radius_m):
             break
-        t_ax = win.axial_end_s(g.length_m, fit.alpha_m2_per_s, 0.01, g.axial_m)
+        t_ax = min(win.axial_end_s(g.length_m, fit.alpha_m2_per_s, 0.01, g.axial_m) if g.length_m else math.inf,
+                   win.wall_end_s(g.sample_radius_m, win.wall_alpha(fit.k_W_per_mK, RHO_C_FLOOR) or 0.0, 0.01,
+                                  g.sensor_radius_m))
         if t_ax >= t_end * 0.98:
             break
         t_end = max(t_ax, float(th[min(30, th.size - 1)]))

@@ -14,7 +14,7 @@ import numpy as np
 
 from .. import window as win
 from ..driftfit import DriftFit
-from ..linesource import ALPHA_MAX, ALPHA_MIN, LateTimeFit
+from ..linesource import ALPHA_MAX, ALPHA_MIN, RHO_C_FLOOR, LateTimeFit
 from ..record import SensorRecord
 from ..superposition import compress_steps
 from .base import Found
@@ -49,8 +49,14 @@ def step_models(rec: SensorRecord, found: Found, lf: LateTimeFit | None = None) 
         top = ALPHA_MAX if (i == 0 and model is not None) else ALPHA_PLAUSIBLE[1]
         alpha = min(max(alpha, ALPHA_MIN), top)
         out.append(win.StepModel(alpha, a_m, 2.0 * (k / alpha) / probe_C if probe_C else None, h, g.length_m,
-                                 g.axial_m))
+                                 g.axial_m, *_sample(rec, k)))
     return out
+
+
+def _sample(rec: SensorRecord, k: float) -> tuple[float | None, float | None]:
+    """The sample's radius and the diffusivity its face is judged with (``window.wall_alpha``)."""
+    r = rec.geometry.sample_radius_m
+    return (r, win.wall_alpha(k, RHO_C_FLOOR)) if r else (None, None)
 
 
 def plausible_models(rec: SensorRecord, found: Found, lf: LateTimeFit) -> list[win.StepModel]:
@@ -72,7 +78,8 @@ def plausible_models(rec: SensorRecord, found: Found, lf: LateTimeFit) -> list[w
     for h in FAMILY_H:
         alpha = min(max(lf.alpha_m2_per_s * math.exp(-2.0 * h), ALPHA_PLAUSIBLE[0]), ALPHA_PLAUSIBLE[1])
         aj = 2.0 * (lf.k_W_per_mK / alpha) / g.probe_C_J_per_m3K if g.probe_C_J_per_m3K else None
-        out.append(win.StepModel(alpha, g.probe_radius_m, aj, h, g.length_m, g.axial_m))
+        out.append(win.StepModel(alpha, g.probe_radius_m, aj, h, g.length_m, g.axial_m,
+                                 *_sample(rec, lf.k_W_per_mK)))
     return out
 
 
