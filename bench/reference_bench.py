@@ -8,7 +8,10 @@ The records (tests/reference/, an axisymmetric resolved-probe solver that shares
 the simulator) are written as run CSVs by their loader with a seeded instrument layer: the record's own noise,
 AR(1) wander and quantisation, a random ambient drift (normal, 0.1 K/h standard) and a random power-readback
 error (normal, 0.5 % standard, the budget's own power term, so that term is tested too). Each run is reduced
-with `auto` and the record's probe profile; every method's values come from the result's `methods` summary.
+with `auto` and the record's probe profile; a radial sensor with its spacing and both needles' heat capacities
+drawn from their stated uncertainties (1 % and 15 %: the budget carries them, so they are tested too); every
+method's values come from the result's `methods` summary. A finite-sample record is reduced knowing its
+sample's radius (a lab knows its container).
 
 Printed, per method and per quantity (k, α, ρc, contact): how many records gave it, bias (mean relative error),
 spread (standard deviation of the relative error) and the coverage of the expanded interval U = 2u; then the same
@@ -25,6 +28,7 @@ import fnmatch
 import math
 import sys
 import time
+import zlib
 from collections import defaultdict
 from dataclasses import replace
 from pathlib import Path
@@ -39,6 +43,9 @@ from linerig.daemon.reduction.api import reduce_run  # noqa: E402
 from linerig.daemon.reduction.data import ReductionError, RunData  # noqa: E402
 from linerig.daemon.resources import default_probe_path  # noqa: E402
 from tests.reference import load, records  # noqa: E402
+
+sys.path.insert(0, str(ROOT / "bench"))
+from pulse_bench import needles_drawn  # noqa: E402
 
 QUANTITIES = (("k", "k_W_per_mK", "k_u_W_per_mK"), ("alpha", "alpha_m2_per_s", "alpha_u_m2_per_s"),
               ("rho_c", "rho_c_J_per_m3K", "rho_c_u_J_per_m3K"),
@@ -73,11 +80,23 @@ def record_profile(rec: object) -> ProbeProfile:
 
 
 def realisation(rec: object, seed: int) -> RunData:
-    rng = np.random.default_rng(10_000 + seed)
+    """The record as a run: its instrument layer, an ambient drift and a power-readback error, drawn afresh for
+    each record and seed (one draw shared by every record would make the records' errors move together)."""
+    rng = np.random.default_rng([10_000 + seed, zlib.crc32(rec.name.encode())])  # type: ignore[attr-defined]
     drift = float(rng.normal(0.0, DRIFT_SD_K_PER_H))
     arr = rec.arrays(seed=seed, drift_K_per_h=drift)  # type: ignore[attr-defined]
     q = arr.q_W_per_m * (1.0 + float(rng.normal(0.0, POWER_SD_REL)))
     return RunData(arr.time_s, q, arr.temps_C)
+
+
+def drawn_probe(probe: ProbeProfile, sensor: str, seed: int, record: str) -> ProbeProfile:
+    """A radial sensor's spacing and both needles' heat capacities off by a draw from their stated standard
+    uncertainties (``pulse_bench.needles_drawn``): the budget carries them, so the coverage must test them; the
+    records are made with the nominal values, which no real probe has exactly."""
+    rng = np.random.default_rng([20_000 + seed, zlib.crc32(f"{record}/{sensor}".encode())])
+    u_mm = probe.sensor_radius_u_m(sensor) * 1e3
+    probe = probe.with_sensor(sensor, probe.sensor(sensor).radial_mm + rng.normal() * u_mm, u_mm)
+    return needles_drawn(probe, sensor, rng)
 
 
 class Tally:
@@ -117,9 +136,14 @@ def reference(names: list[str], seeds: int) -> dict[str, Tally]:
     for name in names:
         rec = load(name)
         probe = record_profile(rec)
+        radial = [x.name for x in probe.sensors if not x.is_on_heater and x.name in rec.true["sensors"]]
         for seed in range(seeds):
+            data = realisation(rec, seed)
             try:
-                red = reduce_run(realisation(rec, seed), probe, stable_rule=False)
+                red = reduce_run(data, probe, stable_rule=False)
+                for sensor in radial:  # read with the spacing and needles as a user knows them
+                    red.sensors[sensor] = reduce_run(data, drawn_probe(probe, sensor, seed, name), sensors=[sensor],
+                                                     stable_rule=False).sensors[sensor]
             except ReductionError as e:
                 failed += 1
                 print(f"  {name} seed {seed}: {e}")

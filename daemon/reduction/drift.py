@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .stats import ar1_inflation, lag1_autocorrelation
+from .stats import ar1_inflation, lag1_autocorrelation, wander_variance
 
 MIN_BASELINE_SAMPLES = 5
 # Thresholds below are common practice, no source: a drift is worth reporting when its extrapolation over the
@@ -95,6 +95,9 @@ def fit_baseline(t: np.ndarray, temp_C: np.ndarray) -> Baseline:
     s2 = float(resid @ resid) / max(n - 2, 1)
     infl = ar1_inflation(lag1_autocorrelation(resid))
     cov = np.linalg.inv(A.T @ A) * s2 * infl
+    wander = wander_variance(t, resid, t, np.linalg.pinv(A)[1])  # a slow wander moves the rate more than lag 1 says
+    if wander is not None:
+        cov[1, 1] = max(float(cov[1, 1]), wander)
     quad, quad_z = 0.0, 0.0
     if n >= 8:
         tc = t / max(abs(float(t.min())), 1e-9)

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .stats import ar1_inflation, lag1_autocorrelation
+from .stats import ar1_inflation, lag1_autocorrelation, wander_variance
 
 
 @dataclass(frozen=True)
@@ -81,6 +81,7 @@ def fit_with_drift(t: np.ndarray, T: np.ndarray, X: np.ndarray, Q: np.ndarray, *
     s2 = float(resid @ resid) / max(n - p, 1)
     rho = lag1_autocorrelation(resid)
     infl = ar1_inflation(rho)
+    b_rows = base[sel]
     cov = (pinv @ pinv.T) * s2 * infl
     a = float(coef[i_a])
     if not a > 0:
@@ -93,6 +94,8 @@ def fit_with_drift(t: np.ndarray, T: np.ndarray, X: np.ndarray, Q: np.ndarray, *
         b, b_u = float(coef[1]), math.sqrt(max(float(cov[1, 1]), 0.0))
     else:  # an error δ in the fixed rate leaves δ·t in the rows: a moves by δ·(A⁺t)_a
         b, b_u = fixed_drift
+        wander = wander_variance(ts[b_rows], resid[b_rows], ts, pinv[i_a]) if np.any(b_rows) else None
+        var_a = max(var_a, wander or 0.0)  # a slow wander under white noise: the baseline shows it
         var_cond = var_a
         var_a = var_a + (float(pinv[i_a] @ ts) * b_u) ** 2
     k = 1.0 / (4.0 * math.pi * a)

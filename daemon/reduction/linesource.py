@@ -29,6 +29,10 @@ ALPHA_MIN, ALPHA_MAX = 1e-9, 1e-4   # plausible diffusivities for any ground or 
 # The lowest volumetric heat capacity a sample is taken to have when its outer face is judged (α ≤ k/ρc_min): dry
 # sand ≈ 1.3 MJ/(m³·K) (de Vries 1963), 1.0 leaves room below it (the stop rule's lowest medium; no source).
 RHO_C_FLOOR = 1.0e6
+# The media a probe meets: dry sand ≈ 1.3, moist soils 2–3 MJ/(m³·K) (de Vries 1963), water 4.18 (IAPWS-95);
+# the window's model-error term and the stop rule weigh the media in this range (1.0 leaves room below dry sand,
+# common practice, no source).
+RHO_C_LIMITS = (RHO_C_FLOOR, 4.2e6)
 
 
 @dataclass(frozen=True)

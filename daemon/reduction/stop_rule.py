@@ -43,7 +43,7 @@ from scipy.special import exp1
 
 from . import window as win
 from .cooling import RECOVERY_END_FACTOR, choose_recovery_window
-from .linesource import RHO_C_FLOOR, TREND_TOL, TREND_Z
+from .linesource import RHO_C_FLOOR, RHO_C_LIMITS, TREND_TOL, TREND_Z
 from .probe_model import long_time_response, response_stehfest
 from .stats import ar1_inflation
 
@@ -55,9 +55,7 @@ FLOOR = 0.1                 # window [0.1·t, t]: the offline line's floor (line
 MIN_POINTS = 20             # the offline line's "short" (linesource.MIN_POINTS)
 SHORT_SPAN_LN = math.log(2.0)
 COVERAGE = 2.0              # k = 2 on the random part of the change (≈ 95 %)
-# The media a probe meets: dry sand ≈ 1.3, moist soils 2–3 MJ/(m³·K) (de Vries 1963), water 4.18 (IAPWS-95);
-# 1.0 leaves room below dry sand (common practice, no source).
-RHO_C_RANGE = np.geomspace(1.0e6, 4.2e6, 7)
+RHO_C_RANGE = np.geomspace(*RHO_C_LIMITS, 7)  # the media weighed (``linesource.RHO_C_LIMITS``, with sources)
 START_TOL = 0.01            # the reduction's window: slope error at its start (linesource.START_TOL) …
 END_FLOOR = 0.3             # … the axial limit never before 0.3·t (linesource.END_FLOOR) …
 HALF_DECADE_LN = 0.5        # … and at least half a decade kept (linesource.choose_window)

@@ -130,7 +130,7 @@ def _add_model_error(res: MethodResult, fit: ModelFit, refit: ModelFit | None) -
         if est is None or not v0:
             continue
         d2 = (v1 / v0 - 1) ** 2
-        if us is not None:
+        if us is not None and attr == "k":
             d2 = max(d2 - max(us[1] ** 2 - us[0] ** 2, 0.0), 0.0)
         setattr(res, attr, replace(est, budget={**est.budget, "model": math.sqrt(d2 / 3.0)}))
 

@@ -14,7 +14,7 @@ import numpy as np
 
 from .. import window as win
 from ..driftfit import DriftFit
-from ..linesource import ALPHA_MAX, ALPHA_MIN, RHO_C_FLOOR, LateTimeFit
+from ..linesource import ALPHA_MAX, ALPHA_MIN, RHO_C_FLOOR, RHO_C_LIMITS, LateTimeFit
 from ..record import SensorRecord
 from ..superposition import compress_steps
 from .base import Found
@@ -23,7 +23,7 @@ MODEL_LINE_REL = 0.03  # model and line k differ by more than this: the line's �
 # Diffusivity of soils, rocks and the reference liquids: 0.05 to 2 mm²/s (de Vries 1963 tables span about 0.1–1.5;
 # the ends are widened, common practice, no source).
 ALPHA_PLAUSIBLE = (5e-8, 2e-6)
-FAMILY_H = (0.0, 0.5, 1.0, 1.5, 2.0, 3.0)  # splits of the intercept tried (h up to 3: R_c·k/a; no source)
+MEDIA_RHO_C = np.geomspace(*RHO_C_LIMITS, 7)  # the media a window's model-error term weighs (``plausible_models``)
 
 
 def step_models(rec: SensorRecord, found: Found, lf: LateTimeFit | None = None) -> list[win.StepModel]:
@@ -62,9 +62,11 @@ def _sample(rec: SensorRecord, k: float) -> tuple[float | None, float | None]:
 def plausible_models(rec: SensorRecord, found: Found, lf: LateTimeFit) -> list[win.StepModel]:
     """The probes and media the record cannot tell apart, for a window's model-error term.
 
-    A probe model that describes the record: that one. Otherwise the line's intercept gives α·e^{2h} only (h
-    the contact and the probe's own resistance, Blackwell 1954 long-time form), so every split of it is as good:
-    h in ``FAMILY_H`` with α = α_intercept·e^{−2h}, each kept within the plausible range of ground diffusivity.
+    A probe model that describes the record: that one. Otherwise the line gives k, and its intercept α·e^{2h}
+    only (h the contact and the probe's own resistance, Blackwell 1954 long-time form), so every medium with a
+    volumetric heat capacity in ``RHO_C_LIMITS`` is as good: α = k/ρc, and the h that puts the intercept where
+    it is, h = ½·ln(α_intercept/α), where that is not negative (a resistance is not). These are the stop rule's
+    media (``stop_rule.RHO_C_RANGE``): the window term and the verdict weigh the same possibilities.
     """
     g = rec.geometry
     model = found.credible("model")
@@ -74,12 +76,13 @@ def plausible_models(rec: SensorRecord, found: Found, lf: LateTimeFit) -> list[w
         return step_models(rec, found, lf)[:1]
     if not lf.alpha_m2_per_s:
         return []
+    k = lf.k_W_per_mK
+    media = [(k / rc, rc, 0.5 * math.log(lf.alpha_m2_per_s * rc / k)) for rc in MEDIA_RHO_C]
+    media = [m for m in media if m[2] >= 0.0] or [(lf.alpha_m2_per_s, k / lf.alpha_m2_per_s, 0.0)]
     out = []
-    for h in FAMILY_H:
-        alpha = min(max(lf.alpha_m2_per_s * math.exp(-2.0 * h), ALPHA_PLAUSIBLE[0]), ALPHA_PLAUSIBLE[1])
-        aj = 2.0 * (lf.k_W_per_mK / alpha) / g.probe_C_J_per_m3K if g.probe_C_J_per_m3K else None
-        out.append(win.StepModel(alpha, g.probe_radius_m, aj, h, g.length_m, g.axial_m,
-                                 *_sample(rec, lf.k_W_per_mK)))
+    for alpha, rho_c, h in media:
+        aj = 2.0 * rho_c / g.probe_C_J_per_m3K if g.probe_C_J_per_m3K else None
+        out.append(win.StepModel(alpha, g.probe_radius_m, aj, h, g.length_m, g.axial_m, *_sample(rec, k)))
     return out
 
 
