@@ -220,7 +220,7 @@ QUICK_REFS = {"ln-dry-sand-600s", "ln-dry-clay-150s", "ln-agar-gel-bath-r25.4mm"
 PULSES = ("dn-pulse-", "dn-length-")   # heat pulses: heated for their planned time, no stop verdict
 
 
-def reference_cases() -> tuple[list[RefCase], list[str]]:
+def reference_cases(seeds: int = 1) -> tuple[list[RefCase], list[str]]:
     """The records with a stop verdict, and the names of the pulses left out."""
     try:
         from tests.reference import load, records
@@ -236,7 +236,8 @@ def reference_cases() -> tuple[list[RefCase], list[str]]:
         profile = load_probe_profile(rec.profile_path)
         if rec.family == "lab-needle-finite-sample":  # the lab knows its container
             profile = profile.in_sample(rec.params["grid"]["r_out_m"])
-        out.append(RefCase(name, rec, profile, sensor))
+        out += [RefCase(name if seed == 1 else f"{name} #{seed}", rec, profile, sensor, seed)
+                for seed in range(1, seeds + 1)]
     return out, pulses
 
 
@@ -355,6 +356,9 @@ def long_record(rows: int) -> None:
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--quick", action="store_true", help="a few records per set")
+    p.add_argument("--seeds", type=int, default=1,
+                   help="realisations of each reference record's instrument layer (default 1; more: a steadier "
+                        "|Δk| fraction)")
     p.add_argument("--tolerance", type=float, default=2.0, help="stop tolerance, %% (default 2)")
     p.add_argument("--rows", type=int, default=0, help="only time the verdict on one heating of this many samples")
     p.add_argument("--hindsight", action="store_true",
@@ -364,7 +368,7 @@ def main(argv: list[str] | None = None) -> int:
         long_record(args.rows)
         return 0
     tol = args.tolerance / 100.0
-    refs, pulses = reference_cases()
+    refs, pulses = reference_cases(args.seeds)
     if args.hindsight:
         hindsight_table([r for r in refs if r.name in QUICK_REFS] if args.quick else refs, tol)
         return 0

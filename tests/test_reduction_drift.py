@@ -68,3 +68,39 @@ def test_a_slope_that_is_only_noise_is_seldom_extrapolated() -> None:
     slope_u = 0.01 / np.sqrt(np.sum((t - t.mean()) ** 2))  # the least-squares slope's standard error
     drifting = 12.0 + 10 * slope_u * t + rng.normal(0, 0.01, t.size)
     assert fit_baseline(t, drifting).rate_K_per_s == pytest.approx(10 * slope_u, rel=0.4)
+
+
+def _white_plus_wander(rng: np.random.Generator, n: int, white: float, wander: float, phi: float) -> np.ndarray:
+    e = rng.normal(0.0, wander * np.sqrt(1 - phi * phi), n)
+    w = np.zeros(n)
+    w[0] = rng.normal(0.0, wander)
+    for i in range(1, n):
+        w[i] = phi * w[i - 1] + e[i]
+    return w + rng.normal(0.0, white, n)
+
+
+def test_a_slow_wander_under_white_noise_is_read_off_the_baseline() -> None:
+    # 3 mK white noise and a 2 mK AR(1) wander with φ = 0.9 (the reference records' instrument layer): the
+    # variance of a slope over a short window, w·T, from the baseline alone, against the definition wᵀΣw with
+    # Σ = σ²_e·I + σ²_w·φ^|i−j| (the AR(1) autocovariance, any time-series text), and against a Monte Carlo of it
+    from linerig.daemon.reduction.stats import ar1_inflation, lag1_autocorrelation, wander_variance
+
+    rng = np.random.default_rng(7)
+    tb = np.arange(-2000.0, 0.0)
+    base = _white_plus_wander(rng, tb.size, 3e-3, 2e-3, 0.9)
+    tw = np.arange(150.0, 250.0)  # a window a factor 1.7 long, after a gap
+    x = np.log(tw)
+    w = (x - x.mean()) / float((x - x.mean()) @ (x - x.mean()))  # the least-squares slope's weights
+    got = wander_variance(tb, base, tw, w)
+    lag = np.abs(tw[:, None] - tw[None, :])
+    exact = float(w @ ((3e-3) ** 2 * np.eye(tw.size) + (2e-3) ** 2 * 0.9**lag) @ w)
+    assert got is not None and got == pytest.approx(exact, rel=0.25)
+    # the lag-1 form read off the same baseline says far less (the error the wander term mends)
+    lag1 = float(w @ w) * float(base.var()) * ar1_inflation(lag1_autocorrelation(base - base.mean()))
+    assert lag1 < 0.6 * exact
+    mc = [float(w @ _white_plus_wander(rng, tw.size, 3e-3, 2e-3, 0.9)) for _ in range(400)]
+    assert float(np.var(mc)) == pytest.approx(exact, rel=0.2)
+    # white noise alone: no wander to be seen, or one that adds little
+    white = rng.normal(0.0, 3e-3, tb.size)
+    plain = wander_variance(tb, white, tw, w)
+    assert plain is None or plain < 1.3 * float(w @ w) * 9e-6

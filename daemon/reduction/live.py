@@ -24,7 +24,7 @@ from ..probe import ProbeProfile
 from . import window as win
 from .drift import Baseline, fit_baseline, no_baseline
 from .linesource import ALPHA_MIN, RHO_C_FLOOR
-from .stats import ar1_inflation, combine, lag1_autocorrelation
+from .stats import ar1_inflation, combine, lag1_autocorrelation, wander_inflation
 from .stop_rule import ProbeFacts, StopRule, StopSettings, Verdict
 from .superposition import log_time_regressor, power_steps
 
@@ -419,13 +419,14 @@ def _stop_rule(settings: StopSettings | None, probe: ProbeProfile | None, sensor
     drift_u = None
     if baseline is not None and baseline.present:
         drift_u = baseline.fitted_rate_u_K_per_s or baseline.rate_u_K_per_s
-    infl, noise = 1.0, (0.0, 0.0)
+    infl, noise, wander = 1.0, (0.0, 0.0), 1.0
     if base_t.size >= 3 and float(np.ptp(base_t)) > 0:
         resid = base_T - np.polyval(np.polyfit(base_t, base_T, 1), base_t)
         infl = ar1_inflation(lag1_autocorrelation(resid))
+        wander = wander_inflation(base_t, resid)  # a slow wander under white noise, where the baseline shows one
         noise = (float(resid @ resid) / (base_t.size - 2), float(base_t.size - 2))
     return StopRule(ProbeFacts.of(probe, sensor), settings, drift_u, q_W_per_m, settings.planned_heat_s,
-                    calibration_factor, infl, noise, defer)
+                    calibration_factor, infl, noise, defer, wander_infl=wander)
 
 
 def _heating_rows(t_s: np.ndarray, q_W_per_m: np.ndarray) -> tuple[int, int]:

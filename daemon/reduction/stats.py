@@ -34,61 +34,60 @@ def ar1_inflation(rho: float) -> float:
     return (1.0 + rho) / (1.0 - rho)
 
 
-# Lags of a baseline's long-run variance (``long_run_inflation``): a wander correlated over ten samples (the reference
-# records' instrument layer, φ = 0.9) needs about twice that (no source); used from 80 baseline samples on.
-WANDER_LAGS = 20
+MIN_WANDER_SAMPLES = 80  # a baseline shorter than this says too little about a slow wander (no source)
 
 
-def long_run_inflation(t: np.ndarray, resid: np.ndarray, lags: int) -> float:
-    """Variance factor n/n_eff from the long-run variance of residuals (linear trend removed), Bartlett-weighted
-    autocovariances up to ``lags`` (Newey & West 1987). Unlike the lag-1 AR(1) form it sees a slow wander under
-    white noise: 3 mK white with a 2 mK wander of φ = 0.9 has a lag-1 correlation of 0.27 (factor 1.8) but a
-    long-run factor near 6.5."""
-    r = np.asarray(resid, dtype=float)
-    if r.size < 2 * lags + 2:
-        return 1.0
-    r = r - np.polyval(np.polyfit(np.asarray(t, dtype=float), r, 1), t)
-    g0 = float(r @ r) / r.size
-    if g0 <= 0:
-        return 1.0
-    lrv = g0 + 2.0 * sum((1.0 - lag / (lags + 1)) * float(r[:-lag] @ r[lag:]) / r.size for lag in range(1, lags + 1))
-    return max(lrv / g0, 1.0)
-
-
-def wander_variance(t_base: np.ndarray, resid_base: np.ndarray, t_rows: np.ndarray, w: np.ndarray) -> float | None:
-    """Var(w·T) under white noise plus an AR(1) wander, both read off the baseline's residuals (trend removed).
+def wander_model(t_base: np.ndarray, resid_base: np.ndarray) -> tuple[float, float, float, float] | None:
+    """White noise plus an AR(1) wander read off a baseline's residuals (trend removed): (σ²_e, σ²_w, φ, dt).
 
     The wander's lag-l autocovariance is σ²_w·φ^l and white noise adds only at lag 0, so φ = (γ2 + γ3)/(γ1 + γ2)
-    and σ²_w = γ1/φ; the rest of γ0 is white. Between rows the wander's correlation is φ^(Δt/dt), so gaps (the
-    baseline, then the window) count as they are. Exact for the estimator's own rows (a short window keeps more of a
-    wander than its lag-1 correlation says). None: too short a baseline or no wander to be seen."""
+    and σ²_w = γ1/φ; the rest of γ0 is white. None: too short a baseline, or no wander to be seen."""
     tb = np.asarray(t_base, dtype=float)
     r = np.asarray(resid_base, dtype=float)
-    if r.size < 4 * WANDER_LAGS:
+    if r.size < MIN_WANDER_SAMPLES:
         return None
     r = r - np.polyval(np.polyfit(tb, r, 1), tb)
     g = [float(r[: r.size - lag] @ r[lag:]) / r.size for lag in range(4)]
-    if not (g[1] > 0 and g[2] > 0 and g[1] + g[2] > 0):
+    if not (g[1] > 0 and g[2] > 0):
         return None
     phi = min(max((g[2] + g[3]) / (g[1] + g[2]), 0.0), 0.98)
-    if phi <= 0:
+    dt = float(np.median(np.diff(tb)))
+    if phi <= 0 or not dt > 0:
         return None
     var_w = min(g[1] / phi, g[0])
-    var_e = g[0] - var_w
-    dt = float(np.median(np.diff(tb)))
+    return g[0] - var_w, var_w, phi, dt
+
+
+def wander_inflation(t_base: np.ndarray, resid_base: np.ndarray) -> float:
+    """The long-run variance factor of that noise, (σ²_e + σ²_w·(1 + φ)/(1 − φ))/(σ²_e + σ²_w): what a slope over
+    a window much longer than the wander's correlation sees (shorter windows see less: an upper bound)."""
+    m = wander_model(t_base, resid_base)
+    if m is None:
+        return 1.0
+    var_e, var_w, phi, _ = m
+    return max((var_e + var_w * (1 + phi) / (1 - phi)) / (var_e + var_w), 1.0)
+
+
+def wander_variance(t_base: np.ndarray, resid_base: np.ndarray, t_rows: np.ndarray, w: np.ndarray) -> float | None:
+    """Var(w·T) under the baseline's white noise and wander (``wander_model``), rows at ``t_rows``.
+
+    Between rows the wander's correlation is φ^(Δt/dt), so gaps (the baseline, then the window) count as they
+    are. Exact for the estimator's own rows: a short window keeps more of a wander than its lag-1 correlation
+    says. None: no wander model."""
+    m = wander_model(t_base, resid_base)
     w = np.asarray(w, dtype=float)
-    if not dt > 0 or w.size == 0:
+    if m is None or w.size == 0:
         return None
+    var_e, var_w, phi, dt = m
     # on the baseline's sample grid (gaps as zeros): s_i = Σ_{j<i} w_j·φ^(i−j) = φ·(s_{i−1} + w_{i−1})
     idx = np.rint((np.asarray(t_rows, dtype=float) - float(np.min(t_rows))) / dt).astype(np.int64)
-    if idx[-1] > 2_000_000:
+    if idx.max() > 2_000_000:
         return None
     grid = np.zeros(int(idx.max()) + 1)
     np.add.at(grid, idx, w)
     s = lfilter([0.0, phi], [1.0, -phi], grid)
-    cross = float(grid @ s)
     ww = float(grid @ grid)
-    return var_e * ww + var_w * (ww + 2.0 * cross)
+    return var_e * ww + var_w * (ww + 2.0 * float(grid @ s))
 
 
 @dataclass(frozen=True)

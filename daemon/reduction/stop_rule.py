@@ -513,6 +513,7 @@ class _Context:
     k_scale: float = 1.0              # calibration factor applied to the k the verdict quotes
     noise_infl: float = 1.0           # variance inflation for correlated noise, from the baseline's residuals
     noise: tuple[float, float] = (0.0, 0.0)  # the baseline's residual variance (K²) and its degrees of freedom
+    wander_infl: float = 1.0          # a slow wander's long-run factor (``stats.wander_inflation``): the slope only
 
 
 def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: np.ndarray | None = None,
@@ -570,7 +571,10 @@ def judge(all_bins: _Bins, first: int, t0: float, t1: float, ctx: _Context, h0: 
         return no_h("too few samples yet to tell the noise")
     infl = ctx.noise_infl
     var_eff = (w_resid + base_var * base_dof) / dof * infl + (MISFIT * line.a) ** 2
-    stat = math.sqrt(max(var_eff * (1.0 / sxx_t + 1.0 / sxx_T - 2.0 * cross), 0.0)) / line.a
+    # the slopes now and at T scatter with the wander too (the shapes above are judged on the lag-1 noise: a
+    # wander is smooth, it bends no line into a transient's shape)
+    var_slope = var_eff + max(ctx.wander_infl / infl - 1.0, 0.0) * (var_eff - (MISFIT * line.a) ** 2)
+    stat = math.sqrt(max(var_slope * (1.0 / sxx_t + 1.0 / sxx_T - 2.0 * cross), 0.0)) / line.a
     drift = ctx.drift_u_K_per_s * abs(tilt_T - tilt_t) / max(ctx.q_W_per_m, 1e-12) / line.a if t < T else 0.0
     noise = COVERAGE * math.hypot(stat, drift)
     if noise > tol:  # noise and drift alone rule it out: the media are not worth judging yet
@@ -684,13 +688,14 @@ class StopRule:
     def __init__(self, probe: ProbeFacts, settings: StopSettings, drift_u_K_per_s: float | None,
                  q_W_per_m: float, planned_heat_s: float, calibration_factor: float = 1.0,
                  noise_infl: float = 1.0, noise: tuple[float, float] = (0.0, 0.0),
-                 defer: Callable[[Callable[[], None]], None] | None = None) -> None:
+                 defer: Callable[[Callable[[], None]], None] | None = None, wander_infl: float = 1.0) -> None:
         """``noise``: the baseline's residual variance (K²) and degrees of freedom; ``noise_infl`` its AR(1)
-        variance inflation. ``defer``: runs each checkpoint's judgement later, in order (the daemon hands them to
-        a worker thread so the loop never waits); the verdict is then the same, only known a little later."""
+        variance inflation, ``wander_infl`` a slow wander's long-run one (the slopes' scatter). ``defer``: runs
+        each checkpoint's judgement later, in order (the daemon hands them to a worker thread so the loop never
+        waits); the verdict is then the same, only known a little later."""
         self._defer = defer
         self.ctx = _Context(probe, settings, planned_heat_s, drift_u_K_per_s, q_W_per_m, calibration_factor,
-                            noise_infl, noise)
+                            noise_infl, noise, wander_infl)
         self._total = np.zeros(_COLS)
         self._prev: tuple[float, float] | None = None
         self._cp_t: list[float] = []            # checkpoint sample times
