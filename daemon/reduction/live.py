@@ -301,6 +301,7 @@ class LiveReducer:
         if got is None:
             return None
         fit, i, j, alpha, criterion_met = got
+        t_wall = math.inf
         if self.sample_radius_m and fit[0] > 0:  # a sample's face: the offline window's end, bent or not
             t_wall = win.wall_end_s(self.sample_radius_m, win.wall_alpha(1.0 / (4.0 * math.pi * fit[0]),
                                                                           RHO_C_FLOOR) or 0.0,
@@ -312,7 +313,7 @@ class LiveReducer:
                 fit, i, j, alpha, criterion_met = cut
         if alpha and self.length_m and j - i >= 8:
             rel_curv, z_curv = self._curvature(i, j, fit[0])
-            t_ax = win.axial_end_s(self.length_m, alpha, END_TOL, self.axial_m)
+            t_ax = min(win.axial_end_s(self.length_m, alpha, END_TOL, self.axial_m), t_wall)  # never past the face
             if abs(rel_curv) > TREND_TOL and z_curv > 3.0 and t_ax < t_now:
                 cut = self._fit_to(t_ax, alpha)
                 if cut is not None:

@@ -50,7 +50,7 @@ def wander_model(t_base: np.ndarray, resid_base: np.ndarray) -> tuple[float, flo
     g = [float(r[: r.size - lag] @ r[lag:]) / r.size for lag in range(4)]
     if not (g[1] > 0 and g[2] > 0):
         return None
-    phi = min(max((g[2] + g[3]) / (g[1] + g[2]), 0.0), 0.98)
+    phi = min(max((g[2] + g[3]) / (g[1] + g[2]), 0.0), RHO_MAX)
     dt = float(np.median(np.diff(tb)))
     if phi <= 0 or not dt > 0:
         return None
