@@ -96,7 +96,7 @@ def fit_baseline(t: np.ndarray, temp_C: np.ndarray) -> Baseline:
     infl = ar1_inflation(lag1_autocorrelation(resid))
     cov = np.linalg.inv(A.T @ A) * s2 * infl
     wander = wander_variance(t, resid, t, np.linalg.pinv(A)[1])  # a slow wander moves the rate more than lag 1 says
-    if wander is not None and not __import__("os").environ.get("NOBW"):
+    if wander is not None:
         cov[1, 1] = max(float(cov[1, 1]), wander)
     quad, quad_z = 0.0, 0.0
     if n >= 8:

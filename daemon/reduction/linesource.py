@@ -26,12 +26,10 @@ SHORT_SPAN_LN = math.log(2.0)  # window shorter than a factor 2 in time (common 
 MIN_POINTS = 20
 END_FLOOR = 0.3        # the axial limit never cuts more than 70 % of the heating (then residual_trend tells)
 ALPHA_MIN, ALPHA_MAX = 1e-9, 1e-4   # plausible diffusivities for any ground or reference medium (m²/s)
-# The lowest volumetric heat capacity a sample is taken to have when its outer face is judged (α ≤ k/ρc_min): dry
-# sand ≈ 1.3 MJ/(m³·K) (de Vries 1963), 1.0 leaves room below it (the stop rule's lowest medium; no source).
-RHO_C_FLOOR = 1.0e6
 # The media a probe meets: dry sand ≈ 1.3, moist soils 2–3 MJ/(m³·K) (de Vries 1963), water 4.18 (IAPWS-95);
-# the window's model-error term and the stop rule weigh the media in this range (1.0 leaves room below dry sand,
-# common practice, no source).
+# 1.0 leaves room below dry sand (common practice, no source). The window's model-error term and the stop rule
+# weigh the media in this range; a sample's outer face is judged with α = k/RHO_C_FLOOR, the largest it can be.
+RHO_C_FLOOR = 1.0e6
 RHO_C_LIMITS = (RHO_C_FLOOR, 4.2e6)
 
 
