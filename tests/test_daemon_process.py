@@ -434,7 +434,7 @@ async def test_an_unhandled_error_turns_the_heater_off_and_stops_the_daemon(tmp_
     sim = Sim(tmp_path, speed=20)
     store = Store(tmp_path / "r.db")
     svc = RigService(DaemonSettings(frontend_url=sim.frontend, probe=load_default_probe()), store, Hub())
-    svc.reducer_factory = lambda sensor, *calibration: lambda stop: ExplodingReducer()  # type: ignore[method-assign]
+    svc.reducer_factory = lambda sensor, *calibration, **probe: lambda stop: ExplodingReducer()  # type: ignore[method-assign]
     await svc.start()
     try:
         for _ in range(500):
