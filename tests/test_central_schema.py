@@ -105,7 +105,8 @@ def test_upgrade_from_an_earlier_central_version(two_rigs: tuple[Path, Path], pg
     reader = old.role("office", "linerig_reader")
     first = synced(north, url_n)  # a push needs nothing newer than version 1
     assert first["central_version"] == 2
-    assert first["in_extra"] == {"runs": ["frontend_model", "frontend_serial", "frontend_firmware"]}
+    assert first["in_extra"] == {"runs": ["frontend_model", "frontend_serial", "frontend_firmware",
+                                          "sample_radius_m"]}  # and the sample's radius (local schema 8)
     assert first["not_carried"] == ["spacing_calibrations"]  # named, kept on the rig, carried after the upgrade
     store_n, _ = identity(north)
 

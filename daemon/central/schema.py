@@ -225,10 +225,22 @@ CREATE INDEX spacing_calibrations_probe ON linerig.spacing_calibrations (probe_s
     _insert_policy(cur, "spacing_calibrations")
 
 
-MIGRATIONS: list[Callable[[psycopg.Cursor[Any]], None]] = [_v1, _v2, _v3, _v4]
+def _v5(cur: psycopg.Cursor[Any]) -> None:
+    """The radius of a lab run's sample (local schema 8) as a column of runs; what rigs pushed before, in each
+    row's extra, moved into it."""
+    cur.execute("ALTER TABLE linerig.runs ADD COLUMN sample_radius_m double precision")
+    cur.execute("UPDATE linerig.runs SET sample_radius_m = (extra ->> 'sample_radius_m')::double precision, "
+                "extra = nullif(extra - 'sample_radius_m', '{}'::jsonb) WHERE extra ? 'sample_radius_m'")
+    cur.execute("DROP VIEW linerig.run_list")
+    cur.execute(_RUN_LIST)
+    cur.execute(sql.SQL("GRANT SELECT ON linerig.run_list TO {}, {}").format(sql.Identifier(RIG_ROLE),
+                                                                             sql.Identifier(READER_ROLE)))
+
+
+MIGRATIONS: list[Callable[[psycopg.Cursor[Any]], None]] = [_v1, _v2, _v3, _v4, _v5]
 CENTRAL_VERSION = len(MIGRATIONS)
 # the oldest linerig (by its CENTRAL_VERSION) whose pushes a database at each version still accepts
-WRITER_MIN = {1: 1, 2: 1, 3: 1, 4: 1}
+WRITER_MIN = {1: 1, 2: 1, 3: 1, 4: 1, 5: 1}
 
 
 def _read_version(cur: psycopg.Cursor[Any]) -> tuple[int, int] | None:
