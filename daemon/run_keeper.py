@@ -234,7 +234,7 @@ class RunKeeper:
         rig.begin_run_samples()
         self._pulse_next_t = self._pulse_next_wall = 0.0
         self.calibration, cal_event = self._probe_calibration()
-        in_sample = rig.s.probe.in_sample(fields.get("sample_radius_m"))  # checked in start_run
+        in_sample = rig.s.probe.in_sample(fields.get("sample_radius_m"))  # checked when the run or series started
         # a pulse has no live line fit and so no "heating can stop" verdict: it heats for its planned time
         self.run = RunController(run_id, plan, _Actions(self, run_id), sensor_index=names.index(plan.sensor),
                                  reducer_factory=None if plan.pulse else rig.reducer_factory(
